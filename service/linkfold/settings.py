@@ -1,0 +1,157 @@
+"""Settings as data.
+
+One declarative table, :data:`SETTINGS`, names every setting with its default, type and help. Values come
+from, in order of precedence: explicit overrides (CLI options such as ``--db``), environment variables
+``LINKFOLD_<NAME>``, then the default. The CLI, the docs (``linkfold settings``) and a test that every
+setting is documented all read this table; nothing else in the package reads ``os.environ``.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from typing import Any
+
+from .errors import ConfigError
+
+DEFAULT_DATABASE_FILE = "linkfold.db"
+
+
+@dataclass(frozen=True)
+class Setting:
+    name: str
+    default: Any
+    type: Callable[[str], Any]
+    help: str
+
+    @property
+    def env(self) -> str:
+        return "LINKFOLD_" + self.name.upper()
+
+
+def _bool(text: str) -> bool:
+    low = text.strip().lower()
+    if low in {"1", "true", "yes", "on"}:
+        return True
+    if low in {"0", "false", "no", "off", ""}:
+        return False
+    raise ValueError(f"not a boolean: {text!r}")
+
+
+def _csv(text: str) -> tuple[str, ...]:
+    return tuple(part.strip() for part in text.split(",") if part.strip())
+
+
+def _positive_int(text: str) -> int:
+    value = int(text)
+    if value <= 0:
+        raise ValueError("must be a positive integer")
+    return value
+
+
+def _unit_float(text: str) -> float:
+    value = float(text)
+    if not 0.0 <= value <= 1.0:
+        raise ValueError("must be between 0 and 1")
+    return value
+
+
+def _nonneg_float(text: str) -> float:
+    value = float(text)
+    if value < 0:
+        raise ValueError("must not be negative")
+    return value
+
+
+SETTINGS: tuple[Setting, ...] = (
+    Setting("database_url", f"sqlite:///{DEFAULT_DATABASE_FILE}", str,
+            "SQLAlchemy URL of the registry: sqlite:///path.db (default: linkfold.db in the current "
+            "directory) or postgresql+psycopg://user@host/dbname for a lab server."),
+    Setting("batch_size", 5000, _positive_int,
+            "Rows written per transaction by bulk stages; a crash loses at most the batch in flight."),
+    Setting("canon_cache_size", 65536, _positive_int,
+            "Entries in the canonicaliser's LRU cache (panels repeat the same URLs heavily)."),
+    Setting("contact", "", str,
+            "Contact address (mail or URL) put in the User-Agent of every request, so site operators can "
+            "reach the lab. Required before fetching or following links."),
+    Setting("allow_networks", (), _csv,
+            "Comma-separated CIDR networks the HTTP client may connect to although they are private, "
+            "loopback or reserved (default: none; request-forgery guard)."),
+    Setting("http_timeout", 15.0, _nonneg_float, "Seconds before a single HTTP request is given up."),
+    Setting("http_max_bytes", 5_000_000, _positive_int, "Largest response body read, in bytes."),
+    Setting("http_concurrency", 16, _positive_int, "Requests in flight at once, all hosts together."),
+    Setting("http_host_concurrency", 2, _positive_int, "Requests in flight at once to one host."),
+    Setting("http_host_delay", 1.0, _nonneg_float, "Seconds between two requests to the same host."),
+    Setting("http_retries", 3, int, "Retries on 429/503 and connection errors, with jittered backoff."),
+    Setting("max_hops", 10, _positive_int, "Redirect hops followed before a chain counts as too long."),
+    Setting("shingle_size", 5, _positive_int, "Words per shingle for near-duplicate signatures."),
+    Setting("num_perm", 128, _positive_int, "MinHash permutations per signature."),
+    Setting("minhash_seed", 1, int, "Seed of the MinHash permutations (stored with every signature)."),
+    Setting("lsh_bands", 32, _positive_int, "LSH bands; num_perm must be a multiple of it."),
+    Setting("article_threshold", 0.9, _unit_float,
+            "Estimated Jaccard at or above which two same-outlet documents are one article."),
+    Setting("story_threshold", 0.5, _unit_float,
+            "Estimated Jaccard at or above which two documents on different outlets are one story."),
+    Setting("open_reads", False, _bool, "Let the HTTP API answer reads without a token."),
+)
+
+_BY_NAME = {s.name: s for s in SETTINGS}
+
+
+class Settings(Mapping[str, Any]):
+    """Resolved settings: read like a mapping or by attribute (``settings.database_url``)."""
+
+    def __init__(self, values: Mapping[str, Any]) -> None:
+        self._values = dict(values)
+
+    def __getitem__(self, key: str) -> Any:
+        return self._values[key]
+
+    def __getattr__(self, key: str) -> Any:
+        try:
+            return self._values[key]
+        except KeyError:
+            raise AttributeError(key) from None
+
+    def __iter__(self):
+        return iter(self._values)
+
+    def __len__(self) -> int:
+        return len(self._values)
+
+    def replace(self, **overrides: Any) -> Settings:
+        unknown = set(overrides) - set(_BY_NAME)
+        if unknown:
+            raise ConfigError(f"unknown setting(s): {', '.join(sorted(unknown))}")
+        return Settings({**self._values, **overrides})
+
+
+def load_settings(overrides: Mapping[str, Any] | None = None,
+                  environ: Mapping[str, str] | None = None) -> Settings:
+    """Resolve every setting. ``overrides`` with value ``None`` are ignored (an unset CLI option)."""
+    env = os.environ if environ is None else environ
+    values: dict[str, Any] = {}
+    for setting in SETTINGS:
+        raw = env.get(setting.env)
+        if raw is None:
+            values[setting.name] = setting.default
+            continue
+        try:
+            values[setting.name] = setting.type(raw)
+        except (TypeError, ValueError) as exc:
+            raise ConfigError(f"{setting.env}={raw!r} is not valid: {exc}") from None
+    for key, value in (overrides or {}).items():
+        if key not in _BY_NAME:
+            raise ConfigError(f"unknown setting: {key}")
+        if value is not None:
+            values[key] = value
+    if values["num_perm"] % values["lsh_bands"]:
+        raise ConfigError(f"num_perm ({values['num_perm']}) must be a multiple of lsh_bands "
+                          f"({values['lsh_bands']})")
+    return Settings(values)
+
+
+def describe_settings() -> list[dict[str, Any]]:
+    """The table as plain rows, for ``linkfold settings`` and the docs."""
+    return [{"name": s.name, "env": s.env, "default": s.default, "help": s.help} for s in SETTINGS]

@@ -1,0 +1,156 @@
+"""Every table of the registry, as SQLAlchemy Core definitions.
+
+Alembic owns the schema (``migrations/``); these definitions are what the code queries with, and a test
+checks that a database migrated to head matches them column for column. Change both together.
+
+Conventions: integer surrogate keys named ``id``; times are timezone-aware UTC; nothing in the
+append-only tables (raw URLs, sightings, rejects, canonical URLs, changes) is ever updated in place
+except the ``current`` pointers that say which row is in force.
+"""
+
+from __future__ import annotations
+
+import sqlalchemy as sa
+
+NAMING = {
+    "ix": "ix_%(column_0_label)s",
+    "uq": "uq_%(table_name)s_%(column_0_N_name)s",
+    "ck": "ck_%(table_name)s_%(constraint_name)s",
+    "fk": "fk_%(table_name)s_%(column_0_name)s_%(referred_table_name)s",
+    "pk": "pk_%(table_name)s",
+}
+
+metadata = sa.MetaData(naming_convention=NAMING)
+
+UTC = sa.DateTime(timezone=True)
+
+# --- runs ---------------------------------------------------------------------------------------------
+runs = sa.Table(
+    "runs", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("stage", sa.String(40), nullable=False),
+    sa.Column("status", sa.String(20), nullable=False),  # running | ok | failed | interrupted
+    sa.Column("parent_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    sa.Column("started_at", UTC, nullable=False),
+    sa.Column("finished_at", UTC, nullable=True),
+    sa.Column("counts", sa.JSON, nullable=True),
+    sa.Column("error", sa.Text, nullable=True),
+    sa.Column("host", sa.String(255), nullable=True),
+    sa.Column("pid", sa.Integer, nullable=True),
+    sa.Index("ix_runs_stage_started", "stage", "started_at"),
+)
+
+# --- rulesets -----------------------------------------------------------------------------------------
+rulesets = sa.Table(
+    "rulesets", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),  # the ruleset version: 1, 2, 3 … in order of storing
+    sa.Column("name", sa.String(200), nullable=False),
+    sa.Column("digest", sa.String(64), nullable=False, unique=True),  # SHA-256 of source + canon version
+    sa.Column("source", sa.Text, nullable=False),  # the TOML text as stored, so a version can be re-read
+    sa.Column("canon_version", sa.String(40), nullable=False),
+    sa.Column("psl_version", sa.String(40), nullable=False),
+    sa.Column("created_at", UTC, nullable=False),
+)
+
+# --- datasets and their files -------------------------------------------------------------------------
+datasets = sa.Table(
+    "datasets", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("name", sa.String(200), nullable=False, unique=True),
+    sa.Column("description", sa.Text, nullable=True),
+    sa.Column("ruleset_id", sa.Integer, sa.ForeignKey("rulesets.id"), nullable=True),
+    sa.Column("created_at", UTC, nullable=False),
+)
+
+dataset_files = sa.Table(
+    "dataset_files", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("dataset_id", sa.Integer, sa.ForeignKey("datasets.id"), nullable=False),
+    sa.Column("file_name", sa.Text, nullable=False),
+    sa.Column("sha256", sa.String(64), nullable=False),
+    sa.Column("size_bytes", sa.BigInteger, nullable=False),
+    sa.Column("format", sa.String(20), nullable=False),
+    sa.Column("options", sa.JSON, nullable=True),  # url/key/time columns as given
+    sa.Column("status", sa.String(20), nullable=False),  # loading | complete
+    sa.Column("ruleset_id", sa.Integer, sa.ForeignKey("rulesets.id"), nullable=True),
+    sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    sa.Column("rows", sa.BigInteger, nullable=False, server_default="0"),
+    sa.Column("sightings", sa.BigInteger, nullable=False, server_default="0"),
+    sa.Column("rejects", sa.BigInteger, nullable=False, server_default="0"),
+    sa.Column("started_at", UTC, nullable=False),
+    sa.Column("loaded_at", UTC, nullable=True),
+    sa.UniqueConstraint("dataset_id", "sha256"),
+)
+
+# --- URLs -----------------------------------------------------------------------------------------------
+canonical_urls = sa.Table(
+    "canonical_urls", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("url_key", sa.String(32), nullable=False, unique=True),
+    sa.Column("url", sa.Text, nullable=False),
+    sa.Column("host", sa.String(255), nullable=False),
+    sa.Column("domain", sa.String(255), nullable=True),  # registered domain (Public Suffix List)
+    sa.Column("outlet", sa.String(255), nullable=True),
+    sa.Column("is_article", sa.Boolean, nullable=True),
+    sa.Column("ruleset_id", sa.Integer, sa.ForeignKey("rulesets.id"), nullable=True),  # first producer
+    sa.Column("created_at", UTC, nullable=False),
+    sa.Index("ix_canonical_urls_domain", "domain"),
+    sa.Index("ix_canonical_urls_host", "host"),
+)
+
+raw_urls = sa.Table(
+    "raw_urls", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("raw_hash", sa.String(64), nullable=False, unique=True),  # SHA-256 hex of the UTF-8 text
+    sa.Column("raw", sa.Text, nullable=False),
+    # The canonical URL in force and the ruleset that produced it; NULL with ``error`` for unparsable.
+    sa.Column("canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=True),
+    sa.Column("ruleset_id", sa.Integer, sa.ForeignKey("rulesets.id"), nullable=True),
+    sa.Column("error", sa.String(40), nullable=True),
+    sa.Column("created_at", UTC, nullable=False),
+    sa.Index("ix_raw_urls_canonical_id", "canonical_id"),
+)
+
+# Old→new mapping written when a raw URL is re-canonicalised under a newer ruleset.
+canon_changes = sa.Table(
+    "canon_changes", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("raw_url_id", sa.Integer, sa.ForeignKey("raw_urls.id"), nullable=False),
+    sa.Column("old_canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=True),
+    sa.Column("new_canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=True),
+    sa.Column("ruleset_id", sa.Integer, sa.ForeignKey("rulesets.id"), nullable=False),
+    sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    sa.Column("changed_at", UTC, nullable=False),
+    sa.Index("ix_canon_changes_raw_url_id", "raw_url_id"),
+)
+
+# --- sightings and rejects ------------------------------------------------------------------------------
+sightings = sa.Table(
+    "sightings", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("dataset_id", sa.Integer, sa.ForeignKey("datasets.id"), nullable=False),
+    sa.Column("file_id", sa.Integer, sa.ForeignKey("dataset_files.id"), nullable=False),
+    sa.Column("line_no", sa.BigInteger, nullable=False),
+    sa.Column("position", sa.Integer, nullable=False),  # n-th URL of the row, from 0
+    sa.Column("row_key", sa.Text, nullable=False),
+    sa.Column("seen_at", UTC, nullable=True),
+    sa.Column("raw_url_id", sa.Integer, sa.ForeignKey("raw_urls.id"), nullable=False),
+    sa.UniqueConstraint("file_id", "line_no", "position"),
+    sa.Index("ix_sightings_dataset_id", "dataset_id"),
+    sa.Index("ix_sightings_raw_url_id", "raw_url_id"),
+)
+
+rejects = sa.Table(
+    "rejects", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("dataset_id", sa.Integer, sa.ForeignKey("datasets.id"), nullable=False),
+    sa.Column("file_id", sa.Integer, sa.ForeignKey("dataset_files.id"), nullable=False),
+    sa.Column("line_no", sa.BigInteger, nullable=False),
+    sa.Column("position", sa.Integer, nullable=False),  # -1: the whole row
+    sa.Column("reason", sa.String(40), nullable=False),
+    sa.Column("detail", sa.Text, nullable=True),
+    sa.Column("excerpt", sa.Text, nullable=True),  # at most a few hundred characters of the input
+    sa.Column("raw_url_id", sa.Integer, sa.ForeignKey("raw_urls.id"), nullable=True),
+    sa.UniqueConstraint("file_id", "line_no", "position"),
+    sa.Index("ix_rejects_dataset_id", "dataset_id"),
+)
