@@ -1,7 +1,7 @@
 """core tables: runs, rulesets, datasets, files, URLs, sightings, rejects
 
 Revision ID: 0001
-Revises: 
+Revises: (none)
 Create Date: 2026-12-01 21:59:18.866107
 """
 
@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import sqlalchemy as sa
 from alembic import op
-
 
 revision = '0001'
 down_revision = None
