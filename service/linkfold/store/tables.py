@@ -77,6 +77,8 @@ dataset_files = sa.Table(
     sa.Column("rows", sa.BigInteger, nullable=False, server_default="0"),
     sa.Column("sightings", sa.BigInteger, nullable=False, server_default="0"),
     sa.Column("rejects", sa.BigInteger, nullable=False, server_default="0"),
+    # Last input line covered by committed batches (migration 0003): where a resumed load picks up.
+    sa.Column("lines_done", sa.BigInteger, nullable=False, server_default="0"),
     sa.Column("started_at", UTC, nullable=False),
     sa.Column("loaded_at", UTC, nullable=True),
     sa.UniqueConstraint("dataset_id", "sha256"),
@@ -153,4 +155,5 @@ rejects = sa.Table(
     sa.Column("raw_url_id", sa.Integer, sa.ForeignKey("raw_urls.id"), nullable=True),
     sa.UniqueConstraint("file_id", "line_no", "position"),
     sa.Index("ix_rejects_dataset_id", "dataset_id"),
+    sa.Index("ix_rejects_dataset_reason", "dataset_id", "reason"),  # migration 0003
 )
