@@ -1,0 +1,46 @@
+"""The README/CI contract and the demo, checked as a newcomer would meet them."""
+
+from __future__ import annotations
+
+import re
+import subprocess
+import sys
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _readme_commands() -> list[str]:
+    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    section = text.split("## The two commands", 1)[1].split("\n## ", 1)[0]
+    return re.findall(r"```sh\n(.+?)\n```", section, flags=re.S)
+
+
+def test_readme_opens_with_the_job_and_gives_two_commands():
+    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    first_paragraph = text.split("\n\n", 2)[1]
+    assert "linkfold" in first_paragraph and "stable" in first_paragraph
+    demo, tests = _readme_commands()
+    assert "linkfold demo" in demo
+    assert "[test]" in tests and "pytest" in tests
+
+
+def test_ci_runs_exactly_the_readme_test_command():
+    ci = (ROOT / ".ci" / "run").read_text(encoding="utf-8")
+    block = ci.split("# >>> README test command", 1)[1].split("# <<< README test command", 1)[0]
+    ci_command = [ln for ln in block.splitlines() if ln.strip() and not ln.startswith("#")][-1].strip()
+    assert ci_command == _readme_commands()[1].strip()
+
+
+def test_readme_carries_the_personal_data_cautions():
+    text = " ".join((ROOT / "README.md").read_text(encoding="utf-8").lower().split())
+    for phrase in ("personal data", "data protection", "ethics", "pseudonymised", "robots.txt", "terms"):
+        assert phrase in text, phrase
+
+
+def test_demo_runs_in_a_fresh_folder(tmp_path):
+    proc = subprocess.run([sys.executable, "-m", "linkfold.cli", "demo", "--workdir", str(tmp_path / "d")],
+                          capture_output=True, text=True, cwd=tmp_path, timeout=600)
+    assert proc.returncode == 0, proc.stderr
+    assert "registry:" in proc.stdout
+    assert (tmp_path / "d" / "demo.db").is_file()
