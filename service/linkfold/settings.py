@@ -84,6 +84,9 @@ SETTINGS: tuple[Setting, ...] = (
     Setting("http_host_concurrency", 2, _positive_int, "Requests in flight at once to one host."),
     Setting("http_host_delay", 1.0, _nonneg_float, "Seconds between two requests to the same host."),
     Setting("http_retries", 3, int, "Retries on 429/503 and connection errors, with jittered backoff."),
+    Setting("http_max_wait", 60.0, _nonneg_float,
+            "Longest wait, in seconds, before one retry; a Retry-After asking for more ends the attempt "
+            "(the URL is then due again after that time, for --retry-failed)."),
     Setting("max_hops", 10, _positive_int, "Redirect hops followed before a chain counts as too long."),
     Setting("shingle_size", 5, _positive_int, "Words per shingle for near-duplicate signatures."),
     Setting("num_perm", 128, _positive_int, "MinHash permutations per signature."),
