@@ -157,3 +157,58 @@ rejects = sa.Table(
     sa.Index("ix_rejects_dataset_id", "dataset_id"),
     sa.Index("ix_rejects_dataset_reason", "dataset_id", "reason"),  # migration 0003
 )
+
+# --- evidence and link following (migration 0004) -------------------------------------------------------
+# One row per piece of evidence that two canonical URLs are the same thing. ``kind`` is ``redirect``
+# (written by ``linkfold follow``); later stages add ``declared``, ``same_text``, ``similar_text``,
+# ``manual``. Rows are never updated or deleted.
+links = sa.Table(
+    "links", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("kind", sa.String(20), nullable=False),
+    sa.Column("src_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("dst_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("status", sa.Integer, nullable=True),  # HTTP status of a redirect hop
+    sa.Column("hop", sa.Integer, nullable=True),  # 1-based position of the hop in its chain
+    sa.Column("source", sa.String(255), nullable=True),  # fetched | import:<file name>
+    sa.Column("detail", sa.JSON, nullable=True),
+    sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    sa.Column("created_at", UTC, nullable=False),
+    sa.Index("ix_links_src_id", "src_id"),
+    sa.Index("ix_links_dst_id", "dst_id"),
+    sa.Index("ix_links_kind", "kind"),
+)
+
+# The latest follow outcome per canonical URL (updated in place); its history is ``follow_attempts``.
+follow_results = sa.Table(
+    "follow_results", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False, unique=True),
+    sa.Column("state", sa.String(20), nullable=False),  # resolved | failed | refused
+    sa.Column("failure", sa.String(30), nullable=True),  # dns, timeout, http_4xx … (docs/following.md)
+    sa.Column("http_status", sa.Integer, nullable=True),
+    sa.Column("final_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=True),
+    sa.Column("hops", sa.Integer, nullable=True),
+    sa.Column("via", sa.String(20), nullable=False),  # fetched | chain | imported
+    sa.Column("attempts", sa.Integer, nullable=False),
+    sa.Column("first_attempt_at", UTC, nullable=False),
+    sa.Column("last_attempt_at", UTC, nullable=False),
+    sa.Column("next_attempt_at", UTC, nullable=True),  # when --retry-failed may try again
+    sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    sa.Index("ix_follow_results_state_next", "state", "next_attempt_at"),
+)
+
+follow_attempts = sa.Table(
+    "follow_attempts", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    sa.Column("attempted_at", UTC, nullable=False),
+    sa.Column("state", sa.String(20), nullable=False),
+    sa.Column("failure", sa.String(30), nullable=True),
+    sa.Column("http_status", sa.Integer, nullable=True),
+    sa.Column("final_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=True),
+    sa.Column("hops", sa.Integer, nullable=True),
+    sa.Column("detail", sa.Text, nullable=True),  # a short reason for people, never a response body
+    sa.Index("ix_follow_attempts_canonical_id", "canonical_id"),
+)
