@@ -109,6 +109,12 @@ class InvalidURL(LinkfoldError):
         self.detail = detail
 
 
+class SignatureError(DatabaseError):
+    """A stored signature or its parameter record is malformed or does not match its parameters."""
+
+    code = "signature"
+
+
 class NotFound(LinkfoldError):
     """A named thing (dataset, ID, run, file) does not exist."""
 
@@ -143,4 +149,5 @@ __all__ = [
     "NotFound",
     "RulesError",
     "SchemaError",
+    "SignatureError",
 ]

@@ -91,11 +91,23 @@ SETTINGS: tuple[Setting, ...] = (
     Setting("shingle_size", 5, _positive_int, "Words per shingle for near-duplicate signatures."),
     Setting("num_perm", 128, _positive_int, "MinHash permutations per signature."),
     Setting("minhash_seed", 1, int, "Seed of the MinHash permutations (stored with every signature)."),
-    Setting("lsh_bands", 32, _positive_int, "LSH bands; num_perm must be a multiple of it."),
+    Setting("minhash_scheme", "affine32", str,
+            "MinHash permutation scheme: affine32 (default) or affine64 (for texts of many millions of "
+            "shingles); the same schemes as datasketch 2.x. See docs/dedupe.md."),
+    Setting("lsh_bands", 32, _positive_int,
+            "LSH bands; lsh_bands × lsh_rows must not exceed num_perm. See docs/dedupe.md for the S-curve."),
+    Setting("lsh_rows", 3, _positive_int, "Signature values per LSH band."),
     Setting("article_threshold", 0.9, _unit_float,
             "Estimated Jaccard at or above which two same-outlet documents are one article."),
     Setting("story_threshold", 0.5, _unit_float,
             "Estimated Jaccard at or above which two documents on different outlets are one story."),
+    Setting("title_threshold", 90.0, _nonneg_float,
+            "Title similarity (0-100) at or above which two short or missing texts on different outlets "
+            "are one story, if their dates also agree."),
+    Setting("max_date_gap_days", 3, int,
+            "Most days between publication dates for a title match to count as one story."),
+    Setting("min_words", 50, _positive_int,
+            "Words a text needs for its shingles to decide a match; shorter texts fall back to titles."),
     Setting("open_reads", False, _bool, "Let the HTTP API answer reads without a token."),
 )
 
@@ -149,9 +161,9 @@ def load_settings(overrides: Mapping[str, Any] | None = None,
             raise ConfigError(f"unknown setting: {key}")
         if value is not None:
             values[key] = value
-    if values["num_perm"] % values["lsh_bands"]:
-        raise ConfigError(f"num_perm ({values['num_perm']}) must be a multiple of lsh_bands "
-                          f"({values['lsh_bands']})")
+    if values["lsh_bands"] * values["lsh_rows"] > values["num_perm"]:
+        raise ConfigError(f"lsh_bands × lsh_rows ({values['lsh_bands']} × {values['lsh_rows']}) exceeds "
+                          f"num_perm ({values['num_perm']})")
     return Settings(values)
 
 
