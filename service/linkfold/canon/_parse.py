@@ -1,0 +1,76 @@
+"""The one place that talks to the URL parser (ada, a WHATWG URL Standard implementation).
+
+We call ada's C API through the cffi module the ``ada-url`` package ships, because one parse plus one
+component read costs a fraction of what the attribute-per-call Python wrapper costs, and the parser runs
+once per raw URL in every bulk stage. What WHATWG parsing already does for us (tests pin each): lower-case
+scheme and host, IDNA (UTS #46) to ASCII, IPv4/IPv6 serialisation, default-port removal, dot-segment
+removal, percent-encoding of spaces and non-ASCII, "/" for an empty path. What it does not do (ours):
+upper-casing percent-encoding hex, decoding unreserved characters, the host's trailing dot, refusing
+schemes other than http(s).
+"""
+
+from __future__ import annotations
+
+from typing import NamedTuple
+
+from ada_url._ada_wrapper import ffi, lib
+
+_OMITTED = 0xFFFFFFFF  # ada's "component absent" marker in url_components
+HOST_NAME, HOST_IPV4, HOST_IPV6 = 0, 1, 2
+
+
+class Parts(NamedTuple):
+    """A parsed URL, sliced from the WHATWG serialisation (``href``)."""
+
+    href: str
+    scheme: str          # "http" / "https" / other, lower-case, without ":"
+    userinfo: bool       # whether user or password is present
+    host: str            # as serialised ("[::1]" for IPv6)
+    port: str            # "" when default or absent
+    path: str            # starts with "/" for http(s)
+    query: str | None    # without "?"; None when absent
+    fragment: str | None  # without "#"; None when absent
+    host_type: int
+
+
+def parse(text: str) -> Parts | None:
+    """Parse ``text`` as an absolute URL; None when the WHATWG parser refuses it."""
+    data = text.encode("utf-8", "surrogatepass")
+    obj = lib.ada_parse(data, len(data))
+    try:
+        if not lib.ada_is_valid(obj):
+            return None
+        s = lib.ada_get_href(obj)
+        raw = ffi.unpack(s.data, s.length)
+        # The components struct lives inside the parsed object: copy its fields before freeing it.
+        c = lib.ada_get_components(obj)
+        proto_end, username_end, host_start, host_end = c.protocol_end, c.username_end, c.host_start, c.host_end
+        port_num, path_start, search, hash_ = c.port, c.pathname_start, c.search_start, c.hash_start
+        host_type = lib.ada_get_host_type(obj)
+    finally:
+        lib.ada_free(obj)
+    href = raw.decode("utf-8", "surrogateescape")
+    # Offsets are byte offsets into href; href is ASCII for special schemes (everything non-ASCII is
+    # percent-encoded or punycoded), so they are also character offsets. Not-special schemes are
+    # refused by the caller before the offsets are used.
+    if len(href) != len(raw):
+        return Parts(href, href[: proto_end - 1].lower(), False, "", "", "", None, None, host_type)
+    path_end = search if search != _OMITTED else (hash_ if hash_ != _OMITTED else len(href))
+    userinfo = username_end > proto_end + 2 or host_start > username_end
+    if href[host_start:host_start + 1] == "@":
+        host_start += 1
+    port = str(port_num) if port_num != _OMITTED else ""
+    query = href[search + 1:hash_ if hash_ != _OMITTED else len(href)] if search != _OMITTED else None
+    fragment = href[hash_ + 1:] if hash_ != _OMITTED else None
+    return Parts(href, href[: proto_end - 1], userinfo, href[host_start:host_end], port,
+                 href[path_start:path_end], query, fragment, host_type)
+
+
+def ascii_host(text: str) -> str | None:
+    """A host name as the WHATWG host parser writes it (lower case, IDNA to ASCII), or None."""
+    if not text or any(ch in text for ch in "/?#@:[]\\ ") or any(ord(ch) < 0x21 for ch in text):
+        return None
+    parts = parse(f"http://{text}/")
+    if parts is None or parts.path != "/" or parts.port or parts.host_type != HOST_NAME:
+        return None
+    return parts.host

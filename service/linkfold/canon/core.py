@@ -1,0 +1,550 @@
+"""canonicalize(): a raw URL and a ruleset in, a canonical URL and its url key out. Pure: no I/O.
+
+The steps, in order (each named as in ``Canonical.steps`` and switchable in the ruleset unless marked):
+
+1. ``trim`` (always): leading and trailing whitespace, as dumps and pasted text carry it.
+2. ``whatwg`` (always): the WHATWG parser's serialisation, which performs RFC 3986 §6.2.2.1 case
+   normalisation of scheme and host, UTS #46 IDNA to ASCII, IP-literal serialisation, §6.2.3 default-port
+   removal and "/" for an empty path, §6.2.2.3 dot-segment removal, percent-encoding of unsafe characters.
+3. ``redirect_wrappers``, ``amp_cache``: URLs that stand for another URL are replaced by it (and that URL
+   is canonicalised from the start).
+4. host: ``drop_userinfo``, ``host_trailing_dot``, ``host_prefixes``, ``host_alias`` (site rule),
+   then the scheme: ``https``.
+5. path: ``session_ids`` (path parameters), ``percent_case``, ``percent_unreserved``, ``path_rewrite``
+   (site rule), then ``amp``, ``print_view``, ``index_documents``, ``trailing_slash`` until none applies.
+6. query: ``tracking_params``, ``session_ids``, ``amp``, ``print_view``, ``site_params`` (site rule),
+   ``sort_params``, ``empty_query``. 7. fragment: ``fragment`` (dropped) unless ``hashbang``.
+"""
+
+from __future__ import annotations
+
+import logging
+import re
+from dataclasses import dataclass
+from functools import lru_cache
+from urllib.parse import unquote
+
+from ..errors import InvalidURL
+from . import _parse
+from .hosts import host_problem, registered_domain
+from .keys import url_key
+from .rules import SWITCHES, Ruleset, SiteRule, default_rules
+
+log = logging.getLogger("linkfold")
+
+#: Longest raw URL accepted, in characters. RFC 9110 §4.1 recommends that HTTP senders and recipients
+#: support URIs of at least 8000 octets; a longer one is unlikely to be fetchable anywhere and is far more
+#: likely to be a data blob or a paste accident than an article link.
+MAX_URL_LENGTH = 8192
+
+#: How many URL-in-URL layers (redirect wrapper, AMP cache) are unwrapped before giving up.
+MAX_UNWRAP = 5
+
+# C0 controls, DEL and C1 controls: never part of a URL as typed, copied or logged by a browser.
+_CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f]")
+_SURROGATE = re.compile(r"[\ud800-\udfff]")
+_SCHEME = re.compile(r"^([A-Za-z][A-Za-z0-9+.\-]*):")
+_PCT = re.compile(r"%([0-9A-Fa-f]{2})")
+# RFC 3986 §2.3 unreserved characters.
+_UNRESERVED = frozenset("ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789-._~")
+_AUTHORITY = re.compile(r"^[A-Za-z][A-Za-z0-9+.\-]*:[/\\]*([^/\\?#]*)")
+
+
+@dataclass(frozen=True, slots=True)
+class Canonical:
+    """The result of canonicalising one raw URL under one ruleset."""
+
+    url: str
+    url_key: str
+    host: str
+    domain: str | None
+    outlet: str | None
+    is_article: bool | None
+    ruleset: str
+    steps: tuple[str, ...]
+
+
+@lru_cache(maxsize=4096)
+def _pct_fix(hexpair: str, decode: bool, upper: bool) -> str:
+    ch = chr(int(hexpair, 16))
+    if decode and ch in _UNRESERVED:
+        return ch
+    return "%" + (hexpair.upper() if upper else hexpair)
+
+
+def _percent(text: str, decode: bool, upper: bool) -> str:
+    """RFC 3986 §6.2.2.1 (hex digits in upper case) and §6.2.2.2 (decode unreserved characters only)."""
+    if "%" not in text:
+        return text
+    return _PCT.sub(lambda m: _pct_fix(m.group(1), decode, upper), text)
+
+
+class _Switches:
+    """Effective switches for one host: the ruleset's, overridden by its site rule."""
+
+    __slots__ = SWITCHES
+
+    def __init__(self, rules: Ruleset, site: SiteRule | None) -> None:
+        over = site.switches if site is not None else {}
+        for name in SWITCHES:
+            setattr(self, name, over.get(name, rules.switches[name]))
+
+
+@dataclass(frozen=True, slots=True)
+class _HostPlan:
+    """Everything that depends on the host alone, computed once per host and ruleset."""
+
+    host: str
+    domain: str | None
+    outlet: str | None
+    site: SiteRule | None
+    sw: _Switches
+    steps: tuple[str, ...]
+
+
+def _query_markers(items: tuple[str, ...]) -> dict[str, frozenset[str] | None]:
+    """"name" (any value) and "name=value" markers as name -> values (None: any value)."""
+    out: dict[str, set[str] | None] = {}
+    for item in items:
+        name, eq, value = item.partition("=")
+        if not eq:
+            out[name] = None
+        elif name not in out or out[name] is not None:
+            out.setdefault(name, set()).add(value)  # type: ignore[union-attr]
+    return {k: (None if v is None else frozenset(v)) for k, v in out.items()}
+
+
+def _marker_hit(markers: dict[str, frozenset[str] | None], name: str, value: str) -> bool:
+    if name not in markers:
+        return False
+    values = markers[name]
+    return values is None or value in values
+
+
+class _Engine:
+    """A ruleset compiled for canonicalising: marker tables, and the per-host plan cache."""
+
+    HOST_CACHE = 100_000
+
+    def __init__(self, rules: Ruleset) -> None:
+        self.rules = rules
+        self.amp_query = _query_markers(rules.amp_query)
+        self.print_query = _query_markers(rules.print_query)
+        self.hosts: dict[str, _HostPlan | str] = {}
+
+    # --- host -----------------------------------------------------------------------------------------
+    def plan(self, host: str, host_type: int) -> _HostPlan:
+        plan = self.hosts.get(host)
+        if plan is None:
+            plan = self._plan(host, host_type)
+            if len(self.hosts) >= self.HOST_CACHE:
+                self.hosts.clear()  # a crude bound; hosts repeat so heavily that refilling is cheap
+            self.hosts[host] = plan
+        if isinstance(plan, str):
+            raise InvalidURL("bad_host", plan)
+        return plan
+
+    def _plan(self, host: str, host_type: int) -> _HostPlan | str:
+        rules = self.rules
+        steps: list[str] = []
+        if host_type != _parse.HOST_NAME:
+            sw = _Switches(rules, None)
+            return _HostPlan(host, None, None, None, sw, ())
+        # Sites are written without the root dot, so the dot goes before the site is looked up; the site
+        # may still keep it (host_trailing_dot = false) below.
+        stripped = host.rstrip(".") if host.endswith(".") else host
+        problem = host_problem(stripped.rstrip("."))
+        if problem:
+            return problem
+        domain = registered_domain(stripped)
+        site = rules.site_for(stripped, domain)
+        sw = _Switches(rules, site)
+        if stripped != host:
+            if sw.host_trailing_dot:
+                steps.append("host_trailing_dot")
+                host = stripped
+            else:
+                domain = registered_domain(host)
+        host = self._fold_prefix(host, domain, sw, steps)
+        if site is not None and host != site.host:
+            for alias in site.aliases:
+                if host == alias or host.endswith("." + alias):
+                    host = host[: len(host) - len(alias)] + site.host
+                    domain = registered_domain(host)
+                    steps.append("host_alias")
+                    # The site may be written with a prefix (www.…) that folds too.
+                    host = self._fold_prefix(host, domain, sw, steps)
+                    break
+        outlet = site.outlet if site is not None and site.outlet else domain
+        return _HostPlan(host, domain, outlet, site, sw, tuple(steps))
+
+    def _fold_prefix(self, host: str, domain: str | None, sw: _Switches, steps: list[str]) -> str:
+        if sw.host_prefixes and domain is not None:
+            label, _, rest = host.partition(".")
+            if rest == domain and label in self.rules.host_prefix_labels:
+                steps.append("host_prefixes")
+                return rest
+        return host
+
+    # --- the whole URL --------------------------------------------------------------------------------
+    def run(self, raw: object, depth: int = 0) -> Canonical:
+        if not isinstance(raw, str):
+            raise InvalidURL("not_text", f"expected text, got {type(raw).__name__}")
+        if not raw:
+            raise InvalidURL("empty", "the URL is empty")
+        text = raw.strip()
+        if not text:
+            raise InvalidURL("whitespace", "the URL is only whitespace")
+        if len(text) > MAX_URL_LENGTH:
+            raise InvalidURL("too_long", f"{len(text)} characters; the limit is {MAX_URL_LENGTH}")
+        bad = _CONTROL.search(text)
+        if bad:
+            raise InvalidURL("control_chars", f"control character U+{ord(bad.group()):04X} at position "
+                                              f"{bad.start() + 1}")
+        if _SURROGATE.search(text):
+            raise InvalidURL("bad_unicode", "the text holds a lone surrogate (broken Unicode)")
+        m = _SCHEME.match(text)
+        if m is None:
+            raise InvalidURL("no_scheme", f"{_clip(text)} does not start with http:// or https://")
+        scheme = m.group(1).lower()
+        if scheme not in ("http", "https"):
+            raise InvalidURL("not_http", f"scheme {scheme!r} is not http or https")
+        parts = _parse.parse(text)
+        if parts is None:
+            raise _diagnose(text)
+        if parts.scheme not in ("http", "https"):
+            raise InvalidURL("not_http", f"scheme {parts.scheme!r} is not http or https")
+        if not parts.host:
+            raise InvalidURL("no_host", "the URL has no host")
+        steps: list[str] = []
+        if text != raw:
+            steps.append("trim")
+        if parts.href != text:
+            steps.append("whatwg")
+        plan = self.plan(parts.host, parts.host_type)
+        sw = plan.sw
+        rules = self.rules
+
+        if depth < MAX_UNWRAP:
+            inner = self._unwrap(parts, plan, depth)
+            if inner is not None:
+                step, result = inner
+                return Canonical(result.url, result.url_key, result.host, result.domain, result.outlet,
+                                 result.is_article, result.ruleset, (*steps, step, *result.steps))
+
+        if parts.userinfo:
+            if sw.drop_userinfo:
+                steps.append("drop_userinfo")
+                userinfo = ""
+            else:
+                userinfo = parts.href[len(parts.scheme) + 3: parts.href.index("@", len(parts.scheme) + 3) + 1]
+        else:
+            userinfo = ""
+        steps.extend(plan.steps)
+        host = plan.host
+        site = plan.site
+
+        scheme = parts.scheme
+        port = parts.port
+        if scheme == "http" and sw.https and not port:
+            # Only without an explicit port: http://h:8080 and https://h:8080 are different services.
+            scheme = "https"
+            steps.append("https")
+
+        path = self._path(parts.path, sw, site, host, steps)
+        query = self._query(parts.query, sw, site, steps) if parts.query is not None else None
+        if query == "" and sw.empty_query:
+            steps.append("empty_query")
+            query = None
+
+        fragment = parts.fragment
+        if fragment is not None:
+            if sw.hashbang and fragment.startswith("!"):
+                fragment = _percent(fragment, sw.percent_unreserved, sw.percent_case)
+            elif sw.fragment:
+                steps.append("fragment")
+                fragment = None
+
+        url = f"{scheme}://{userinfo}{host}{':' + port if port else ''}{path}"
+        if query is not None:
+            url += "?" + query
+        if fragment is not None:
+            url += "#" + fragment
+
+        is_article: bool | None = None
+        if site is not None and site.article:
+            target = path if query is None else f"{path}?{query}"
+            is_article = any(p.search(target) for p in site.article)
+        return Canonical(url, url_key(url), host, plan.domain, plan.outlet, is_article, rules.digest,
+                         tuple(dict.fromkeys(steps)))
+
+    # --- URLs that stand for another URL --------------------------------------------------------------
+    def _unwrap(self, parts: _parse.Parts, plan: _HostPlan, depth: int) -> tuple[str, Canonical] | None:
+        rules, sw = self.rules, plan.sw
+        if sw.redirect_wrappers and parts.query:
+            for wrapper in rules.wrappers:
+                if wrapper.hosts and parts.host not in wrapper.hosts and plan.host not in wrapper.hosts \
+                        and plan.domain not in wrapper.hosts:
+                    continue
+                if not wrapper.path.search(parts.path):
+                    continue
+                for piece in parts.query.split("&"):
+                    name, _, value = piece.partition("=")
+                    if name.lower() in wrapper.params and value:
+                        target = unquote(value).strip()
+                        if target[:7].lower() == "http://" or target[:8].lower() == "https://":
+                            try:
+                                return "redirect_wrappers", self.run(target, depth + 1)
+                            except InvalidURL:
+                                continue  # not a usable target: treat the wrapper as an ordinary URL
+        if sw.amp_cache and rules.amp_cache_suffixes:
+            for suffix in rules.amp_cache_suffixes:
+                if parts.host.endswith("." + suffix):
+                    target = _amp_cache_target(parts)
+                    if target is not None:
+                        try:
+                            return "amp_cache", self.run(target, depth + 1)
+                        except InvalidURL:
+                            return None
+        return None
+
+    # --- path -----------------------------------------------------------------------------------------
+    def _path(self, path: str, sw: _Switches, site: SiteRule | None, host: str, steps: list[str]) -> str:
+        rules = self.rules
+        if ";" in path and sw.session_ids:
+            new = _drop_path_sessions(path, rules.session_names)
+            if new != path:
+                steps.append("session_ids")
+                path = new
+        if "%" in path:
+            new = _percent(path, sw.percent_unreserved, sw.percent_case)
+            if new != path:
+                steps.append("percent_case" if new.upper() == path.upper() else "percent_unreserved")
+                path = new
+        if site is not None and site.rewrites:
+            for rw in site.rewrites:
+                new = rw.pattern.sub(rw.replace, path, count=1)
+                if new != path:
+                    path = _reparse_path(new, host, sw)
+                    steps.append("path_rewrite")
+        for _ in range(16):  # each fold shortens the path, so this ends; the bound is a safety net
+            new = self._fold_path(path, sw, steps)
+            if new == path:
+                break
+            path = new
+        return path
+
+    def _fold_path(self, path: str, sw: _Switches, steps: list[str]) -> str:
+        rules = self.rules
+        if path == "/":
+            return path
+        head, _, last = path.rpartition("/")
+        if sw.amp:
+            first = path[1:].partition("/")[0]
+            if first in rules.amp_first_segments:
+                steps.append("amp")
+                return path[len(first) + 1:] or "/"
+            if last in rules.amp_last_segments:
+                steps.append("amp")
+                return head + "/"
+            for suffix in rules.amp_name_suffixes:
+                if last.endswith(suffix) and len(last) > len(suffix):
+                    steps.append("amp")
+                    return f"{head}/{last[: -len(suffix)]}"
+                cut = last.rfind(suffix + ".")
+                if cut > 0:
+                    steps.append("amp")
+                    return f"{head}/{last[:cut]}{last[cut + len(suffix):]}"
+        if sw.print_view and last in rules.print_last_segments:
+            steps.append("print_view")
+            return head + "/"
+        if sw.index_documents and last in rules.index_names:
+            steps.append("index_documents")
+            return head + "/"
+        if sw.trailing_slash and last == "":
+            steps.append("trailing_slash")
+            return path.rstrip("/") or "/"
+        if sw.amp and path.endswith("/") and path[:-1].rpartition("/")[2] in rules.amp_last_segments:
+            steps.append("amp")
+            return path[:-1].rpartition("/")[0] + "/"
+        return path
+
+    # --- query ----------------------------------------------------------------------------------------
+    def _query(self, query: str, sw: _Switches, site: SiteRule | None, steps: list[str]) -> str:
+        rules = self.rules
+        kept: list[tuple[str, str]] = []
+        for piece in query.split("&"):
+            if not piece:
+                if sw.empty_query:
+                    steps.append("empty_query")
+                    continue
+                kept.append(("", piece))
+                continue
+            if "%" in piece:
+                new = _percent(piece, sw.percent_unreserved, sw.percent_case)
+                if new != piece:
+                    steps.append("percent_case" if new.upper() == piece.upper() else "percent_unreserved")
+                    piece = new
+            name, _, value = piece.partition("=")
+            low = name.lower()
+            if site is not None and low in site.keep_params:
+                kept.append((name, piece))
+                continue
+            if sw.tracking_params and (low in rules.tracking_names or low.startswith(rules.tracking_prefixes)):
+                steps.append("tracking_params")
+                continue
+            if sw.session_ids and low in rules.session_names:
+                steps.append("session_ids")
+                continue
+            if sw.amp and _marker_hit(self.amp_query, name, value):
+                steps.append("amp")
+                continue
+            if sw.print_view and _marker_hit(self.print_query, name, value):
+                steps.append("print_view")
+                continue
+            if site is not None and (site.drop_unlisted_params or low in site.drop_params
+                                     or (site.drop_param_prefixes and low.startswith(site.drop_param_prefixes))):
+                steps.append("site_params")
+                continue
+            kept.append((name, piece))
+        if sw.sort_params and len(kept) > 1:
+            ordered = sorted(kept, key=_first)  # sorted() is stable: repeated names keep their order
+            if ordered != kept:
+                steps.append("sort_params")
+                kept = ordered
+        return "&".join(piece for _, piece in kept)
+
+
+def _first(item: tuple[str, str]) -> str:
+    return item[0]
+
+
+def _clip(text: str, n: int = 60) -> str:
+    return repr(text if len(text) <= n else text[:n] + "…")
+
+
+def _drop_path_sessions(path: str, names: frozenset[str]) -> str:
+    """Remove ";name=value" path parameters whose name is a session-ID name (RFC 3986 §3.3 parameters)."""
+    out = []
+    for segment in path.split("/"):
+        if ";" in segment:
+            base, *params = segment.split(";")
+            params = [p for p in params if p.partition("=")[0].lower() not in names]
+            segment = ";".join([base, *params])
+        out.append(segment)
+    return "/".join(out)
+
+
+def _reparse_path(path: str, host: str, sw: _Switches) -> str:
+    """A rewritten path, serialised the way the parser would (so the result stays a fixed point)."""
+    path = path.replace("?", "%3F").replace("#", "%23")
+    if not path.startswith("/"):
+        path = "/" + path
+    parts = _parse.parse(f"http://{host}{path}")
+    if parts is None or parts.query is not None or parts.fragment is not None:
+        raise InvalidURL("bad_rewrite", f"a path rewrite produced {path!r}, which is not a path")
+    return _percent(parts.path, sw.percent_unreserved, sw.percent_case)
+
+
+def _amp_cache_target(parts: _parse.Parts) -> str | None:
+    """The publisher URL inside an AMP-cache URL: /c/s/<host>/<path> (https) or /c/<host>/<path> (http)."""
+    path = parts.path
+    for prefix, scheme in (("/c/s/", "https"), ("/v/s/", "https"), ("/c/", "http"), ("/v/", "http")):
+        if path.startswith(prefix):
+            rest = path[len(prefix):]
+            if not rest or rest.startswith("/"):
+                return None
+            target = f"{scheme}://{rest}"
+            if parts.query is not None:
+                target += "?" + parts.query
+            return target
+    return None
+
+
+def _diagnose(text: str) -> InvalidURL:
+    """A reason for a URL the parser refused, from a look at its authority."""
+    m = _AUTHORITY.match(text)
+    authority = m.group(1) if m else ""
+    hostport = authority.rpartition("@")[2]
+    if not hostport or hostport.startswith(":"):
+        return InvalidURL("no_host", f"{_clip(text)} has no host")
+    if hostport.startswith("["):
+        host, _, rest = hostport.partition("]")
+        port = rest[1:] if rest.startswith(":") else None
+        host += "]"
+    else:
+        host, sep, port_text = hostport.rpartition(":")
+        if not sep:
+            host, port = hostport, None
+        else:
+            port = port_text
+    if port is not None and port != "" and (not port.isdigit() or int(port) > 65535):
+        return InvalidURL("bad_port", f"port {port[:20]!r} is not a number from 0 to 65535")
+    if host:
+        return InvalidURL("bad_host", f"host {host[:80]!r} is not a valid host name or address")
+    return InvalidURL("unparsable", f"{_clip(text)} is not a URL the WHATWG URL parser accepts")
+
+
+_ENGINES: dict[str, _Engine] = {}
+
+
+def _engine(rules: Ruleset | None) -> _Engine:
+    if rules is None:
+        rules = default_rules()
+    engine = _ENGINES.get(rules.digest)
+    if engine is None:
+        if len(_ENGINES) >= 16:
+            _ENGINES.clear()
+        engine = _ENGINES[rules.digest] = _Engine(rules)
+    return engine
+
+
+def canonicalize(raw: str, rules: Ruleset | None = None) -> Canonical:
+    """The canonical form of ``raw`` under ``rules`` (default: the built-in ruleset).
+
+    Raises :class:`~linkfold.errors.InvalidURL` with a reason code for anything that is not an http(s)
+    URL, and never any other exception.
+    """
+    try:
+        return _engine(rules).run(raw)
+    except InvalidURL:
+        raise
+    except Exception as exc:  # a bug must not take a bulk stage down with it: report it per URL
+        log.debug("canonicaliser failed on %r", raw, exc_info=True)
+        raise InvalidURL("unparsable", f"could not be canonicalised ({type(exc).__name__})") from None
+
+
+class Canonicaliser:
+    """:func:`canonicalize` with a bounded LRU cache, for bulk stages (panels repeat URLs heavily).
+
+    Refusals are cached too: a raw URL that failed once fails the same way without being parsed again.
+    """
+
+    def __init__(self, rules: Ruleset | None = None, *, cache_size: int = 65536) -> None:
+        self.rules = rules if rules is not None else default_rules()
+        engine = _Engine(self.rules)
+
+        def one(raw: str) -> Canonical | InvalidURL:
+            try:
+                return engine.run(raw)
+            except InvalidURL as exc:
+                return exc
+            except Exception as exc:
+                log.debug("canonicaliser failed on %r", raw, exc_info=True)
+                return InvalidURL("unparsable", f"could not be canonicalised ({type(exc).__name__})")
+
+        self._cached = lru_cache(maxsize=cache_size)(one)
+
+    def __call__(self, raw: str) -> Canonical:
+        try:
+            result = self._cached(raw)
+        except TypeError:  # unhashable input: not text anyway
+            raise InvalidURL("not_text", f"expected text, got {type(raw).__name__}") from None
+        if isinstance(result, InvalidURL):
+            # A fresh exception each time, so tracebacks do not pile up on one cached instance.
+            raise InvalidURL(result.reason, result.detail)
+        return result
+
+    def cache_info(self):
+        """Hits, misses and size of the cache (functools' CacheInfo)."""
+        return self._cached.cache_info()
