@@ -212,3 +212,15 @@ follow_attempts = sa.Table(
     sa.Column("detail", sa.Text, nullable=True),  # a short reason for people, never a response body
     sa.Index("ix_follow_attempts_canonical_id", "canonical_id"),
 )
+
+# --- jobs -------------------------------------------------------------------------------------------------
+# Who holds an exclusive job lock (the nightly job); see jobs/lock.py for how stale rows are detected.
+job_locks = sa.Table(
+    "job_locks", metadata,
+    sa.Column("name", sa.String(40), primary_key=True),
+    sa.Column("host", sa.String(255), nullable=False),
+    sa.Column("pid", sa.Integer, nullable=False),
+    sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    sa.Column("acquired_at", UTC, nullable=False),
+    sa.Column("heartbeat_at", UTC, nullable=False),
+)
