@@ -12,6 +12,7 @@ import sys
 import click
 
 from . import __version__
+from ._commands import canon as canon_commands
 from ._commands import db as db_commands
 from ._commands import demo as demo_commands
 from ._commands._common import Context, common_options
@@ -19,7 +20,7 @@ from .errors import LinkfoldError
 
 log = logging.getLogger("linkfold")
 
-COMMAND_MODULES = [db_commands, demo_commands]
+COMMAND_MODULES = [db_commands, canon_commands, demo_commands]
 
 
 class _Group(click.Group):

@@ -321,7 +321,8 @@ def _merge(base: dict[str, Any], lab: dict[str, Any]) -> dict[str, Any]:
     for table, keys in _DATA_TABLES.items():
         merged[table] = {k: _dedupe(base.get(table, {}).get(k, []) + lab.get(table, {}).get(k, []))
                          for k in keys}
-    merged["redirect_wrapper"] = base.get("redirect_wrapper", []) + lab.get("redirect_wrapper", [])
+    wrappers = base.get("redirect_wrapper", []) + lab.get("redirect_wrapper", [])
+    merged["redirect_wrapper"] = list({json.dumps(w, sort_keys=True): w for w in wrappers}.values())
     merged["site"] = {**base.get("site", {}), **lab.get("site", {})}
     return merged
 
