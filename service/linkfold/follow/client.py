@@ -1,0 +1,535 @@
+"""The safe, polite HTTP client that link following and page fetching share.
+
+Safe: every connection goes through the request-forgery guard (:mod:`.guard`) *inside the transport*:
+the name is resolved once, every address is checked, and the socket is opened to the checked address,
+so neither a hostile name nor a redirect to a private address nor DNS rebinding can reach the lab's
+network. Proxies from the environment are ignored (they would bypass the guard). Redirects are never
+followed by httpx itself: the caller sees every hop, and every hop passes the guard again.
+
+Polite: a user agent with the lab's contact address, a global cap on requests in flight, a per-host cap
+and a delay between two requests to the same host, robots.txt honoured before every GET
+(:meth:`SafeClient.robots_allows`), retries on 429 and 503 that respect ``Retry-After`` (RFC 9110
+§10.2.3), and jittered exponential backoff otherwise.
+
+Bounded: a total deadline per request (a server that drips bytes slowly cannot hold a slot forever), a
+response-size cap checked against ``Content-Length`` first and then while streaming, so a huge body is
+never downloaded.
+
+Single-URL failures are :class:`FetchError` with a stable ``failure`` class, which the stages store.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import email.utils
+import logging
+import random
+import ssl
+import time
+from collections.abc import AsyncIterator, Awaitable, Callable, Iterator
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from enum import StrEnum
+from typing import Any
+
+import httpcore
+import httpx
+
+from .. import __version__
+from ..errors import ConfigError
+from .guard import AddressGuard, AddressRefused, ResolveFailed, Resolver, literal_address, system_resolver
+from .robots import ROBOTS_MAX_BYTES, RobotRules, parse_robots
+
+log = logging.getLogger("linkfold")
+
+#: The product token matched against ``User-agent`` lines of robots.txt (RFC 9309 §2.2.1).
+PRODUCT_TOKEN = "linkfold"
+
+#: RFC 9309 §2.3.1.2: crawlers SHOULD follow at least five consecutive redirects for robots.txt.
+ROBOTS_MAX_REDIRECTS = 5
+
+#: First retry delay of the jittered exponential backoff, seconds (common practice, no source).
+BACKOFF_BASE = 1.0
+
+REDIRECT_STATUSES = frozenset({301, 302, 303, 307, 308})  # RFC 9110 §15.4.2–§15.4.9
+RETRY_STATUSES = frozenset({429, 503})  # RFC 6585 §4, RFC 9110 §15.6.4: both may carry Retry-After
+
+
+class Failure(StrEnum):
+    """Why one URL could not be fetched or followed; stored as text, so keep the values stable."""
+
+    DNS = "dns"                      # the name does not resolve
+    CONNECT = "connect"              # connection refused, reset, or broken mid-response
+    TIMEOUT = "timeout"              # no complete answer within http_timeout
+    TLS = "tls"                      # certificate or TLS handshake failure
+    PROTOCOL = "protocol"            # the server did not speak valid HTTP/1.1
+    TOO_LARGE = "too_large"          # the body is over http_max_bytes
+    REFUSED = "refused"              # the request-forgery guard refused the address
+    ROBOTS = "robots"                # robots.txt disallows the GET
+    BAD_URL = "bad_url"              # not a fetchable http(s) URL
+    HTTP_4XX = "http_4xx"            # the chain ended in a client error
+    HTTP_5XX = "http_5xx"            # the chain ended in a server error (after retries)
+    HTTP_OTHER = "http_other"        # 1xx or a 3xx we do not follow (300, 304, 305 …)
+    LOOP = "loop"                    # a redirect led back to a URL already in the chain
+    TOO_MANY_HOPS = "too_many_hops"  # more than max_hops redirects
+    BAD_LOCATION = "bad_location"    # a redirect without a usable Location header
+
+
+#: Failures that a retry in the same run may cure (a later --retry-failed may cure any of them).
+TRANSIENT = frozenset({Failure.CONNECT, Failure.TIMEOUT})
+
+
+class FetchError(Exception):
+    """One request failed; ``failure`` is the stored class, ``detail`` a short text for people."""
+
+    def __init__(self, failure: Failure, detail: str, *, url: str | None = None) -> None:
+        super().__init__(f"{failure.value}: {detail}")
+        self.failure = failure
+        self.detail = detail
+        self.url = url
+
+
+@dataclass(frozen=True)
+class ClientConfig:
+    """What the client needs from the settings, checked once."""
+
+    contact: str
+    timeout: float = 15.0
+    max_bytes: int = 5_000_000
+    concurrency: int = 16
+    host_concurrency: int = 2
+    host_delay: float = 1.0
+    retries: int = 3
+    max_wait: float = 60.0
+    allow_networks: tuple[str, ...] = ()
+
+    @classmethod
+    def from_settings(cls, settings: Any) -> ClientConfig:
+        return cls(contact=settings.contact, timeout=settings.http_timeout,
+                   max_bytes=settings.http_max_bytes, concurrency=settings.http_concurrency,
+                   host_concurrency=settings.http_host_concurrency, host_delay=settings.http_host_delay,
+                   retries=max(0, settings.http_retries), max_wait=settings.http_max_wait,
+                   allow_networks=tuple(settings.allow_networks))
+
+    @property
+    def user_agent(self) -> str:
+        return f"{PRODUCT_TOKEN}/{__version__} (+{self.contact})"
+
+
+@dataclass(frozen=True)
+class Reply:
+    """One HTTP exchange: status, the headers that matter, and the body when it was asked for."""
+
+    url: str
+    method: str
+    status: int
+    headers: httpx.Headers
+    body: bytes | None
+    truncated: bool
+    attempts: int
+    #: Seconds the server asked us to wait (429/503 ``Retry-After``), when retries ran out.
+    retry_after: float | None = None
+
+    @property
+    def location(self) -> str | None:
+        return self.headers.get("location")
+
+
+# --- the guarded transport --------------------------------------------------------------------------
+
+class GuardedBackend(httpcore.AsyncNetworkBackend):
+    """httpcore network backend that resolves and checks before it opens any socket.
+
+    httpcore calls ``connect_tcp(host, port)`` with the URL's host; TLS is then started by httpcore with
+    the URL's host as SNI and for certificate checks, so pinning the address here keeps both right.
+    """
+
+    def __init__(self, guard: AddressGuard, resolver: Resolver,
+                 inner: httpcore.AsyncNetworkBackend | None = None) -> None:
+        self.guard = guard
+        self.resolver = resolver
+        self.inner = inner or httpcore.AnyIOBackend()
+
+    async def connect_tcp(self, host: str, port: int, timeout: float | None = None,
+                          local_address: str | None = None,
+                          socket_options: Any = None) -> httpcore.AsyncNetworkStream:
+        literal = literal_address(host)
+        addresses = [str(literal)] if literal is not None else await self.resolver(host, port)
+        checked = self.guard.check_all(host, addresses)
+        last: Exception | None = None
+        for addr in checked:
+            try:
+                return await self.inner.connect_tcp(str(addr), port, timeout=timeout,
+                                                    local_address=local_address,
+                                                    socket_options=socket_options)
+            except (httpcore.ConnectError, httpcore.ConnectTimeout) as exc:
+                last = exc  # try the next checked address, as a browser would
+        assert last is not None
+        raise last
+
+    async def connect_unix_socket(self, path: str, timeout: float | None = None,
+                                  socket_options: Any = None) -> httpcore.AsyncNetworkStream:
+        raise AddressRefused(path, "unix socket", "not a network address")
+
+    async def sleep(self, seconds: float) -> None:
+        await self.inner.sleep(seconds)
+
+
+# httpcore's exceptions as httpx's, so callers handle one family (httpx maps them the same way).
+_EXCEPTIONS: tuple[tuple[type[Exception], type[httpx.HTTPError]], ...] = (
+    (httpcore.ConnectTimeout, httpx.ConnectTimeout),
+    (httpcore.ReadTimeout, httpx.ReadTimeout),
+    (httpcore.WriteTimeout, httpx.WriteTimeout),
+    (httpcore.PoolTimeout, httpx.PoolTimeout),
+    (httpcore.ConnectError, httpx.ConnectError),
+    (httpcore.ReadError, httpx.ReadError),
+    (httpcore.WriteError, httpx.WriteError),
+    (httpcore.RemoteProtocolError, httpx.RemoteProtocolError),
+    (httpcore.LocalProtocolError, httpx.LocalProtocolError),
+    (httpcore.UnsupportedProtocol, httpx.UnsupportedProtocol),
+    (httpcore.ProxyError, httpx.ProxyError),
+    (httpcore.TimeoutException, httpx.TimeoutException),
+    (httpcore.NetworkError, httpx.NetworkError),
+    (httpcore.ProtocolError, httpx.ProtocolError),
+)
+
+
+_HTTPCORE_ERRORS = (httpcore.TimeoutException, httpcore.NetworkError, httpcore.ProtocolError,
+                   httpcore.UnsupportedProtocol, httpcore.ProxyError)
+
+
+@contextlib.contextmanager
+def _mapped() -> Iterator[None]:
+    try:
+        yield
+    except _HTTPCORE_ERRORS as exc:
+        for source, target in _EXCEPTIONS:  # ordered: subclasses before their bases
+            if isinstance(exc, source):
+                raise target(str(exc)) from exc
+        raise
+
+
+class _ResponseStream(httpx.AsyncByteStream):
+    def __init__(self, stream: Any) -> None:
+        self._stream = stream
+
+    async def __aiter__(self) -> AsyncIterator[bytes]:
+        with _mapped():
+            async for part in self._stream:
+                yield part
+
+    async def aclose(self) -> None:
+        if hasattr(self._stream, "aclose"):
+            with _mapped():
+                await self._stream.aclose()
+
+
+class GuardedTransport(httpx.AsyncBaseTransport):
+    """An httpx transport over an httpcore pool whose every connection passes :class:`GuardedBackend`."""
+
+    def __init__(self, backend: GuardedBackend, *, max_connections: int) -> None:
+        self._pool = httpcore.AsyncConnectionPool(
+            ssl_context=httpx.create_ssl_context(trust_env=False),
+            max_connections=max_connections,
+            max_keepalive_connections=max_connections,
+            keepalive_expiry=5.0,
+            http1=True,
+            http2=False,
+            network_backend=backend,
+        )
+
+    async def handle_async_request(self, request: httpx.Request) -> httpx.Response:
+        req = httpcore.Request(
+            method=request.method,
+            url=httpcore.URL(scheme=request.url.raw_scheme, host=request.url.raw_host,
+                             port=request.url.port, target=request.url.raw_path),
+            headers=request.headers.raw,
+            content=request.stream,  # type: ignore[arg-type]
+            extensions=request.extensions,
+        )
+        with _mapped():
+            resp = await self._pool.handle_async_request(req)
+        return httpx.Response(status_code=resp.status, headers=resp.headers,
+                              stream=_ResponseStream(resp.stream), extensions=resp.extensions)
+
+    async def aclose(self) -> None:
+        await self._pool.aclose()
+
+
+# --- retry timing -------------------------------------------------------------------------------------
+
+def parse_retry_after(value: str | None, now: datetime | None = None) -> float | None:
+    """Seconds to wait from a ``Retry-After`` value: delay-seconds or an HTTP-date (RFC 9110 §10.2.3).
+
+    ``None`` when absent or unreadable; a date in the past gives 0.
+    """
+    if value is None:
+        return None
+    text = value.strip()
+    if text.isdigit():
+        return float(int(text))
+    try:
+        when = email.utils.parsedate_to_datetime(text)  # IMF-fixdate and the two obsolete forms
+    except (TypeError, ValueError, IndexError):
+        return None
+    if when.tzinfo is None:
+        when = when.replace(tzinfo=UTC)  # RFC 9110 §5.6.7: HTTP-dates are in GMT
+    now = now or datetime.now(UTC)
+    return max(0.0, (when - now).total_seconds())
+
+
+def backoff_delay(attempt: int, *, base: float = BACKOFF_BASE, cap: float = 60.0,
+                  rand: Callable[[], float] = random.random) -> float:
+    """Delay before retry number ``attempt`` (0-based): exponential, capped, with "equal jitter".
+
+    Half the exponential step is fixed and half is random, so clients that failed together do not
+    retry together (common practice, no source).
+    """
+    step = min(cap, base * (2 ** attempt))
+    return step / 2 + rand() * step / 2
+
+
+def _is_tls(exc: BaseException) -> bool:
+    seen: set[int] = set()
+    cur: BaseException | None = exc
+    while cur is not None and id(cur) not in seen:
+        if isinstance(cur, ssl.SSLError | ssl.CertificateError):
+            return True
+        seen.add(id(cur))
+        cur = cur.__cause__ or cur.__context__
+    return False
+
+
+def classify(exc: BaseException, url: str) -> FetchError:
+    """A transport exception as a stored failure class."""
+    if isinstance(exc, FetchError):
+        return exc
+    if isinstance(exc, AddressRefused):
+        return FetchError(Failure.REFUSED, str(exc), url=url)
+    if isinstance(exc, ResolveFailed):
+        return FetchError(Failure.DNS, str(exc), url=url)
+    if isinstance(exc, TimeoutError | httpx.TimeoutException):
+        return FetchError(Failure.TIMEOUT, f"no complete answer in time ({type(exc).__name__})", url=url)
+    if _is_tls(exc):
+        return FetchError(Failure.TLS, str(exc) or type(exc).__name__, url=url)
+    if isinstance(exc, httpx.ProtocolError):
+        return FetchError(Failure.PROTOCOL, str(exc) or type(exc).__name__, url=url)
+    if isinstance(exc, httpx.UnsupportedProtocol | httpx.InvalidURL):
+        return FetchError(Failure.BAD_URL, str(exc), url=url)
+    if isinstance(exc, httpx.TransportError | OSError):
+        return FetchError(Failure.CONNECT, str(exc) or type(exc).__name__, url=url)
+    raise exc
+
+
+# --- the client -----------------------------------------------------------------------------------------
+
+class SafeClient:
+    """Async HTTP client for untrusted URLs. Use as ``async with SafeClient(config) as client``.
+
+    ``resolver``, ``sleep``, ``clock`` and ``backend`` are injectable so tests decide refusals without
+    DNS, never sleep for real, and can watch every connection the client opens.
+    """
+
+    def __init__(self, config: ClientConfig, *, resolver: Resolver | None = None,
+                 sleep: Callable[[float], Awaitable[None]] | None = None,
+                 clock: Callable[[], float] | None = None,
+                 rand: Callable[[], float] = random.random,
+                 backend: httpcore.AsyncNetworkBackend | None = None) -> None:
+        if not config.contact.strip():
+            raise ConfigError("no contact address set: linkfold puts it in the User-Agent of every request "
+                              "so site operators can reach the lab",
+                              hint="set LINKFOLD_CONTACT=mailto:lab@university.example (or a web page)")
+        self.config = config
+        self.guard = AddressGuard.from_settings(config.allow_networks)
+        self.backend = GuardedBackend(self.guard, resolver or system_resolver, backend)
+        self._sleep = sleep or asyncio.sleep
+        self._clock = clock or time.monotonic
+        self._rand = rand
+        self._all = asyncio.Semaphore(config.concurrency)
+        self._hosts: dict[str, asyncio.Semaphore] = {}
+        self._next_start: dict[str, float] = {}
+        self._robots: dict[str, RobotRules] = {}
+        self._robots_locks: dict[str, asyncio.Lock] = {}
+        self._http = httpx.AsyncClient(
+            transport=GuardedTransport(self.backend, max_connections=config.concurrency),
+            follow_redirects=False,  # every hop is the caller's, and passes the guard again
+            trust_env=False,  # environment proxies would bypass the guard; netrc would leak credentials
+            timeout=httpx.Timeout(config.timeout),
+            headers={"User-Agent": config.user_agent, "Accept-Encoding": "gzip, deflate"},
+        )
+
+    async def __aenter__(self) -> SafeClient:
+        return self
+
+    async def __aexit__(self, *exc: object) -> None:
+        await self.aclose()
+
+    async def aclose(self) -> None:
+        await self._http.aclose()
+
+    # -- politeness --
+    @contextlib.asynccontextmanager
+    async def _slot(self, host: str) -> AsyncIterator[None]:
+        # The host's slot first: a request waiting for a busy host must not hold a global slot.
+        sem = self._hosts.get(host)
+        if sem is None:
+            sem = self._hosts[host] = asyncio.Semaphore(self.config.host_concurrency)
+        async with sem:
+            now = self._clock()
+            start = max(now, self._next_start.get(host, now))
+            self._next_start[host] = start + self.config.host_delay
+            if start > now:
+                await self._sleep(start - now)
+            async with self._all:
+                yield
+
+    # -- requests --
+    async def _once(self, method: str, url: str, *, read_body: bool, max_bytes: int,
+                    truncate: bool) -> Reply:
+        try:
+            host = httpx.URL(url).host.lower()
+        except httpx.InvalidURL as exc:
+            raise FetchError(Failure.BAD_URL, str(exc), url=url) from None
+        if not host:
+            raise FetchError(Failure.BAD_URL, "no host", url=url)
+        async with self._slot(host):
+            try:
+                async with asyncio.timeout(self.config.timeout):
+                    request = self._http.build_request(method, url)
+                    response = await self._http.send(request, stream=True)
+                    try:
+                        body, truncated = (None, False)
+                        if read_body:
+                            body, truncated = await self._read_capped(response, url, max_bytes, truncate)
+                    finally:
+                        await response.aclose()
+            except FetchError:
+                raise
+            except Exception as exc:
+                raise classify(exc, url) from exc
+        return Reply(url=url, method=method, status=response.status_code, headers=response.headers,
+                     body=body, truncated=truncated, attempts=1)
+
+    async def _read_capped(self, response: httpx.Response, url: str, max_bytes: int,
+                           truncate: bool) -> tuple[bytes, bool]:
+        declared = response.headers.get("content-length", "")
+        if declared.isdigit() and int(declared) > max_bytes and not truncate:
+            raise FetchError(Failure.TOO_LARGE, f"Content-Length {declared} is over the cap of "
+                                                f"{max_bytes} bytes", url=url)
+        chunks: list[bytes] = []
+        size = 0
+        # The cap counts decoded bytes, so a small compressed body cannot unpack into a huge one.
+        async for chunk in response.aiter_bytes():
+            size += len(chunk)
+            if size > max_bytes:
+                if not truncate:
+                    raise FetchError(Failure.TOO_LARGE, f"body is over the cap of {max_bytes} bytes",
+                                     url=url)
+                chunks.append(chunk[:max_bytes - (size - len(chunk))])
+                return b"".join(chunks), True
+            chunks.append(chunk)
+        return b"".join(chunks), False
+
+    async def request(self, method: str, url: str, *, read_body: bool = True, max_bytes: int | None = None,
+                      truncate: bool = False) -> Reply:
+        """One request with retries on 429/503 and on connection failures.
+
+        Returns the last :class:`Reply` (which may still be a 429/503 when retries ran out or the
+        server asked for a wait longer than ``max_wait``; ``retry_after`` then says how long).
+        Raises :class:`FetchError` for transport failures after retries.
+        """
+        cap = self.config.max_bytes if max_bytes is None else max_bytes
+        attempts = 0
+        while True:
+            attempts += 1
+            try:
+                reply = await self._once(method, url, read_body=read_body, max_bytes=cap, truncate=truncate)
+            except FetchError as exc:
+                if exc.failure in TRANSIENT and attempts <= self.config.retries:
+                    delay = backoff_delay(attempts - 1, cap=self.config.max_wait, rand=self._rand)
+                    log.debug("%s %s: %s; retry in %.1fs", method, url, exc, delay)
+                    await self._sleep(delay)
+                    continue
+                raise
+            if reply.status not in RETRY_STATUSES:
+                return _with_attempts(reply, attempts)
+            asked = parse_retry_after(reply.headers.get("retry-after"))
+            if attempts > self.config.retries or (asked is not None and asked > self.config.max_wait):
+                return _with_attempts(reply, attempts, retry_after=asked)
+            if asked is not None:
+                # Wait at least what the server asked, plus a little jitter so we do not all return at once.
+                delay = asked + self._rand() * min(1.0, asked / 10)
+            else:
+                delay = backoff_delay(attempts - 1, cap=self.config.max_wait, rand=self._rand)
+            log.debug("%s %s: HTTP %d; retry in %.1fs", method, url, reply.status, delay)
+            await self._sleep(delay)
+
+    async def get(self, url: str, *, max_bytes: int | None = None, check_robots: bool = True) -> Reply:
+        """A GET that honours robots.txt first (raises ``FetchError(ROBOTS)`` when disallowed)."""
+        if check_robots and not await self.robots_allows(url):
+            raise FetchError(Failure.ROBOTS, "robots.txt disallows this URL for linkfold", url=url)
+        return await self.request("GET", url, max_bytes=max_bytes)
+
+    # -- robots.txt --
+    async def robots_allows(self, url: str) -> bool:
+        parsed = httpx.URL(url)
+        origin = f"{parsed.scheme}://{parsed.netloc.decode('ascii')}"
+        rules = self._robots.get(origin)
+        if rules is None:
+            lock = self._robots_locks.setdefault(origin, asyncio.Lock())
+            async with lock:  # one fetch per origin, however many GETs wait for it
+                rules = self._robots.get(origin)
+                if rules is None:
+                    rules = await self._fetch_robots(origin)
+                    self._robots[origin] = rules
+        target = parsed.raw_path.decode("ascii")
+        return rules.allows(target)
+
+    async def _fetch_robots(self, origin: str) -> RobotRules:
+        """RFC 9309 §2.3.1: 2xx parse, 4xx allow all, 5xx or unreachable disallow all."""
+        from ..canon import resolve_reference
+
+        url = origin + "/robots.txt"
+        for _ in range(ROBOTS_MAX_REDIRECTS + 1):
+            try:
+                reply = await self.request("GET", url, max_bytes=ROBOTS_MAX_BYTES, truncate=True)
+            except FetchError as exc:
+                log.info("robots.txt of %s unreachable (%s): treating the site as disallowed", origin, exc)
+                return RobotRules.disallow_all()
+            if reply.status in REDIRECT_STATUSES and reply.location:
+                url = resolve_reference(url, reply.location)
+                continue
+            if 200 <= reply.status < 300:
+                text = (reply.body or b"").decode("utf-8", errors="replace")  # §2.3: UTF-8
+                return parse_robots(text, PRODUCT_TOKEN)
+            if reply.status == 429:
+                # Common practice, no source: "too many requests" means the server is unavailable to us,
+                # not that the file is missing, so it counts as unreachable rather than as a 4xx.
+                return RobotRules.disallow_all()
+            if 400 <= reply.status < 500:
+                return RobotRules.allow_all()
+            return RobotRules.disallow_all()
+        # §2.3.1.2: past the redirect limit the file MAY be treated as unavailable (4xx).
+        return RobotRules.allow_all()
+
+
+def _with_attempts(reply: Reply, attempts: int, retry_after: float | None = None) -> Reply:
+    return Reply(url=reply.url, method=reply.method, status=reply.status, headers=reply.headers,
+                 body=reply.body, truncated=reply.truncated, attempts=attempts, retry_after=retry_after)
+
+
+__all__ = [
+    "PRODUCT_TOKEN",
+    "REDIRECT_STATUSES",
+    "ClientConfig",
+    "Failure",
+    "FetchError",
+    "GuardedBackend",
+    "GuardedTransport",
+    "Reply",
+    "SafeClient",
+    "backoff_delay",
+    "classify",
+    "parse_retry_after",
+]
