@@ -61,7 +61,7 @@ def render_curve(bands: int, rows: int, points: Sequence[float] = DEFAULT_POINTS
     for s, p in zip(points, probs, strict=True):
         label = ", ".join(name for name, value in marks.items() if abs(value - s) < 1e-9)
         bar = "#" * round(float(p) * width)
-        lines.append(f"{s:>8.2f}  {p:>12.4f}  {bar:<{width}}{'  ← ' + label if label else ''}")
+        lines.append(f"{s:>8.2f}  {p:>12.4f}  {bar:<{width}}{'  ← ' + label if label else ''}".rstrip())
     return "\n".join(lines)
 
 
@@ -74,5 +74,5 @@ def render_histogram(values: Sequence[float] | np.ndarray, *, bins: int = 20, wi
     lines = [f"{title}: {len(vals)} pair(s)", f"{'from':>6} {'to':>6}  {'count':>8}"]
     for i, c in enumerate(counts):
         bar = "#" * (round(c / top * width) if top else 0)
-        lines.append(f"{edges[i]:>6.2f} {edges[i + 1]:>6.2f}  {int(c):>8}  {bar}")
+        lines.append(f"{edges[i]:>6.2f} {edges[i + 1]:>6.2f}  {int(c):>8}  {bar}".rstrip())
     return "\n".join(lines)
