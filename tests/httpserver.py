@@ -9,6 +9,7 @@ Routes (all under one port):
 
 * ``/final``, ``/final/<anything>``: 200 with a small HTML page.
 * ``/to?status=S&loc=L``: status S (default 302) with ``Location: L`` sent byte for byte.
+* ``/cookie``: sets a cookie and redirects to ``/final``.
 * ``/noloc``: 302 without a Location header.
 * ``/chain/<n>``: ``/chain/<n-1>`` by a relative 301, and ``/chain/0`` answers 200.
 * ``/loop/a`` ↔ ``/loop/b``: 302 to each other.
@@ -43,6 +44,7 @@ class Seen:
     path: str
     host: str
     user_agent: str
+    cookie: str | None = None
 
 
 class _Handler(BaseHTTPRequestHandler):
@@ -69,9 +71,10 @@ class _Handler(BaseHTTPRequestHandler):
             self.wfile.write(body)
 
     def _redirect_raw(self, status: int, location: bytes, method: str) -> None:
-        # Location byte for byte: send_header would encode as latin-1, tests need raw UTF-8 too.
+        # Location byte for byte: send_header encodes text as Latin-1, so bytes pass through unchanged
+        # when decoded as Latin-1 first (tests need raw UTF-8 in it).
         self.send_response(status)
-        self.wfile.write(b"Location: " + location + b"\r\n")
+        self.send_header("Location", location.decode("latin-1"))
         self.send_header("Content-Length", "0")
         self.end_headers()
 
@@ -80,7 +83,7 @@ class _Handler(BaseHTTPRequestHandler):
         parts = urlsplit(self.path)
         path, query = parts.path, parse_qs(parts.query)
         srv.seen.append(Seen(method, self.path, self.headers.get("Host", ""),
-                             self.headers.get("User-Agent", "")))
+                             self.headers.get("User-Agent", ""), self.headers.get("Cookie")))
         # The client may stop reading (a capped body, a timeout): that is the point, not an error.
         with contextlib.suppress(BrokenPipeError, ConnectionResetError):
             self._dispatch(srv, method, path, query)
@@ -94,6 +97,8 @@ class _Handler(BaseHTTPRequestHandler):
         elif path == "/to":
             status = int(query.get("status", ["302"])[0])
             self._redirect_raw(status, query.get("loc", ["/final"])[0].encode("utf-8"), method)
+        elif path == "/cookie":
+            self._send(302, {"Set-Cookie": "visitor=abc123; Path=/", "Location": "/final"}, method=method)
         elif path == "/noloc":
             self._send(302, method=method)
         elif path.startswith("/chain/"):

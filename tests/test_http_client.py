@@ -125,6 +125,18 @@ def test_environment_proxies_are_ignored(server, monkeypatch):
     assert h.backend.connected == [("127.0.0.1", server.port)]
 
 
+def test_cookies_are_never_kept_or_sent(server):
+    # Browsing data is personal data: a site's cookie is state we neither store nor send back.
+    h = Harness()
+
+    async def two(client):
+        await client.request("HEAD", server.url("/cookie"))
+        await client.request("HEAD", server.url("/final"))
+
+    h.run(two)
+    assert [s.cookie for s in server.seen] == [None, None]
+
+
 def test_unknown_name_is_a_dns_failure():
     err = Harness().failure(lambda c: c.request("HEAD", "http://nowhere.test/x"))
     assert err.failure is Failure.DNS

@@ -351,13 +351,14 @@ class SafeClient:
         self._next_start: dict[str, float] = {}
         self._robots: dict[str, RobotRules] = {}
         self._robots_locks: dict[str, asyncio.Lock] = {}
-        self._http = httpx.AsyncClient(
-            transport=GuardedTransport(self.backend, max_connections=config.concurrency),
-            follow_redirects=False,  # every hop is the caller's, and passes the guard again
-            trust_env=False,  # environment proxies would bypass the guard; netrc would leak credentials
-            timeout=httpx.Timeout(config.timeout),
-            headers={"User-Agent": config.user_agent, "Accept-Encoding": "gzip, deflate"},
-        )
+        # The transport is used directly, not through httpx.AsyncClient: the client keeps a cookie jar
+        # (state we must not keep from untrusted sites, and personal data besides) and, even with
+        # redirects off, parses every Location eagerly, so a Location it cannot parse (``mailto:x@y``)
+        # raises after the response arrived and leaves it unclosed (httpx 0.28).
+        self._transport = GuardedTransport(self.backend, max_connections=config.concurrency)
+        self._headers = {"User-Agent": config.user_agent, "Accept": "*/*",
+                         "Accept-Encoding": "gzip, deflate"}
+        self._timeouts = httpx.Timeout(config.timeout).as_dict()
 
     async def __aenter__(self) -> SafeClient:
         return self
@@ -366,7 +367,7 @@ class SafeClient:
         await self.aclose()
 
     async def aclose(self) -> None:
-        await self._http.aclose()
+        await self._transport.aclose()
 
     # -- politeness --
     @contextlib.asynccontextmanager
@@ -396,8 +397,10 @@ class SafeClient:
         async with self._slot(host):
             try:
                 async with asyncio.timeout(self.config.timeout):
-                    request = self._http.build_request(method, url)
-                    response = await self._http.send(request, stream=True)
+                    request = httpx.Request(method, url, headers=self._headers,
+                                            extensions={"timeout": self._timeouts})
+                    response = await self._transport.handle_async_request(request)
+                    response.request = request
                     try:
                         body, truncated = (None, False)
                         if read_body:

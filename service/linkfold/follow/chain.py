@@ -1,0 +1,175 @@
+"""Following one URL's redirect chain over the safe client: no database, one chain in, one outcome out.
+
+Per URL: HEAD first, because it costs the server nothing and a redirect needs no body. When the server
+refuses HEAD — any 4xx or 5xx other than 429/503, which the client already retried — the same URL is
+asked again with GET (after robots.txt allows it), since servers that mishandle HEAD answer with all
+kinds of errors (common practice, no source). A GET's body is never read: the status and ``Location``
+are all a redirect needs.
+
+Redirects are 301, 302, 303, 307 and 308 (RFC 9110 §15.4). ``Location`` is resolved against the URL
+that was requested by RFC 3986 §5.2 (RFC 9110 §10.2.2); when it has no fragment the requested URL's
+fragment is kept (also RFC 9110 §10.2.2). A chain stops as a ``loop`` when a redirect leads back to a URL
+already in it, and as ``too_many_hops`` when more than ``max_hops`` redirects would be needed.
+
+The URLs fetched are the raw hop URLs exactly as the chain produced them, never their canonical forms:
+a canonical fold (http→https, dropped parameters) could name a URL that the server does not answer.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from enum import StrEnum
+
+import httpx
+
+from ..errors import InvalidURL
+from .client import REDIRECT_STATUSES, Failure, FetchError, Reply, SafeClient
+
+
+class State(StrEnum):
+    """Outcome of following one URL (stored in ``follow_results.state``)."""
+
+    RESOLVED = "resolved"  # the chain ended in a 2xx answer
+    FAILED = "failed"      # it ended anywhere else: see the failure class
+    REFUSED = "refused"    # we chose not to go on: request-forgery guard or robots.txt
+
+
+#: The failure classes that are our refusals rather than the server's or the network's failures.
+REFUSALS = frozenset({Failure.REFUSED, Failure.ROBOTS})
+
+
+@dataclass(frozen=True)
+class Hop:
+    """One redirect that was observed: ``src`` answered ``status`` with a Location naming ``dst``."""
+
+    number: int  # 1-based
+    src: str
+    dst: str
+    status: int
+    method: str
+    at: datetime
+
+
+@dataclass(frozen=True)
+class Chain:
+    """Where one URL led. ``final_url`` is where the chain stopped (answered, failed or refused)."""
+
+    start: str
+    state: State
+    final_url: str
+    hops: tuple[Hop, ...] = ()
+    failure: Failure | None = None
+    detail: str | None = None
+    status: int | None = None  # HTTP status of the last answer, when there was one
+    retry_after: float | None = None  # seconds the server asked us to wait (429/503)
+    requests: int = 0
+    at: datetime = field(default_factory=lambda: datetime.now(UTC))
+
+
+def _defragment(url: str) -> str:
+    return url.split("#", 1)[0]
+
+
+def _decode_location(reply: Reply) -> str | None:
+    """The Location header as text. Servers send raw UTF-8 in it although RFC 9110 §5.5 asks for
+    ASCII; httpx decodes header bytes as Latin-1, so we re-read the raw bytes as UTF-8 first."""
+    for name, value in reply.headers.raw:
+        if name.lower() == b"location":
+            try:
+                return value.decode("utf-8").strip()
+            except UnicodeDecodeError:
+                return value.decode("latin-1").strip()
+    return None
+
+
+def next_url(current: str, location: str) -> str:
+    """The absolute URL a ``Location`` names, requested from ``current``.
+
+    Raises :class:`InvalidURL` when it is not an http(s) URL with a host.
+    """
+    from ..canon import resolve_reference
+
+    target = resolve_reference(_defragment(current), location)
+    if "#" not in target and "#" in current:
+        target += "#" + current.split("#", 1)[1]  # RFC 9110 §10.2.2: the fragment is inherited
+    try:
+        parsed = httpx.URL(target)
+    except httpx.InvalidURL as exc:
+        raise InvalidURL("unparsable", str(exc)) from None
+    if parsed.scheme not in {"http", "https"}:
+        raise InvalidURL("not_http", f"Location leads to a {parsed.scheme or 'relative'}: URL")
+    if not parsed.host:
+        raise InvalidURL("no_host", "Location has no host")
+    return target
+
+
+async def _ask(client: SafeClient, url: str) -> tuple[Reply, int]:
+    """HEAD, then GET when HEAD is refused. Returns the reply and the number of requests made."""
+    reply = await client.request("HEAD", url, read_body=False)
+    requests = reply.attempts
+    if reply.status >= 400 and reply.status not in (429, 503):
+        if not await client.robots_allows(url):
+            raise FetchError(Failure.ROBOTS, f"HEAD answered {reply.status} and robots.txt disallows "
+                                             f"the GET", url=url)
+        reply = await client.request("GET", url, read_body=False)
+        requests += reply.attempts
+    return reply, requests
+
+
+async def follow_chain(client: SafeClient, start: str, *, max_hops: int,
+                       now: Callable[[], datetime] = lambda: datetime.now(UTC)) -> Chain:
+    """Follow ``start`` to where it leads; never raises for a single URL's failure."""
+    url = start
+    visited = {_defragment(url)}
+    hops: list[Hop] = []
+    requests = 0
+    began = now()
+
+    def stop(state: State, failure: Failure | None, detail: str | None, *, final: str,
+             status: int | None = None, retry_after: float | None = None) -> Chain:
+        return Chain(start=start, state=state, final_url=final, hops=tuple(hops), failure=failure,
+                     detail=detail, status=status, retry_after=retry_after, requests=requests, at=began)
+
+    while True:
+        try:
+            reply, made = await _ask(client, url)
+        except FetchError as exc:
+            state = State.REFUSED if exc.failure in REFUSALS else State.FAILED
+            return stop(state, exc.failure, exc.detail, final=url)
+        requests += made
+        status = reply.status
+        if status in REDIRECT_STATUSES:
+            location = _decode_location(reply)
+            if not location:
+                return stop(State.FAILED, Failure.BAD_LOCATION, f"HTTP {status} without a Location header",
+                            final=url, status=status)
+            try:
+                target = next_url(url, location)
+            except InvalidURL as exc:
+                return stop(State.FAILED, Failure.BAD_LOCATION, f"Location {location[:200]!r}: {exc}",
+                            final=url, status=status)
+            hops.append(Hop(len(hops) + 1, url, target, status, reply.method, now()))
+            if _defragment(target) in visited:
+                return stop(State.FAILED, Failure.LOOP, f"hop {len(hops)} leads back to {target[:200]}",
+                            final=target, status=status)
+            if len(hops) > max_hops:
+                return stop(State.FAILED, Failure.TOO_MANY_HOPS, f"more than {max_hops} redirects",
+                            final=target, status=status)
+            visited.add(_defragment(target))
+            url = target
+            continue
+        if 200 <= status < 300:
+            return stop(State.RESOLVED, None, None, final=url, status=status)
+        if 400 <= status < 500:
+            failure = Failure.HTTP_4XX
+        elif 500 <= status < 600:
+            failure = Failure.HTTP_5XX
+        else:
+            failure = Failure.HTTP_OTHER
+        return stop(State.FAILED, failure, f"HTTP {status}", final=url, status=status,
+                    retry_after=reply.retry_after)
+
+
+__all__ = ["REFUSALS", "Chain", "Hop", "State", "follow_chain", "next_url"]
