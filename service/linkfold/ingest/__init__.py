@@ -1,0 +1,37 @@
+"""Ingest, lookup and export: dumps in, provenance and sightings stored, the linkage table out.
+
+``ingest_dump`` loads CSV, TSV, JSON-lines and plain URL-list dumps (gzip or not) into a dataset;
+``lookup`` answers what the registry knows about URLs or url keys; ``export_dataset`` writes a
+dataset's linkage table. The reference is docs/ingest.md.
+"""
+
+from __future__ import annotations
+
+from .export import EXPORT_FORMATS, ExportSummary, export_dataset
+from .formats import DEFAULT_MAX_LINE_BYTES, DumpFormat, guess_format
+from .load import DEFAULT_BATCH_SIZE, ingest_dump
+from .lookup import LOOKUP_FIELDS, is_url_key, lookup
+from .paths import parse_path
+from .readers import Reason
+from .summary import FileOutcome, FileSummary, IngestSummary
+from .times import parse_time
+
+__all__ = [
+    "DEFAULT_BATCH_SIZE",
+    "DEFAULT_MAX_LINE_BYTES",
+    "EXPORT_FORMATS",
+    "LOOKUP_FIELDS",
+    "DumpFormat",
+    "ExportSummary",
+    "FileOutcome",
+    "FileSummary",
+    "IngestSummary",
+    "Reason",
+    "export_dataset",
+    "guess_format",
+    "ingest_dump",
+    "is_url_key",
+    "lookup",
+    "parse_path",
+    "parse_time",
+]

@@ -1,0 +1,262 @@
+"""``ingest_dump``: load dump files into a dataset with provenance, in resumable batches.
+
+Order of work, chosen so that bad input costs nothing:
+
+1. every file is checked before anything is written: it exists, its format is known, it is hashed, and
+   its named columns are present (a missing column fails here, naming the columns found);
+2. the ruleset is resolved (and stored if new), the dataset and the file's row are registered;
+3. rows are read, canonicalised and written one batch per transaction; each batch moves the file's
+   resume point (``lines_done``) in the same transaction, so an interruption keeps whole batches only;
+4. the last batch marks the file complete. Loading a complete file again adds nothing; loading a file
+   whose load was interrupted resumes after its resume point, and the unique keys of sightings and
+   rejects turn any overlap into no-ops.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from collections.abc import Sequence
+from contextlib import closing
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from sqlalchemy.engine import Connection, Engine
+
+from ..canon import Canonicaliser, Ruleset, load_rules
+from ..errors import ConfigError, InputError
+from ..jobs.runlog import recording_run
+from ..progress import SILENT, Progress
+from ..store import registry
+from ..store.rulesets import get_ruleset, latest_ruleset, store_ruleset
+from .formats import (
+    DEFAULT_MAX_LINE_BYTES,
+    DumpFormat,
+    FileFacts,
+    inspect_file,
+    open_binary,
+    parse_format,
+    physical_lines,
+)
+from .readers import DumpReader, ReadOptions
+from .rows import row_entries
+from .summary import FileOutcome, FileSummary, IngestSummary
+
+log = logging.getLogger("linkfold")
+
+DEFAULT_BATCH_SIZE = 5000
+_REASON = 13  # index of ``reason`` in a staging entry (see rows.ENTRY_FIELDS)
+
+
+@dataclass(frozen=True)
+class _Plan:
+    path: Path
+    facts: FileFacts
+    options: ReadOptions
+
+    @property
+    def name(self) -> str:
+        # Only the file's own name is kept: a full path says whose machine and folders it came from.
+        return self.path.name
+
+    def options_record(self) -> dict[str, Any]:
+        o = self.options
+        return {"format": o.fmt.value, "url_columns": list(o.url_columns), "key_column": o.key_column,
+                "time_column": o.time_column, "gzip": self.facts.gzipped, "max_line_bytes": o.max_line_bytes}
+
+
+def _same_reading(stored: dict[str, Any] | None, plan: _Plan) -> bool:
+    """Whether a resumed load reads the file the way the interrupted one did (same rows, same positions)."""
+    if not stored:
+        return False
+    now = plan.options_record()
+    return all(stored.get(k) == now[k] for k in ("format", "url_columns", "key_column", "time_column"))
+
+
+def _columns(value: str | Sequence[str] | None) -> tuple[str, ...]:
+    if value is None:
+        return ()
+    if isinstance(value, str):
+        return (value,)
+    return tuple(value)
+
+
+def plan_file(path: str | Path, *, fmt: str | DumpFormat | None = None, url_column: str | Sequence[str] | None,
+              key_column: str | None, time_column: str | None,
+              max_line_bytes: int = DEFAULT_MAX_LINE_BYTES) -> _Plan:
+    """Check one file as far as possible without writing: format, digest, columns."""
+    p = Path(path)
+    dump_format = parse_format(fmt, p)
+    facts = inspect_file(p)
+    options = ReadOptions(fmt=dump_format, url_columns=_columns(url_column), key_column=key_column,
+                          time_column=time_column, max_line_bytes=max_line_bytes)
+    with closing(open_binary(p, facts.gzipped)) as stream:
+        DumpReader(physical_lines(stream.binary, max_line_bytes), options, name=str(p)).check()
+    return _Plan(p, facts, options)
+
+
+def _resolve_ruleset(conn: Connection, ruleset: int | str | Path | Ruleset | None) -> tuple[int, Ruleset]:
+    if ruleset is None:
+        return latest_ruleset(conn)
+    if isinstance(ruleset, Ruleset):
+        return store_ruleset(conn, ruleset), ruleset
+    if isinstance(ruleset, int) or (isinstance(ruleset, str) and ruleset.isdigit()):
+        version = int(ruleset)
+        return version, get_ruleset(conn, version)
+    rules = load_rules(Path(ruleset))
+    return store_ruleset(conn, rules), rules
+
+
+def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
+                fmt: str | DumpFormat | None = None, url_column: str | Sequence[str] | None = None,
+                key_column: str | None = None, time_column: str | None = None,
+                ruleset: int | str | Path | Ruleset | None = None, description: str | None = None,
+                batch_size: int = DEFAULT_BATCH_SIZE, max_line_bytes: int = DEFAULT_MAX_LINE_BYTES,
+                cache_size: int = 65536, progress: Progress = SILENT) -> IngestSummary:
+    """Load dump files into ``dataset``; return what was added.
+
+    ``url_column`` is a column name (CSV/TSV) or dotted path (JSON lines; see ``linkfold.ingest.paths``),
+    or several of them; ``ruleset`` is a stored version, a rules file, a :class:`Ruleset`, or ``None``
+    for the newest stored one. Raises ``InputError`` (and its subclasses) before writing anything when a
+    file cannot be read as asked; single bad rows never raise, they become rejects.
+    """
+    name = (dataset or "").strip()
+    if not name:
+        raise ConfigError("a dataset needs a name (--dataset NAME)")
+    if len(name) > 200:
+        raise ConfigError(f"dataset name is {len(name)} characters long; the limit is 200")
+    if batch_size <= 0:
+        raise ConfigError("batch_size must be a positive integer")
+    if not paths:
+        raise InputError("no file to ingest")
+    plans = [plan_file(p, fmt=fmt, url_column=url_column, key_column=key_column, time_column=time_column,
+                       max_line_bytes=max_line_bytes) for p in paths]
+
+    with engine.connect() as conn:
+        with conn.begin():
+            version, rules = _resolve_ruleset(conn, ruleset)
+        summary = IngestSummary(dataset=name, ruleset_version=version)
+        canonicalisers: dict[int, Canonicaliser] = {}
+        with recording_run(engine, "ingest") as run:
+            summary.run_id = run.id
+            with conn.begin():
+                dataset_id = registry.ensure_dataset(conn, name, description=description, ruleset_id=version)
+            for plan in plans:
+                with conn.begin():
+                    stored = registry.find_file(conn, dataset_id, plan.facts.sha256)
+                    if stored is not None and stored["status"] == "complete":
+                        log.info("%s is already loaded into %s; skipping it", plan.name, name)
+                        summary.files.append(FileSummary(
+                            plan.name, plan.facts.sha256, FileOutcome.ALREADY_LOADED,
+                            loaded_at=registry.utc(stored["loaded_at"])))
+                        continue
+                    if stored is None:
+                        stored = registry.create_file(
+                            conn, dataset_id=dataset_id, file_name=plan.name, sha256=plan.facts.sha256,
+                            size_bytes=plan.facts.size_bytes, fmt=plan.options.fmt.value,
+                            options=plan.options_record(), ruleset_id=version, run_id=run.id)
+                    else:
+                        _check_resume(stored, plan, version, explicit=ruleset is not None)
+                        registry.claim_file(conn, stored["id"], run.id)
+                file_version = int(stored["ruleset_id"] or version)
+                if file_version not in canonicalisers:
+                    file_rules = rules
+                    if file_version != version:
+                        with conn.begin():
+                            file_rules = get_ruleset(conn, file_version)
+                    canonicalisers[file_version] = Canonicaliser(file_rules, cache_size=cache_size)
+                result = _load_file(conn, plan, stored, dataset_id=dataset_id, ruleset_id=file_version,
+                                    canon=canonicalisers[file_version], batch_size=batch_size,
+                                    progress=progress)
+                summary.files.append(result)
+                run.counts = summary.as_dict()
+            run.counts = summary.as_dict()
+    return summary
+
+
+def _check_resume(stored: dict[str, Any], plan: _Plan, version: int, *, explicit: bool) -> None:
+    if not _same_reading(stored["options"], plan):
+        raise InputError(f"{plan.name}: an interrupted load of this file into the dataset read it with "
+                         f"options {stored['options']}; resume it with the same --format, --url-column, "
+                         "--key-column and --time-column")
+    if explicit and stored["ruleset_id"] is not None and int(stored["ruleset_id"]) != version:
+        raise InputError(f"{plan.name}: the interrupted load of this file used ruleset version "
+                         f"{stored['ruleset_id']}; resume it under that version (omit --ruleset), so that "
+                         "one file is never canonicalised under two rulesets")
+
+
+def _load_file(conn: Connection, plan: _Plan, stored: dict[str, Any], *, dataset_id: int, ruleset_id: int,
+               canon: Canonicaliser, batch_size: int, progress: Progress) -> FileSummary:
+    resume_after = int(stored["lines_done"] or 0)
+    outcome = FileOutcome.RESUMED if resume_after else FileOutcome.LOADED
+    summary = FileSummary(plan.name, plan.facts.sha256, outcome, resumed_after_line=resume_after)
+    keyed = plan.options.key_column is not None
+    timed = plan.options.time_column is not None
+    started = time.monotonic()
+    if resume_after:
+        log.info("%s: resuming an interrupted load after line %d", plan.name, resume_after)
+
+    lines_done = resume_after
+    reported = 0
+    entries: list[tuple] = []
+    batch_rows = 0
+    last_line = resume_after
+    skipped = 0
+
+    def flush(final: bool) -> None:
+        nonlocal lines_done, entries, batch_rows
+        with conn.begin():
+            counts = registry.write_batch(conn, dataset_id=dataset_id, file_id=stored["id"],
+                                          ruleset_id=ruleset_id, entries=entries, rows=batch_rows,
+                                          lines_before=lines_done, lines_after=last_line)
+            if final:
+                registry.complete_file(conn, stored["id"], lines_done=max(last_line, plan.facts.lines))
+        lines_done = last_line
+        summary.rows += counts.rows
+        summary.sightings += counts.sightings
+        summary.new_raw_urls += counts.new_raw_urls
+        summary.new_canonical_urls += counts.new_canonical_urls
+        summary.rejects.update(e[_REASON] for e in entries if e[_REASON] is not None)
+        entries = []
+        batch_rows = 0
+
+    progress.start(f"ingest {plan.name} (lines)", total=plan.facts.lines)
+    try:
+        with closing(open_binary(plan.path, plan.facts.gzipped)) as stream:
+            reader = DumpReader(physical_lines(stream.binary, plan.options.max_line_bytes), plan.options,
+                                name=plan.name)
+            for row in reader:
+                if row.line_no <= resume_after:
+                    skipped += 1
+                    if skipped % batch_size == 0:
+                        progress.advance(row.end_line - reported)
+                        reported = row.end_line
+                    continue
+                entries.extend(row_entries(row, canon, keyed=keyed, timed=timed))
+                batch_rows += 1
+                last_line = row.end_line
+                if batch_rows >= batch_size:
+                    flush(final=False)
+                    progress.advance(last_line - reported)
+                    reported = last_line
+            summary.blank_lines = reader.blank_lines
+            if stream.sha256() != plan.facts.sha256:
+                # The file changed between hashing and reading: completing it would attach this content to
+                # another file's digest. What is committed stays; a new load sees the new file.
+                raise InputError(f"{plan.name} changed while it was being loaded; load it again")
+            flush(final=True)
+            progress.advance(max(plan.facts.lines - reported, 0))
+    except InputError as exc:
+        # The file changed or broke under us after it was checked; what is committed stays, resumable.
+        raise InputError(f"{plan.name}: {exc}") from exc
+    finally:
+        progress.finish()
+    summary.seconds = time.monotonic() - started
+    summary.loaded_at = registry.now()
+    log.info("%s: %d rows, %d sightings, %d rejects", plan.name, summary.rows, summary.sightings,
+             summary.reject_count)
+    return summary
+
+
+__all__ = ["DEFAULT_BATCH_SIZE", "ingest_dump", "plan_file"]

@@ -1,0 +1,126 @@
+"""``lookup``: what the registry knows about URLs or url keys, one answer per input, streaming.
+
+Other projects script against this answer; its fields and their meaning are a promise (docs/ingest.md):
+
+=============  ======================================================================================
+input          the input as given
+canonical      the canonical URL (null when the input is neither a known key nor a URL we can parse)
+url_key        its url key
+domain         registered domain of the canonical URL
+outlet         outlet (a lab-defined group of domains, or the domain)
+seen           true when the registry holds this canonical URL (or, for an unparsable input, this
+               exact raw text); false for a URL never loaded, which is canonicalised on the fly
+sightings      sightings of the canonical URL across all datasets (through every raw URL mapped to it)
+datasets       how many datasets hold those sightings
+matched_by     ``url_key`` (the input was a key), ``raw_url`` (this exact text was loaded before; its
+               stored canonical URL is the answer), ``canonical_url`` (canonicalised now, then found or not)
+article_id     the article ID, once the dedupe stage assigns them (null until then)
+story_id       the story ID, likewise
+error          null, or the canonicaliser's reason code when the input cannot be canonicalised
+=============  ======================================================================================
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Iterable, Iterator
+from typing import Any
+
+import sqlalchemy as sa
+from sqlalchemy.engine import Connection, Engine
+
+from ..canon import Canonicaliser, Ruleset, default_rules
+from ..errors import InvalidURL
+from ..store import registry
+from ..store import tables as t
+from ..store.rulesets import latest_ruleset
+from .rows import raw_hash, storable
+
+# RFC 4648 §6 base32 alphabet in lower case, 24 characters: the shape of every url key (canon.keys).
+URL_KEY_RE = re.compile(r"[a-z2-7]{24}")
+_CHUNK = 500
+LOOKUP_FIELDS = ("input", "canonical", "url_key", "domain", "outlet", "seen", "sightings", "datasets",
+                 "matched_by", "article_id", "story_id", "error")
+
+
+def is_url_key(text: str) -> bool:
+    return URL_KEY_RE.fullmatch(text) is not None
+
+
+def _current_rules(conn: Connection) -> Ruleset:
+    # A read must not write: with no stored ruleset yet, use the default without storing it.
+    if conn.execute(sa.select(t.rulesets.c.id).limit(1)).first() is None:
+        return default_rules()
+    return latest_ruleset(conn)[1]
+
+
+def _answer(text: str) -> dict[str, Any]:
+    return dict.fromkeys(LOOKUP_FIELDS) | {"input": text, "seen": False, "sightings": 0, "datasets": 0}
+
+
+def lookup(engine: Engine, items: Iterable[str], *, rules: Ruleset | None = None,
+           cache_size: int = 65536) -> Iterator[dict[str, Any]]:
+    """One answer (a dict with :data:`LOOKUP_FIELDS`) per input, in input order, ``_CHUNK`` at a time."""
+    with engine.connect() as conn:
+        canon = Canonicaliser(rules if rules is not None else _current_rules(conn), cache_size=cache_size)
+        conn.rollback()
+        chunk: list[str] = []
+        for item in items:
+            chunk.append(item)
+            if len(chunk) >= _CHUNK:
+                yield from _lookup_chunk(conn, canon, chunk)
+                conn.rollback()  # no long-lived snapshot while the caller reads slowly
+                chunk = []
+        if chunk:
+            yield from _lookup_chunk(conn, canon, chunk)
+
+
+def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> list[dict[str, Any]]:
+    answers = [_answer(text) for text in items]
+    keyed = [i for i, text in enumerate(items) if is_url_key(text.strip().lower())]
+    keyed_set = set(keyed)
+    urls = [i for i in range(len(items)) if i not in keyed_set]
+    hashes = {i: raw_hash(storable(items[i])) for i in urls}
+    known_raw = registry.raws_by_hash(conn, list(hashes.values()))
+
+    wanted_keys: dict[int, str] = {}
+    for i in keyed:
+        wanted_keys[i] = items[i].strip().lower()
+        answers[i]["matched_by"] = "url_key"
+    raw_only: dict[int, str] = {}
+    for i in urls:
+        stored = known_raw.get(hashes[i])
+        if stored is not None and stored["url_key"] is not None:
+            wanted_keys[i] = stored["url_key"]
+            answers[i]["matched_by"] = "raw_url"
+            continue
+        try:
+            c = canon(items[i])
+        except InvalidURL as exc:
+            answers[i]["error"] = exc.reason
+            if stored is not None:
+                # Loaded before, kept as an unparsable raw URL: seen, with its sightings.
+                answers[i].update(seen=True, matched_by="raw_url")
+                raw_only[i] = hashes[i]
+            continue
+        wanted_keys[i] = c.url_key
+        answers[i].update(canonical=c.url, url_key=c.url_key, domain=c.domain, outlet=c.outlet,
+                          matched_by="canonical_url")
+
+    found = registry.canonicals_by_key(conn, list(wanted_keys.values()))
+    counts = registry.sighting_counts(conn, [row["id"] for row in found.values()])
+    for i, key in wanted_keys.items():
+        row = found.get(key)
+        if row is None:
+            continue
+        n, nd = counts.get(row["id"], (0, 0))
+        answers[i].update(canonical=row["url"], url_key=key, domain=row["domain"], outlet=row["outlet"],
+                          seen=True, sightings=n, datasets=nd)
+    if raw_only:
+        raw_counts = registry.raw_sighting_counts(conn, list(raw_only.values()))
+        for i, h in raw_only.items():
+            answers[i]["sightings"], answers[i]["datasets"] = raw_counts.get(h, (0, 0))
+    return answers
+
+
+__all__ = ["LOOKUP_FIELDS", "URL_KEY_RE", "is_url_key", "lookup"]

@@ -1,0 +1,499 @@
+"""Dump readers: CSV, TSV, JSON lines and plain URL lists, each yielding one :class:`DumpRow` per row.
+
+A reader never stops at a bad row: it yields the row with a whole-row reject (reason, detail, excerpt)
+and goes on, in line order, so that "everything up to line N is stored" stays a true statement for the
+loader's resume point. Only a problem with the file as a whole (no header, not JSON lines at all, a
+named column that is not there) raises, and it does so before the first row is yielded.
+
+The readers hand on only the values of the URL, key and time columns; every other column is dropped
+as soon as a row is parsed (data minimisation: a browsing-panel export is personal data, and the
+registry needs nothing else from it).
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+from collections import deque
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from typing import Any
+
+from ..errors import DumpFormatError, InputError, MissingColumnError
+from .formats import DumpFormat, PhysicalLine
+from .paths import JsonPath, parse_path, resolve
+
+EXCERPT_CHARS = 200
+JSONL_PEEK_LINES = 1000
+
+
+class _Missing:
+    __slots__ = ()
+
+    def __repr__(self) -> str:
+        return "MISSING"
+
+
+MISSING: Any = _Missing()  # a column or member that is absent, as opposed to present and empty
+
+
+class Reason:
+    """Stable reject reason codes (stored in ``rejects.reason``; documented in docs/ingest.md)."""
+
+    MALFORMED_CSV = "malformed_csv"
+    FIELD_COUNT = "field_count"
+    MISSING_COLUMN = "missing_column"
+    INVALID_UTF8 = "invalid_utf8"
+    LINE_TOO_LONG = "line_too_long"
+    BAD_JSON = "bad_json"
+    NO_URL = "no_url"
+    NOT_TEXT = "not_text"
+    CONTROL_CHARS = "control_chars"
+    MISSING_KEY = "missing_key"
+    BAD_KEY = "bad_key"
+    MISSING_TIME = "missing_time"
+    BAD_TIME = "bad_time"
+
+
+@dataclass(slots=True)
+class RowReject:
+    reason: str
+    detail: str
+    excerpt: str | None = None
+
+
+@dataclass(slots=True)
+class DumpRow:
+    """One row of a dump, reduced to what the registry keeps."""
+
+    line_no: int  # first physical line of the row, 1-based
+    end_line: int  # last physical line (a quoted CSV field can span lines)
+    urls: list[Any] = field(default_factory=list)  # values reached by the URL column(s), in order
+    key: Any = MISSING
+    time: Any = MISSING
+    reject: RowReject | None = None  # set: the row as a whole could not be read
+
+
+@dataclass(frozen=True)
+class ReadOptions:
+    fmt: DumpFormat
+    url_columns: tuple[str, ...] = ()
+    key_column: str | None = None
+    time_column: str | None = None
+    max_line_bytes: int = 1 << 20
+
+
+def excerpt(text: str | bytes | None, limit: int = EXCERPT_CHARS) -> str | None:
+    """A short, storable piece of the input: valid Unicode, no NUL, at most ``limit`` characters."""
+    if text is None:
+        return None
+    if isinstance(text, bytes):
+        text = text.decode("utf-8", "replace")
+    else:
+        text = text.encode("utf-8", "surrogateescape").decode("utf-8", "replace") if not text.isascii() \
+            else text
+    text = text.replace("\x00", "\ufffd")
+    return text if len(text) <= limit else text[:limit - 1] + "…"
+
+
+def _utf8_problem(data: bytes) -> str | None:
+    try:
+        data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        return f"byte 0x{data[exc.start]:02x} at column {exc.start + 1} is not valid UTF-8 ({exc.reason})"
+    return None
+
+
+class DumpReader:
+    """Iterate the rows of one dump; :meth:`check` validates the columns before anything is written."""
+
+    def __init__(self, lines: Iterator[PhysicalLine], options: ReadOptions, *, name: str) -> None:
+        self.options = options
+        self.name = name
+        self.blank_lines = 0
+        self.columns: list[str] = []  # the header (CSV/TSV) or the top-level members seen (JSON lines)
+        self._lines = lines
+        self._checked = False
+        self._impl: _Format
+        if options.fmt in (DumpFormat.CSV, DumpFormat.TSV):
+            self._impl = _Delimited(self)
+        elif options.fmt is DumpFormat.JSONL:
+            self._impl = _JsonLines(self)
+        else:
+            self._impl = _PlainLines(self)
+
+    def check(self) -> None:
+        """Raise ``MissingColumnError`` / ``DumpFormatError`` now if the file cannot be read as asked."""
+        if not self._checked:
+            self._impl.check()
+            self._checked = True
+
+    def __iter__(self) -> Iterator[DumpRow]:
+        self.check()
+        return self._impl.rows()
+
+
+class _Format:
+    def __init__(self, reader: DumpReader) -> None:
+        self.r = reader
+        self.opt = reader.options
+
+    def check(self) -> None:  # pragma: no cover - overridden
+        raise NotImplementedError
+
+    def rows(self) -> Iterator[DumpRow]:  # pragma: no cover - overridden
+        raise NotImplementedError
+
+
+# --- plain lists ------------------------------------------------------------------------------------------
+class _PlainLines(_Format):
+    """One URL a line; the line number is the row key. Blank lines are skipped (and counted)."""
+
+    def check(self) -> None:
+        given = [n for n, v in (("--url-column", self.opt.url_columns), ("--key-column", self.opt.key_column),
+                                ("--time-column", self.opt.time_column)) if v]
+        if given:
+            raise InputError(f"{self.r.name}: {', '.join(given)} do not apply to the lines format "
+                             "(one URL a line, keyed by line number)")
+
+    def rows(self) -> Iterator[DumpRow]:
+        for line in self.r._lines:
+            n = line.number
+            if line.too_long:
+                yield DumpRow(n, n, reject=RowReject(Reason.LINE_TOO_LONG, _too_long(self.opt),
+                                                     excerpt(line.data)))
+                continue
+            if not line.data.strip():
+                self.r.blank_lines += 1
+                continue
+            problem = _utf8_problem(line.data)
+            if problem:
+                yield DumpRow(n, n, reject=RowReject(Reason.INVALID_UTF8, problem, excerpt(line.data)))
+                continue
+            yield DumpRow(n, n, urls=[line.data.decode("utf-8")])
+
+
+def _too_long(opt: ReadOptions) -> str:
+    return f"line is longer than the limit of {opt.max_line_bytes:,} bytes (setting max_line_bytes)"
+
+
+# --- CSV and TSV ------------------------------------------------------------------------------------------
+class _TooLongLine(Exception):
+    pass
+
+
+class _RecordTooLong(Exception):
+    pass
+
+
+class _Feed:
+    """The text lines handed to :mod:`csv`, with the physical lines of the record being parsed.
+
+    Keeping the record's lines lets a broken record cost only its first line: the lines after it are
+    pushed back and parsed again, so one stray quote cannot swallow the rows that follow it.
+    """
+
+    def __init__(self, lines: Iterator[PhysicalLine], max_bytes: int) -> None:
+        self.lines = lines
+        self.max_bytes = max_bytes
+        self.pending: deque[PhysicalLine] = deque()
+        self.record: list[PhysicalLine] = []
+        self.record_bytes = 0
+        self.bad_utf8: str | None = None
+
+    def __iter__(self) -> _Feed:
+        return self
+
+    def start_record(self) -> None:
+        self.record = []
+        self.record_bytes = 0
+        self.bad_utf8 = None
+
+    def push_back(self, lines: list[PhysicalLine]) -> None:
+        self.pending.extendleft(reversed(lines))
+
+    def __next__(self) -> str:
+        line = self.pending.popleft() if self.pending else next(self.lines)
+        self.record.append(line)
+        if line.too_long:
+            raise _TooLongLine()
+        self.record_bytes += len(line.data) + len(line.terminator)
+        if len(self.record) > 1 and self.record_bytes > self.max_bytes:
+            raise _RecordTooLong()
+        try:
+            text = line.data.decode("utf-8")
+        except UnicodeDecodeError:
+            if self.bad_utf8 is None:
+                problem = _utf8_problem(line.data)
+                self.bad_utf8 = f"line {line.number}: {problem}"
+            # surrogateescape keeps the record's shape intact for csv; the record is rejected anyway.
+            text = line.data.decode("utf-8", "surrogateescape")
+        return text + line.terminator.decode("ascii")
+
+
+def _record_excerpt(lines: list[PhysicalLine]) -> str | None:
+    return excerpt(b"\n".join(pl.data for pl in lines[:3])[:EXCERPT_CHARS * 4])
+
+
+class _Delimited(_Format):
+    """CSV as in RFC 4180 (quoted fields may hold commas, quotes and newlines); TSV as in the IANA
+    text/tab-separated-values registration (no quoting at all: a field cannot hold a tab or newline).
+    Both need a header line naming the columns."""
+
+    def __init__(self, reader: DumpReader) -> None:
+        super().__init__(reader)
+        # csv's field size cap (128 KiB by default) is process-wide state; raise it, never lower it, so
+        # a field is limited by our documented line limit and not by a hidden smaller one.
+        if csv.field_size_limit() < self.opt.max_line_bytes:
+            csv.field_size_limit(self.opt.max_line_bytes)
+        self.feed = _Feed(reader._lines, self.opt.max_line_bytes)
+        if self.opt.fmt is DumpFormat.TSV:
+            self.csv = csv.reader(self.feed, delimiter="\t", quoting=csv.QUOTE_NONE, strict=True)
+        else:
+            self.csv = csv.reader(self.feed, delimiter=",", quotechar='"', doublequote=True, strict=True)
+        self.url_idx: list[int] = []
+        self.key_idx: int | None = None
+        self.time_idx: int | None = None
+
+    def check(self) -> None:
+        name = self.r.name
+        while True:
+            self.feed.start_record()
+            try:
+                header = next(self.csv)
+            except StopIteration:
+                raise DumpFormatError(f"{name}: the file is empty; a {self.opt.fmt.value.upper()} dump "
+                                      "needs a header line naming its columns") from None
+            except (csv.Error, _TooLongLine, _RecordTooLong) as exc:
+                line = self.feed.record[0].number if self.feed.record else 1
+                why = str(exc) if isinstance(exc, csv.Error) else "it is too long"
+                raise DumpFormatError(f"{name}:{line}: the header line cannot be read ({why})") from None
+            if self.feed.bad_utf8:
+                raise DumpFormatError(f"{name}: the header is not UTF-8 ({self.feed.bad_utf8})")
+            if _is_blank(header):
+                self.r.blank_lines += 1
+                continue
+            break
+        self.r.columns = header
+        urls = self.opt.url_columns or self._default_url_column(header)
+        self.url_idx = [self._index(header, col, "--url-column") for col in urls]
+        if self.opt.key_column:
+            self.key_idx = self._index(header, self.opt.key_column, "--key-column")
+        if self.opt.time_column:
+            self.time_idx = self._index(header, self.opt.time_column, "--time-column")
+
+    def _default_url_column(self, header: list[str]) -> tuple[str, ...]:
+        if header.count("url") == 1:
+            return ("url",)
+        raise MissingColumnError(f"{self.r.name}: which column holds the URLs? columns found: "
+                                 f"{_list(header)}", hint="pass --url-column NAME")
+
+    def _index(self, header: list[str], column: str, option: str) -> int:
+        hits = [i for i, h in enumerate(header) if h == column]
+        if len(hits) > 1:
+            raise DumpFormatError(f"{self.r.name}: the header names column {column!r} {len(hits)} times "
+                                  f"(columns {', '.join(str(i + 1) for i in hits)}); {option} is ambiguous")
+        if not hits:
+            near = [h for h in header if h.strip().lower() == column.strip().lower()]
+            hint = f"did you mean {near[0]!r}?" if near else None
+            raise MissingColumnError(f"{self.r.name}: no column {column!r} for {option}; columns found: "
+                                     f"{_list(header)}", hint=hint)
+        return hits[0]
+
+    def rows(self) -> Iterator[DumpRow]:
+        feed = self.feed
+        width = len(self.r.columns)
+        while True:
+            feed.start_record()
+            try:
+                fields = next(self.csv)
+            except StopIteration:
+                return
+            except csv.Error as exc:
+                yield from self._broken(f"not valid CSV: {exc}")
+                continue
+            except _TooLongLine:
+                record = feed.record
+                if len(record) > 1:
+                    # The long line ended a record that began earlier: reject that record's first line,
+                    # then read the lines between again, then the long line on its own (in line order).
+                    yield self._reject_first(record, f"record interrupted by the over-long line "
+                                                     f"{record[-1].number}")
+                    feed.push_back(record[1:])
+                    continue
+                n = record[0].number
+                yield DumpRow(n, n, reject=RowReject(Reason.LINE_TOO_LONG, _too_long(self.opt),
+                                                     excerpt(record[0].data)))
+                continue
+            except _RecordTooLong:
+                yield from self._broken(f"a quoted field runs past {self.opt.max_line_bytes:,} bytes "
+                                        "without its closing quote")
+                continue
+            record = feed.record
+            first, last = record[0].number, record[-1].number
+            if _is_blank(fields) and len(record) == 1:
+                self.r.blank_lines += 1
+                continue
+            if feed.bad_utf8:
+                yield DumpRow(first, last, reject=RowReject(Reason.INVALID_UTF8, feed.bad_utf8,
+                                                            _record_excerpt(record)))
+                continue
+            if len(fields) != width:
+                if len(record) > 1:
+                    # A multi-line record of the wrong width is a stray quote far more often than a
+                    # genuine row: give back the lines it swallowed.
+                    yield from self._broken(f"a quoted field opened on line {first} spans lines "
+                                            f"{first}-{last} and leaves {len(fields)} fields where the "
+                                            f"header has {width}")
+                    continue
+                if len(fields) < width:
+                    lost = self.r.columns[len(fields):]
+                    reason, detail = Reason.MISSING_COLUMN, (
+                        f"{len(fields)} fields where the header has {width}; missing: {_list(lost)}")
+                else:
+                    reason, detail = Reason.FIELD_COUNT, (
+                        f"{len(fields)} fields where the header has {width}")
+                yield DumpRow(first, last, reject=RowReject(reason, detail, _record_excerpt(record)))
+                continue
+            yield DumpRow(
+                first, last,
+                urls=[fields[i] for i in self.url_idx],
+                key=fields[self.key_idx] if self.key_idx is not None else MISSING,
+                time=fields[self.time_idx] if self.time_idx is not None else MISSING,
+            )
+
+    def _reject_first(self, record: list[PhysicalLine], detail: str) -> DumpRow:
+        n = record[0].number
+        return DumpRow(n, n, reject=RowReject(Reason.MALFORMED_CSV, detail, excerpt(record[0].data)))
+
+    def _broken(self, detail: str) -> Iterator[DumpRow]:
+        record = self.feed.record
+        if not record:
+            return
+        if len(record) > 1:
+            detail = f"{detail} (record from line {record[0].number} to {record[-1].number}; " \
+                     f"the lines after {record[0].number} are read again on their own)"
+        yield self._reject_first(record, detail)
+        self.feed.push_back(record[1:])
+
+
+def _is_blank(fields: list[str]) -> bool:
+    return not fields or (len(fields) == 1 and not fields[0].strip())
+
+
+def _list(names: list[str], limit: int = 30) -> str:
+    if not names:
+        return "(none)"
+    shown = ", ".join(repr(n) for n in names[:limit])
+    return shown + (f" … ({len(names) - limit} more)" if len(names) > limit else "")
+
+
+# --- JSON lines -------------------------------------------------------------------------------------------
+class _JsonLines(_Format):
+    """One JSON object a line (RFC 8259 text per line, as JSON Lines / NDJSON practise it)."""
+
+    def __init__(self, reader: DumpReader) -> None:
+        super().__init__(reader)
+        self.url_paths = [parse_path(p) for p in (self.opt.url_columns or ("url",))]
+        self.key_path = self._scalar_path(self.opt.key_column, "--key-column")
+        self.time_path = self._scalar_path(self.opt.time_column, "--time-column")
+        self.peeked: list[PhysicalLine] = []
+
+    def _scalar_path(self, text: str | None, option: str) -> JsonPath | None:
+        if text is None:
+            return None
+        path = parse_path(text)
+        if any(not isinstance(seg, str) for seg in path.segments):
+            raise InputError(f"{option} {text!r}: a key or time path must reach one value; '*' is for "
+                             "--url-column only")
+        return path
+
+    def check(self) -> None:
+        """Look at the first records: fail now if none has the URL path, naming the members found."""
+        members: dict[str, None] = {}
+        objects = reached = 0
+        first_miss: str | None = None
+        nonblank = 0
+        for line in self.r._lines:
+            self.peeked.append(line)
+            if line.too_long or not line.data.strip():
+                continue
+            nonblank += 1
+            try:
+                record = json.loads(line.data)
+            except (ValueError, UnicodeDecodeError):
+                record = None
+            if isinstance(record, dict):
+                objects += 1
+                members.update(dict.fromkeys(record))
+                for path in self.url_paths:
+                    got = resolve(path, record)
+                    if got.values or (not got.missing and not got.dropped):
+                        reached += 1
+                    elif first_miss is None:
+                        first_miss = got.missing or f"no element has the member at {path.text!r}"
+            if len(self.peeked) >= JSONL_PEEK_LINES:
+                break
+        self.r.columns = list(members)
+        if nonblank and not objects:
+            raise DumpFormatError(f"{self.r.name}: none of the first {nonblank} non-blank lines is a JSON "
+                                  "object; is this JSON lines?", hint="pass --format to say what it is")
+        if objects and not reached:
+            paths = ", ".join(repr(p.text) for p in self.url_paths)
+            raise MissingColumnError(f"{self.r.name}: no record among the first {objects} has {paths} "
+                                     f"({first_miss}); top-level members found: {_list(self.r.columns)}",
+                                     hint="pass --url-column PATH, e.g. links.*.url")
+
+    def _all_lines(self) -> Iterator[PhysicalLine]:
+        yield from self.peeked
+        self.peeked = []
+        yield from self.r._lines
+
+    def rows(self) -> Iterator[DumpRow]:
+        for line in self._all_lines():
+            n = line.number
+            if line.too_long:
+                yield DumpRow(n, n, reject=RowReject(Reason.LINE_TOO_LONG, _too_long(self.opt),
+                                                     excerpt(line.data)))
+                continue
+            if not line.data.strip():
+                self.r.blank_lines += 1
+                continue
+            problem = _utf8_problem(line.data)
+            if problem:
+                yield DumpRow(n, n, reject=RowReject(Reason.INVALID_UTF8, problem, excerpt(line.data)))
+                continue
+            try:
+                record = json.loads(line.data.decode("utf-8"))
+            except ValueError as exc:
+                yield DumpRow(n, n, reject=RowReject(Reason.BAD_JSON, f"not valid JSON: {exc}",
+                                                     excerpt(line.data)))
+                continue
+            if not isinstance(record, dict):
+                yield DumpRow(n, n, reject=RowReject(
+                    Reason.BAD_JSON, f"the line is a JSON {type(record).__name__}, not an object",
+                    excerpt(line.data)))
+                continue
+            urls: list[Any] = []
+            missing = []
+            for path in self.url_paths:
+                got = resolve(path, record)
+                if got.missing:
+                    missing.append(f"{path.text}: {got.missing}")
+                urls.extend(got.values)
+            if missing and len(missing) == len(self.url_paths):
+                yield DumpRow(n, n, reject=RowReject(Reason.MISSING_COLUMN, "; ".join(missing),
+                                                     excerpt(line.data)))
+                continue
+            yield DumpRow(n, n, urls=urls, key=self._one(self.key_path, record),
+                          time=self._one(self.time_path, record))
+
+    @staticmethod
+    def _one(path: JsonPath | None, record: dict) -> Any:
+        if path is None:
+            return MISSING
+        got = resolve(path, record)
+        return got.values[0] if got.values else MISSING
+
+
+__all__ = ["MISSING", "DumpReader", "DumpRow", "ReadOptions", "Reason", "RowReject", "excerpt"]

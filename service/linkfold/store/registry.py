@@ -1,0 +1,388 @@
+"""Queries and writes of ingest, lookup and export: datasets, their files, raw and canonical URLs,
+sightings and rejects.
+
+A batch of a load is written set-wise: its entries go into a temporary staging table (COPY on
+PostgreSQL, executemany on SQLite, through :func:`linkfold.store.bulk.insert_rows`), then four
+``INSERT … SELECT … ON CONFLICT DO NOTHING`` statements move them into canonical URLs, raw URLs,
+sightings and rejects, resolving ids by join on the unique keys (url key, raw hash) rather than row by
+row. The unique keys make every statement safe to repeat, which is what lets an interrupted load resume.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from typing import Any
+
+import sqlalchemy as sa
+from sqlalchemy.dialects import postgresql, sqlite
+from sqlalchemy.engine import Connection
+
+from ..errors import LockHeld, NotFound
+from . import tables as t
+from .bulk import insert_rows
+
+UTC_TYPE = sa.DateTime(timezone=True)
+_IN_CHUNK = 500  # ids per IN (…) list: well under SQLite's default limit of 999 bound parameters
+
+
+def utc(value: datetime | None) -> datetime | None:
+    """SQLite hands times back without a zone; every time we store is UTC, so say so."""
+    if value is None or value.tzinfo is not None:
+        return value
+    return value.replace(tzinfo=UTC)
+
+
+def now() -> datetime:
+    return datetime.now(UTC)
+
+
+# --- datasets and files ---------------------------------------------------------------------------------
+def find_dataset(conn: Connection, name: str) -> dict[str, Any] | None:
+    row = conn.execute(sa.select(t.datasets).where(t.datasets.c.name == name)).mappings().first()
+    return dict(row) if row else None
+
+
+def get_dataset(conn: Connection, name: str) -> dict[str, Any]:
+    found = find_dataset(conn, name)
+    if found is None:
+        known = conn.execute(sa.select(t.datasets.c.name).order_by(t.datasets.c.name).limit(20)).scalars().all()
+        hint = f"datasets: {', '.join(known)}" if known else "no dataset is loaded yet"
+        raise NotFound(f"no dataset named {name!r}", hint=hint)
+    return found
+
+
+def ensure_dataset(conn: Connection, name: str, *, description: str | None, ruleset_id: int) -> int:
+    """The id of dataset ``name``, created if new. A description given again replaces the stored one."""
+    found = find_dataset(conn, name)
+    if found is None:
+        try:
+            with conn.begin_nested():
+                return int(conn.execute(sa.insert(t.datasets).values(
+                    name=name, description=description, ruleset_id=ruleset_id, created_at=now())
+                    .returning(t.datasets.c.id)).scalar_one())
+        except sa.exc.IntegrityError:
+            found = find_dataset(conn, name)  # created by a concurrent load a moment ago
+            assert found is not None
+    if description is not None and description != found["description"]:
+        conn.execute(sa.update(t.datasets).where(t.datasets.c.id == found["id"])
+                     .values(description=description))
+    return int(found["id"])
+
+
+def find_file(conn: Connection, dataset_id: int, sha256: str) -> dict[str, Any] | None:
+    row = conn.execute(sa.select(t.dataset_files).where(t.dataset_files.c.dataset_id == dataset_id,
+                                                        t.dataset_files.c.sha256 == sha256)).mappings().first()
+    return dict(row) if row else None
+
+
+def create_file(conn: Connection, *, dataset_id: int, file_name: str, sha256: str, size_bytes: int,
+                fmt: str, options: dict[str, Any], ruleset_id: int, run_id: int | None) -> dict[str, Any]:
+    """Register a file as ``loading``; if a concurrent load registered it first, return that row."""
+    try:
+        with conn.begin_nested():
+            conn.execute(sa.insert(t.dataset_files).values(
+                dataset_id=dataset_id, file_name=file_name, sha256=sha256, size_bytes=size_bytes,
+                format=fmt, options=options, status="loading", ruleset_id=ruleset_id, run_id=run_id,
+                rows=0, sightings=0, rejects=0, lines_done=0, started_at=now()))
+    except sa.exc.IntegrityError:
+        pass
+    found = find_file(conn, dataset_id, sha256)
+    assert found is not None
+    return found
+
+
+def claim_file(conn: Connection, file_id: int, run_id: int | None) -> None:
+    """Record that ``run_id`` (re)started loading the file."""
+    conn.execute(sa.update(t.dataset_files).where(t.dataset_files.c.id == file_id).values(run_id=run_id))
+
+
+# --- the staging table and one batch ----------------------------------------------------------------------
+_stage_meta = sa.MetaData()
+stage = sa.Table(
+    "lf_ingest_stage", _stage_meta,
+    sa.Column("line_no", sa.BigInteger),
+    sa.Column("position", sa.Integer),
+    sa.Column("row_key", sa.Text),
+    sa.Column("seen_at", UTC_TYPE),
+    sa.Column("raw_hash", sa.String(64)),
+    sa.Column("raw", sa.Text),
+    sa.Column("raw_error", sa.String(40)),
+    sa.Column("url_key", sa.String(32)),
+    sa.Column("url", sa.Text),
+    sa.Column("host", sa.String(255)),
+    sa.Column("domain", sa.String(255)),
+    sa.Column("outlet", sa.String(255)),
+    sa.Column("is_article", sa.Boolean),
+    sa.Column("reason", sa.String(40)),
+    sa.Column("detail", sa.Text),
+    sa.Column("excerpt", sa.Text),
+    prefixes=["TEMPORARY"],
+    # Temporary tables are never WAL-logged and carry no index: the cheap place to COPY into.
+    postgresql_on_commit="DELETE ROWS",
+)
+STAGE_COLUMNS = tuple(c.name for c in stage.columns)
+
+
+@dataclass
+class BatchCounts:
+    rows: int = 0
+    sightings: int = 0
+    new_raw_urls: int = 0
+    new_canonical_urls: int = 0
+    rejects: int = 0
+
+
+def _insert(conn: Connection, table: sa.Table):
+    return (postgresql.insert if conn.dialect.name == "postgresql" else sqlite.insert)(table)
+
+
+def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: int,
+                entries: Sequence[Sequence[Any]], rows: int, lines_before: int, lines_after: int) -> BatchCounts:
+    """Write one batch inside the caller's transaction and move the file's resume point forward.
+
+    ``lines_before`` is the resume point this batch continues from; if the stored one differs, another
+    process is loading the same file and :class:`LockHeld` is raised before anything is written.
+    """
+    guard = conn.execute(sa.update(t.dataset_files)
+                         .where(t.dataset_files.c.id == file_id, t.dataset_files.c.lines_done == lines_before)
+                         .values(lines_done=lines_after))
+    if guard.rowcount != 1:
+        raise LockHeld(f"dataset file {file_id} is being loaded by another process (its resume point "
+                       "moved under this load); let that load finish, then run this one again")
+    counts = BatchCounts(rows=rows)
+    if entries:
+        conn.execute(sa.schema.CreateTable(stage, if_not_exists=True))
+        insert_rows(conn, stage, [dict(zip(STAGE_COLUMNS, e, strict=True)) for e in entries])
+        counts = _move_stage(conn, dataset_id=dataset_id, file_id=file_id, ruleset_id=ruleset_id, counts=counts)
+        if conn.dialect.name != "postgresql":
+            conn.execute(sa.delete(stage))  # PostgreSQL empties it at commit (ON COMMIT DELETE ROWS)
+    conn.execute(sa.update(t.dataset_files).where(t.dataset_files.c.id == file_id).values(
+        rows=t.dataset_files.c.rows + counts.rows,
+        sightings=t.dataset_files.c.sightings + counts.sightings,
+        rejects=t.dataset_files.c.rejects + counts.rejects))
+    return counts
+
+
+def _move_stage(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: int,
+                counts: BatchCounts) -> BatchCounts:
+    s, c, r = stage, t.canonical_urls, t.raw_urls
+    stamp = sa.bindparam("stamp", now(), type_=UTC_TYPE)
+    rs = sa.literal(ruleset_id, sa.Integer)
+
+    # Canonical URLs, only for raw URLs the registry does not know yet: a known raw URL keeps the
+    # canonical URL it has (re-canonicalisation under a new ruleset is its own stage, with a record).
+    known_raw = sa.select(r.c.id).where(r.c.raw_hash == s.c.raw_hash).exists()
+    res = conn.execute(_insert(conn, c).from_select(
+        ["url_key", "url", "host", "domain", "outlet", "is_article", "ruleset_id", "created_at"],
+        sa.select(s.c.url_key, s.c.url, s.c.host, s.c.domain, s.c.outlet, s.c.is_article, rs, stamp)
+        .where(s.c.url_key.is_not(None), ~known_raw),
+    ).on_conflict_do_nothing(index_elements=["url_key"]))
+    counts.new_canonical_urls = max(res.rowcount, 0)
+
+    res = conn.execute(_insert(conn, r).from_select(
+        ["raw_hash", "raw", "canonical_id", "ruleset_id", "error", "created_at"],
+        sa.select(s.c.raw_hash, s.c.raw, c.c.id, rs, s.c.raw_error, stamp)
+        .select_from(s.outerjoin(c, c.c.url_key == s.c.url_key))
+        .where(s.c.raw_hash.is_not(None)),
+    ).on_conflict_do_nothing(index_elements=["raw_hash"]))
+    counts.new_raw_urls = max(res.rowcount, 0)
+
+    res = conn.execute(_insert(conn, t.sightings).from_select(
+        ["dataset_id", "file_id", "line_no", "position", "row_key", "seen_at", "raw_url_id"],
+        sa.select(sa.literal(dataset_id, sa.Integer), sa.literal(file_id, sa.Integer), s.c.line_no,
+                  s.c.position, s.c.row_key, s.c.seen_at, r.c.id)
+        .select_from(s.join(r, r.c.raw_hash == s.c.raw_hash))
+        .where(s.c.position >= 0),
+    ).on_conflict_do_nothing(index_elements=["file_id", "line_no", "position"]))
+    counts.sightings = max(res.rowcount, 0)
+
+    res = conn.execute(_insert(conn, t.rejects).from_select(
+        ["dataset_id", "file_id", "line_no", "position", "reason", "detail", "excerpt", "raw_url_id"],
+        sa.select(sa.literal(dataset_id, sa.Integer), sa.literal(file_id, sa.Integer), s.c.line_no,
+                  s.c.position, s.c.reason, s.c.detail, s.c.excerpt, r.c.id)
+        .select_from(s.outerjoin(r, r.c.raw_hash == s.c.raw_hash))
+        .where(s.c.reason.is_not(None)),
+    ).on_conflict_do_nothing(index_elements=["file_id", "line_no", "position"]))
+    counts.rejects = max(res.rowcount, 0)
+    return counts
+
+
+def complete_file(conn: Connection, file_id: int, *, lines_done: int) -> None:
+    conn.execute(sa.update(t.dataset_files).where(t.dataset_files.c.id == file_id).values(
+        status="complete", loaded_at=now(), lines_done=lines_done))
+
+
+def file_reject_counts(conn: Connection, file_id: int) -> dict[str, int]:
+    rows = conn.execute(sa.select(t.rejects.c.reason, sa.func.count())
+                        .where(t.rejects.c.file_id == file_id).group_by(t.rejects.c.reason))
+    return {reason: int(n) for reason, n in rows}
+
+
+# --- reading: datasets, rejects, the linkage table --------------------------------------------------------
+def list_datasets(conn: Connection) -> list[dict[str, Any]]:
+    """Every dataset with its file, row, sighting and reject counts (kept per file during loads)."""
+    f = t.dataset_files
+    files = (sa.select(f.c.dataset_id,
+                       sa.func.count().label("files"),
+                       sa.func.sum(sa.case((f.c.status == "complete", 0), else_=1)).label("files_loading"),
+                       sa.func.sum(f.c.rows).label("rows"),
+                       sa.func.sum(f.c.sightings).label("sightings"),
+                       sa.func.sum(f.c.rejects).label("rejects"),
+                       sa.func.max(f.c.loaded_at).label("last_loaded_at"))
+             .group_by(f.c.dataset_id).subquery())
+    d = t.datasets
+    q = (sa.select(d.c.name, d.c.description, d.c.ruleset_id, d.c.created_at, files)
+         .select_from(d.outerjoin(files, files.c.dataset_id == d.c.id)).order_by(d.c.name))
+    out = []
+    for row in conn.execute(q).mappings():
+        out.append({
+            "dataset": row["name"],
+            "description": row["description"],
+            "files": int(row["files"] or 0),
+            "files_loading": int(row["files_loading"] or 0),
+            "rows": int(row["rows"] or 0),
+            "sightings": int(row["sightings"] or 0),
+            "rejects": int(row["rejects"] or 0),
+            "ruleset": row["ruleset_id"],
+            "created_at": utc(row["created_at"]),
+            "last_loaded_at": utc(row["last_loaded_at"]),
+        })
+    return out
+
+
+def dataset_files(conn: Connection, dataset_id: int) -> list[dict[str, Any]]:
+    rows = conn.execute(sa.select(t.dataset_files).where(t.dataset_files.c.dataset_id == dataset_id)
+                        .order_by(t.dataset_files.c.id)).mappings()
+    return [dict(r) for r in rows]
+
+
+def iter_rejects(conn: Connection, dataset_id: int, *, reason: str | None = None,
+                 limit: int | None = None) -> Iterator[dict[str, Any]]:
+    j, f, r = t.rejects, t.dataset_files, t.raw_urls
+    q = (sa.select(f.c.file_name, j.c.line_no, j.c.position, j.c.reason, j.c.detail, j.c.excerpt,
+                   r.c.raw.label("raw_url"))
+         .select_from(j.join(f, f.c.id == j.c.file_id).outerjoin(r, r.c.id == j.c.raw_url_id))
+         .where(j.c.dataset_id == dataset_id)
+         .order_by(j.c.file_id, j.c.line_no, j.c.position))
+    if reason is not None:
+        q = q.where(j.c.reason == reason)
+    if limit is not None:
+        q = q.limit(limit)
+    for row in conn.execute(q.execution_options(yield_per=2000)).mappings():
+        yield {"file": row["file_name"], "line": int(row["line_no"]), "position": int(row["position"]),
+               "reason": row["reason"], "detail": row["detail"],
+               "excerpt": row["excerpt"] if row["excerpt"] is not None else row["raw_url"]}
+
+
+def reject_totals(conn: Connection, dataset_id: int) -> dict[str, int]:
+    rows = conn.execute(sa.select(t.rejects.c.reason, sa.func.count())
+                        .where(t.rejects.c.dataset_id == dataset_id).group_by(t.rejects.c.reason)
+                        .order_by(t.rejects.c.reason))
+    return {reason: int(n) for reason, n in rows}
+
+
+LINK_COLUMNS = ("dataset", "file", "line_no", "position", "row_key", "seen_at", "raw_url", "canonical_url",
+                "url_key", "domain", "outlet", "article_id", "story_id")
+
+
+def iter_links(conn: Connection, dataset: dict[str, Any], *, yield_per: int = 10000) -> Iterator[tuple]:
+    """The linkage table of one dataset, one tuple per sighting in ``LINK_COLUMNS`` order, file by file
+    and in line order (each file's rows come off the unique (file, line, position) index in order)."""
+    s, r, c = t.sightings, t.raw_urls, t.canonical_urls
+    for file in dataset_files(conn, dataset["id"]):
+        q = (sa.select(s.c.line_no, s.c.position, s.c.row_key, s.c.seen_at, r.c.raw, c.c.url, c.c.url_key,
+                       c.c.domain, c.c.outlet)
+             .select_from(s.join(r, r.c.id == s.c.raw_url_id).outerjoin(c, c.c.id == r.c.canonical_id))
+             .where(s.c.file_id == file["id"])
+             .order_by(s.c.line_no, s.c.position))
+        result = conn.execute(q.execution_options(yield_per=yield_per))
+        name, fname = dataset["name"], file["file_name"]
+        for line_no, position, row_key, seen_at, raw, url, key, domain, outlet in result:
+            # article_id and story_id stay empty until the dedupe stage assigns them.
+            yield (name, fname, int(line_no), int(position), row_key, utc(seen_at), raw, url, key, domain,
+                   outlet, None, None)
+
+
+# --- lookup -----------------------------------------------------------------------------------------------
+def _chunks(items: Sequence[str]) -> Iterator[Sequence[str]]:
+    for i in range(0, len(items), _IN_CHUNK):
+        yield items[i:i + _IN_CHUNK]
+
+
+def canonicals_by_key(conn: Connection, keys: Sequence[str]) -> dict[str, dict[str, Any]]:
+    c = t.canonical_urls
+    out: dict[str, dict[str, Any]] = {}
+    for part in _chunks(list(dict.fromkeys(keys))):
+        for row in conn.execute(sa.select(c.c.id, c.c.url_key, c.c.url, c.c.host, c.c.domain, c.c.outlet)
+                                .where(c.c.url_key.in_(part))).mappings():
+            out[row["url_key"]] = dict(row)
+    return out
+
+
+def raws_by_hash(conn: Connection, hashes: Sequence[str]) -> dict[str, dict[str, Any]]:
+    """Known raw URLs by hash, with the canonical URL each is mapped to (if any)."""
+    r, c = t.raw_urls, t.canonical_urls
+    out: dict[str, dict[str, Any]] = {}
+    for part in _chunks(list(dict.fromkeys(hashes))):
+        q = (sa.select(r.c.raw_hash, r.c.error, c.c.id, c.c.url_key, c.c.url, c.c.host, c.c.domain,
+                       c.c.outlet)
+             .select_from(r.outerjoin(c, c.c.id == r.c.canonical_id)).where(r.c.raw_hash.in_(part)))
+        for row in conn.execute(q).mappings():
+            out[row["raw_hash"]] = dict(row)
+    return out
+
+
+def sighting_counts(conn: Connection, canonical_ids: Sequence[int]) -> dict[int, tuple[int, int]]:
+    """(sightings, datasets) per canonical URL id, over every raw URL that maps to it."""
+    r, s = t.raw_urls, t.sightings
+    out: dict[int, tuple[int, int]] = {}
+    ids = list(dict.fromkeys(canonical_ids))
+    for i in range(0, len(ids), _IN_CHUNK):
+        part = ids[i:i + _IN_CHUNK]
+        q = (sa.select(r.c.canonical_id, sa.func.count(s.c.id), sa.func.count(sa.distinct(s.c.dataset_id)))
+             .select_from(r.join(s, s.c.raw_url_id == r.c.id))
+             .where(r.c.canonical_id.in_(part)).group_by(r.c.canonical_id))
+        for cid, n, nd in conn.execute(q):
+            out[int(cid)] = (int(n), int(nd))
+    return out
+
+
+def raw_sighting_counts(conn: Connection, hashes: Sequence[str]) -> dict[str, tuple[int, int]]:
+    """(sightings, datasets) per raw URL hash: for raw URLs with no canonical URL (unparsable ones)."""
+    r, s = t.raw_urls, t.sightings
+    out: dict[str, tuple[int, int]] = {}
+    for part in _chunks(list(dict.fromkeys(hashes))):
+        q = (sa.select(r.c.raw_hash, sa.func.count(s.c.id), sa.func.count(sa.distinct(s.c.dataset_id)))
+             .select_from(r.join(s, s.c.raw_url_id == r.c.id))
+             .where(r.c.raw_hash.in_(part)).group_by(r.c.raw_hash))
+        for h, n, nd in conn.execute(q):
+            out[h] = (int(n), int(nd))
+    return out
+
+
+__all__ = [
+    "LINK_COLUMNS",
+    "STAGE_COLUMNS",
+    "BatchCounts",
+    "canonicals_by_key",
+    "claim_file",
+    "complete_file",
+    "create_file",
+    "dataset_files",
+    "ensure_dataset",
+    "file_reject_counts",
+    "find_dataset",
+    "find_file",
+    "get_dataset",
+    "iter_links",
+    "iter_rejects",
+    "list_datasets",
+    "raw_sighting_counts",
+    "raws_by_hash",
+    "reject_totals",
+    "sighting_counts",
+    "utc",
+    "write_batch",
+]
