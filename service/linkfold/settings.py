@@ -72,6 +72,9 @@ SETTINGS: tuple[Setting, ...] = (
             "Rows written per transaction by bulk stages; a crash loses at most the batch in flight."),
     Setting("canon_cache_size", 65536, _positive_int,
             "Entries in the canonicaliser's LRU cache (panels repeat the same URLs heavily)."),
+    Setting("max_line_bytes", 1 << 20, _positive_int,
+            "Longest line (or quoted CSV record) an ingest reads, in bytes; a longer one becomes a "
+            "line_too_long or malformed_csv reject with its line number."),
     Setting("contact", "", str,
             "Contact address (mail or URL) put in the User-Agent of every request, so site operators can "
             "reach the lab. Required before fetching or following links."),
