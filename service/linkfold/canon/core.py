@@ -37,8 +37,13 @@ log = logging.getLogger("linkfold")
 #: likely to be a data blob or a paste accident than an article link.
 MAX_URL_LENGTH = 8192
 
-#: How many URL-in-URL layers (redirect wrapper, AMP cache) are unwrapped before giving up.
-MAX_UNWRAP = 5
+#: How many URL-in-URL layers (redirect wrapper, AMP cache) are unwrapped before the URL is refused
+#: (reason ``too_deep``). Refusing rather than stopping keeps every accepted result a fixed point.
+MAX_UNWRAP = 32
+
+
+class _TooDeep(InvalidURL):
+    """Raised through every layer of unwrapping, unlike an unusable target, which only stops one."""
 
 # C0 controls, DEL and C1 controls: never part of a URL as typed, copied or logged by a browser.
 _CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f]")
@@ -225,12 +230,11 @@ class _Engine:
         sw = plan.sw
         rules = self.rules
 
-        if depth < MAX_UNWRAP:
-            inner = self._unwrap(parts, plan, depth)
-            if inner is not None:
-                step, result = inner
-                return Canonical(result.url, result.url_key, result.host, result.domain, result.outlet,
-                                 result.is_article, result.ruleset, (*steps, step, *result.steps))
+        inner = self._unwrap(parts, plan, depth)
+        if inner is not None:
+            step, result = inner
+            return Canonical(result.url, result.url_key, result.host, result.domain, result.outlet,
+                             result.is_article, result.ruleset, tuple(dict.fromkeys((*steps, step, *result.steps))))
 
         if parts.userinfo:
             if sw.drop_userinfo:
@@ -280,6 +284,23 @@ class _Engine:
 
     # --- URLs that stand for another URL --------------------------------------------------------------
     def _unwrap(self, parts: _parse.Parts, plan: _HostPlan, depth: int) -> tuple[str, Canonical] | None:
+        sw = plan.sw
+        if depth >= MAX_UNWRAP and (sw.redirect_wrappers or sw.amp_cache):
+            if self._unwrap_target(parts, plan) is not None:
+                raise _TooDeep("too_deep", f"more than {MAX_UNWRAP} redirect wrappers or AMP caches nested")
+            return None
+        target = self._unwrap_target(parts, plan)
+        if target is None:
+            return None
+        step, url = target
+        try:
+            return step, self.run(url, depth + 1)
+        except _TooDeep:
+            raise
+        except InvalidURL:
+            return None  # not a usable target: the wrapper is an ordinary URL
+
+    def _unwrap_target(self, parts: _parse.Parts, plan: _HostPlan) -> tuple[str, str] | None:
         rules, sw = self.rules, plan.sw
         if sw.redirect_wrappers and parts.query:
             for wrapper in rules.wrappers:
@@ -292,21 +313,23 @@ class _Engine:
                     name, _, value = piece.partition("=")
                     if name.lower() in wrapper.params and value:
                         target = unquote(value).strip()
-                        if target[:7].lower() == "http://" or target[:8].lower() == "https://":
-                            try:
-                                return "redirect_wrappers", self.run(target, depth + 1)
-                            except InvalidURL:
-                                continue  # not a usable target: treat the wrapper as an ordinary URL
+                        if (target[:7].lower() == "http://" or target[:8].lower() == "https://") \
+                                and self._usable(target):
+                            return "redirect_wrappers", target
         if sw.amp_cache and rules.amp_cache_suffixes:
             for suffix in rules.amp_cache_suffixes:
                 if parts.host.endswith("." + suffix):
                     target = _amp_cache_target(parts)
-                    if target is not None:
-                        try:
-                            return "amp_cache", self.run(target, depth + 1)
-                        except InvalidURL:
-                            return None
+                    if target is not None and self._usable(target):
+                        return "amp_cache", target
         return None
+
+    def _usable(self, target: str) -> bool:
+        """Whether a wrapped target is an http(s) URL at all (a wrapper around junk stays as it is)."""
+        if len(target) > MAX_URL_LENGTH or _CONTROL.search(target) or _SURROGATE.search(target):
+            return False
+        parts = _parse.parse(target)
+        return parts is not None and parts.scheme in ("http", "https") and bool(parts.host)
 
     # --- path -----------------------------------------------------------------------------------------
     def _path(self, path: str, sw: _Switches, site: SiteRule | None, host: str, steps: list[str]) -> str:

@@ -32,7 +32,7 @@ def registered_domain(host: str) -> str | None:
     if not isinstance(host, str):
         return None
     host = host.strip().rstrip(".").lower()
-    if not host or is_ip_literal(host) or "." not in host:
+    if not host or is_ip_literal(host) or "." not in host or host.startswith(".") or ".." in host:
         return None
     try:
         return _PSL.privatesuffix(host)
