@@ -1,0 +1,172 @@
+"""``linkfold ingest``, ``rejects``, ``lookup``, ``export`` and ``datasets``."""
+
+from __future__ import annotations
+
+import sys
+from collections.abc import Iterator
+from pathlib import Path
+
+import click
+
+from ..ingest import EXPORT_FORMATS, DumpFormat, export_dataset, ingest_dump, lookup
+from ..store import registry
+from ._common import Context, common_options, format_option, pass_ctx, to_json, write_jsonl, write_table
+
+
+@click.command("ingest")
+@click.argument("files", nargs=-1, required=True, type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--dataset", required=True, metavar="NAME", help="The dataset the files belong to.")
+@click.option("--format", "dump_format", type=click.Choice([f.value for f in DumpFormat]), default=None,
+              help="Dump format (default: from the file name: .csv .tsv .jsonl .ndjson .txt, each "
+                   "optionally .gz).")
+@click.option("--url-column", "url_columns", multiple=True, metavar="COLUMN",
+              help="Column holding the URLs (CSV/TSV: a header name; JSON lines: a dotted path such as "
+                   "links.*.url). Repeat for several. Default: a column named 'url'.")
+@click.option("--key-column", metavar="COLUMN", help="Column holding the row's own ID (default: the line "
+                                                     "number is the key).")
+@click.option("--time-column", metavar="COLUMN", help="Column holding the row's time: ISO 8601 or Unix "
+                                                      "epoch seconds/milliseconds; no zone means UTC.")
+@click.option("--ruleset", "version", type=click.IntRange(min=1), metavar="VERSION",
+              help="Canonicalise under this stored ruleset version (default: the newest).")
+@click.option("--rules", "rules_file", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE",
+              help="Canonicalise under this rules file (stored as a new ruleset version if new).")
+@click.option("--description", metavar="TEXT", help="What the dataset is (stored with it).")
+@click.option("--summary", "summary_format", type=click.Choice(["text", "json"]), default="text",
+              show_default=True, help="text: the summary on stderr for people; json: one JSON object on "
+                                      "stdout for scripts.")
+@common_options
+@pass_ctx
+def ingest_command(obj: Context, files: tuple[Path, ...], dataset: str, dump_format: str | None,
+                   url_columns: tuple[str, ...], key_column: str | None, time_column: str | None,
+                   version: int | None, rules_file: Path | None, description: str | None,
+                   summary_format: str) -> None:
+    """Load URL dumps into a dataset: raw URLs, canonical URLs and one sighting per URL of each row.
+
+    Bad rows never stop a load: each becomes a reject with file, line and reason (see linkfold
+    rejects). Loading the same file into the same dataset again adds nothing; an interrupted load is
+    resumed by running the same command again. Only the URLs, the row key and the time are stored.
+
+    \b
+    Example:
+      linkfold ingest panel-week1.csv.gz --dataset panel-2031 --key-column visit_id --time-column visited
+      linkfold ingest posts.jsonl --dataset posts --url-column 'entities.links.*.url' --key-column id
+    """
+    if version is not None and rules_file is not None:
+        raise click.UsageError("give --ruleset VERSION or --rules FILE, not both")
+    settings = obj.settings
+    summary = ingest_dump(
+        obj.engine(), list(files), dataset=dataset, fmt=dump_format, url_column=url_columns or None,
+        key_column=key_column, time_column=time_column,
+        ruleset=version if version is not None else rules_file, description=description,
+        batch_size=settings.batch_size, max_line_bytes=settings.max_line_bytes,
+        cache_size=settings.canon_cache_size, progress=obj.progress())
+    if summary_format == "json":
+        click.echo(to_json(summary.as_dict()))
+    for line in summary.lines():
+        obj.message(line)
+
+
+@click.command("rejects")
+@click.option("--dataset", required=True, metavar="NAME", help="The dataset whose rejects to list.")
+@click.option("--reason", metavar="CODE", help="Only rejects with this reason code (e.g. bad_time).")
+@click.option("--limit", type=click.IntRange(min=1), metavar="N", help="At most N rejects.")
+@format_option()
+@common_options
+@pass_ctx
+def rejects_command(obj: Context, dataset: str, reason: str | None, limit: int | None, fmt: str) -> None:
+    """List the rejects of a dataset: file, line, position (-1 the row, -2 its time), reason, detail.
+
+    \b
+    Example:
+      linkfold rejects --dataset panel-2031 --reason bad_time --limit 20
+    """
+    with obj.engine().connect() as conn:
+        ds = registry.get_dataset(conn, dataset)
+        rows = registry.iter_rejects(conn, ds["id"], reason=reason, limit=limit)
+        if fmt == "jsonl":
+            n = write_jsonl(rows)
+        else:
+            listed = list(rows)
+            write_table(listed, ["file", "line", "position", "reason", "detail", "excerpt"])
+            n = len(listed)
+        totals = registry.reject_totals(conn, ds["id"])
+    by_reason = ", ".join(f"{k} {v:,}" for k, v in totals.items()) or "none"
+    obj.message(f"{n:,} rejects listed; dataset {dataset!r} holds {sum(totals.values()):,} ({by_reason})")
+
+
+def _stdin_items() -> Iterator[str]:
+    for line in sys.stdin:
+        text = line.rstrip("\r\n")
+        if text.strip():
+            yield text
+
+
+@click.command("lookup")
+@click.argument("items", nargs=-1, metavar="URL|KEY…")
+@common_options
+@pass_ctx
+def lookup_command(obj: Context, items: tuple[str, ...]) -> None:
+    """What the registry knows about URLs or url keys; one JSON object a line on stdout.
+
+    Reads stdin, one a line, when no argument (or '-') is given. Each object has input, canonical,
+    url_key, domain, outlet, seen, sightings, datasets, matched_by, article_id, story_id and error. A URL
+    never loaded is canonicalised on the fly (seen: false). Nothing is stored.
+
+    \b
+    Example:
+      linkfold lookup 'https://www.daily-harbour.example/2031/05/harbour-bridge?utm_source=feed'
+      cut -f2 links.tsv | linkfold lookup > answers.jsonl
+    """
+    source = _stdin_items() if not items or items == ("-",) else iter(items)
+    write_jsonl(lookup(obj.engine(), source, cache_size=obj.settings.canon_cache_size))
+
+
+@click.command("export")
+@click.option("--dataset", required=True, metavar="NAME", help="The dataset to export.")
+@click.option("--format", "fmt", type=click.Choice(EXPORT_FORMATS), default="csv", show_default=True,
+              help="csv (with a header), jsonl, or parquet (needs --out).")
+@click.option("--out", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE",
+              help="File to write (default: stdout, for csv and jsonl).")
+@common_options
+@pass_ctx
+def export_command(obj: Context, dataset: str, fmt: str, out: Path | None) -> None:
+    """Write a dataset's linkage table: one row per sighting, the table to join datasets on.
+
+    Columns: dataset, file, line_no, position, row_key, seen_at, raw_url, canonical_url, url_key,
+    domain, outlet, article_id, story_id (the last two are empty until IDs are assigned).
+
+    \b
+    Example:
+      linkfold export --dataset panel-2031 --format parquet --out panel-2031.parquet
+    """
+    result = export_dataset(obj.engine(), dataset, fmt=fmt, out=out, progress=obj.progress())
+    for line in result.lines():
+        obj.message(line)
+
+
+@click.command("datasets")
+@format_option()
+@common_options
+@pass_ctx
+def datasets_command(obj: Context, fmt: str) -> None:
+    """List the datasets with their files, rows, sightings and rejects.
+
+    \b
+    Example:
+      linkfold datasets --format jsonl
+    """
+    with obj.engine().connect() as conn:
+        rows = registry.list_datasets(conn)
+    if fmt == "jsonl":
+        write_jsonl(rows)
+        return
+    if not rows:
+        obj.message("no datasets yet: load one with linkfold ingest FILE --dataset NAME")
+        return
+    write_table(rows, ["dataset", "files", "rows", "sightings", "rejects", "files_loading", "ruleset",
+                       "last_loaded_at", "description"])
+
+
+def register(cli: click.Group) -> None:
+    for command in (ingest_command, rejects_command, lookup_command, export_command, datasets_command):
+        cli.add_command(command)
