@@ -6,6 +6,7 @@ import datasketch
 import numpy as np
 import pytest
 
+import linkfold.dedupe.minhash as minhash_module
 from linkfold.dedupe import (
     SignatureParams,
     batch_shingle_hashes,
@@ -17,7 +18,6 @@ from linkfold.dedupe import (
     signature_to_bytes,
     signatures_from_texts,
 )
-from linkfold.dedupe.minhash import CHUNK_ROWS
 from linkfold.dedupe.synthetic import near_duplicate_corpus, set_pair
 from linkfold.errors import ConfigError, SignatureError
 from linkfold.settings import load_settings
@@ -57,14 +57,17 @@ def test_signatures_equal_datasketch(scheme: str, num_perm: int, seed: int) -> N
             np.testing.assert_array_equal(sig[i], datasketch.MinHash(num_perm, seed=seed, scheme=scheme).hashvalues)
 
 
-def test_document_cut_by_chunk_boundary_equals_datasketch() -> None:
-    # One document far larger than a chunk, between two small ones, so chunk edges fall inside it.
+def test_document_cut_by_chunk_boundary_equals_datasketch(monkeypatch: pytest.MonkeyPatch) -> None:
+    # One document far larger than a chunk, between small ones, so chunk edges fall inside it.
+    monkeypatch.setattr(minhash_module, "CHUNK_VALUES", 1000)
     params = SignatureParams()
     rng = np.random.default_rng(3)
-    sets = [rng.integers(0, 2**32, size=n, dtype=np.uint32) for n in (10, CHUNK_ROWS * 2 + 123, 7)]
+    sets = [rng.integers(0, 2**32, size=n, dtype=np.uint32) for n in (10, 2123, 7, 0, 1000, 1)]
     sig = minhash_signatures(*_csr(sets), params)
     for i, s in enumerate(sets):
-        np.testing.assert_array_equal(sig[i], _reference(s, params))
+        if len(s):
+            np.testing.assert_array_equal(sig[i], _reference(s, params))
+    assert np.all(sig[3] == 2**32 - 1)
 
 
 def test_from_text_equals_datasketch_given_our_shingle_hashes() -> None:

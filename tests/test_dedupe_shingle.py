@@ -92,7 +92,9 @@ def test_short_and_empty_texts() -> None:
 def test_word_hasher_cache_bound() -> None:
     hasher = WordHasher(max_words=3)
     values = [hasher(w) for w in ["a", "b", "c", "d", "e", "a"]]
-    assert values[0] == values[-1] and len(hasher._cache) <= 3
+    assert values[0] == values[-1] and len(hasher._index) <= 3
+    big = [f"w{i}" for i in range(10)]
+    np.testing.assert_array_equal(hasher.hash_words(big), WordHasher().hash_words(big))
 
 
 word = st.sampled_from(["ka", "lo", "mi", "nu", "po", "ra", "Ka", "lo,", "mi."])

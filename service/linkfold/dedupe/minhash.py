@@ -32,9 +32,10 @@ _FMIX = {
     64: (np.uint64(33), np.uint64(0xFF51AFD7ED558CCD), np.uint64(33), np.uint64(0xC4CEB9FE1A85EC53),
          np.uint64(33)),
 }
-# Rows of the (shingles × permutations) matrix computed at once: 32768 × 128 × 4 bytes = 16 MiB, small
-# enough to stay in memory on a laptop and large enough that numpy's per-call overhead vanishes.
-CHUNK_ROWS = 32768
+# Shingle hashes processed per pass. Each pass loops over the permutations with 1-d vector operations
+# (multiply, add, segmented minimum), which numpy runs far faster than the same work on a
+# (shingles × permutations) matrix; 2^20 values keep the working arrays at a few MiB, inside cache.
+CHUNK_VALUES = 1 << 20
 
 
 def _fmix(h: np.ndarray, width: int) -> np.ndarray:
@@ -151,8 +152,8 @@ def minhash_signatures(values: np.ndarray, offsets: np.ndarray, params: Signatur
     """Signatures of many sets given as one flat hash array with CSR ``offsets``; shape (n, num_perm).
 
     Set ``i`` is ``values[offsets[i]:offsets[i+1]]`` (repeats allowed). ``values`` must already be
-    ``width``-bit shingle hashes. Work is done in row chunks that may cut through a document; the
-    partial minima of a cut document are combined afterwards, so a huge document needs no special case.
+    ``width``-bit shingle hashes. Work is done in chunks of values that may cut through a document; the
+    partial minima of a cut document are combined, so a huge document needs no special case.
     """
     dtype = params.dtype
     values = np.asarray(values)
@@ -169,16 +170,20 @@ def minhash_signatures(values: np.ndarray, offsets: np.ndarray, params: Signatur
     nonempty = np.flatnonzero(ends > starts)
     ne_starts, ne_ends = starts[nonempty], ends[nonempty]
     total = len(values)
-    for lo in range(0, total, CHUNK_ROWS):
-        hi = min(lo + CHUNK_ROWS, total)
+    tmp = np.empty(min(total, CHUNK_VALUES), dtype=dtype)
+    for lo in range(0, total, CHUNK_VALUES):
+        hi = min(lo + CHUNK_VALUES, total)
         first = np.searchsorted(ne_ends, lo, side="right")
         last = np.searchsorted(ne_starts, hi, side="left")
         docs = nonempty[first:last]
         seg = np.maximum(ne_starts[first:last], lo) - lo
         mixed = _fmix(values[lo:hi], params.width)
-        phv = mixed[:, None] * a + b
-        part = np.minimum.reduceat(phv, seg, axis=0)
-        sig[docs] = np.minimum(sig[docs], part)
+        buf = tmp[:hi - lo]
+        for k in range(params.num_perm):
+            np.multiply(mixed, a[k], out=buf)
+            np.add(buf, b[k], out=buf)
+            part = np.minimum.reduceat(buf, seg)
+            sig[docs, k] = np.minimum(sig[docs, k], part)
     return sig
 
 
