@@ -23,7 +23,8 @@ def record(raw: str, canon: Callable[[str], Canonical], *, explain: bool = False
         c = canon(raw)
     except InvalidURL as exc:
         out: dict[str, Any] = dict.fromkeys(FIELDS)
-        out["input"] = raw
+        # Broken Unicode (lone surrogates) cannot be written out as UTF-8: show it escaped instead.
+        out["input"] = raw.encode("utf-8", "backslashreplace").decode("utf-8") if isinstance(raw, str) else raw
         out["error"] = exc.reason
         out["detail"] = exc.detail
         if explain:
