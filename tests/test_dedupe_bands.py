@@ -144,3 +144,26 @@ def test_exclude_and_bucket_cap() -> None:
     assert result.largest_bucket == 4 and result.oversize_buckets == params.bands
     none = candidate_pairs(keys[:1])
     assert none.pairs.shape == (0, 2)
+
+
+def test_band_key_matches_documented_spec() -> None:
+    # docs/dedupe.md: key_i = chain over [i, v_0 … v_{r−1}] with h₀ = 0x9E3779B97F4A7C15 and
+    # h ← fmix64(h XOR x), read as signed 64-bit. Written out with Python integers, independently.
+    mask = (1 << 64) - 1
+
+    def fmix(h: int) -> int:
+        h ^= h >> 33
+        h = (h * 0xFF51AFD7ED558CCD) & mask
+        h ^= h >> 33
+        h = (h * 0xC4CEB9FE1A85EC53) & mask
+        return h ^ (h >> 33)
+
+    rng = np.random.default_rng(4)
+    sig = rng.integers(0, 2**32, size=(3, 10), dtype=np.uint32)
+    keys = band_keys(sig, 3, 3)
+    for d in range(3):
+        for i in range(3):
+            h = 0x9E3779B97F4A7C15
+            for x in [i, *sig[d, i * 3:(i + 1) * 3].tolist()]:
+                h = fmix(h ^ x)
+            assert int(keys[d, i]) == (h - (1 << 64) if h >= 1 << 63 else h)

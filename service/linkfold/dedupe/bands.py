@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .shingle import CHAIN_START, fmix64
+from .shingle import CHAIN_START, fmix64_inplace
 
 
 def band_keys(signatures: np.ndarray, bands: int, rows: int | None = None) -> np.ndarray:
@@ -26,12 +26,17 @@ def band_keys(signatures: np.ndarray, bands: int, rows: int | None = None) -> np
     rows = num_perm // bands if rows is None else rows
     if bands < 1 or rows < 1 or bands * rows > num_perm:
         raise ValueError(f"cannot cut {num_perm} values into {bands} bands of {rows} rows")
-    vals = sig[:, :bands * rows].astype(np.uint64).reshape(n, bands, rows)
-    h = np.broadcast_to(CHAIN_START, (n, bands))
-    h = fmix64(h ^ np.arange(bands, dtype=np.uint64)[None, :])
+    # Work band-major, (bands, n), so every step is a contiguous 1-d pass; the result is returned as
+    # the transposed view, shape (n, bands), whose columns (one band of all documents) are contiguous,
+    # which is the access pattern of candidate generation and of a per-band bulk insert.
+    vals = np.ascontiguousarray(sig[:, :bands * rows].T).reshape(bands, rows, n)
+    h = np.empty((bands, n), dtype=np.uint64)
+    h[:] = (CHAIN_START ^ np.arange(bands, dtype=np.uint64))[:, None]
+    fmix64_inplace(h)
     for j in range(rows):
-        h = fmix64(h ^ vals[:, :, j])
-    return h.view(np.int64)
+        h ^= vals[:, j, :]
+        fmix64_inplace(h)
+    return h.view(np.int64).T
 
 
 @dataclass(frozen=True)
@@ -66,7 +71,9 @@ def candidate_pairs(keys: np.ndarray, *, exclude: np.ndarray | None = None,
     ``exclude`` masks rows that must never be candidates (empty texts: their signatures are all equal).
     Buckets larger than ``max_bucket`` are skipped and counted; ``None`` keeps every bucket.
     """
-    keys = np.asarray(keys, dtype=np.int64)
+    keys = np.asarray(keys)
+    if keys.dtype != np.int64:
+        keys = keys.astype(np.int64)
     n, bands = keys.shape
     rows_in = np.arange(n, dtype=np.int64)
     if exclude is not None:
@@ -75,8 +82,8 @@ def candidate_pairs(keys: np.ndarray, *, exclude: np.ndarray | None = None,
     oversize = 0
     largest = 1 if len(rows_in) else 0
     for band in range(bands):
-        k = keys[rows_in, band]
-        order = np.argsort(k, kind="stable")
+        k = keys[:, band] if exclude is None else keys[rows_in, band]
+        order = np.argsort(k)
         sk, docs = k[order], rows_in[order]
         if len(sk) < 2:
             continue
@@ -95,7 +102,10 @@ def candidate_pairs(keys: np.ndarray, *, exclude: np.ndarray | None = None,
             lo, hi = np.minimum(p[:, 0], p[:, 1]), np.maximum(p[:, 0], p[:, 1])
             codes.append(lo * n + hi)
     if codes:
-        unique = np.unique(np.concatenate(codes))
+        # sort + run mask rather than np.unique, whose hash-based path is several times slower here
+        unique = np.concatenate(codes)
+        unique.sort()
+        unique = unique[np.concatenate(([True], unique[1:] != unique[:-1]))]
         pairs = np.stack([unique // n, unique % n], axis=1)
     else:
         pairs = np.empty((0, 2), dtype=np.int64)

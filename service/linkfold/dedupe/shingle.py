@@ -31,13 +31,23 @@ _S33 = np.uint64(33)
 CHAIN_START = np.uint64(0x9E3779B97F4A7C15)
 
 
+def fmix64_inplace(h: np.ndarray) -> np.ndarray:
+    """MurmurHash3's 64-bit finaliser, element-wise, overwriting ``h`` (uint64; wraps modulo 2^64).
+
+    In place because these arrays are large and the temporaries of the plain expression would cost
+    more than the arithmetic.
+    """
+    h ^= h >> _S33
+    h *= _M1
+    h ^= h >> _S33
+    h *= _M2
+    h ^= h >> _S33
+    return h
+
+
 def fmix64(h: np.ndarray) -> np.ndarray:
-    """MurmurHash3's 64-bit finaliser, element-wise; uint64 arithmetic wraps modulo 2^64 by design."""
-    h = h ^ (h >> _S33)
-    h = h * _M1
-    h = h ^ (h >> _S33)
-    h = h * _M2
-    return h ^ (h >> _S33)
+    """MurmurHash3's 64-bit finaliser on a copy of ``h``."""
+    return fmix64_inplace(np.array(h, dtype=np.uint64))
 
 
 class _Separators(dict):
@@ -140,7 +150,8 @@ def chain_hash(columns: Sequence[np.ndarray]) -> np.ndarray:
     """Order-sensitive combination of equal-length uint64 columns: h ← fmix64(h XOR column_i)."""
     h = np.full(len(columns[0]) if len(columns) else 0, CHAIN_START, dtype=np.uint64)
     for col in columns:
-        h = fmix64(h ^ col)
+        h ^= col
+        fmix64_inplace(h)
     return h
 
 

@@ -86,3 +86,35 @@ def set_pair(rng: np.random.Generator, inter: int, union: int, *, width: int = 3
     rest = union - inter
     shared, only_a, only_b = values[:inter], values[inter:inter + rest // 2], values[inter + rest // 2:]
     return np.sort(np.concatenate([shared, only_a])), np.sort(np.concatenate([shared, only_b]))
+
+
+def set_families(n_docs: int, *, seed: int, set_size: int = 150, family_size: int = 4,
+                 change_rates: tuple[float, ...] = (0.0, 0.05, 0.1, 0.2, 0.3, 0.5),
+                 width: int = 32) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Shingle-hash sets without the text, for benchmarks at scale: CSR ``(values, offsets)`` + family.
+
+    Each family is a base set of random ``width``-bit values and copies in which a drawn fraction f of
+    the base's values is replaced by fresh ones, so a copy's Jaccard similarity to its base is
+    (1 − f) / (1 + f) exactly (up to the rare chance that a fresh value equals an old one).
+    """
+    rng = np.random.default_rng(seed)
+    dtype = np.uint32 if width == 32 else np.uint64
+    top = np.iinfo(dtype).max
+    sets: list[np.ndarray] = []
+    family: list[int] = []
+    fam = 0
+    while len(sets) < n_docs:
+        base = np.unique(rng.integers(0, top, size=set_size, dtype=dtype, endpoint=True))
+        for i in range(min(int(rng.integers(1, family_size + 1)), n_docs - len(sets))):
+            if i == 0:
+                sets.append(base)
+            else:
+                f = float(rng.choice(change_rates))
+                keep = rng.permutation(len(base))[: len(base) - round(f * len(base))]
+                fresh = rng.integers(0, top, size=len(base) - len(keep), dtype=dtype, endpoint=True)
+                sets.append(np.unique(np.concatenate([base[keep], fresh])))
+            family.append(fam)
+        fam += 1
+    offsets = np.zeros(len(sets) + 1, dtype=np.int64)
+    np.cumsum([len(s) for s in sets], out=offsets[1:])
+    return np.concatenate(sets), offsets, np.array(family, dtype=np.int64)
