@@ -29,7 +29,9 @@ def open_maybe_gzip(path: Path) -> IO[bytes]:
     except OSError as exc:
         raise InputError(f"{path}: cannot open: {exc.strerror or exc}") from None
     if raw.peek(2)[:2] == _GZIP_MAGIC:
-        return gzip.GzipFile(fileobj=raw, mode="rb")  # type: ignore[return-value]
+        raw.close()
+        # gzip.open owns the file it opens, so closing the reader closes the file too.
+        return gzip.open(path, "rb")  # type: ignore[return-value]
     return raw
 
 

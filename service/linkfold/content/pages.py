@@ -223,23 +223,54 @@ def read_warc(path: str | Path, *, max_bytes: int = DEFAULT_MAX_BYTES,
                 number += 1
                 offset = records.offset
                 source = f"warc:{path}#{offset}"
+                if not str(record.format).startswith("warc"):
+                    # warcio also reads the older ARC format, and takes any line of text for an ARC
+                    # header; only WARC is an input here.
+                    raise InputError(f"{path}: record {number} (offset {offset}) is not a WARC record",
+                                     hint="expected a file starting with WARC/1.0 or WARC/1.1")
+                if not record.rec_type:
+                    raise InputError(f"{path}: record {number} (offset {offset}) has no WARC-Type: "
+                                     "the archive ends or breaks inside a record header")
+                outcome: Page | _Skip | _Reject
                 try:
-                    page = _warc_page(record, source=source, max_bytes=max_bytes)
-                except _Skip as skip:
-                    tally.skipped[skip.reason] += 1
-                    continue
-                except _Reject as bad:
-                    tally.problems[bad.reason] += 1
-                    yield PageProblem(source, number, bad.reason, bad.detail)
-                    continue
-                tally.pages += 1
-                yield page
+                    outcome = _warc_page(record, source=source, max_bytes=max_bytes)
+                except (_Skip, _Reject) as exc:
+                    outcome = exc
+                # warcio hands out a cut-off last record as if it were whole; the block's declared
+                # Content-Length (WARC 1.1 §5.2) tells. Checked before anything of it is passed on.
+                missing = _drain(record)
+                if missing:
+                    raise InputError(f"{path}: archive ends inside record {number} (offset {offset}): "
+                                     f"{missing:,} bytes of its block are missing")
+                if isinstance(outcome, _Skip):
+                    tally.skipped[outcome.reason] += 1
+                elif isinstance(outcome, _Reject):
+                    tally.problems[outcome.reason] += 1
+                    yield PageProblem(source, number, outcome.reason, outcome.detail)
+                else:
+                    tally.pages += 1
+                    yield outcome
+            # A gzip member cut short yields no record and no error from warcio: whatever lies between
+            # the end of the last whole record and the end of the file was not read.
+            end = records.offset
+            size = path.stat().st_size
+            if end < size and fh.tell() >= size:
+                raise InputError(f"{path}: {size - end:,} bytes after offset {end} are not a whole "
+                                 "record (the archive is truncated or its compression is broken)")
         except ArchiveLoadFailed as exc:
             where = f"record {number + 1}" if number else "the start"
             raise InputError(f"{path}: not a readable WARC at {where} (after offset {offset}): {exc}") from None
         except (*GZIP_ERRORS, OSError) as exc:
             raise InputError(f"{path}: archive ends or breaks inside record {number} "
                              f"(offset {offset}): {exc}") from None
+
+
+def _drain(record: Any) -> int:
+    """Read the rest of a record's block; the number of bytes its Content-Length promised but not given."""
+    stream = record.raw_stream
+    while stream.read(1 << 16):
+        pass
+    return max(int(getattr(stream, "limit", 0) or 0), 0)
 
 
 def _warc_page(record: Any, *, source: str, max_bytes: int) -> Page:
