@@ -10,6 +10,7 @@ Routes (all under one port):
 * ``/final``, ``/final/<anything>``: 200 with a small HTML page.
 * ``/to?status=S&loc=L``: status S (default 302) with ``Location: L`` sent byte for byte.
 * ``/cookie``: sets a cookie and redirects to ``/final``.
+* ``/clean?…``: 301 to itself without ``utm_*`` parameters, 200 when there are none.
 * ``/noloc``: 302 without a Location header.
 * ``/chain/<n>``: ``/chain/<n-1>`` by a relative 301, and ``/chain/0`` answers 200.
 * ``/loop/a`` ↔ ``/loop/b``: 302 to each other.
@@ -31,7 +32,7 @@ import time
 from collections import Counter
 from dataclasses import dataclass
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
-from urllib.parse import parse_qs, urlsplit
+from urllib.parse import parse_qs, urlencode, urlsplit
 
 import httpcore
 
@@ -99,6 +100,13 @@ class _Handler(BaseHTTPRequestHandler):
             self._redirect_raw(status, query.get("loc", ["/final"])[0].encode("utf-8"), method)
         elif path == "/cookie":
             self._send(302, {"Set-Cookie": "visitor=abc123; Path=/", "Location": "/final"}, method=method)
+        elif path == "/clean":
+            # Redirects to itself without analytics parameters, as many sites do.
+            kept = [(k, v) for k, vs in query.items() for v in vs if not k.startswith("utm_")]
+            if len(kept) != sum(len(vs) for vs in query.values()):
+                self._redirect_raw(301, ("/clean?" + urlencode(kept)).encode(), method)
+            else:
+                self._send(200, {"Content-Type": "text/html"}, PAGE, method=method)
         elif path == "/noloc":
             self._send(302, method=method)
         elif path.startswith("/chain/"):

@@ -38,7 +38,15 @@ import httpx
 
 from .. import __version__
 from ..errors import ConfigError
-from .guard import AddressGuard, AddressRefused, ResolveFailed, Resolver, literal_address, system_resolver
+from .guard import (
+    AddressGuard,
+    AddressRefused,
+    ResolveFailed,
+    Resolver,
+    literal_address,
+    parse_networks,
+    system_resolver,
+)
 from .robots import ROBOTS_MAX_BYTES, RobotRules, parse_robots
 
 log = logging.getLogger("linkfold")
@@ -111,6 +119,14 @@ class ClientConfig:
                    host_concurrency=settings.http_host_concurrency, host_delay=settings.http_host_delay,
                    retries=max(0, settings.http_retries), max_wait=settings.http_max_wait,
                    allow_networks=tuple(settings.allow_networks))
+
+    def check(self) -> None:
+        """Refuse to make requests without a way for site operators to reach the lab."""
+        if not self.contact.strip():
+            raise ConfigError("no contact address set: linkfold puts it in the User-Agent of every request "
+                              "so site operators can reach the lab",
+                              hint="set LINKFOLD_CONTACT=mailto:lab@university.example (or a web page)")
+        parse_networks(self.allow_networks)
 
     @property
     def user_agent(self) -> str:
@@ -336,10 +352,7 @@ class SafeClient:
                  clock: Callable[[], float] | None = None,
                  rand: Callable[[], float] = random.random,
                  backend: httpcore.AsyncNetworkBackend | None = None) -> None:
-        if not config.contact.strip():
-            raise ConfigError("no contact address set: linkfold puts it in the User-Agent of every request "
-                              "so site operators can reach the lab",
-                              hint="set LINKFOLD_CONTACT=mailto:lab@university.example (or a web page)")
+        config.check()
         self.config = config
         self.guard = AddressGuard.from_settings(config.allow_networks)
         self.backend = GuardedBackend(self.guard, resolver or system_resolver, backend)

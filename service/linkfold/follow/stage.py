@@ -1,0 +1,342 @@
+"""The follow stage: pick pending canonical URLs, follow their chains concurrently, store the evidence.
+
+The async client runs inside ``asyncio.run`` called from the sync function :func:`follow_links`; chains
+complete in any order and are written to the database from the same (main) thread in batches, one
+transaction each, so SQLite keeps its single writer and a crash loses at most the batch in flight
+(its URLs stay pending and are picked up by the next run).
+
+For each chain:
+
+* every hop URL is canonicalised and stored as a raw URL and a canonical URL of its own;
+* every observed redirect whose two ends have different canonical forms becomes a ``redirect`` link
+  (hop number, status, run); a hop between two spellings of one canonical URL (http→https, a trailing
+  slash) is no evidence and is counted, not stored;
+* the start URL gets its outcome in ``follow_results`` (and an attempt row), with the time of the next
+  attempt for ``--retry-failed`` when it failed;
+* the later hops and the final URL get the same outcome (``via`` ``chain``, without a next attempt:
+  they are settled again when the start URL is retried) unless they have an outcome of their own, so
+  ``--all`` does not fetch them again.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import logging
+from collections import Counter
+from collections.abc import Callable, Iterable, Sequence
+from dataclasses import dataclass, field
+from datetime import datetime, timedelta
+from typing import Any
+
+import httpcore
+from sqlalchemy.engine import Engine
+
+from ..canon import Canonical, Canonicaliser
+from ..errors import ConfigError, InvalidURL
+from ..jobs.runlog import recording_run
+from ..progress import SILENT, Progress
+from ..store import evidence as ev
+from ..store.registry import get_dataset
+from ..store.rulesets import latest_ruleset
+from .chain import Chain, State, follow_chain
+from .client import ClientConfig, Failure, SafeClient
+from .guard import Resolver
+
+log = logging.getLogger("linkfold")
+
+#: Failure classes that usually pass by themselves; retried sooner (see :func:`next_attempt`).
+PASSING = frozenset({Failure.DNS, Failure.CONNECT, Failure.TIMEOUT, Failure.TLS, Failure.PROTOCOL,
+                     Failure.HTTP_5XX})
+RETRY_FIRST_PASSING = timedelta(hours=1)
+RETRY_FIRST_LASTING = timedelta(days=1)
+RETRY_CAP_PASSING = timedelta(days=30)
+RETRY_CAP_LASTING = timedelta(days=90)
+
+#: Chains written per transaction (at most ``batch_size`` from the settings).
+WRITE_BATCH = 200
+
+
+def next_attempt(failure: Failure | str, attempts: int, at: datetime,
+                 retry_after: float | None = None) -> datetime:
+    """When a failed URL is due again: doubling per attempt from one hour (failures that tend to pass:
+    DNS, connection, timeout, TLS, protocol, 5xx) or one day (the rest: 4xx, loops …), capped at 30 and
+    90 days, and never before what the server asked for in ``Retry-After``. The schedule is common
+    practice, no source; it is deterministic so a lab can say when a link will be tried next.
+    """
+    passing = Failure(failure) in PASSING or (retry_after is not None)
+    first, cap = (RETRY_FIRST_PASSING, RETRY_CAP_PASSING) if passing else (RETRY_FIRST_LASTING, RETRY_CAP_LASTING)
+    delay = min(cap, first * (2 ** max(0, attempts - 1)))
+    if retry_after is not None:
+        delay = max(delay, timedelta(seconds=retry_after))
+    return at + delay
+
+
+@dataclass
+class FollowSummary:
+    """What one follow run did. ``failed`` and ``refused`` count by failure class."""
+
+    selected: int = 0
+    resolved: int = 0
+    failed: Counter[str] = field(default_factory=Counter)
+    refused: Counter[str] = field(default_factory=Counter)
+    skipped: int = 0  # URLs that could not be fetched at all (no http(s) form to request)
+    links: int = 0
+    same_url_hops: int = 0
+    hop_errors: int = 0  # hop URLs the canonicaliser refused (the chain is kept up to there)
+    requests: int = 0
+    run_id: int | None = None
+    note: str | None = None
+
+    @property
+    def attempted(self) -> int:
+        return self.resolved + sum(self.failed.values()) + sum(self.refused.values())
+
+    @property
+    def dead_share(self) -> float | None:
+        """Failed URLs as a share of those attempted (refused ones are not known to be dead)."""
+        tried = self.resolved + sum(self.failed.values())
+        return None if tried == 0 else sum(self.failed.values()) / tried
+
+    def as_dict(self) -> dict[str, Any]:
+        return {"selected": self.selected, "resolved": self.resolved, "failed": dict(sorted(self.failed.items())),
+                "refused": dict(sorted(self.refused.items())), "skipped": self.skipped, "links": self.links,
+                "same_url_hops": self.same_url_hops, "hop_errors": self.hop_errors, "requests": self.requests,
+                "dead_share": self.dead_share, "run_id": self.run_id}
+
+    def lines(self) -> list[str]:
+        out = []
+        if self.note:
+            out.append(self.note)
+        out.append(f"followed {self.attempted:,} of {self.selected:,} selected URLs in {self.requests:,} "
+                   f"requests (run {self.run_id})")
+        out.append(f"  resolved: {self.resolved:,}")
+        out.append(f"  failed:   {sum(self.failed.values()):,}" + _by_class(self.failed))
+        out.append(f"  refused:  {sum(self.refused.values()):,}" + _by_class(self.refused))
+        if self.skipped:
+            out.append(f"  skipped:  {self.skipped:,} (no fetchable http(s) URL)")
+        out.append(f"  redirect links written: {self.links:,}"
+                   + (f" ({self.same_url_hops:,} hops within one canonical URL not stored)"
+                      if self.same_url_hops else ""))
+        if self.dead_share is not None:
+            out.append(f"  dead links: {100 * self.dead_share:.1f}% of the URLs answered or failed")
+        return out
+
+
+def _by_class(counts: Counter[str]) -> str:
+    return (" (" + ", ".join(f"{k} {v:,}" for k, v in sorted(counts.items())) + ")") if counts else ""
+
+
+def canonical_hosts(hosts: Iterable[str]) -> frozenset[str]:
+    """``--hosts`` values in the form canonical URLs store them (lower case, punycode, no port)."""
+    from ..canon.rules import normalise_rule_host
+
+    out = set()
+    for host in hosts:
+        if not host.strip():
+            continue
+        norm = normalise_rule_host(host)
+        if norm is None:
+            raise ConfigError(f"--hosts: {host!r} is not a host name")
+        out.add(norm)
+    return frozenset(out)
+
+
+def _fetch_url(item: ev.Pending) -> str | None:
+    """The URL to request: the first raw URL seen for it, trimmed, else the canonical URL."""
+    for candidate in (item.raw, item.url):
+        if candidate and candidate.strip().lower().startswith(("http://", "https://")):
+            return candidate.strip()
+    return None
+
+
+class _Writer:
+    """Turns finished chains into rows, one transaction per batch."""
+
+    def __init__(self, engine: Engine, canon: Canonicaliser, *, ruleset_id: int, run_id: int,
+                 summary: FollowSummary) -> None:
+        self.engine = engine
+        self.canon = canon
+        self.ruleset_id = ruleset_id
+        self.run_id = run_id
+        self.summary = summary
+
+    def _canonical(self, url: str) -> Canonical | None:
+        try:
+            return self.canon(url)
+        except InvalidURL as exc:
+            log.info("hop URL %s cannot be canonicalised (%s); the chain is stored up to it", url[:200], exc)
+            self.summary.hop_errors += 1
+            return None
+
+    def write(self, batch: Sequence[tuple[ev.Pending, Chain]]) -> None:
+        urls: dict[str, Canonical] = {}
+        for _item, chain in batch:
+            for u in [chain.start, chain.final_url, *(h.src for h in chain.hops), *(h.dst for h in chain.hops)]:
+                if u not in urls:
+                    found = self._canonical(u)
+                    if found is not None:
+                        urls[u] = found
+        with self.engine.begin() as conn:
+            ids = ev.register_urls(conn, urls.items(), ruleset_id=self.ruleset_id)
+            links, outcomes, learned = [], [], []
+            for item, chain in batch:
+                links.extend(self._links(chain, ids))
+                outcomes.append(self._outcome(conn, item, chain, ids))
+                learned.extend(self._learned(chain, ids))
+            self.summary.links += ev.add_links(conn, links)
+            ev.record_outcomes(conn, outcomes, run_id=self.run_id)
+            ev.record_outcomes(conn, learned, run_id=self.run_id, replace="learned")
+
+    def _links(self, chain: Chain, ids: dict[str, ev.UrlIds]) -> list[dict[str, Any]]:
+        rows = []
+        for hop in chain.hops:
+            src, dst = ids.get(hop.src), ids.get(hop.dst)
+            if src is None or dst is None:
+                continue
+            if src.canonical_id == dst.canonical_id:
+                self.summary.same_url_hops += 1
+                continue
+            rows.append({"kind": "redirect", "src_id": src.canonical_id, "dst_id": dst.canonical_id,
+                         "status": hop.status, "hop": hop.number, "source": "fetched",
+                         "detail": {"method": hop.method, "src_raw_id": src.raw_id, "dst_raw_id": dst.raw_id},
+                         "run_id": self.run_id, "created_at": hop.at})
+        return rows
+
+    def _outcome(self, conn, item: ev.Pending, chain: Chain, ids: dict[str, ev.UrlIds]) -> ev.Outcome:
+        final = ids.get(chain.final_url)
+        s = self.summary
+        s.requests += chain.requests
+        if chain.state is State.RESOLVED:
+            s.resolved += 1
+        elif chain.state is State.REFUSED:
+            s.refused[chain.failure.value if chain.failure else "unknown"] += 1
+        else:
+            s.failed[chain.failure.value if chain.failure else "unknown"] += 1
+        due = None
+        if chain.state is State.FAILED and chain.failure is not None:
+            before = ev.follow_result(conn, item.canonical_id)
+            attempts = (before["attempts"] if before else 0) + 1
+            due = next_attempt(chain.failure, attempts, chain.at, chain.retry_after)
+        return ev.Outcome(canonical_id=item.canonical_id, state=chain.state.value, via="fetched", at=chain.at,
+                          failure=chain.failure.value if chain.failure else None, http_status=chain.status,
+                          final_id=final.canonical_id if final else None, hops=len(chain.hops),
+                          next_attempt_at=due, detail=chain.detail)
+
+    def _learned(self, chain: Chain, ids: dict[str, ev.UrlIds]) -> list[ev.Outcome]:
+        """Outcomes for the other URLs a chain requested: where the start led, they lead too.
+
+        Hop i's source is i-1 hops in and ends where the start ended; the final URL is 0 hops from its
+        end. Not for ``too_many_hops``: a URL further down might resolve within the limit on its own,
+        and the URL where that chain stopped was never requested.
+        """
+        start = ids.get(chain.start)
+        if start is None or chain.failure is Failure.TOO_MANY_HOPS:
+            return []
+        final = ids.get(chain.final_url)
+        total = len(chain.hops)
+        later = [(hop.src, total - hop.number + 1) for hop in chain.hops[1:]] + [(chain.final_url, 0)]
+        out = []
+        for url, left in later:
+            got = ids.get(url)
+            if got is not None and got.canonical_id != start.canonical_id:
+                out.append(ev.Outcome(canonical_id=got.canonical_id, state=chain.state.value, via="chain",
+                                      at=chain.at, failure=chain.failure.value if chain.failure else None,
+                                      http_status=chain.status, final_id=final.canonical_id if final else None,
+                                      hops=left, detail=chain.detail))
+        return out
+
+
+async def _run_chains(client: SafeClient, items: Sequence[ev.Pending], *, max_hops: int, parallel: int,
+                      on_done: Callable[[ev.Pending, Chain | None], None]) -> None:
+    queue: asyncio.Queue[ev.Pending] = asyncio.Queue()
+    for item in items:
+        queue.put_nowait(item)
+
+    async def worker() -> None:
+        while True:
+            try:
+                item = queue.get_nowait()
+            except asyncio.QueueEmpty:
+                return
+            url = _fetch_url(item)
+            chain = None if url is None else await follow_chain(client, url, max_hops=max_hops)
+            on_done(item, chain)
+
+    await asyncio.gather(*(worker() for _ in range(max(1, min(parallel, len(items))))))
+
+
+def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
+                 hosts: Iterable[str] | None = None, all_urls: bool = False, limit: int | None = None,
+                 retry_failed: bool = False, resolver: Resolver | None = None, progress: Progress = SILENT,
+                 now: datetime | None = None,
+                 backend: httpcore.AsyncNetworkBackend | None = None) -> FollowSummary:
+    """Follow pending canonical URLs (see the module doc) and return the counts.
+
+    Which URLs: without ``all_urls``, those on ``hosts`` or, when ``hosts`` is not given, on the
+    ruleset's shortener hosts; with ``all_urls``, every URL. Then only those never followed, or with
+    ``retry_failed`` only the failed ones that are due (``now`` overrides the clock for that choice).
+    ``resolver`` and ``backend`` replace DNS and the socket layer (tests, lab pinning).
+    """
+    if all_urls and hosts:
+        raise ConfigError("give either --all or --hosts, not both")
+    if limit is not None and limit <= 0:
+        raise ConfigError(f"--limit must be a positive number (got {limit})")
+    config = ClientConfig.from_settings(settings)
+    config.check()  # before anything is read or written
+    summary = FollowSummary()
+    with engine.begin() as conn:
+        ruleset_id, rules = latest_ruleset(conn)
+        dataset_id = get_dataset(conn, dataset)["id"] if dataset else None
+        chosen: frozenset[str] | None
+        if all_urls:
+            chosen = None
+        elif hosts is not None:
+            chosen = canonical_hosts(hosts)
+        else:
+            chosen = frozenset(rules.shortener_hosts)
+            if not chosen:
+                summary.note = ("the ruleset lists no shortener hosts: add them to shortener_hosts in the "
+                                "rules file, or pass --hosts, or --all")
+        items = ev.select_pending(conn, hosts=chosen, dataset_id=dataset_id, retry_failed=retry_failed,
+                                  now=now, limit=limit)
+    summary.selected = len(items)
+    if not items:
+        return summary
+    canon = Canonicaliser(rules, cache_size=settings.canon_cache_size)
+    batch_size = max(1, min(settings.batch_size, WRITE_BATCH))
+    progress.start("follow", total=len(items))
+    with recording_run(engine, "follow") as run:
+        summary.run_id = run.id
+        writer = _Writer(engine, canon, ruleset_id=ruleset_id, run_id=run.id, summary=summary)
+        pending: list[tuple[ev.Pending, Chain]] = []
+
+        def done(item: ev.Pending, chain: Chain | None) -> None:
+            progress.advance(1)
+            if chain is None:
+                summary.skipped += 1
+                return
+            pending.append((item, chain))
+            if len(pending) >= batch_size:
+                batch = list(pending)
+                pending.clear()  # a batch that fails to write is not written again on the way out
+                writer.write(batch)
+                run.counts = summary.as_dict()
+
+        async def go() -> None:
+            async with SafeClient(config, resolver=resolver, backend=backend) as client:
+                await _run_chains(client, items, max_hops=settings.max_hops,
+                                  parallel=config.concurrency, on_done=done)
+
+        try:
+            asyncio.run(go())
+        finally:
+            # What finished before an interruption is stored too.
+            if pending:
+                writer.write(pending)
+                pending.clear()
+            run.counts = summary.as_dict()
+            progress.finish()
+    return summary
+
+
+__all__ = ["FollowSummary", "canonical_hosts", "follow_links", "next_attempt"]

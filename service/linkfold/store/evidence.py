@@ -1,0 +1,270 @@
+"""Writes and queries of the evidence tables: ``links`` (shared by every stage) and the follow state
+(``follow_results``, ``follow_attempts``).
+
+Every function works inside the caller's transaction (``conn``), so a stage commits one batch at a time
+and a crash loses at most the batch in flight. Nothing here deletes: links and attempts are append-only;
+``follow_results`` holds the latest outcome per canonical URL, and every outcome is also an attempt row.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Iterator, Mapping, Sequence
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from typing import Any
+
+import sqlalchemy as sa
+from sqlalchemy.engine import Connection
+
+from ..canon import Canonical
+from ..ingest.rows import raw_hash, storable
+from . import tables as t
+from .bulk import insert_new_rows
+
+_IN_CHUNK = 500  # ids per IN (…) list, well under SQLite's limit of bound parameters
+
+
+def _chunks(items: Sequence[Any]) -> Iterator[Sequence[Any]]:
+    for i in range(0, len(items), _IN_CHUNK):
+        yield items[i:i + _IN_CHUNK]
+
+
+def utc(value: datetime | None) -> datetime | None:
+    """SQLite returns times without a zone; all stored times are UTC."""
+    if value is None or value.tzinfo is not None:
+        return value
+    return value.replace(tzinfo=UTC)
+
+
+# --- URLs met while following ----------------------------------------------------------------------------
+@dataclass(frozen=True)
+class UrlIds:
+    canonical_id: int
+    raw_id: int
+
+
+def register_urls(conn: Connection, urls: Iterable[tuple[str, Canonical]], *, ruleset_id: int,
+                  stamp: datetime | None = None) -> dict[str, UrlIds]:
+    """Make sure each (raw URL, its canonical form) is stored; return the ids by raw URL text.
+
+    A hop's URL is a raw URL like any other (text exactly as the chain produced it), so a later stage can
+    fetch the URL a server named rather than its canonical form. A raw URL that is already stored keeps
+    the canonical URL it has; the returned canonical id is that of the form computed now.
+    """
+    stamp = stamp or datetime.now(UTC)
+    pairs = {storable(raw): canon for raw, canon in urls}
+    if not pairs:
+        return {}
+    canon_rows = {}
+    for canon in pairs.values():
+        canon_rows.setdefault(canon.url_key, {
+            "url_key": canon.url_key, "url": canon.url, "host": canon.host, "domain": canon.domain,
+            "outlet": canon.outlet, "is_article": canon.is_article, "ruleset_id": ruleset_id,
+            "created_at": stamp})
+    insert_new_rows(conn, t.canonical_urls, list(canon_rows.values()), ["url_key"])
+    c = t.canonical_urls
+    ids: dict[str, int] = {}
+    for part in _chunks(list(canon_rows)):
+        ids.update({k: int(i) for i, k in conn.execute(sa.select(c.c.id, c.c.url_key).where(c.c.url_key.in_(part)))})
+    hashes = {raw: raw_hash(raw) for raw in pairs}
+    raw_rows = [{"raw_hash": hashes[raw], "raw": raw, "canonical_id": ids[canon.url_key], "ruleset_id": ruleset_id,
+                 "error": None, "created_at": stamp} for raw, canon in pairs.items()]
+    insert_new_rows(conn, t.raw_urls, raw_rows, ["raw_hash"])
+    r = t.raw_urls
+    raw_ids: dict[str, int] = {}
+    for part in _chunks(list(hashes.values())):
+        raw_ids.update({h: int(i) for i, h in conn.execute(sa.select(r.c.id, r.c.raw_hash).where(r.c.raw_hash.in_(part)))})
+    return {raw: UrlIds(ids[canon.url_key], raw_ids[hashes[raw]]) for raw, canon in pairs.items()}
+
+
+# --- links ---------------------------------------------------------------------------------------------------
+def add_links(conn: Connection, rows: Sequence[Mapping[str, Any]]) -> int:
+    """Append links, skipping any that repeats a stored one in (kind, src_id, dst_id, source).
+
+    Following the same short link twice observes the same redirect twice; evidence is about *whether*
+    two URLs are linked, so one row per source is kept, with the time it was first seen. Returns the
+    number written.
+    """
+    if not rows:
+        return 0
+    lk = t.links
+    wanted: dict[tuple, Mapping[str, Any]] = {}
+    for row in rows:
+        wanted.setdefault((row["kind"], row["src_id"], row["dst_id"], row.get("source")), row)
+    src_ids = sorted({key[1] for key in wanted})
+    for part in _chunks(src_ids):
+        stored = conn.execute(sa.select(lk.c.kind, lk.c.src_id, lk.c.dst_id, lk.c.source)
+                              .where(lk.c.src_id.in_(part)))
+        for kind, src, dst, source in stored:
+            wanted.pop((kind, src, dst, source), None)
+    if not wanted:
+        return 0
+    full = [{"kind": r["kind"], "src_id": r["src_id"], "dst_id": r["dst_id"], "status": r.get("status"),
+             "hop": r.get("hop"), "source": r.get("source"), "detail": r.get("detail"),
+             "run_id": r.get("run_id"), "created_at": r["created_at"]} for r in wanted.values()]
+    # executemany rather than COPY: the JSON detail needs the driver's adaptation.
+    conn.execute(sa.insert(lk), full)
+    return len(full)
+
+
+def links_of(conn: Connection, canonical_id: int, *, kind: str | None = None) -> list[dict[str, Any]]:
+    """Every link from or to a canonical URL, oldest first."""
+    lk = t.links
+    q = sa.select(lk).where(sa.or_(lk.c.src_id == canonical_id, lk.c.dst_id == canonical_id))
+    if kind is not None:
+        q = q.where(lk.c.kind == kind)
+    return [dict(r) | {"created_at": utc(r["created_at"])} for r in conn.execute(q.order_by(lk.c.id)).mappings()]
+
+
+# --- follow state ----------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class Outcome:
+    """One follow outcome for one canonical URL, as written to ``follow_results``/``follow_attempts``."""
+
+    canonical_id: int
+    state: str
+    via: str  # fetched | chain | imported
+    at: datetime
+    failure: str | None = None
+    http_status: int | None = None
+    final_id: int | None = None
+    hops: int | None = None
+    next_attempt_at: datetime | None = None
+    detail: str | None = None
+
+
+def record_outcomes(conn: Connection, outcomes: Sequence[Outcome], *, run_id: int | None,
+                    replace: str = "always") -> int:
+    """Store outcomes: the latest in ``follow_results``, each also as an attempt in ``follow_attempts``.
+
+    ``replace`` says when an existing result is overwritten: ``always`` (a new attempt of the URL
+    itself), ``unresolved`` (an import: it settles a failed URL but never a resolved one) or ``learned``
+    (a URL learned from another URL's chain: it fills a gap or replaces what an earlier chain taught,
+    never the URL's own outcome, and is not an attempt of its own).
+    Returns the number of results written.
+    """
+    if not outcomes:
+        return 0
+    fr = t.follow_results
+    latest: dict[int, Outcome] = {}
+    for outcome in outcomes:
+        latest[outcome.canonical_id] = outcome  # the last one of a batch wins, as it would one by one
+    existing: dict[int, tuple[int, str, str]] = {}
+    for part in _chunks(sorted(latest)):
+        for cid, attempts, state, via in conn.execute(
+                sa.select(fr.c.canonical_id, fr.c.attempts, fr.c.state, fr.c.via)
+                .where(fr.c.canonical_id.in_(part))):
+            existing[int(cid)] = (int(attempts), state, via)
+    inserts, updates = [], []
+    for cid, o in latest.items():
+        values = {"state": o.state, "failure": o.failure, "http_status": o.http_status, "final_id": o.final_id,
+                  "hops": o.hops, "via": o.via, "last_attempt_at": o.at, "next_attempt_at": o.next_attempt_at,
+                  "run_id": run_id}
+        if cid not in existing:
+            inserts.append({"canonical_id": cid, "attempts": 0 if replace == "learned" else 1,
+                            "first_attempt_at": o.at, **values})
+            continue
+        attempts, state, via = existing[cid]
+        if replace == "always" or (replace == "unresolved" and state != "resolved"):
+            updates.append({"b_cid": cid, "attempts": attempts + 1, **values})
+        elif replace == "learned" and via == "chain":
+            updates.append({"b_cid": cid, "attempts": attempts, **values})
+    if inserts:
+        conn.execute(sa.insert(fr), inserts)
+    if updates:
+        stmt = sa.update(fr).where(fr.c.canonical_id == sa.bindparam("b_cid")).values(
+            {k: sa.bindparam(k) for k in updates[0] if k != "b_cid"})
+        conn.execute(stmt, updates)
+    if replace != "learned":
+        conn.execute(sa.insert(t.follow_attempts), [
+            {"canonical_id": o.canonical_id, "run_id": run_id, "attempted_at": o.at, "state": o.state,
+             "failure": o.failure, "http_status": o.http_status, "final_id": o.final_id, "hops": o.hops,
+             "detail": (o.detail or None) and o.detail[:500]} for o in outcomes])
+    return len(inserts) + len(updates)
+
+
+def follow_result(conn: Connection, canonical_id: int) -> dict[str, Any] | None:
+    fr = t.follow_results
+    row = conn.execute(sa.select(fr).where(fr.c.canonical_id == canonical_id)).mappings().first()
+    if row is None:
+        return None
+    return {k: (utc(v) if isinstance(v, datetime) else v) for k, v in dict(row).items()}
+
+
+def follow_attempts_of(conn: Connection, canonical_id: int) -> list[dict[str, Any]]:
+    fa = t.follow_attempts
+    rows = conn.execute(sa.select(fa).where(fa.c.canonical_id == canonical_id).order_by(fa.c.id)).mappings()
+    return [{k: (utc(v) if isinstance(v, datetime) else v) for k, v in dict(r).items()} for r in rows]
+
+
+@dataclass(frozen=True)
+class Pending:
+    canonical_id: int
+    url: str  # the canonical URL
+    raw: str | None  # the first raw URL stored for it, the one to fetch (see docs/following.md)
+
+
+def select_pending(conn: Connection, *, hosts: Iterable[str] | None, dataset_id: int | None = None,
+                   retry_failed: bool = False, now: datetime | None = None,
+                   limit: int | None = None) -> list[Pending]:
+    """Canonical URLs to follow, oldest first.
+
+    Without ``retry_failed``: those never followed. With it: those whose own last outcome is ``failed``
+    and whose ``next_attempt_at`` has passed. ``hosts`` (canonical host names) restricts the choice; ``None``
+    means every host. ``dataset_id`` keeps URLs sighted in that dataset.
+    """
+    c, fr, r = t.canonical_urls, t.follow_results, t.raw_urls
+    first_raw = (sa.select(r.c.raw).where(r.c.canonical_id == c.c.id).order_by(r.c.id).limit(1)
+                 .correlate(c).scalar_subquery())
+    q = sa.select(c.c.id, c.c.url, first_raw.label("raw")).select_from(c.outerjoin(fr, fr.c.canonical_id == c.c.id))
+    if retry_failed:
+        due = now or datetime.now(UTC)
+        # URLs that only inherited a failure from another URL's chain are settled when that URL is retried.
+        q = q.where(fr.c.state == "failed", fr.c.via != "chain", fr.c.next_attempt_at <= due)
+    else:
+        q = q.where(fr.c.id.is_(None))
+    if hosts is not None:
+        host_list = sorted(set(hosts))
+        if not host_list:
+            return []
+        q = q.where(c.c.host.in_(host_list))
+    if dataset_id is not None:
+        sighted = (sa.select(r.c.canonical_id).select_from(r.join(t.sightings, t.sightings.c.raw_url_id == r.c.id))
+                   .where(t.sightings.c.dataset_id == dataset_id, r.c.canonical_id.is_not(None)))
+        q = q.where(c.c.id.in_(sighted))
+    q = q.order_by(c.c.id)
+    if limit is not None:
+        q = q.limit(limit)
+    return [Pending(int(i), url, raw) for i, url, raw in conn.execute(q)]
+
+
+def follow_totals(conn: Connection, *, dataset_id: int | None = None) -> dict[str, Any]:
+    """Counts of follow outcomes by state and failure class (optionally for one dataset's URLs)."""
+    fr, r = t.follow_results, t.raw_urls
+    q = sa.select(fr.c.state, fr.c.failure, sa.func.count()).group_by(fr.c.state, fr.c.failure)
+    if dataset_id is not None:
+        sighted = (sa.select(r.c.canonical_id).select_from(r.join(t.sightings, t.sightings.c.raw_url_id == r.c.id))
+                   .where(t.sightings.c.dataset_id == dataset_id))
+        q = q.where(fr.c.canonical_id.in_(sighted))
+    out: dict[str, Any] = {"resolved": 0, "failed": {}, "refused": {}}
+    for state, failure, n in conn.execute(q):
+        if state == "resolved":
+            out["resolved"] += int(n)
+        else:
+            out.setdefault(state, {})[failure or "unknown"] = int(n)
+    return out
+
+
+__all__ = [
+    "Outcome",
+    "Pending",
+    "UrlIds",
+    "add_links",
+    "follow_attempts_of",
+    "follow_result",
+    "follow_totals",
+    "links_of",
+    "record_outcomes",
+    "register_urls",
+    "select_pending",
+]
