@@ -135,7 +135,9 @@ class BatchCounts:
 
 
 def _insert(conn: Connection, table: sa.Table):
-    return (postgresql.insert if conn.dialect.name == "postgresql" else sqlite.insert)(table)
+    stmt = (postgresql.insert if conn.dialect.name == "postgresql" else sqlite.insert)(table)
+    # SQLAlchemy does not keep an INSERT's rowcount unless asked; it is how we count what was new.
+    return stmt.execution_options(preserve_rowcount=True)
 
 
 def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: int,

@@ -1,0 +1,335 @@
+"""Dump readers without a database: formats, limits, bad input, and the recovery after a broken record.
+
+CSV cases follow RFC 4180 §2 (rules 1-7, examples quoted from memory of the RFC's text); TSV follows the
+IANA text/tab-separated-values registration (no quoting); JSON lines are RFC 8259 texts one per line.
+"""
+
+from __future__ import annotations
+
+import gzip
+import io
+from pathlib import Path
+
+import pytest
+
+from linkfold.errors import DumpFormatError, InputError, MissingColumnError
+from linkfold.ingest.formats import (
+    DumpFormat,
+    guess_format,
+    inspect_file,
+    open_binary,
+    physical_lines,
+)
+from linkfold.ingest.paths import parse_path, resolve
+from linkfold.ingest.readers import MISSING, DumpReader, ReadOptions, Reason
+
+
+def read(data: bytes | str, fmt: str, *, limit: int = 1 << 20, **opts) -> list:
+    if isinstance(data, str):
+        data = data.encode("utf-8")
+    options = ReadOptions(fmt=DumpFormat(fmt), max_line_bytes=limit, **opts)
+    reader = DumpReader(physical_lines(io.BytesIO(data), limit), options, name="dump")
+    return list(reader)
+
+
+def good(rows):
+    return [(r.line_no, r.urls, r.key, r.time) for r in rows if r.reject is None]
+
+
+def bad(rows):
+    return [(r.line_no, r.reject.reason) for r in rows if r.reject is not None]
+
+
+# --- format guessing and the byte layer -------------------------------------------------------------------
+@pytest.mark.parametrize(("name", "fmt"), [
+    ("panel.csv", "csv"), ("panel.CSV.gz", "csv"), ("a.tsv", "tsv"), ("a.tab.gz", "tsv"),
+    ("posts.jsonl", "jsonl"), ("posts.ndjson.gz", "jsonl"), ("urls.txt", "lines"), ("x.list", "lines"),
+])
+def test_format_is_guessed_from_the_name(name, fmt):
+    assert guess_format(Path(name)) is DumpFormat(fmt)
+
+
+def test_unknown_name_asks_for_format():
+    with pytest.raises(InputError, match="--format"):
+        guess_format(Path("dump.json"))  # one JSON document, not JSON lines: never guessed
+
+
+def test_gzip_is_detected_by_content_and_hashed_as_stored(tmp_path):
+    import hashlib
+
+    body = b"url\nhttps://a.example/1\n"
+    path = tmp_path / "dump.csv"  # no .gz in the name: the RFC 1952 magic bytes decide
+    path.write_bytes(gzip.compress(body))
+    facts = inspect_file(path)
+    assert facts.gzipped
+    # Provenance is the file the lab holds: the digest of the compressed bytes (hashlib as reference).
+    assert facts.sha256 == hashlib.sha256(path.read_bytes()).hexdigest()
+    assert facts.lines == 2
+    stream = open_binary(path, facts.gzipped)
+    try:
+        assert stream.binary.read() == body
+        assert stream.sha256() == facts.sha256
+    finally:
+        stream.close()
+
+
+def test_concatenated_gzip_members_are_one_file(tmp_path):
+    # RFC 1952 §2.2: a gzip file is a series of members; gzip.open reads them as one stream.
+    path = tmp_path / "two.txt.gz"
+    path.write_bytes(gzip.compress(b"https://a.example/1\n") + gzip.compress(b"https://a.example/2\n"))
+    facts = inspect_file(path)
+    assert facts.lines == 2
+    stream = open_binary(path, True)
+    try:
+        rows = list(DumpReader(physical_lines(stream.binary, 1 << 20), ReadOptions(DumpFormat.LINES),
+                               name="two"))
+    finally:
+        stream.close()
+    assert [r.urls for r in rows] == [["https://a.example/1"], ["https://a.example/2"]]
+
+
+def test_truncated_gzip_fails_before_loading(tmp_path):
+    path = tmp_path / "cut.csv.gz"
+    path.write_bytes(gzip.compress(b"url\n" + b"https://a.example/x\n" * 1000)[:-20])
+    with pytest.raises(InputError, match="truncated"):
+        inspect_file(path)
+
+
+def test_line_counting_without_final_newline(tmp_path):
+    path = tmp_path / "a.txt"
+    path.write_bytes(b"https://a.example/1\nhttps://a.example/2")
+    assert inspect_file(path).lines == 2
+
+
+def test_over_long_line_is_cut_and_the_next_line_keeps_its_number():
+    lines = list(physical_lines(io.BytesIO(b"ab\n" + b"x" * 100 + b"\ncd\n"), 10))
+    assert [(pl.number, pl.data, pl.too_long) for pl in lines] == [
+        (1, b"ab", False), (2, b"x" * 11, True), (3, b"cd", False)]  # only a prefix is held
+
+
+def test_line_of_exactly_the_limit_is_fine():
+    lines = list(physical_lines(io.BytesIO(b"x" * 10 + b"\n" + b"y" * 11 + b"\n"), 10))
+    assert [(pl.number, pl.too_long) for pl in lines] == [(1, False), (2, True)]
+
+
+def test_byte_order_mark_is_not_content():
+    rows = read(b"\xef\xbb\xbfurl\nhttps://a.example/\n", "csv")
+    assert good(rows) == [(2, ["https://a.example/"], MISSING, MISSING)]
+
+
+# --- CSV: RFC 4180 §2 -------------------------------------------------------------------------------------
+def test_rfc4180_rule1_crlf_records_and_rule2_no_final_break():
+    rows = read("url,k\r\nhttps://a.example/1,aaa\r\nhttps://a.example/2,zzz", "csv", key_column="k")
+    assert good(rows) == [(2, ["https://a.example/1"], "aaa", MISSING),
+                          (3, ["https://a.example/2"], "zzz", MISSING)]
+
+
+def test_rfc4180_rule5_quoted_fields():
+    rows = read('"url","k"\n"https://a.example/1","aaa"\n', "csv", key_column="k")
+    assert good(rows) == [(2, ["https://a.example/1"], "aaa", MISSING)]
+
+
+def test_rfc4180_rule6_commas_and_line_breaks_inside_quotes():
+    rows = read('url,k,note\n"https://a.example/?a=1,2","b\r\nbb",x\nhttps://a.example/3,c,y\n', "csv",
+                key_column="k")
+    # The quoted line break keeps the record whole; the row starts on line 2, the next one on line 4.
+    assert good(rows) == [(2, ["https://a.example/?a=1,2"], "b\r\nbb", MISSING),
+                          (4, ["https://a.example/3"], "c", MISSING)]
+    assert rows[0].end_line == 3
+
+
+def test_rfc4180_rule7_doubled_quote_inside_quotes():
+    rows = read('url,k\n"https://a.example/","b""bb"\n', "csv", key_column="k")
+    assert good(rows) == [(2, ["https://a.example/"], 'b"bb', MISSING)]
+
+
+def test_only_the_named_columns_leave_the_reader():
+    rows = read("visitor,url,secret\nv-17,https://a.example/,do-not-keep\n", "csv")
+    row = rows[0]
+    assert row.urls == ["https://a.example/"] and row.key is MISSING and row.time is MISSING
+    assert "do-not-keep" not in repr(row) and "v-17" not in repr(row)
+
+
+def test_several_url_columns_give_positions_in_order():
+    rows = read("a,b\nhttps://a.example/1,https://a.example/2\n", "csv", url_columns=("b", "a"))
+    assert good(rows)[0][1] == ["https://a.example/2", "https://a.example/1"]
+
+
+def test_missing_url_column_names_the_columns_found():
+    with pytest.raises(MissingColumnError) as err:
+        read("id,link,when\n1,https://a.example/,x\n", "csv", url_columns=("url",))
+    assert "'id', 'link', 'when'" in str(err.value)
+
+
+def test_no_url_column_given_and_none_called_url():
+    with pytest.raises(MissingColumnError, match="which column holds the URLs"):
+        read("id,link\n1,https://a.example/\n", "csv")
+
+
+def test_case_mismatch_gets_a_hint():
+    with pytest.raises(MissingColumnError, match="did you mean 'URL'"):
+        read("URL\nhttps://a.example/\n", "csv", url_columns=("url",))
+
+
+def test_ambiguous_header_column():
+    with pytest.raises(DumpFormatError, match="2 times"):
+        read("url,url\na,b\n", "csv")
+
+
+def test_empty_csv_needs_a_header():
+    with pytest.raises(DumpFormatError, match="empty"):
+        read("", "csv")
+
+
+def test_unterminated_quote_costs_only_its_line():
+    text = 'url,k\nhttps://a.example/1,"open\nhttps://a.example/2,b\nhttps://a.example/3,c\n'
+    rows = read(text, "csv", key_column="k")
+    assert bad(rows) == [(2, Reason.MALFORMED_CSV)]
+    assert good(rows) == [(3, ["https://a.example/2"], "b", MISSING), (4, ["https://a.example/3"], "c", MISSING)]
+
+
+def test_character_after_closing_quote_is_malformed():
+    rows = read('url\n"https://a.example/"x\nhttps://a.example/ok\n', "csv")
+    assert bad(rows) == [(2, Reason.MALFORMED_CSV)]
+    assert good(rows) == [(3, ["https://a.example/ok"], MISSING, MISSING)]
+
+
+def test_stray_quote_spanning_lines_with_wrong_width_gives_the_lines_back():
+    # Line 2 opens a quote that line 4 closes: one record of the wrong width, really three rows.
+    text = 'url,k\nhttps://a.example/1,"x\nhttps://a.example/2,y\nhttps://a.example/3,z",w\n'
+    rows = read(text, "csv", key_column="k")
+    assert bad(rows)[0] == (2, Reason.MALFORMED_CSV)
+    assert (3, ["https://a.example/2"], "y", MISSING) in good(rows)
+
+
+def test_quoted_field_longer_than_the_limit_is_broken_off():
+    text = 'url,k\nhttps://a.example/1,"open\n' + "filler\n" * 20 + "https://a.example/2,b\n"
+    rows = read(text, "csv", key_column="k", limit=64)
+    assert bad(rows)[0] == (2, Reason.MALFORMED_CSV)
+    assert (23, ["https://a.example/2"], "b", MISSING) in good(rows)
+    assert [r.line_no for r in rows] == sorted(r.line_no for r in rows)  # line order always holds
+
+
+def test_too_few_fields_is_missing_column_too_many_is_field_count():
+    rows = read("url,k,t\nhttps://a.example/1\nhttps://a.example/2,a,b,c\n", "csv")
+    assert bad(rows) == [(2, Reason.MISSING_COLUMN), (3, Reason.FIELD_COUNT)]
+
+
+def test_invalid_utf8_rejects_the_record_with_its_line():
+    rows = read(b"url\nhttps://a.example/\xff\nhttps://a.example/ok\n", "csv")
+    assert bad(rows) == [(2, Reason.INVALID_UTF8)]
+    assert "0xff" in rows[0].reject.detail
+    assert good(rows) == [(3, ["https://a.example/ok"], MISSING, MISSING)]
+
+
+def test_over_long_csv_line_is_rejected_and_reading_goes_on():
+    rows = read("url\n" + "https://a.example/" + "x" * 200 + "\nhttps://a.example/ok\n", "csv", limit=100)
+    assert bad(rows) == [(2, Reason.LINE_TOO_LONG)]
+    assert good(rows) == [(3, ["https://a.example/ok"], MISSING, MISSING)]
+
+
+def test_over_long_line_inside_a_quoted_record_keeps_line_order():
+    text = 'url,k\nhttps://a.example/1,"open\nhttps://a.example/2,b\n' + "y" * 300 + "\nhttps://a.example/3,c\n"
+    rows = read(text, "csv", key_column="k", limit=100)
+    assert [r.line_no for r in rows] == [2, 3, 4, 5]
+    assert bad(rows) == [(2, Reason.MALFORMED_CSV), (4, Reason.LINE_TOO_LONG)]
+
+
+def test_blank_lines_are_counted_not_rows():
+    options = ReadOptions(fmt=DumpFormat.CSV)
+    reader = DumpReader(physical_lines(io.BytesIO(b"url\n\nhttps://a.example/\n  \n"), 1 << 20), options,
+                        name="d")
+    rows = list(reader)
+    assert len(rows) == 1 and reader.blank_lines == 2
+
+
+def test_nul_in_a_field_reaches_the_row_for_the_canonicaliser_to_refuse():
+    rows = read(b"url\nhttps://a.example/\x00x\n", "csv")
+    assert rows[0].urls == ["https://a.example/\x00x"]
+
+
+# --- TSV: IANA text/tab-separated-values ------------------------------------------------------------------
+def test_tsv_has_no_quoting():
+    rows = read('url\tnote\nhttps://a.example/\t"quoted, not special\n', "tsv")
+    assert good(rows) == [(2, ["https://a.example/"], MISSING, MISSING)]
+    rows = read('url\tnote\n"https://a.example/"\tx\n', "tsv")
+    assert good(rows)[0][1] == ['"https://a.example/"']  # the quotes are part of the value
+
+
+# --- JSON lines and paths -------------------------------------------------------------------------------
+def test_dotted_path_with_star_reads_every_link_of_a_post():
+    line = '{"id": 7, "entities": {"links": [{"url": "https://a.example/1"}, {"title": "no url"}, ' \
+           '{"url": "https://a.example/2"}]}}\n'
+    rows = read(line, "jsonl", url_columns=("entities.links.*.url",), key_column="id")
+    assert good(rows) == [(1, ["https://a.example/1", "https://a.example/2"], 7, MISSING)]
+
+
+def test_path_syntax():
+    assert parse_path("a.*.b").segments[1] is not "*"  # noqa: F632 - the STAR marker, not the text
+    assert parse_path(r"a\.b.c").segments == ("a.b", "c")
+    assert parse_path(r"x.\*").segments == ("x", "*")
+    assert resolve(parse_path("links.1"), {"links": ["u0", "u1"]}).values == ["u1"]
+    for broken in ("", "a..b", ".a", "a.", "a\\"):
+        with pytest.raises(InputError):
+            parse_path(broken)
+
+
+def test_path_that_meets_an_array_says_to_use_star():
+    got = resolve(parse_path("links.url"), {"links": [{"url": "u"}]})
+    assert got.values == [] and "use *" in got.missing
+
+
+def test_jsonl_record_without_the_path_is_missing_column():
+    text = '{"url": "https://a.example/1"}\n{"other": 1}\n'
+    rows = read(text, "jsonl")
+    assert bad(rows) == [(2, Reason.MISSING_COLUMN)]
+
+
+def test_jsonl_bad_lines():
+    text = b'{"url": "https://a.example/1"}\n{not json}\n[1, 2]\n{"url": "https://a.example/\xff"}\n'
+    rows = read(text, "jsonl")
+    assert bad(rows) == [(2, Reason.BAD_JSON), (3, Reason.BAD_JSON), (4, Reason.INVALID_UTF8)]
+
+
+def test_jsonl_missing_path_in_every_record_fails_before_reading():
+    with pytest.raises(MissingColumnError) as err:
+        read('{"id": 1, "link": "https://a.example/"}\n', "jsonl", url_columns=("url",))
+    assert "'id', 'link'" in str(err.value)
+
+
+def test_jsonl_typo_deep_in_a_star_path_fails_before_reading():
+    with pytest.raises(MissingColumnError):
+        read('{"links": [{"url": "https://a.example/"}]}\n', "jsonl", url_columns=("links.*.href",))
+
+
+def test_jsonl_posts_without_links_are_not_a_missing_column():
+    rows = read('{"links": []}\n{"links": [{"url": "https://a.example/"}]}\n', "jsonl",
+                url_columns=("links.*.url",))
+    assert [r.urls for r in rows] == [[], ["https://a.example/"]]
+
+
+def test_not_json_lines_at_all():
+    with pytest.raises(DumpFormatError, match="JSON object"):
+        read("url,k\nhttps://a.example/,1\n", "jsonl")
+
+
+def test_key_and_time_paths_cannot_spread():
+    with pytest.raises(InputError, match="one value"):
+        read('{"url": "u"}\n', "jsonl", key_column="ids.*")
+
+
+def test_jsonl_over_long_line():
+    rows = read('{"url": "https://a.example/' + "x" * 300 + '"}\n{"url": "https://a.example/"}\n', "jsonl",
+                limit=100)
+    assert bad(rows) == [(1, Reason.LINE_TOO_LONG)]
+
+
+# --- plain lists --------------------------------------------------------------------------------------
+def test_lines_format_keeps_text_verbatim_and_skips_blank_lines():
+    rows = read(" https://a.example/1 \r\n\nhttps://a.example/2", "lines")
+    assert [(r.line_no, r.urls) for r in rows] == [(1, [" https://a.example/1 "]), (3, ["https://a.example/2"])]
+
+
+def test_lines_format_refuses_column_options():
+    with pytest.raises(InputError, match="do not apply"):
+        read("https://a.example/\n", "lines", key_column="id")
