@@ -15,13 +15,14 @@ from . import __version__
 from ._commands import canon as canon_commands
 from ._commands import db as db_commands
 from ._commands import demo as demo_commands
+from ._commands import follow as follow_commands
 from ._commands import ingest as ingest_commands
 from ._commands._common import Context, common_options
 from .errors import LinkfoldError
 
 log = logging.getLogger("linkfold")
 
-COMMAND_MODULES = [db_commands, canon_commands, ingest_commands, demo_commands]
+COMMAND_MODULES = [db_commands, canon_commands, ingest_commands, follow_commands, demo_commands]
 
 
 class _Group(click.Group):

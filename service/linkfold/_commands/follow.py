@@ -1,0 +1,131 @@
+"""``linkfold follow`` and ``linkfold follow-report``."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from ..follow import follow_links, import_redirects
+from ..follow.imports import FORMATS
+from ..store import evidence, registry
+from ._common import Context, common_options, format_option, pass_ctx, to_json, write_jsonl, write_table
+
+#: Problems printed one by one after an import; the rest are counted in the summary.
+SHOWN_PROBLEMS = 50
+
+
+def _hosts(value: str | None) -> list[str] | None:
+    if value is None:
+        return None
+    hosts = [h.strip() for h in value.split(",") if h.strip()]
+    if not hosts:
+        raise click.BadParameter("give at least one host", param_hint="--hosts")
+    return hosts
+
+
+@click.command("follow")
+@click.option("--dataset", metavar="NAME", help="Only URLs sighted in this dataset.")
+@click.option("--hosts", metavar="HOST,…", help="Follow URLs on these hosts (default: the ruleset's "
+                                                "shortener_hosts).")
+@click.option("--all", "all_urls", is_flag=True, help="Follow every URL not yet followed, whatever its host.")
+@click.option("--limit", type=click.IntRange(min=1), metavar="N", help="At most N URLs in this run.")
+@click.option("--retry-failed", is_flag=True,
+              help="Follow again the URLs that failed and are due (backoff per failure class).")
+@click.option("--import", "import_file", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE",
+              help="Do not fetch: store the (short, expanded) pairs of FILE (CSV/TSV with a header, or "
+                   "JSON lines; .gz allowed) as redirect links.")
+@click.option("--format", "import_format", type=click.Choice(FORMATS), default=None,
+              help="Format of the --import file (default: from its name).")
+@click.option("--short-column", default="short", show_default=True, metavar="NAME",
+              help="Column (or JSON key) of the short URL in the --import file.")
+@click.option("--expanded-column", default="expanded", show_default=True, metavar="NAME",
+              help="Column (or JSON key) of the expanded URL in the --import file.")
+@click.option("--summary", "summary_format", type=click.Choice(["text", "json"]), default="text",
+              show_default=True, help="text: the summary on stderr for people; json: one JSON object on "
+                                      "stdout for scripts.")
+@common_options
+@pass_ctx
+def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_urls: bool, limit: int | None,
+                   retry_failed: bool, import_file: Path | None, import_format: str | None,
+                   short_column: str, expanded_column: str, summary_format: str) -> None:
+    """Resolve short links and redirect chains; store each hop as a redirect link.
+
+    Takes the canonical URLs not yet followed whose host is a shortener (the ruleset's shortener_hosts,
+    or --hosts), or every one with --all. HEAD first, GET when a server refuses HEAD; up to max_hops
+    redirects; robots.txt honoured for GETs; private and reserved addresses are refused (setting
+    allow_networks). Outcomes are stored per URL: resolved, failed (with a class such as dns, timeout,
+    http_4xx, loop) or refused. Needs the contact setting (LINKFOLD_CONTACT).
+
+    \b
+    Example:
+      LINKFOLD_CONTACT=mailto:lab@university.example linkfold follow --dataset posts-2031
+      linkfold follow --hosts short.test,go.news.example --limit 500
+      linkfold follow --retry-failed
+      linkfold follow --import expanded-links.csv --short-column link --expanded-column target
+    """
+    if import_file is not None:
+        if dataset or hosts or all_urls or limit or retry_failed:
+            raise click.UsageError("--import reads pairs from a file; it takes none of --dataset, --hosts, "
+                                   "--all, --limit, --retry-failed")
+        summary = import_redirects(obj.engine(), import_file, fmt=import_format, short_column=short_column,
+                                   expanded_column=expanded_column, batch_size=obj.settings.batch_size,
+                                   progress=obj.progress())
+        if summary_format == "json":
+            click.echo(to_json(summary.as_dict()))
+        for problem in summary.problems[:SHOWN_PROBLEMS]:
+            obj.message(f"{import_file}:{problem.line}: {problem.reason}: {problem.detail}")
+        hidden = sum(summary.problem_counts.values()) - min(len(summary.problems), SHOWN_PROBLEMS)
+        if hidden > 0:
+            obj.message(f"… and {hidden:,} more skipped lines (counted below)")
+        for line in summary.lines_for_people():
+            obj.message(line)
+        return
+    if import_format is not None:
+        raise click.UsageError("--format applies to --import only")
+    if all_urls and hosts:
+        raise click.UsageError("give --all or --hosts, not both")
+    result = follow_links(obj.engine(), settings=obj.settings, dataset=dataset, hosts=_hosts(hosts),
+                          all_urls=all_urls, limit=limit, retry_failed=retry_failed, progress=obj.progress())
+    if summary_format == "json":
+        click.echo(to_json(result.as_dict()))
+    for line in result.lines():
+        obj.message(line)
+
+
+@click.command("follow-report")
+@click.option("--dataset", metavar="NAME", help="Only URLs sighted in this dataset.")
+@format_option()
+@common_options
+@pass_ctx
+def follow_report_command(obj: Context, dataset: str | None, fmt: str) -> None:
+    """How the links followed so far ended: resolved, failed by class, refused, and the dead share.
+
+    One row per state and failure class. The dead share is failed / (resolved + failed): refused URLs
+    were never asked, so nothing is known about them.
+
+    \b
+    Example:
+      linkfold follow-report --dataset posts-2031
+      linkfold follow-report --format jsonl
+    """
+    with obj.engine().connect() as conn:
+        dataset_id = registry.get_dataset(conn, dataset)["id"] if dataset else None
+        totals = evidence.follow_totals(conn, dataset_id=dataset_id)
+    rows = [{"state": "resolved", "failure": None, "urls": totals["resolved"]}]
+    for state in ("failed", "refused"):
+        rows += [{"state": state, "failure": k, "urls": v} for k, v in sorted(totals.get(state, {}).items())]
+    failed = sum(totals.get("failed", {}).values())
+    answered = totals["resolved"] + failed
+    share = failed / answered if answered else None
+    if fmt == "jsonl":
+        write_jsonl(rows)
+    else:
+        write_table(rows, ["state", "failure", "urls"])
+    obj.message(f"{answered + sum(totals.get('refused', {}).values()):,} URLs followed; dead share: "
+                + (f"{100 * share:.1f}%" if share is not None else "n/a (none followed)"))
+
+
+def register(cli: click.Group) -> None:
+    cli.add_command(follow_command)
+    cli.add_command(follow_report_command)
