@@ -177,7 +177,7 @@ def extract_document(page: Page, *, fetched_at: datetime | None = None, min_word
     notes.extend(declared.notes)
     notes.extend(meta.notes)
 
-    result = _run_trafilatura(tree, page.final_url, notes)
+    result, failed = _run_trafilatura(tree, page.final_url, notes)
     text = normalise_text(result.text or "") if result is not None else ""
     words = count_words(text)
 
@@ -195,6 +195,8 @@ def extract_document(page: Page, *, fetched_at: datetime | None = None, min_word
 
     reason = classify(text=text, word_count=words, tree=tree, not_free=meta.not_free, video=meta.video,
                       rules=rules)
+    if reason is not None and failed:
+        reason = Unusable.BROKEN  # the library gave up on this page: say so rather than "empty"
     title = (getattr(result, "title", None) if result is not None else None) or meta.meta.get("og:title") \
         or meta.title
     author = getattr(result, "author", None) if result is not None else None
@@ -220,7 +222,8 @@ def extract_document(page: Page, *, fetched_at: datetime | None = None, min_word
     )
 
 
-def _run_trafilatura(tree: Any, url: str, notes: list[str]) -> Any:
+def _run_trafilatura(tree: Any, url: str, notes: list[str]) -> tuple[Any, bool]:
+    """(trafilatura's document or None, whether it failed with an exception)."""
     import trafilatura
 
     # No max_date: given one, the date search turns a date after it into the first day of its month
@@ -230,8 +233,9 @@ def _run_trafilatura(tree: Any, url: str, notes: list[str]) -> Any:
     try:
         # The URL must be passed: without it metadata extraction can discard a document whose own URL it
         # cannot find in the markup (PITFALLS.md, trafilatura 2.x).
-        return trafilatura.bare_extraction(tree, url=url, date_extraction_params=params, **EXTRACTION_OPTIONS)
+        doc = trafilatura.bare_extraction(tree, url=url, date_extraction_params=params, **EXTRACTION_OPTIONS)
     except Exception as exc:  # a library failure on one hostile page must not stop a batch
         log.debug("trafilatura failed on %s", url, exc_info=True)
         notes.append(f"text extraction failed: {type(exc).__name__}: {exc}")
-        return None
+        return None, True
+    return doc, False

@@ -23,11 +23,13 @@ _SPACES = re.compile(r"[^\S\n]+")  # any Unicode whitespace except the newline
 
 
 def normalise_text(text: str) -> str:
-    """NFC, invisible characters removed, whitespace runs inside a line to one space, lines stripped,
+    """Invisible characters removed, NFC, whitespace runs inside a line to one space, lines stripped,
     line breaks unified and empty lines dropped: one paragraph a line.
     """
-    text = unicodedata.normalize("NFC", text)
+    # Invisible characters go first: one between a letter and its combining mark would otherwise keep
+    # the pair from composing.
     text = text.translate(_INVISIBLE)
+    text = unicodedata.normalize("NFC", text)
     # str.splitlines knows every Unicode line boundary (CR LF, U+2028, U+2029, NEL …).
     lines = (_SPACES.sub(" ", line).strip() for line in text.splitlines())
     return "\n".join(line for line in lines if line)
