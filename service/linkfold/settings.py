@@ -101,9 +101,11 @@ SETTINGS: tuple[Setting, ...] = (
             "LSH bands; lsh_bands × lsh_rows must not exceed num_perm. See docs/dedupe.md for the S-curve."),
     Setting("lsh_rows", 3, _positive_int, "Signature values per LSH band."),
     Setting("article_threshold", 0.9, _unit_float,
-            "Estimated Jaccard at or above which two same-outlet documents are one article."),
+            "Jaccard similarity (exact when shingle sets are kept, else estimated) at or above which two "
+            "same-outlet documents are one article."),
     Setting("story_threshold", 0.5, _unit_float,
-            "Estimated Jaccard at or above which two documents on different outlets are one story."),
+            "Jaccard similarity (exact or estimated, as above) at or above which two documents on "
+            "different outlets are one story."),
     Setting("title_threshold", 90.0, _nonneg_float,
             "Title similarity (0-100) at or above which two short or missing texts on different outlets "
             "are one story, if their dates also agree."),

@@ -20,7 +20,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 
-@dataclass(frozen=True, order=True)
+@dataclass(frozen=True)
 class Edge:
     """Evidence that ``a`` and ``b`` belong together; ``strength`` orders edges, ``kind`` explains them."""
 

@@ -25,7 +25,7 @@ from ..progress import SILENT, Progress
 from .shingle import HASH_NAME, WordHasher, batch_shingle_hashes
 
 SCHEMES = ("affine32", "affine64")
-_DTYPES = {"affine32": np.uint32, "affine64": np.uint64}
+_DTYPES: dict[str, type[np.unsignedinteger[Any]]] = {"affine32": np.uint32, "affine64": np.uint64}
 _WIDTHS = {"affine32": 32, "affine64": 64}
 _FMIX = {
     32: (np.uint32(16), np.uint32(0x85EBCA6B), np.uint32(13), np.uint32(0xC2B2AE35), np.uint32(16)),
@@ -96,7 +96,7 @@ class SignatureParams:
         return _WIDTHS[self.scheme]
 
     @property
-    def dtype(self) -> type[np.unsignedinteger]:
+    def dtype(self) -> type[np.unsignedinteger[Any]]:
         return _DTYPES[self.scheme]
 
     @property

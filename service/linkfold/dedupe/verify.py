@@ -164,13 +164,17 @@ def verify_pairs(docs: Sequence[DocFeatures], pairs: np.ndarray, *, thresholds: 
     if not len(pairs):
         progress.finish()
         return links
-    signed = [d for d in docs if d.signature is not None]
+    signed = [d.signature for d in docs if d.signature is not None]
     screen = np.ones(len(pairs), dtype=bool)
     if signed:
-        k = len(signed[0].signature)  # type: ignore[arg-type]
-        sigs = np.stack([d.signature if d.signature is not None else np.zeros(k, signed[0].signature.dtype)  # type: ignore[union-attr]
-                         for d in docs])
-        has_sig = np.array([d.signature is not None for d in docs])
+        # Rows of documents without a signature are zeros; the mask below keeps them out of the screen.
+        sigs = np.zeros((len(docs), len(signed[0])), dtype=signed[0].dtype)
+        has_sig = np.zeros(len(docs), dtype=bool)
+        for row, d in enumerate(docs):
+            if d.signature is not None:
+                sigs[row] = d.signature
+                has_sig[row] = True
+        k = sigs.shape[1]
         words = np.array([d.words for d in docs])
         est = estimate_jaccard(sigs, pairs)
         both_long = (has_sig[pairs[:, 0]] & has_sig[pairs[:, 1]]
