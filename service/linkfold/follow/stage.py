@@ -128,6 +128,7 @@ def _by_class(counts: Counter[str]) -> str:
 
 def canonical_hosts(hosts: Iterable[str]) -> frozenset[str]:
     """``--hosts`` values in the form canonical URLs store them (lower case, punycode, no port)."""
+    from ..canon import canonicalize
     from ..canon.rules import normalise_rule_host
 
     out = set()
@@ -136,7 +137,11 @@ def canonical_hosts(hosts: Iterable[str]) -> frozenset[str]:
             continue
         norm = normalise_rule_host(host)
         if norm is None:
-            raise ConfigError(f"--hosts: {host!r} is not a host name")
+            # Not a name a rules file may hold: an IP literal, which the canonicaliser writes its own way.
+            try:
+                norm = canonicalize(f"http://{host.strip()}/").host
+            except InvalidURL:
+                raise ConfigError(f"--hosts: {host!r} is not a host name or an IP address") from None
         out.add(norm)
     return frozenset(out)
 
