@@ -57,3 +57,11 @@ def test_url_key_is_a_function_of_the_canonical_url_alone() -> None:
 def test_url_key_alphabet() -> None:
     key = url_key("https://daily.example/a")
     assert set(key) <= set(ALPHABET.lower())
+
+
+def test_fast_base32_matches_the_standard_library() -> None:
+    # url_key uses a table-driven base32; it must equal base64.b32encode over many digests.
+    for i in range(2000):
+        url = f"https://daily.example/{i}"
+        expected = base64.b32encode(hashlib.sha256(url.encode()).digest()[:15]).decode().lower()
+        assert url_key(url) == expected

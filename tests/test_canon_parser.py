@@ -57,3 +57,11 @@ def test_components_are_sliced_correctly() -> None:
 def test_refused_input_is_none() -> None:
     assert _parse.parse("http://a b/") is None
     assert _parse.parse("not a url") is None
+
+
+def test_host_type_inferred_from_serialisation_matches_the_parser() -> None:
+    from ada_url import URL, HostType
+
+    for raw in ["http://1.2.3.4/", "http://0x7f.1/", "http://[::1]/", "http://[::ffff:1.2.3.4]/",
+                "http://a.test/", "http://a.b1c/", "http://xn--bcher-kva.example/", "http://2130706433/"]:
+        assert _parse.parse(raw).host_type == int(HostType(URL(raw).host_type)), raw

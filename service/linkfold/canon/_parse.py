@@ -11,12 +11,14 @@ schemes other than http(s).
 
 from __future__ import annotations
 
+import re
 from typing import NamedTuple
 
 from ada_url._ada_wrapper import ffi, lib
 
 _OMITTED = 0xFFFFFFFF  # ada's "component absent" marker in url_components
 HOST_NAME, HOST_IPV4, HOST_IPV6 = 0, 1, 2
+_IPV4 = re.compile(r"^\d{1,3}\.\d{1,3}\.\d{1,3}\.\d{1,3}$")
 
 
 class Parts(NamedTuple):
@@ -35,18 +37,17 @@ class Parts(NamedTuple):
 
 def parse(text: str) -> Parts | None:
     """Parse ``text`` as an absolute URL; None when the WHATWG parser refuses it."""
-    data = text.encode("utf-8", "surrogatepass")
+    data = text.encode("utf-8", "surrogatepass")  # surrogates: refused by ada, not a crash here
     obj = lib.ada_parse(data, len(data))
     try:
         if not lib.ada_is_valid(obj):
             return None
         s = lib.ada_get_href(obj)
         raw = ffi.unpack(s.data, s.length)
-        # The components struct lives inside the parsed object: copy its fields before freeing it.
-        c = lib.ada_get_components(obj)
-        proto_end, username_end, host_start, host_end = c.protocol_end, c.username_end, c.host_start, c.host_end
-        port_num, path_start, search, hash_ = c.port, c.pathname_start, c.search_start, c.hash_start
-        host_type = lib.ada_get_host_type(obj)
+        # The components struct (eight uint32_t offsets, ada_c.h) lives inside the parsed object: copy it
+        # out in one call before freeing the object.
+        (proto_end, username_end, host_start, host_end, port_num, path_start, search,
+         hash_) = ffi.unpack(ffi.cast("uint32_t *", lib.ada_get_components(obj)), 8)
     finally:
         lib.ada_free(obj)
     href = raw.decode("utf-8", "surrogateescape")
@@ -54,7 +55,7 @@ def parse(text: str) -> Parts | None:
     # percent-encoded or punycoded), so they are also character offsets. Not-special schemes are
     # refused by the caller before the offsets are used.
     if len(href) != len(raw):
-        return Parts(href, href[: proto_end - 1].lower(), False, "", "", "", None, None, host_type)
+        return Parts(href, href[: proto_end - 1].lower(), False, "", "", "", None, None, HOST_NAME)
     path_end = search if search != _OMITTED else (hash_ if hash_ != _OMITTED else len(href))
     userinfo = username_end > proto_end + 2 or host_start > username_end
     if href[host_start:host_start + 1] == "@":
@@ -62,8 +63,17 @@ def parse(text: str) -> Parts | None:
     port = str(port_num) if port_num != _OMITTED else ""
     query = href[search + 1:hash_ if hash_ != _OMITTED else len(href)] if search != _OMITTED else None
     fragment = href[hash_ + 1:] if hash_ != _OMITTED else None
-    return Parts(href, href[: proto_end - 1], userinfo, href[host_start:host_end], port,
-                 href[path_start:path_end], query, fragment, host_type)
+    host = href[host_start:host_end]
+    # The WHATWG host parser writes an IPv6 address in brackets, and treats any host whose last label is
+    # a number as IPv4 (or refuses it), so the serialised host says its type without another C call.
+    if host[:1] == "[":
+        host_type = HOST_IPV6
+    elif host[-1:].isdigit() and _IPV4.match(host):
+        host_type = HOST_IPV4
+    else:
+        host_type = HOST_NAME
+    return Parts(href, href[: proto_end - 1], userinfo, host, port, href[path_start:path_end], query,
+                 fragment, host_type)
 
 
 def ascii_host(text: str) -> str | None:

@@ -48,6 +48,7 @@ class _TooDeep(InvalidURL):
 # C0 controls, DEL and C1 controls: never part of a URL as typed, copied or logged by a browser.
 _CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f]")
 _SURROGATE = re.compile(r"[\ud800-\udfff]")
+_UNWANTED = re.compile(r"[\x00-\x1f\x7f-\x9f\ud800-\udfff]")
 _SCHEME = re.compile(r"^([A-Za-z][A-Za-z0-9+.\-]*):")
 _PCT = re.compile(r"%([0-9A-Fa-f]{2})")
 # RFC 3986 §2.3 unreserved characters.
@@ -136,6 +137,9 @@ class _Engine:
         self.amp_query = _query_markers(rules.amp_query)
         self.print_query = _query_markers(rules.print_query)
         self.hosts: dict[str, _HostPlan | str] = {}
+        self.fold_last = rules.amp_last_segments | rules.print_last_segments | rules.index_names | {""}
+        self.fold_first = rules.amp_first_segments
+        self.may_unwrap_without_query = bool(rules.amp_cache_suffixes)
 
     # --- host -----------------------------------------------------------------------------------------
     def plan(self, host: str, host_type: int) -> _HostPlan:
@@ -202,18 +206,19 @@ class _Engine:
             raise InvalidURL("whitespace", "the URL is only whitespace")
         if len(text) > MAX_URL_LENGTH:
             raise InvalidURL("too_long", f"{len(text)} characters; the limit is {MAX_URL_LENGTH}")
-        bad = _CONTROL.search(text)
+        bad = _UNWANTED.search(text)
         if bad:
+            if _SURROGATE.match(bad.group()):
+                raise InvalidURL("bad_unicode", "the text holds a lone surrogate (broken Unicode)")
             raise InvalidURL("control_chars", f"control character U+{ord(bad.group()):04X} at position "
                                               f"{bad.start() + 1}")
-        if _SURROGATE.search(text):
-            raise InvalidURL("bad_unicode", "the text holds a lone surrogate (broken Unicode)")
-        m = _SCHEME.match(text)
-        if m is None:
-            raise InvalidURL("no_scheme", f"{_clip(text)} does not start with http:// or https://")
-        scheme = m.group(1).lower()
-        if scheme not in ("http", "https"):
-            raise InvalidURL("not_http", f"scheme {scheme!r} is not http or https")
+        if not text.startswith(("https://", "http://")):  # the usual case, without a regex
+            m = _SCHEME.match(text)
+            if m is None:
+                raise InvalidURL("no_scheme", f"{_clip(text)} does not start with http:// or https://")
+            scheme = m.group(1).lower()
+            if scheme not in ("http", "https"):
+                raise InvalidURL("not_http", f"scheme {scheme!r} is not http or https")
         parts = _parse.parse(text)
         if parts is None:
             raise _diagnose(text)
@@ -230,7 +235,7 @@ class _Engine:
         sw = plan.sw
         rules = self.rules
 
-        inner = self._unwrap(parts, plan, depth)
+        inner = self._unwrap(parts, plan, depth) if parts.query or self.may_unwrap_without_query else None
         if inner is not None:
             step, result = inner
             return Canonical(result.url, result.url_key, result.host, result.domain, result.outlet,
@@ -350,12 +355,23 @@ class _Engine:
                 if new != path:
                     path = _reparse_path(new, host, sw)
                     steps.append("path_rewrite")
+        if path == "/" or not self._may_fold(path):
+            return path
         for _ in range(16):  # each fold shortens the path, so this ends; the bound is a safety net
             new = self._fold_path(path, sw, steps)
             if new == path:
                 break
             path = new
         return path
+
+    def _may_fold(self, path: str) -> bool:
+        """A cheap test that some path fold could apply (most article paths carry no marker at all)."""
+        last = path[path.rfind("/") + 1:]
+        if last in self.fold_last:
+            return True
+        if self.fold_first and path[1:].partition("/")[0] in self.fold_first:
+            return True
+        return any(suffix in last for suffix in self.rules.amp_name_suffixes)
 
     def _fold_path(self, path: str, sw: _Switches, steps: list[str]) -> str:
         rules = self.rules

@@ -8,14 +8,22 @@ recompute it from the canonical URL alone, with any SHA-256 and base32 implement
 
 from __future__ import annotations
 
-import base64
 import hashlib
 
 KEY_BYTES = 15
 KEY_LENGTH = 24  # 15 bytes * 8 bits / 5 bits per base32 character
 
 
+_ALPHABET = "abcdefghijklmnopqrstuvwxyz234567"  # RFC 4648 §6, Table 3, in lower case
+# Three base32 characters for every 15-bit value: eight look-ups per key instead of the standard
+# library's bit-by-bit loop (the key is computed for every URL of every bulk stage). Same output as
+# base64.b32encode(...).lower(), which a test checks.
+_TRIPLES = tuple(_ALPHABET[v >> 10] + _ALPHABET[(v >> 5) & 31] + _ALPHABET[v & 31] for v in range(1 << 15))
+
+
 def url_key(canonical_url: str) -> str:
     """The url key of a canonical URL (24 lower-case base32 characters)."""
-    digest = hashlib.sha256(canonical_url.encode("utf-8")).digest()
-    return base64.b32encode(digest[:KEY_BYTES]).decode("ascii").lower()
+    n = int.from_bytes(hashlib.sha256(canonical_url.encode("utf-8")).digest()[:KEY_BYTES], "big")
+    t = _TRIPLES
+    return (t[n >> 105] + t[(n >> 90) & 0x7FFF] + t[(n >> 75) & 0x7FFF] + t[(n >> 60) & 0x7FFF]
+            + t[(n >> 45) & 0x7FFF] + t[(n >> 30) & 0x7FFF] + t[(n >> 15) & 0x7FFF] + t[n & 0x7FFF])
