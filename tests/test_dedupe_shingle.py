@@ -5,11 +5,20 @@ from __future__ import annotations
 import hashlib
 
 import numpy as np
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from linkfold.dedupe import batch_shingle_hashes, exact_jaccard, normalise_words, shingle_hashes
+from linkfold.dedupe import (
+    batch_shingle_hashes,
+    exact_jaccard,
+    normalise_words,
+    shingle_hashes,
+    shingles_from_bytes,
+    shingles_to_bytes,
+)
 from linkfold.dedupe.shingle import WordHasher, shingle_hashes_from_word_hashes
+from linkfold.errors import SignatureError
 
 MASK = (1 << 64) - 1
 
@@ -109,3 +118,15 @@ def test_batch_equals_one_at_a_time(batch: list[str], k: int, width: int) -> Non
     for i, text in enumerate(batch):
         one = np.unique(values[offsets[i]:offsets[i + 1]])
         np.testing.assert_array_equal(one, shingle_hashes(text, k, width=width))
+
+
+def test_shingle_set_bytes_round_trip() -> None:
+    for width in (32, 64):
+        hashes = shingle_hashes("one two three four five six seven", 3, width=width)
+        data = shingles_to_bytes(hashes[::-1], width)
+        assert len(data) == len(hashes) * width // 8
+        np.testing.assert_array_equal(shingles_from_bytes(data, width), hashes)
+    with pytest.raises(SignatureError, match="whole number"):
+        shingles_from_bytes(b"\0" * 5)
+    with pytest.raises(SignatureError, match="sorted"):
+        shingles_from_bytes(np.array([5, 1], dtype="<u4").tobytes())

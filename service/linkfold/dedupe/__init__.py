@@ -39,6 +39,8 @@ from .shingle import (
     exact_jaccard,
     normalise_words,
     shingle_hashes,
+    shingles_from_bytes,
+    shingles_to_bytes,
 )
 from .verify import (
     DocFeatures,
@@ -93,6 +95,8 @@ __all__ = [
     "render_histogram",
     "s_curve",
     "shingle_hashes",
+    "shingles_from_bytes",
+    "shingles_to_bytes",
     "signature_from_bytes",
     "signature_to_bytes",
     "signatures_from_texts",

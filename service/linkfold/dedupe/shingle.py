@@ -19,6 +19,8 @@ from itertools import chain
 
 import numpy as np
 
+from ..errors import SignatureError
+
 # Names the normalisation + word hash + shingle combination below (version 1).
 HASH_NAME = "lfw1"
 
@@ -240,3 +242,21 @@ def exact_jaccard(a: np.ndarray, b: np.ndarray) -> float:
         return 0.0
     inter = len(np.intersect1d(a, b, assume_unique=True))
     return inter / (len(a) + len(b) - inter)
+
+
+def shingles_to_bytes(hashes: np.ndarray, width: int = 32) -> bytes:
+    """A shingle set for storage (exact Jaccard later): sorted distinct values, fixed-width little-endian."""
+    dtype = np.dtype("<u4" if width == 32 else "<u8")
+    return np.unique(np.asarray(hashes)).astype(dtype).tobytes()
+
+
+def shingles_from_bytes(data: bytes, width: int = 32) -> np.ndarray:
+    """Inverse of :func:`shingles_to_bytes`; a length that is not whole values or unsorted values
+    mean the stored bytes are not a shingle set of this width (raises ``SignatureError``)."""
+    size = width // 8
+    if len(data) % size:
+        raise SignatureError(f"stored shingle set is {len(data)} bytes, not a whole number of {width}-bit values")
+    values = np.frombuffer(data, dtype="<u4" if width == 32 else "<u8").astype(np.uint32 if width == 32 else np.uint64)
+    if len(values) > 1 and not np.all(values[1:] > values[:-1]):
+        raise SignatureError("stored shingle set is not sorted and distinct")
+    return values
