@@ -386,10 +386,12 @@ def read_page_dir(path: str | Path, *, max_bytes: int = DEFAULT_MAX_BYTES,
     try:
         text = manifest.read_bytes().decode("utf-8-sig")
     except UnicodeDecodeError as exc:
-        line = manifest.read_bytes()[:exc.start].count(b"\n") + 1
-        raise InputError(f"{manifest}:{line}: manifest is not UTF-8 ({exc.reason})") from None
+        where = manifest.read_bytes()[:exc.start].count(b"\n") + 1
+        raise InputError(f"{manifest}:{where}: manifest is not UTF-8 ({exc.reason})") from None
     columns: tuple[str, ...] | None = None
-    for number, line in enumerate(text.splitlines(), start=1):
+    # Split on LF only (CR LF tolerated), so line numbers are the ones an editor shows; str.splitlines
+    # would also break at U+2028 and other characters that may occur inside a field.
+    for number, line in enumerate((ln.rstrip("\r") for ln in text.split("\n")), start=1):
         if not line.strip() or line.lstrip().startswith("#"):
             continue
         cells = next(csv.reader([line], delimiter="\t", quoting=csv.QUOTE_NONE))
