@@ -256,7 +256,8 @@ def shingles_from_bytes(data: bytes, width: int = 32) -> np.ndarray:
     size = width // 8
     if len(data) % size:
         raise SignatureError(f"stored shingle set is {len(data)} bytes, not a whole number of {width}-bit values")
-    values = np.frombuffer(data, dtype="<u4" if width == 32 else "<u8").astype(np.uint32 if width == 32 else np.uint64)
-    if len(values) > 1 and not np.all(values[1:] > values[:-1]):
+    native = np.uint32 if width == 32 else np.uint64
+    values: np.ndarray = np.frombuffer(data, dtype="<u4" if width == 32 else "<u8").astype(native)
+    if len(values) > 1 and not np.all(np.greater(values[1:], values[:-1])):
         raise SignatureError("stored shingle set is not sorted and distinct")
     return values
