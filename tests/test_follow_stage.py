@@ -175,3 +175,16 @@ def test_next_attempt_schedule():
     assert next_attempt("http_4xx", 1, at) == at + timedelta(days=1)
     assert next_attempt("http_4xx", 30, at) == at + timedelta(days=90)  # capped
     assert next_attempt("http_4xx", 1, at, retry_after=7 * 86400) == at + timedelta(days=7)
+
+
+def test_retry_refused_after_the_rule_changed(engine, db_url, tmp_path, server):
+    load(engine, tmp_path, "e", [server.url("/to?loc=/final", host="short.test")])
+    closed = run(engine, db_url, hosts=["short.test"], settings=settings_for(db_url, allow_networks=()))
+    assert dict(closed.refused) == {"refused": 1} and server.seen == []
+    assert run(engine, db_url, hosts=["short.test"], retry_failed=True,
+               now=datetime.now(UTC) + timedelta(days=400)).selected == 0  # refusals have no schedule
+    opened = run(engine, db_url, hosts=["short.test"], retry_refused=True)
+    assert opened.selected == 1 and opened.resolved == 1
+    with engine.connect() as conn:
+        start = canonical_id(conn, server.url("/to?loc=/final", host="short.test"))
+        assert [a["state"] for a in ev.follow_attempts_of(conn, start)] == ["refused", "resolved"]

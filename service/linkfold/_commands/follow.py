@@ -32,6 +32,9 @@ def _hosts(value: str | None) -> list[str] | None:
 @click.option("--limit", type=click.IntRange(min=1), metavar="N", help="At most N URLs in this run.")
 @click.option("--retry-failed", is_flag=True,
               help="Follow again the URLs that failed and are due (backoff per failure class).")
+@click.option("--retry-refused", is_flag=True,
+              help="Follow again the URLs that were refused (after changing allow_networks, or when a "
+                   "site's robots.txt changed).")
 @click.option("--import", "import_file", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE",
               help="Do not fetch: store the (short, expanded) pairs of FILE (CSV/TSV with a header, or "
                    "JSON lines; .gz allowed) as redirect links.")
@@ -47,7 +50,7 @@ def _hosts(value: str | None) -> list[str] | None:
 @common_options
 @pass_ctx
 def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_urls: bool, limit: int | None,
-                   retry_failed: bool, import_file: Path | None, import_format: str | None,
+                   retry_failed: bool, retry_refused: bool, import_file: Path | None, import_format: str | None,
                    short_column: str, expanded_column: str, summary_format: str) -> None:
     """Resolve short links and redirect chains; store each hop as a redirect link.
 
@@ -62,12 +65,13 @@ def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_url
       LINKFOLD_CONTACT=mailto:lab@university.example linkfold follow --dataset posts-2031
       linkfold follow --hosts short.test,go.news.example --limit 500
       linkfold follow --retry-failed
+      LINKFOLD_ALLOW_NETWORKS=10.20.0.0/16 linkfold follow --retry-refused
       linkfold follow --import expanded-links.csv --short-column link --expanded-column target
     """
     if import_file is not None:
-        if dataset or hosts or all_urls or limit or retry_failed:
+        if dataset or hosts or all_urls or limit or retry_failed or retry_refused:
             raise click.UsageError("--import reads pairs from a file; it takes none of --dataset, --hosts, "
-                                   "--all, --limit, --retry-failed")
+                                   "--all, --limit, --retry-failed, --retry-refused")
         summary = import_redirects(obj.engine(), import_file, fmt=import_format, short_column=short_column,
                                    expanded_column=expanded_column, batch_size=obj.settings.batch_size,
                                    progress=obj.progress())
@@ -85,8 +89,11 @@ def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_url
         raise click.UsageError("--format applies to --import only")
     if all_urls and hosts:
         raise click.UsageError("give --all or --hosts, not both")
+    if retry_failed and retry_refused:
+        raise click.UsageError("give --retry-failed or --retry-refused, not both")
     result = follow_links(obj.engine(), settings=obj.settings, dataset=dataset, hosts=_hosts(hosts),
-                          all_urls=all_urls, limit=limit, retry_failed=retry_failed, progress=obj.progress())
+                          all_urls=all_urls, limit=limit, retry_failed=retry_failed,
+                          retry_refused=retry_refused, progress=obj.progress())
     if summary_format == "json":
         click.echo(to_json(result.as_dict()))
     for line in result.lines():

@@ -272,18 +272,22 @@ async def _run_chains(client: SafeClient, items: Sequence[ev.Pending], *, max_ho
 
 def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
                  hosts: Iterable[str] | None = None, all_urls: bool = False, limit: int | None = None,
-                 retry_failed: bool = False, resolver: Resolver | None = None, progress: Progress = SILENT,
+                 retry_failed: bool = False, retry_refused: bool = False, resolver: Resolver | None = None,
+                 progress: Progress = SILENT,
                  now: datetime | None = None,
                  backend: httpcore.AsyncNetworkBackend | None = None) -> FollowSummary:
     """Follow pending canonical URLs (see the module doc) and return the counts.
 
     Which URLs: without ``all_urls``, those on ``hosts`` or, when ``hosts`` is not given, on the
     ruleset's shortener hosts; with ``all_urls``, every URL. Then only those never followed, or with
-    ``retry_failed`` only the failed ones that are due (``now`` overrides the clock for that choice).
+    ``retry_failed`` only the failed ones that are due (``now`` overrides the clock for that choice), or
+    with ``retry_refused`` only the refused ones.
     ``resolver`` and ``backend`` replace DNS and the socket layer (tests, lab pinning).
     """
     if all_urls and hosts:
         raise ConfigError("give either --all or --hosts, not both")
+    if retry_failed and retry_refused:
+        raise ConfigError("give either --retry-failed or --retry-refused, not both")
     if limit is not None and limit <= 0:
         raise ConfigError(f"--limit must be a positive number (got {limit})")
     config = ClientConfig.from_settings(settings)
@@ -303,7 +307,7 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
                 summary.note = ("the ruleset lists no shortener hosts: add them to shortener_hosts in the "
                                 "rules file, or pass --hosts, or --all")
         items = ev.select_pending(conn, hosts=chosen, dataset_id=dataset_id, retry_failed=retry_failed,
-                                  now=now, limit=limit)
+                                  retry_refused=retry_refused, now=now, limit=limit)
     summary.selected = len(items)
     if not items:
         return summary

@@ -205,7 +205,7 @@ class Pending:
 
 
 def select_pending(conn: Connection, *, hosts: Iterable[str] | None, dataset_id: int | None = None,
-                   retry_failed: bool = False, now: datetime | None = None,
+                   retry_failed: bool = False, retry_refused: bool = False, now: datetime | None = None,
                    limit: int | None = None) -> list[Pending]:
     """Canonical URLs to follow, oldest first.
 
@@ -221,6 +221,8 @@ def select_pending(conn: Connection, *, hosts: Iterable[str] | None, dataset_id:
         due = now or datetime.now(UTC)
         # URLs that only inherited a failure from another URL's chain are settled when that URL is retried.
         q = q.where(fr.c.state == "failed", fr.c.via != "chain", fr.c.next_attempt_at <= due)
+    elif retry_refused:
+        q = q.where(fr.c.state == "refused", fr.c.via != "chain")
     else:
         q = q.where(fr.c.id.is_(None))
     if hosts is not None:
