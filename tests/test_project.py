@@ -44,3 +44,9 @@ def test_demo_runs_in_a_fresh_folder(tmp_path):
     assert proc.returncode == 0, proc.stderr
     assert "registry:" in proc.stdout
     assert (tmp_path / "d" / "demo.db").is_file()
+    # The two invented dumps are loaded; the three bad rows the panel carries are rejects, not losses.
+    assert "dataset 'northvale-panel'" in proc.stdout and "dataset 'northvale-posts'" in proc.stdout
+    assert "rejects 3" in proc.stdout
+    # Variants of one article fold onto one canonical URL.
+    canon = [ln.split("-> ", 1)[1].split(" (", 1)[0] for ln in proc.stdout.splitlines() if "-> " in ln]
+    assert len(canon) == 3 and canon[0] == canon[1]

@@ -6,6 +6,7 @@ It grows with the pipeline. The fixtures describe an invented region and its out
 
 from __future__ import annotations
 
+import csv
 import logging
 import shutil
 from collections.abc import Callable
@@ -14,9 +15,13 @@ from pathlib import Path
 
 import sqlalchemy as sa
 
+from .canon import load_rules
+from .follow import import_redirects
+from .ingest import ingest_dump, lookup
 from .progress import SILENT, Progress
 from .store import ensure_schema, make_engine
 from .store import tables as t
+from .store.rulesets import store_ruleset
 
 log = logging.getLogger("linkfold")
 
@@ -27,16 +32,44 @@ def fixtures_dir() -> Path:
     return path
 
 
+# (dataset, file under fixtures/, ingest options): a browsing panel (CSV; the panellist column is
+# deliberately not stored) and a post archive (JSON lines, links nested in an array).
+DEMO_DUMPS = [
+    ("northvale-panel", "panel_visits.csv",
+     {"url_column": "url", "key_column": "visit_id", "time_column": "visited_at",
+      "description": "invented browsing panel, one visit a row"}),
+    ("northvale-posts", "posts.jsonl",
+     {"url_column": "entities.urls.*.expanded", "key_column": "post_id", "time_column": "created",
+      "description": "invented post archive, links nested in each post"}),
+]
+
+
+
+def demo_lookups(fx: Path) -> list[str]:
+    """Variants of the first invented article, as different datasets carry it, and its short link."""
+    with (fx / "short_links.csv").open(encoding="utf-8", newline="") as fh:
+        first = next(csv.DictReader(fh))
+    article = first["expanded"]
+    host_and_path = article.split("://", 1)[1]
+    return [f"http://www.{host_and_path}/?utm_source=newsletter&utm_medium=email",
+            f"https://m.{host_and_path}#comments", first["short"]]
+
+
 @dataclass
 class DemoReport:
     database: str
     steps: list[tuple[str, dict[str, int]]] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+    examples: list[dict] = field(default_factory=list)
 
     def lines(self) -> list[str]:
-        out = [f"registry: {self.database}"]
+        out = [f"registry: {self.database}", *self.notes]
         for name, counts in self.steps:
             parts = ", ".join(f"{k} {v:,}" for k, v in counts.items())
             out.append(f"{name}: {parts}")
+        for ex in self.examples:
+            out.append(f"lookup {ex['input']}\n    -> {ex['canonical']} (url key {ex['url_key']}, "
+                       f"seen {ex['seen']})")
         return out
 
 
@@ -55,11 +88,21 @@ def run_demo(workdir: Path, *, progress: Progress = SILENT,
     workdir.mkdir(parents=True)
     db_path = workdir / "demo.db"
     engine = make_engine(f"sqlite:///{db_path}")
+    fx = fixtures_dir()
     try:
         say(f"creating a fresh registry at {db_path}")
         ensure_schema(engine)
         report = DemoReport(database=str(db_path))
+        with engine.begin() as conn:
+            version = store_ruleset(conn, load_rules(fx / "rules" / "demo.toml"))
+        report.notes.append(f"site rules: fixtures/rules/demo.toml stored as ruleset version {version}")
+        for name, path, options in DEMO_DUMPS:
+            summary = ingest_dump(engine, [fx / path], dataset=name, progress=progress, **options)
+            report.notes.extend(summary.lines())
+        imported = import_redirects(engine, fx / "short_links.csv", progress=progress)
+        report.notes.extend(imported.lines_for_people())
         report.steps.append(("registry", table_counts(engine)))
+        report.examples = list(lookup(engine, demo_lookups(fx)))
         return report
     finally:
         engine.dispose()
