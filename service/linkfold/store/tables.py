@@ -224,3 +224,81 @@ job_locks = sa.Table(
     sa.Column("acquired_at", UTC, nullable=False),
     sa.Column("heartbeat_at", UTC, nullable=False),
 )
+
+# --- pages and documents (migration 0006) ---------------------------------------------------------------
+# One stored response per canonical URL and body: fetched (``source`` = ``fetch``) or imported
+# (``warc:<file name>#<offset>``, ``dir:<dir name>/<file>``, ``jsonl:<file name>:<line>``). Only the headers
+# that matter are kept (content-type, content-language, last-modified, etag…); never cookies or request
+# headers. ``body`` is zlib-compressed; ``body_size`` and ``body_sha256`` describe the uncompressed bytes
+# as stored, which stop at the size cap when ``truncated``. Rows are never updated.
+pages = sa.Table(
+    "pages", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("requested_url", sa.Text, nullable=False),
+    sa.Column("final_url", sa.Text, nullable=False),
+    sa.Column("final_canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=True),
+    sa.Column("status", sa.Integer, nullable=True),  # NULL for pages imported without a status
+    sa.Column("headers", sa.JSON, nullable=True),
+    sa.Column("body", sa.LargeBinary, nullable=False),
+    sa.Column("body_size", sa.BigInteger, nullable=False),
+    sa.Column("truncated", sa.Boolean, nullable=False),
+    sa.Column("body_sha256", sa.String(64), nullable=False),
+    sa.Column("source", sa.Text, nullable=False),
+    sa.Column("fetched_at", UTC, nullable=True),  # when the response was received, if known
+    sa.Column("stored_at", UTC, nullable=False),
+    sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    sa.UniqueConstraint("canonical_id", "body_sha256"),  # the same bytes for the same URL are one page
+    sa.Index("ix_pages_canonical_id", "canonical_id"),
+)
+
+# The latest fetch outcome per canonical URL (updated in place), in the shape of ``follow_results``.
+fetch_results = sa.Table(
+    "fetch_results", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False, unique=True),
+    sa.Column("state", sa.String(20), nullable=False),  # fetched | failed | refused
+    sa.Column("failure", sa.String(30), nullable=True),  # the follow stage's failure classes
+    sa.Column("http_status", sa.Integer, nullable=True),
+    sa.Column("page_id", sa.Integer, sa.ForeignKey("pages.id"), nullable=True),
+    sa.Column("attempts", sa.Integer, nullable=False),
+    sa.Column("first_attempt_at", UTC, nullable=False),
+    sa.Column("last_attempt_at", UTC, nullable=False),
+    sa.Column("next_attempt_at", UTC, nullable=True),  # NULL: never retried automatically
+    sa.Column("detail", sa.Text, nullable=True),  # a short reason for people, never a response body
+    sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    sa.Index("ix_fetch_results_state_next", "state", "next_attempt_at"),
+)
+
+# One document per page and extractor version, or per loaded record (``page_id`` NULL,
+# ``record_sha256`` set so a reloaded file adds nothing). ``status`` is usable | no_text; a no_text row
+# keeps its ``unusable_reason`` and no text. The current document of a canonical URL is its newest usable
+# row (docs/content.md).
+documents = sa.Table(
+    "documents", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("page_id", sa.Integer, sa.ForeignKey("pages.id"), nullable=True),
+    sa.Column("title", sa.Text, nullable=True),
+    sa.Column("text", sa.Text, nullable=True),
+    sa.Column("text_hash", sa.String(64), nullable=True),
+    sa.Column("word_count", sa.Integer, nullable=False),
+    sa.Column("author", sa.Text, nullable=True),
+    sa.Column("published", UTC, nullable=True),
+    sa.Column("published_source", sa.String(40), nullable=True),
+    sa.Column("language", sa.String(35), nullable=True),  # BCP 47 tag
+    sa.Column("declared_canonical", sa.Text, nullable=True),
+    sa.Column("og_url", sa.Text, nullable=True),
+    sa.Column("amp_url", sa.Text, nullable=True),
+    sa.Column("status", sa.String(20), nullable=False),
+    sa.Column("unusable_reason", sa.String(30), nullable=True),
+    sa.Column("extractor_version", sa.String(80), nullable=False),
+    sa.Column("source", sa.Text, nullable=False),
+    sa.Column("record_sha256", sa.String(64), nullable=True),
+    sa.Column("created_at", UTC, nullable=False),
+    sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    sa.UniqueConstraint("page_id", "extractor_version"),
+    sa.UniqueConstraint("record_sha256"),
+    sa.Index("ix_documents_canonical_id", "canonical_id"),
+    sa.Index("ix_documents_text_hash", "text_hash"),
+)
