@@ -20,6 +20,7 @@ from ..canon import Canonical
 from ..ingest.rows import raw_hash, storable
 from . import tables as t
 from .bulk import insert_new_rows
+from .registry import utc
 
 _IN_CHUNK = 500  # ids per IN (…) list, well under SQLite's limit of bound parameters
 
@@ -27,13 +28,6 @@ _IN_CHUNK = 500  # ids per IN (…) list, well under SQLite's limit of bound par
 def _chunks(items: Sequence[Any]) -> Iterator[Sequence[Any]]:
     for i in range(0, len(items), _IN_CHUNK):
         yield items[i:i + _IN_CHUNK]
-
-
-def utc(value: datetime | None) -> datetime | None:
-    """SQLite returns times without a zone; all stored times are UTC."""
-    if value is None or value.tzinfo is not None:
-        return value
-    return value.replace(tzinfo=UTC)
 
 
 # --- URLs met while following ----------------------------------------------------------------------------
