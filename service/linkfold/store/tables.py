@@ -250,6 +250,7 @@ pages = sa.Table(
     sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
     sa.UniqueConstraint("canonical_id", "body_sha256"),  # the same bytes for the same URL are one page
     sa.Index("ix_pages_canonical_id", "canonical_id"),
+    sa.Index("ix_pages_final_canonical_id", "final_canonical_id"),  # "has a page" looks both ways
 )
 
 # The latest fetch outcome per canonical URL (updated in place), in the shape of ``follow_results``.
@@ -301,4 +302,102 @@ documents = sa.Table(
     sa.UniqueConstraint("record_sha256"),
     sa.Index("ix_documents_canonical_id", "canonical_id"),
     sa.Index("ix_documents_text_hash", "text_hash"),
+)
+
+# --- dedupe: signatures, band keys, decisions, IDs (migration 0007) ------------------------------------------
+# One MinHash signature per signed document, with its parameter record (``SignatureParams.band_token``:
+# the signature's settings plus the banding its band keys were cut with). docs/dedupe.md, "The stage".
+signatures = sa.Table(
+    "signatures", metadata,
+    sa.Column("document_id", sa.Integer, sa.ForeignKey("documents.id"), primary_key=True),
+    sa.Column("params", sa.String(120), nullable=False),
+    sa.Column("signature", sa.LargeBinary, nullable=False),
+    sa.Column("created_at", UTC, nullable=False),
+    sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+)
+
+# LSH band keys of the current document of each canonical URL; a superseded document's keys are removed
+# (they are derived data, rebuilt from ``signatures``). The (band, key) index answers candidate joins.
+band_keys = sa.Table(
+    "band_keys", metadata,
+    sa.Column("document_id", sa.Integer, sa.ForeignKey("signatures.document_id"), primary_key=True),
+    sa.Column("band", sa.SmallInteger, primary_key=True),
+    sa.Column("key", sa.BigInteger, nullable=False),
+    sa.Index("ix_band_keys_band_key", "band", "key"),
+)
+
+# A person's verdicts, append-only: the latest decision on a pair (level, a_member, b_member with
+# a_member < b_member) is in force; earlier ones are kept. ``*_ref`` is what the person typed,
+# ``*_member`` the canonical URL it anchors to (the URL itself, or the founder of the ID named),
+# ``*_cluster`` the live ID an ID reference resolved to when the decision was taken.
+decisions = sa.Table(
+    "decisions", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("verdict", sa.String(20), nullable=False),  # same | different
+    sa.Column("level", sa.String(10), nullable=False),  # article | story
+    sa.Column("a_ref", sa.Text, nullable=False),
+    sa.Column("b_ref", sa.Text, nullable=False),
+    sa.Column("a_member", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("b_member", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("a_cluster", sa.String(24), nullable=True),
+    sa.Column("b_cluster", sa.String(24), nullable=True),
+    sa.Column("note", sa.Text, nullable=True),
+    sa.Column("decided_by", sa.String(200), nullable=False),
+    sa.Column("decided_at", UTC, nullable=False),
+    sa.Index("ix_decisions_level_pair", "level", "a_member", "b_member"),
+    sa.Index("ix_decisions_b_member", "b_member"),
+)
+
+# Every article and story ID ever issued. ``stem`` is the ID without its counter suffix (what
+# ``derive_id`` gives for the founder), so a new mint checks clashes with an indexed lookup.
+cluster_ids = sa.Table(
+    "cluster_ids", metadata,
+    sa.Column("id", sa.String(24), primary_key=True),
+    sa.Column("level", sa.String(10), nullable=False),
+    sa.Column("stem", sa.String(16), nullable=False),
+    sa.Column("founder_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("mint_order", sa.BigInteger, nullable=False),  # per level; smaller = older
+    sa.Column("state", sa.String(10), nullable=False),  # live | retired
+    sa.Column("successor", sa.String(24), nullable=True),  # set when retired (merged into it)
+    sa.Column("minted_run", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    sa.Column("minted_at", UTC, nullable=False),
+    sa.Column("retired_run", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    sa.Column("retired_at", UTC, nullable=True),
+    sa.Index("ix_cluster_ids_stem", "stem"),
+    sa.Index("ix_cluster_ids_level_order", "level", "mint_order"),
+)
+
+# The current ID of each canonical URL at each level (updated in place; its history is ``id_events``).
+cluster_members = sa.Table(
+    "cluster_members", metadata,
+    sa.Column("level", sa.String(10), primary_key=True),
+    sa.Column("canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), primary_key=True),
+    sa.Column("cluster_id", sa.String(24), sa.ForeignKey("cluster_ids.id"), nullable=False),
+    sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    sa.Index("ix_cluster_members_cluster_id", "cluster_id"),
+)
+
+# What happened to each ID: minted (reason new_cluster | split), merged_into other_id, split_from
+# other_id; with the run and time. Append-only.
+id_events = sa.Table(
+    "id_events", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("cluster_id", sa.String(24), sa.ForeignKey("cluster_ids.id"), nullable=False),
+    sa.Column("event", sa.String(20), nullable=False),
+    sa.Column("other_id", sa.String(24), nullable=True),
+    sa.Column("member_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=True),
+    sa.Column("reason", sa.String(40), nullable=False),
+    sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    sa.Column("at", UTC, nullable=False),
+    sa.Index("ix_id_events_cluster_id", "cluster_id"),
+    sa.Index("ix_id_events_other_id", "other_id"),
+)
+
+# High-water marks of incremental stages (the last row id each has taken into account).
+stage_marks = sa.Table(
+    "stage_marks", metadata,
+    sa.Column("name", sa.String(40), primary_key=True),
+    sa.Column("value", sa.BigInteger, nullable=False),
+    sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    sa.Column("updated_at", UTC, nullable=False),
 )
