@@ -114,6 +114,12 @@ SETTINGS: tuple[Setting, ...] = (
     Setting("min_words", 50, _positive_int,
             "Words a text needs for its shingles to decide a match; shorter texts fall back to titles."),
     Setting("open_reads", False, _bool, "Let the HTTP API answer reads without a token."),
+    Setting("api_max_batch", 10000, _positive_int,
+            "Most URLs or keys in one batch lookup request; more is refused with 413 (split the batch)."),
+    Setting("api_max_body_bytes", 8 << 20, _positive_int,
+            "Largest HTTP request body the API reads, in bytes; a larger one is refused with 413."),
+    Setting("api_url", "http://127.0.0.1:8750", str,
+            "Base URL of a linkfold API, used by the Python client (linkfold.client) when none is given."),
 )
 
 _BY_NAME = {s.name: s for s in SETTINGS}
