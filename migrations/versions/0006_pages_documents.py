@@ -51,6 +51,7 @@ def upgrade() -> None:
     )
     with op.batch_alter_table("pages", schema=None) as batch_op:
         batch_op.create_index("ix_pages_canonical_id", ["canonical_id"], unique=False)
+        batch_op.create_index("ix_pages_final_canonical_id", ["final_canonical_id"], unique=False)
 
     op.create_table(
         "fetch_results",
@@ -121,5 +122,6 @@ def downgrade() -> None:
         batch_op.drop_index("ix_fetch_results_state_next")
     op.drop_table("fetch_results")
     with op.batch_alter_table("pages", schema=None) as batch_op:
+        batch_op.drop_index("ix_pages_final_canonical_id")
         batch_op.drop_index("ix_pages_canonical_id")
     op.drop_table("pages")
