@@ -125,6 +125,20 @@ def test_environment_proxies_are_ignored(server, monkeypatch):
     assert h.backend.connected == [("127.0.0.1", server.port)]
 
 
+def test_connections_are_reused_between_hops(server):
+    # A body we do not need is drained when small, so httpcore can keep the connection (a new TCP and
+    # TLS handshake per hop would cost the site and us).
+    h = Harness()
+
+    async def three(client):
+        await client.request("HEAD", server.url("/chain/1"))
+        await client.request("GET", server.url("/final"), read_body=False)  # small declared body
+        await client.request("HEAD", server.url("/chain/0"))
+
+    h.run(three)
+    assert h.backend.connected == [("127.0.0.1", server.port)]
+
+
 def test_cookies_are_never_kept_or_sent(server):
     # Browsing data is personal data: a site's cookie is state we neither store nor send back.
     h = Harness()

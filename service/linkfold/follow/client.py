@@ -60,6 +60,9 @@ ROBOTS_MAX_REDIRECTS = 5
 #: First retry delay of the jittered exponential backoff, seconds (common practice, no source).
 BACKOFF_BASE = 1.0
 
+#: A body we do not need is still read (and dropped) up to this size, to keep the connection.
+DRAIN_MAX_BYTES = 16 * 1024
+
 REDIRECT_STATUSES = frozenset({301, 302, 303, 307, 308})  # RFC 9110 §15.4.2–§15.4.9
 RETRY_STATUSES = frozenset({429, 503})  # RFC 6585 §4, RFC 9110 §15.6.4: both may carry Retry-After
 
@@ -418,6 +421,8 @@ class SafeClient:
                         body, truncated = (None, False)
                         if read_body:
                             body, truncated = await self._read_capped(response, url, max_bytes, truncate)
+                        else:
+                            await self._drain_small(response, method)
                     finally:
                         await response.aclose()
             except FetchError:
@@ -426,6 +431,18 @@ class SafeClient:
                 raise classify(exc, url) from exc
         return Reply(url=url, method=method, status=response.status_code, headers=response.headers,
                      body=body, truncated=truncated, attempts=1)
+
+    async def _drain_small(self, response: httpx.Response, method: str) -> None:
+        """Read and drop a body we do not need when it is small, so the connection can be used again.
+
+        httpcore returns a connection to the pool only once the response was read to its end; closing
+        it early means a new TCP connection (and, for https, a new handshake) for the next hop. A large
+        or unannounced body is not worth reading: the connection is closed instead.
+        """
+        declared = response.headers.get("content-length", "")
+        if method == "HEAD" or (declared.isdigit() and int(declared) <= DRAIN_MAX_BYTES):
+            async for _chunk in response.aiter_raw():
+                pass
 
     async def _read_capped(self, response: httpx.Response, url: str, max_bytes: int,
                            truncate: bool) -> tuple[bytes, bool]:
