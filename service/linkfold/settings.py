@@ -113,6 +113,9 @@ SETTINGS: tuple[Setting, ...] = (
             "Most days between publication dates for a title match to count as one story."),
     Setting("min_words", 50, _positive_int,
             "Words a text needs for its shingles to decide a match; shorter texts fall back to titles."),
+    Setting("lsh_max_bucket", 1000, _positive_int,
+            "Documents sharing one band key above which the bucket is skipped when matching (boilerplate "
+            "shared by many pages); skipped buckets are counted in the dedupe summary."),
     Setting("open_reads", False, _bool, "Let the HTTP API answer reads without a token."),
     Setting("api_max_batch", 10000, _positive_int,
             "Most URLs or keys in one batch lookup request; more is refused with 413 (split the batch)."),
