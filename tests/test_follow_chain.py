@@ -104,6 +104,12 @@ def test_get_fallback_honours_robots(server):
     assert server.paths("GET") == ["/robots.txt"]
 
 
+def test_unreachable_robots_refuses_the_get_and_says_why(server):
+    server.robots_status = 500  # RFC 9309 §2.3.1.4: unreachable robots.txt means complete disallow
+    chain = follow(server.url("/nohead/405"))
+    assert chain.failure is Failure.ROBOTS and "answered 500" in chain.detail
+
+
 @pytest.mark.parametrize(("path", "failure"), [
     ("/status/404", Failure.HTTP_4XX), ("/status/410", Failure.HTTP_4XX), ("/status/500", Failure.HTTP_5XX),
     ("/noloc", Failure.BAD_LOCATION), ("/to?loc=javascript:alert(1)", Failure.BAD_LOCATION),

@@ -110,9 +110,7 @@ async def _ask(client: SafeClient, url: str) -> tuple[Reply, int]:
     reply = await client.request("HEAD", url, read_body=False)
     requests = reply.attempts
     if reply.status >= 400 and reply.status not in (429, 503):
-        if not await client.robots_allows(url):
-            raise FetchError(Failure.ROBOTS, f"HEAD answered {reply.status} and robots.txt disallows "
-                                             f"the GET", url=url)
+        await client.require_robots(url, context=f"HEAD answered {reply.status}; for the GET, ")
         reply = await client.request("GET", url, read_body=False)
         requests += reply.attempts
     return reply, requests

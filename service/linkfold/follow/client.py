@@ -500,12 +500,13 @@ class SafeClient:
 
     async def get(self, url: str, *, max_bytes: int | None = None, check_robots: bool = True) -> Reply:
         """A GET that honours robots.txt first (raises ``FetchError(ROBOTS)`` when disallowed)."""
-        if check_robots and not await self.robots_allows(url):
-            raise FetchError(Failure.ROBOTS, "robots.txt disallows this URL for linkfold", url=url)
+        if check_robots:
+            await self.require_robots(url)
         return await self.request("GET", url, max_bytes=max_bytes)
 
     # -- robots.txt --
-    async def robots_allows(self, url: str) -> bool:
+    async def robots_rules(self, url: str) -> RobotRules:
+        """The robots.txt rules of ``url``'s origin, fetched once per origin for this client's life."""
         parsed = httpx.URL(url)
         origin = f"{parsed.scheme}://{parsed.netloc.decode('ascii')}"
         rules = self._robots.get(origin)
@@ -516,8 +517,18 @@ class SafeClient:
                 if rules is None:
                     rules = await self._fetch_robots(origin)
                     self._robots[origin] = rules
-        target = parsed.raw_path.decode("ascii")
-        return rules.allows(target)
+        return rules
+
+    async def robots_allows(self, url: str) -> bool:
+        rules = await self.robots_rules(url)
+        return rules.allows(httpx.URL(url).raw_path.decode("ascii"))
+
+    async def require_robots(self, url: str, *, context: str = "") -> None:
+        """Raise ``FetchError(ROBOTS)`` unless robots.txt allows a GET of ``url``; say why."""
+        rules = await self.robots_rules(url)
+        if not rules.allows(httpx.URL(url).raw_path.decode("ascii")):
+            why = "disallows this URL for linkfold" if rules.basis == "file" else rules.basis
+            raise FetchError(Failure.ROBOTS, f"{context}robots.txt {why}", url=url)
 
     async def _fetch_robots(self, origin: str) -> RobotRules:
         """RFC 9309 §2.3.1: 2xx parse, 4xx allow all, 5xx or unreachable disallow all."""
@@ -529,7 +540,8 @@ class SafeClient:
                 reply = await self.request("GET", url, max_bytes=ROBOTS_MAX_BYTES, truncate=True)
             except FetchError as exc:
                 log.info("robots.txt of %s unreachable (%s): treating the site as disallowed", origin, exc)
-                return RobotRules.disallow_all()
+                return RobotRules.disallow_all(f"unreachable ({exc}): everything disallowed, RFC 9309 "
+                                               "§2.3.1.4")
             if reply.status in REDIRECT_STATUSES and reply.location:
                 url = resolve_reference(url, reply.location)
                 continue
@@ -539,10 +551,11 @@ class SafeClient:
             if reply.status == 429:
                 # Common practice, no source: "too many requests" means the server is unavailable to us,
                 # not that the file is missing, so it counts as unreachable rather than as a 4xx.
-                return RobotRules.disallow_all()
+                return RobotRules.disallow_all("answered 429: everything disallowed")
             if 400 <= reply.status < 500:
                 return RobotRules.allow_all()
-            return RobotRules.disallow_all()
+            return RobotRules.disallow_all(f"answered {reply.status}: everything disallowed, RFC 9309 "
+                                           "§2.3.1.4")
         # §2.3.1.2: past the redirect limit the file MAY be treated as unavailable (4xx).
         return RobotRules.allow_all()
 

@@ -86,16 +86,16 @@ class RobotRules:
     """The rules that apply to one product token, ready to answer :meth:`allows`."""
 
     rules: tuple[Rule, ...] = ()
-    #: How the rules were obtained: ``file`` (parsed), ``allow_all`` (4xx), ``disallow_all`` (unreachable).
+    #: How the rules were obtained, for messages: ``file``, or why everything is allowed or disallowed.
     basis: str = "file"
 
     @classmethod
-    def allow_all(cls) -> RobotRules:
-        return cls((), "allow_all")
+    def allow_all(cls, basis: str = "allow_all") -> RobotRules:
+        return cls((), basis)
 
     @classmethod
-    def disallow_all(cls) -> RobotRules:
-        return cls((Rule(False, "/", 0),), "disallow_all")
+    def disallow_all(cls, basis: str = "disallow_all") -> RobotRules:
+        return cls((Rule(False, "/", 0),), basis)
 
     def allows(self, path: str) -> bool:
         """May the path (with its query) be fetched? ``path`` as sent in the request target."""
