@@ -6,6 +6,9 @@ with it: these tests say where.
 
 from __future__ import annotations
 
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
 from linkfold.canon import _parse
 
 
@@ -65,3 +68,48 @@ def test_host_type_inferred_from_serialisation_matches_the_parser() -> None:
     for raw in ["http://1.2.3.4/", "http://0x7f.1/", "http://[::1]/", "http://[::ffff:1.2.3.4]/",
                 "http://a.test/", "http://a.b1c/", "http://xn--bcher-kva.example/", "http://2130706433/"]:
         assert _parse.parse(raw).host_type == int(HostType(URL(raw).host_type)), raw
+
+
+_URLISH = st.text(alphabet="hts:/.abcxn-019[]@?#&=%2eE~'\" <>`{}^|\\é" + "ABC", max_size=40)
+
+
+_CLEAN = st.text(alphabet="abcXYZ09-._~!$&()*+,;=:@/%|", max_size=12)
+_PIECE = st.one_of(_CLEAN, _CLEAN, _CLEAN, st.text(alphabet="abcXYZ09-._~!$&()*+,;=:@/%|?#'\"é ^`{}[]\\",
+                                                   max_size=12))
+_GOOD_LABEL = st.from_regex(r"[a-z0-9][a-z0-9-]{0,4}[a-z0-9]", fullmatch=True)
+_LABEL = st.one_of(_GOOD_LABEL, _GOOD_LABEL, _GOOD_LABEL, st.text(alphabet="abz09-", min_size=1, max_size=6),
+                   st.sampled_from(["xn--a", "0x1f", "12", "0x"]))
+_HOST = st.tuples(st.lists(_LABEL, max_size=3), st.sampled_from(["test", "example", "test", "12", "0x1f", "b1"])
+                  ).map(lambda p: ".".join([*p[0], p[1]]))
+_SIMPLE_LOOKING = st.tuples(
+    st.sampled_from(["http", "https"]), _HOST,
+    st.sampled_from(["", ":80", ":443", ":8080", ":65535", ":65536", ":1"]),
+    st.lists(_PIECE, max_size=4).map("/".join), st.one_of(st.none(), _PIECE), st.one_of(st.none(), _PIECE),
+).map(lambda p: f"{p[0]}://{p[1]}{p[2]}/{p[3]}" + ("" if p[4] is None else "?" + p[4])
+      + ("" if p[5] is None else "#" + p[5]))
+
+
+@settings(max_examples=3000, deadline=None)
+@given(st.one_of(
+    _SIMPLE_LOOKING,
+    _SIMPLE_LOOKING,
+    _URLISH.map(lambda t: "http://" + t),
+    _URLISH.map(lambda t: "https://" + t),
+    st.tuples(st.sampled_from(["http", "https", "HTTP"]), st.sampled_from(["a.test", "xn--a.test", "1.2", "a.0x1f",
+                                                                            "a.b1", "A.test", "a..b", "a.test."]),
+              st.sampled_from(["", ":80", ":443", ":8080", ":0", ":65536", ":00"]), _URLISH)
+    .map(lambda p: f"{p[0]}://{p[1]}{p[2]}/{p[3]}"),
+))
+def test_shortcut_agrees_with_the_parser(text: str) -> None:
+    # The regular-expression shortcut must give exactly the parser's components whenever it answers.
+    simple = _parse._simple(text)
+    if simple is not None:
+        assert simple == _parse.parse_with_ada(text), text
+
+
+def test_shortcut_takes_the_usual_url_and_leaves_the_doubtful_ones() -> None:
+    assert _parse._simple("https://daily.example/news/a-b?x=1&y=%2F#c") is not None
+    for doubtful in ["https://daily.example:443/", "https://xn--bcher-kva.example/", "http://1.2.3.4/",
+                     "http://a.test/./b", "http://a.test/%2e%2e/b", "http://a.test/a b", "HTTP://a.test/",
+                     "http://a.test", "http://u@a.test/", "http://a.test/?q='", "http://a.test./"]:
+        assert _parse._simple(doubtful) is None, doubtful

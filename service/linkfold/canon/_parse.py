@@ -35,8 +35,42 @@ class Parts(NamedTuple):
     host_type: int
 
 
+# A strict subset of URLs that the WHATWG parser serialises unchanged: lower-case http(s), a lower-case
+# ASCII host name, a non-default port without leading zeros, a path, and query and fragment made only of
+# characters no WHATWG percent-encode set touches. Such a URL is its own serialisation, so its components
+# can be sliced without the parser (most URLs in a dump look like this). Everything else, and every
+# doubtful case below (IDNA labels, hosts that could be IPv4, dot segments, default ports), goes to the
+# parser. tests/test_canon_parser.py checks this shortcut against the parser on generated URLs.
+_SIMPLE = re.compile(
+    r"(https?)://([a-z0-9](?:[a-z0-9.\-]*[a-z0-9])?)(?::([1-9][0-9]{0,4}))?"
+    r"(/[A-Za-z0-9\-._~!$&()*+,;=:@/%|]*)"
+    r"(?:\?([A-Za-z0-9\-._~!$&()*+,;=:@/?%|]*))?"
+    r"(?:#([A-Za-z0-9\-._~!$&'()*+,;=:@/?%|]*))?")
+_NUMERIC_LAST_LABEL = re.compile(r"(?:^|\.)(?:[0-9]+|0x[0-9a-f]*)$")
+_DEFAULT_PORT = {"http": "80", "https": "443"}
+
+
+def _simple(text: str) -> Parts | None:
+    m = _SIMPLE.fullmatch(text)
+    if m is None:
+        return None
+    scheme, host, port, path, query, fragment = m.groups()
+    if ("xn--" in host or _NUMERIC_LAST_LABEL.search(host) or "/." in path or "%2e" in path
+            or "%2E" in path or (port is not None and (port == _DEFAULT_PORT[scheme] or int(port) > 65535))):
+        return None
+    return Parts(text, scheme, False, host, port or "", path, query, fragment, HOST_NAME)
+
+
 def parse(text: str) -> Parts | None:
     """Parse ``text`` as an absolute URL; None when the WHATWG parser refuses it."""
+    simple = _simple(text)
+    if simple is not None:
+        return simple
+    return parse_with_ada(text)
+
+
+def parse_with_ada(text: str) -> Parts | None:
+    """The WHATWG parser's reading of ``text`` (None when it refuses it)."""
     data = text.encode("utf-8", "surrogatepass")  # surrogates: refused by ada, not a crash here
     obj = lib.ada_parse(data, len(data))
     try:

@@ -235,7 +235,13 @@ class _Engine:
         sw = plan.sw
         rules = self.rules
 
-        inner = self._unwrap(parts, plan, depth) if parts.query or self.may_unwrap_without_query else None
+        # A wrapper's target is an absolute http(s) URL in a parameter value, written plainly or encoded:
+        # without "=http" in the query there is nothing to unwrap (most URLs), so skip the patterns.
+        query = parts.query
+        if (query and "=http" in query.lower()) or self.may_unwrap_without_query:
+            inner = self._unwrap(parts, plan, depth)
+        else:
+            inner = None
         if inner is not None:
             step, result = inner
             return Canonical(result.url, result.url_key, result.host, result.domain, result.outlet,
@@ -285,7 +291,7 @@ class _Engine:
             target = path if query is None else f"{path}?{query}"
             is_article = any(p.search(target) for p in site.article)
         return Canonical(url, url_key(url), host, plan.domain, plan.outlet, is_article, rules.digest,
-                         tuple(dict.fromkeys(steps)))
+                         tuple(steps) if len(steps) < 2 else tuple(dict.fromkeys(steps)))
 
     # --- URLs that stand for another URL --------------------------------------------------------------
     def _unwrap(self, parts: _parse.Parts, plan: _HostPlan, depth: int) -> tuple[str, Canonical] | None:
@@ -369,9 +375,14 @@ class _Engine:
         last = path[path.rfind("/") + 1:]
         if last in self.fold_last:
             return True
-        if self.fold_first and path[1:].partition("/")[0] in self.fold_first:
-            return True
-        return any(suffix in last for suffix in self.rules.amp_name_suffixes)
+        if self.fold_first:
+            end = path.find("/", 1)
+            if (path[1:] if end < 0 else path[1:end]) in self.fold_first:
+                return True
+        for suffix in self.rules.amp_name_suffixes:  # noqa: SIM110 (cheaper than any() over a generator)
+            if suffix in last:
+                return True
+        return False
 
     def _fold_path(self, path: str, sw: _Switches, steps: list[str]) -> str:
         rules = self.rules
@@ -538,6 +549,9 @@ def _engine(rules: Ruleset | None) -> _Engine:
     return engine
 
 
+_DEFAULT_ENGINE: list[_Engine] = []
+
+
 def canonicalize(raw: str, rules: Ruleset | None = None) -> Canonical:
     """The canonical form of ``raw`` under ``rules`` (default: the built-in ruleset).
 
@@ -545,6 +559,10 @@ def canonicalize(raw: str, rules: Ruleset | None = None) -> Canonical:
     URL, and never any other exception.
     """
     try:
+        if rules is None:
+            if not _DEFAULT_ENGINE:
+                _DEFAULT_ENGINE.append(_engine(None))
+            return _DEFAULT_ENGINE[0].run(raw)
         return _engine(rules).run(raw)
     except InvalidURL:
         raise
