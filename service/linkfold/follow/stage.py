@@ -183,6 +183,11 @@ class _Writer:
                         urls[u] = found
         with self.engine.begin() as conn:
             ids = ev.register_urls(conn, urls.items(), ruleset_id=self.ruleset_id)
+            for item, chain in batch:
+                # The chain starts at the canonical URL that was chosen, even when its raw URL would
+                # canonicalise differently under today's ruleset.
+                if chain.start in ids:
+                    ids[chain.start] = ev.UrlIds(item.canonical_id, ids[chain.start].raw_id)
             links, outcomes, learned = [], [], []
             for item, chain in batch:
                 links.extend(self._links(chain, ids))
