@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import logging
 import time
+from collections import Counter
 from collections.abc import Sequence
 from contextlib import closing
 from dataclasses import dataclass
@@ -40,13 +41,13 @@ from .formats import (
     physical_lines,
 )
 from .readers import DumpReader, ReadOptions
-from .rows import row_entries
+from .rows import Batch
 from .summary import FileOutcome, FileSummary, IngestSummary
+from .writer import BatchWriter
 
 log = logging.getLogger("linkfold")
 
 DEFAULT_BATCH_SIZE = 5000
-_REASON = 13  # index of ``reason`` in a staging entry (see rows.ENTRY_FIELDS)
 
 
 @dataclass(frozen=True)
@@ -166,7 +167,7 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
                         with conn.begin():
                             file_rules = get_ruleset(conn, file_version)
                     canonicalisers[file_version] = Canonicaliser(file_rules, cache_size=cache_size)
-                result = _load_file(conn, plan, stored, dataset_id=dataset_id, ruleset_id=file_version,
+                result = _load_file(engine, plan, stored, dataset_id=dataset_id, ruleset_id=file_version,
                                     canon=canonicalisers[file_version], batch_size=batch_size,
                                     progress=progress)
                 summary.files.append(result)
@@ -186,70 +187,83 @@ def _check_resume(stored: dict[str, Any], plan: _Plan, version: int, *, explicit
                          "one file is never canonicalised under two rulesets")
 
 
-def _load_file(conn: Connection, plan: _Plan, stored: dict[str, Any], *, dataset_id: int, ruleset_id: int,
+@dataclass
+class _Job:
+    rows: list[tuple]
+    raws: list[tuple]
+    row_count: int
+    lines_after: int
+    reasons: Counter[str]
+    final: bool = False
+
+
+def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_id: int, ruleset_id: int,
                canon: Canonicaliser, batch_size: int, progress: Progress) -> FileSummary:
     resume_after = int(stored["lines_done"] or 0)
     outcome = FileOutcome.RESUMED if resume_after else FileOutcome.LOADED
     summary = FileSummary(plan.name, plan.facts.sha256, outcome, resumed_after_line=resume_after)
-    keyed = plan.options.key_column is not None
-    timed = plan.options.time_column is not None
     started = time.monotonic()
     if resume_after:
         log.info("%s: resuming an interrupted load after line %d", plan.name, resume_after)
+    state = {"lines_done": resume_after, "reported": 0}
 
-    lines_done = resume_after
-    reported = 0
-    entries: list[tuple] = []
-    batch_rows = 0
-    last_line = resume_after
-    skipped = 0
+    def write(conn: Connection, job: _Job) -> registry.BatchCounts:
+        # Runs on the writer thread, inside one transaction per batch.
+        counts = registry.write_batch(conn, dataset_id=dataset_id, file_id=stored["id"], ruleset_id=ruleset_id,
+                                      rows=job.rows, raws=job.raws, row_count=job.row_count,
+                                      lines_before=state["lines_done"], lines_after=job.lines_after)
+        if job.final:
+            registry.complete_file(conn, stored["id"], lines_done=max(job.lines_after, plan.facts.lines))
+        return counts
 
-    def flush(final: bool) -> None:
-        nonlocal lines_done, entries, batch_rows
-        with conn.begin():
-            counts = registry.write_batch(conn, dataset_id=dataset_id, file_id=stored["id"],
-                                          ruleset_id=ruleset_id, entries=entries, rows=batch_rows,
-                                          lines_before=lines_done, lines_after=last_line)
-            if final:
-                registry.complete_file(conn, stored["id"], lines_done=max(last_line, plan.facts.lines))
-        lines_done = last_line
+    def committed(job: _Job, counts: registry.BatchCounts) -> None:
+        # Only after the commit: the summary counts what is stored.
+        state["lines_done"] = job.lines_after
         summary.rows += counts.rows
         summary.sightings += counts.sightings
         summary.new_raw_urls += counts.new_raw_urls
         summary.new_canonical_urls += counts.new_canonical_urls
-        summary.rejects.update(e[_REASON] for e in entries if e[_REASON] is not None)
-        entries = []
-        batch_rows = 0
+        summary.rejects.update(job.reasons)
+        done = plan.facts.lines if job.final else job.lines_after
+        progress.advance(max(done - state["reported"], 0))
+        state["reported"] = max(done, state["reported"])
+
+    batch = Batch(canon, keyed=plan.options.key_column is not None,
+                  timed=plan.options.time_column is not None)
+    last_line = resume_after
+
+    def job(final: bool) -> _Job:
+        out = _Job(batch.rows, list(batch.raws.values()), batch.count, last_line, batch.reasons(), final)
+        batch.clear()
+        return out
 
     progress.start(f"ingest {plan.name} (lines)", total=plan.facts.lines)
+    writer: BatchWriter[_Job] = BatchWriter(engine, write, committed)
     try:
         with closing(open_binary(plan.path, plan.facts.gzipped)) as stream:
             reader = DumpReader(physical_lines(stream.binary, plan.options.max_line_bytes), plan.options,
                                 name=plan.name)
-            for row in reader:
-                if row.line_no <= resume_after:
-                    skipped += 1
-                    if skipped % batch_size == 0:
-                        progress.advance(row.end_line - reported)
-                        reported = row.end_line
-                    continue
-                entries.extend(row_entries(row, canon, keyed=keyed, timed=timed))
-                batch_rows += 1
-                last_line = row.end_line
-                if batch_rows >= batch_size:
-                    flush(final=False)
-                    progress.advance(last_line - reported)
-                    reported = last_line
+            try:
+                for row in reader:
+                    if row.line_no <= resume_after:
+                        continue  # committed by the interrupted load
+                    batch.add(row)
+                    last_line = row.end_line
+                    if batch.count >= batch_size:
+                        writer.submit(job(final=False))
+            except InputError as exc:
+                # The file broke under us after it was checked; what is committed stays, resumable.
+                raise InputError(f"{plan.name}: {exc}") from exc
             summary.blank_lines = reader.blank_lines
             if stream.sha256() != plan.facts.sha256:
-                # The file changed between hashing and reading: completing it would attach this content to
-                # another file's digest. What is committed stays; a new load sees the new file.
+                # The file changed between hashing and reading: completing it would attach this content
+                # to another file's digest. What is committed stays; a new load sees the new file.
                 raise InputError(f"{plan.name} changed while it was being loaded; load it again")
-            flush(final=True)
-            progress.advance(max(plan.facts.lines - reported, 0))
-    except InputError as exc:
-        # The file changed or broke under us after it was checked; what is committed stays, resumable.
-        raise InputError(f"{plan.name}: {exc}") from exc
+        writer.submit(job(final=True))
+        writer.close()
+    except BaseException:
+        writer.abandon()
+        raise
     finally:
         progress.finish()
     summary.seconds = time.monotonic() - started

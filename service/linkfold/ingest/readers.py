@@ -283,8 +283,8 @@ class _Delimited(_Format):
             self.time_idx = self._index(header, self.opt.time_column, "--time-column")
 
     def _default_url_column(self, header: list[str]) -> tuple[str, ...]:
-        if header.count("url") == 1:
-            return ("url",)
+        if "url" in header:
+            return ("url",)  # a duplicated "url" column is refused by _index as ambiguous
         raise MissingColumnError(f"{self.r.name}: which column holds the URLs? columns found: "
                                  f"{_list(header)}", hint="pass --url-column NAME")
 

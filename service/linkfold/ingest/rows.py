@@ -17,6 +17,7 @@ from __future__ import annotations
 import hashlib
 import json
 import re
+from collections import Counter
 from collections.abc import Callable
 from datetime import datetime
 from typing import Any
@@ -31,11 +32,12 @@ TIME_POSITION = -2  # the row's time
 
 _UNSTORABLE = re.compile("[\x00\ud800-\udfff]")
 
-# (line_no, position, row_key, seen_at, raw_hash, raw, raw_error,
-#  url_key, url, host, domain, outlet, is_article, reason, detail, excerpt)
-Entry = tuple[Any, ...]
-ENTRY_FIELDS = ("line_no", "position", "row_key", "seen_at", "raw_hash", "raw", "raw_error",
-                "url_key", "url", "host", "domain", "outlet", "is_article", "reason", "detail", "excerpt")
+# A staging row: one per sighting or reject.
+RowEntry = tuple[Any, ...]
+ROW_FIELDS = ("line_no", "position", "row_key", "seen_at", "raw_hash", "reason", "detail", "excerpt")
+# A staging raw URL: one per distinct raw URL of a batch, with its canonical form if it has one.
+RAW_FIELDS = ("raw_hash", "raw", "raw_error", "url_key", "url", "host", "domain", "outlet", "is_article")
+_REASON = 5
 
 
 def storable(text: str) -> str:
@@ -49,9 +51,8 @@ def raw_hash(text: str) -> str:
 
 
 def _reject(line_no: int, position: int, row_key: str | None, reason: str, detail: str | None,
-            text: str | None = None) -> Entry:
-    return (line_no, position, row_key, None, None, None, None,
-            None, None, None, None, None, None, reason, detail, excerpt(text))
+            text: str | None = None) -> RowEntry:
+    return (line_no, position, row_key, None, None, reason, detail, excerpt(text))
 
 
 def _key(value: Any, line_no: int) -> tuple[str, tuple[str, str, str | None] | None]:
@@ -80,52 +81,88 @@ def _time(value: Any) -> tuple[datetime | None, tuple[str, str, str | None] | No
         return None, (Reason.BAD_TIME, f"{exc}; the sightings have no time", storable(shown))
 
 
-def row_entries(row: DumpRow, canon: Callable[[str], Canonical], *, keyed: bool, timed: bool) -> list[Entry]:
-    """The staging entries for one row (at least one: every row leaves a trace)."""
-    n = row.line_no
-    if row.reject is not None:
-        rej = row.reject
-        return [(n, ROW_POSITION, None, None, None, None, None, None, None, None, None, None, None,
-                 rej.reason, rej.detail, rej.excerpt)]
-    values = [v for v in row.urls if v is not None and not (isinstance(v, str) and not v.strip())]
-    if not values:
-        detail = "the URL column is empty" if row.urls else "the URL path reaches no value"
-        return [_reject(n, ROW_POSITION, None, Reason.NO_URL, detail)]
-    out: list[Entry] = []
-    if keyed:
-        row_key, key_problem = _key(row.key, n)
-        if key_problem:
-            out.append(_reject(n, ROW_POSITION, row_key, *key_problem))
-    else:
-        row_key = str(n)
-    seen_at = None
-    if timed:
-        seen_at, time_problem = _time(row.time)
-        if time_problem:
-            out.append(_reject(n, TIME_POSITION, row_key, *time_problem))
-    for pos, value in enumerate(values):
-        if not isinstance(value, str):
-            out.append(_reject(n, pos, row_key, Reason.NOT_TEXT,
-                               f"a JSON {type(value).__name__} where a URL was expected",
-                               json.dumps(value)[:400]))
-            continue
+class Batch:
+    """The staging rows of one batch, and each distinct raw URL in it once.
+
+    A raw URL that repeats within the batch (panels revisit pages all the time) is hashed and
+    canonicalised once; its later rows reuse the answer.
+    """
+
+    def __init__(self, canon: Callable[[str], Canonical], *, keyed: bool, timed: bool) -> None:
+        self.canon = canon
+        self.keyed = keyed
+        self.timed = timed
+        self.rows: list[RowEntry] = []
+        self.raws: dict[str, tuple[Any, ...]] = {}  # raw hash -> RAW_FIELDS tuple
+        self._seen: dict[str, tuple[str, str | None, str | None]] = {}  # text -> (hash, reason, detail)
+        self.count = 0  # dump rows added
+
+    def clear(self) -> None:
+        self.rows = []
+        self.raws = {}
+        self._seen = {}
+        self.count = 0
+
+    def reasons(self) -> Counter[str]:
+        return Counter(r[_REASON] for r in self.rows if r[_REASON] is not None)
+
+    def _url(self, value: str) -> tuple[str, str | None, str | None]:
+        known = self._seen.get(value)
+        if known is not None:
+            return known
         raw = storable(value)
         h = raw_hash(raw)
         try:
-            c = canon(value)
+            c = self.canon(value)
         except InvalidURL as exc:
-            out.append((n, pos, row_key, seen_at, h, raw, exc.reason, None, None, None, None, None, None,
-                        exc.reason, exc.detail, None))
-            continue
-        if raw != value:
-            # Never store a canonical form for text we could not store verbatim; the canonicaliser
-            # refuses such text itself, this only keeps that promise if it ever changes.
-            out.append((n, pos, row_key, seen_at, h, raw, Reason.CONTROL_CHARS, None, None, None, None,
-                        None, None, Reason.CONTROL_CHARS, "NUL or broken Unicode in the URL", None))
-            continue
-        out.append((n, pos, row_key, seen_at, h, raw, None, c.url_key, c.url, c.host, c.domain, c.outlet,
-                    c.is_article, None, None, None))
-    return out
+            answer = (h, exc.reason, exc.detail)
+            self.raws[h] = (h, raw, exc.reason, None, None, None, None, None, None)
+        else:
+            if raw != value:
+                # Never store a canonical form for text we could not store verbatim; the canonicaliser
+                # refuses such text itself, this only keeps that promise if it ever changes.
+                answer = (h, Reason.CONTROL_CHARS, "NUL or broken Unicode in the URL")
+                self.raws[h] = (h, raw, Reason.CONTROL_CHARS, None, None, None, None, None, None)
+            else:
+                answer = (h, None, None)
+                self.raws[h] = (h, raw, None, c.url_key, c.url, c.host, c.domain, c.outlet, c.is_article)
+        self._seen[value] = answer
+        return answer
+
+    def add(self, row: DumpRow) -> None:
+        """Stage one dump row (it always leaves at least one staging row: every row leaves a trace)."""
+        self.count += 1
+        out = self.rows
+        n = row.line_no
+        if row.reject is not None:
+            rej = row.reject
+            out.append((n, ROW_POSITION, None, None, None, rej.reason, rej.detail, rej.excerpt))
+            return
+        values = [v for v in row.urls if v is not None and not (isinstance(v, str) and not v.strip())]
+        if not values:
+            detail = "the URL column is empty" if row.urls else "the URL path reaches no value"
+            out.append(_reject(n, ROW_POSITION, None, Reason.NO_URL, detail))
+            return
+        if self.keyed:
+            row_key, key_problem = _key(row.key, n)
+            if key_problem:
+                out.append(_reject(n, ROW_POSITION, row_key, *key_problem))
+        else:
+            row_key = str(n)
+        seen_at = None
+        if self.timed:
+            seen_at, time_problem = _time(row.time)
+            if time_problem:
+                out.append(_reject(n, TIME_POSITION, row_key, *time_problem))
+        for pos, value in enumerate(values):
+            if not isinstance(value, str):
+                out.append(_reject(n, pos, row_key, Reason.NOT_TEXT,
+                                   f"a JSON {type(value).__name__} where a URL was expected",
+                                   json.dumps(value)[:400]))
+                continue
+            h, reason, detail = self._url(value)
+            out.append((n, pos, row_key, seen_at, h, reason, detail, None))
 
 
-__all__ = ["ENTRY_FIELDS", "ROW_POSITION", "TIME_POSITION", "Entry", "raw_hash", "row_entries", "storable"]
+__all__ = ["RAW_FIELDS", "ROW_FIELDS", "ROW_POSITION", "TIME_POSITION", "Batch", "RowEntry", "raw_hash",
+           "storable"]

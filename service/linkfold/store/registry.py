@@ -21,7 +21,7 @@ from sqlalchemy.engine import Connection
 
 from ..errors import LockHeld, NotFound
 from . import tables as t
-from .bulk import insert_rows
+from .bulk import insert_tuples
 
 UTC_TYPE = sa.DateTime(timezone=True)
 _IN_CHUNK = 500  # ids per IN (…) list: well under SQLite's default limit of 999 bound parameters
@@ -98,14 +98,24 @@ def claim_file(conn: Connection, file_id: int, run_id: int | None) -> None:
     conn.execute(sa.update(t.dataset_files).where(t.dataset_files.c.id == file_id).values(run_id=run_id))
 
 
-# --- the staging table and one batch ----------------------------------------------------------------------
+# --- the staging tables and one batch ---------------------------------------------------------------------
 _stage_meta = sa.MetaData()
-stage = sa.Table(
-    "lf_ingest_stage", _stage_meta,
+# Temporary tables are never WAL-logged and carry no index: the cheap place to COPY into. PostgreSQL
+# empties them at each commit; SQLite gets an explicit DELETE.
+stage_rows = sa.Table(
+    "lf_stage_rows", _stage_meta,
     sa.Column("line_no", sa.BigInteger),
     sa.Column("position", sa.Integer),
     sa.Column("row_key", sa.Text),
     sa.Column("seen_at", UTC_TYPE),
+    sa.Column("raw_hash", sa.String(64)),
+    sa.Column("reason", sa.String(40)),
+    sa.Column("detail", sa.Text),
+    sa.Column("excerpt", sa.Text),
+    prefixes=["TEMPORARY"], postgresql_on_commit="DELETE ROWS",
+)
+stage_raws = sa.Table(
+    "lf_stage_raws", _stage_meta,
     sa.Column("raw_hash", sa.String(64)),
     sa.Column("raw", sa.Text),
     sa.Column("raw_error", sa.String(40)),
@@ -115,14 +125,10 @@ stage = sa.Table(
     sa.Column("domain", sa.String(255)),
     sa.Column("outlet", sa.String(255)),
     sa.Column("is_article", sa.Boolean),
-    sa.Column("reason", sa.String(40)),
-    sa.Column("detail", sa.Text),
-    sa.Column("excerpt", sa.Text),
-    prefixes=["TEMPORARY"],
-    # Temporary tables are never WAL-logged and carry no index: the cheap place to COPY into.
-    postgresql_on_commit="DELETE ROWS",
+    prefixes=["TEMPORARY"], postgresql_on_commit="DELETE ROWS",
 )
-STAGE_COLUMNS = tuple(c.name for c in stage.columns)
+ROW_COLUMNS = tuple(c.name for c in stage_rows.columns)
+RAW_COLUMNS = tuple(c.name for c in stage_raws.columns)
 
 
 @dataclass
@@ -140,12 +146,15 @@ def _insert(conn: Connection, table: sa.Table):
     return stmt.execution_options(preserve_rowcount=True)
 
 
-def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: int,
-                entries: Sequence[Sequence[Any]], rows: int, lines_before: int, lines_after: int) -> BatchCounts:
+def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: int | None,
+                rows: Sequence[Sequence[Any]], raws: Sequence[Sequence[Any]], row_count: int,
+                lines_before: int, lines_after: int) -> BatchCounts:
     """Write one batch inside the caller's transaction and move the file's resume point forward.
 
-    ``lines_before`` is the resume point this batch continues from; if the stored one differs, another
-    process is loading the same file and :class:`LockHeld` is raised before anything is written.
+    ``rows`` are sightings and rejects in ``ROW_COLUMNS`` order, ``raws`` the batch's distinct raw URLs
+    in ``RAW_COLUMNS`` order; ``row_count`` is how many dump rows they came from. ``lines_before`` is the
+    resume point this batch continues from: if the stored one differs, another process is loading the
+    same file, and :class:`LockHeld` is raised before anything is written.
     """
     guard = conn.execute(sa.update(t.dataset_files)
                          .where(t.dataset_files.c.id == file_id, t.dataset_files.c.lines_done == lines_before)
@@ -153,13 +162,16 @@ def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
     if guard.rowcount != 1:
         raise LockHeld(f"dataset file {file_id} is being loaded by another process (its resume point "
                        "moved under this load); let that load finish, then run this one again")
-    counts = BatchCounts(rows=rows)
-    if entries:
-        conn.execute(sa.schema.CreateTable(stage, if_not_exists=True))
-        insert_rows(conn, stage, [dict(zip(STAGE_COLUMNS, e, strict=True)) for e in entries])
-        counts = _move_stage(conn, dataset_id=dataset_id, file_id=file_id, ruleset_id=ruleset_id, counts=counts)
+    counts = BatchCounts(rows=row_count)
+    if rows:
+        for table in (stage_rows, stage_raws):
+            conn.execute(sa.schema.CreateTable(table, if_not_exists=True))
+        insert_tuples(conn, stage_raws, RAW_COLUMNS, raws)
+        insert_tuples(conn, stage_rows, ROW_COLUMNS, rows)
+        _move_stage(conn, dataset_id=dataset_id, file_id=file_id, ruleset_id=ruleset_id, counts=counts)
         if conn.dialect.name != "postgresql":
-            conn.execute(sa.delete(stage))  # PostgreSQL empties it at commit (ON COMMIT DELETE ROWS)
+            conn.execute(sa.delete(stage_rows))
+            conn.execute(sa.delete(stage_raws))
     conn.execute(sa.update(t.dataset_files).where(t.dataset_files.c.id == file_id).values(
         rows=t.dataset_files.c.rows + counts.rows,
         sightings=t.dataset_files.c.sightings + counts.sightings,
@@ -167,37 +179,39 @@ def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
     return counts
 
 
-def _move_stage(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: int,
-                counts: BatchCounts) -> BatchCounts:
-    s, c, r = stage, t.canonical_urls, t.raw_urls
+def _move_stage(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: int | None,
+                counts: BatchCounts) -> None:
+    s, w, c, r = stage_rows, stage_raws, t.canonical_urls, t.raw_urls
     stamp = sa.bindparam("stamp", now(), type_=UTC_TYPE)
     rs = sa.literal(ruleset_id, sa.Integer)
 
     # Canonical URLs, only for raw URLs the registry does not know yet: a known raw URL keeps the
     # canonical URL it has (re-canonicalisation under a new ruleset is its own stage, with a record).
-    known_raw = sa.select(r.c.id).where(r.c.raw_hash == s.c.raw_hash).exists()
+    known_raw = sa.select(r.c.id).where(r.c.raw_hash == w.c.raw_hash).exists()
     res = conn.execute(_insert(conn, c).from_select(
         ["url_key", "url", "host", "domain", "outlet", "is_article", "ruleset_id", "created_at"],
-        sa.select(s.c.url_key, s.c.url, s.c.host, s.c.domain, s.c.outlet, s.c.is_article, rs, stamp)
-        .where(s.c.url_key.is_not(None), ~known_raw),
+        sa.select(w.c.url_key, w.c.url, w.c.host, w.c.domain, w.c.outlet, w.c.is_article, rs, stamp)
+        .where(w.c.url_key.is_not(None), ~known_raw),
     ).on_conflict_do_nothing(index_elements=["url_key"]))
     counts.new_canonical_urls = max(res.rowcount, 0)
 
     res = conn.execute(_insert(conn, r).from_select(
         ["raw_hash", "raw", "canonical_id", "ruleset_id", "error", "created_at"],
-        sa.select(s.c.raw_hash, s.c.raw, c.c.id, rs, s.c.raw_error, stamp)
-        .select_from(s.outerjoin(c, c.c.url_key == s.c.url_key))
-        .where(s.c.raw_hash.is_not(None)),
+        sa.select(w.c.raw_hash, w.c.raw, c.c.id, rs, w.c.raw_error, stamp)
+        .select_from(w.outerjoin(c, c.c.url_key == w.c.url_key))
+        .where(w.c.raw_hash.is_not(None)),
     ).on_conflict_do_nothing(index_elements=["raw_hash"]))
     counts.new_raw_urls = max(res.rowcount, 0)
 
+    # Sightings and rejects need no ON CONFLICT (whose speculative insertion costs a good part of the
+    # load): the resume-point guard in write_batch guarantees that no row after the stored resume point
+    # exists, so a conflict here would be a bug, and the unique key turns it into an error, not a dup.
     res = conn.execute(_insert(conn, t.sightings).from_select(
         ["dataset_id", "file_id", "line_no", "position", "row_key", "seen_at", "raw_url_id"],
         sa.select(sa.literal(dataset_id, sa.Integer), sa.literal(file_id, sa.Integer), s.c.line_no,
                   s.c.position, s.c.row_key, s.c.seen_at, r.c.id)
         .select_from(s.join(r, r.c.raw_hash == s.c.raw_hash))
-        .where(s.c.position >= 0),
-    ).on_conflict_do_nothing(index_elements=["file_id", "line_no", "position"]))
+        .where(s.c.position >= 0)))
     counts.sightings = max(res.rowcount, 0)
 
     res = conn.execute(_insert(conn, t.rejects).from_select(
@@ -205,10 +219,8 @@ def _move_stage(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
         sa.select(sa.literal(dataset_id, sa.Integer), sa.literal(file_id, sa.Integer), s.c.line_no,
                   s.c.position, s.c.reason, s.c.detail, s.c.excerpt, r.c.id)
         .select_from(s.outerjoin(r, r.c.raw_hash == s.c.raw_hash))
-        .where(s.c.reason.is_not(None)),
-    ).on_conflict_do_nothing(index_elements=["file_id", "line_no", "position"]))
+        .where(s.c.reason.is_not(None))))
     counts.rejects = max(res.rowcount, 0)
-    return counts
 
 
 def complete_file(conn: Connection, file_id: int, *, lines_done: int) -> None:
@@ -366,7 +378,8 @@ def raw_sighting_counts(conn: Connection, hashes: Sequence[str]) -> dict[str, tu
 
 __all__ = [
     "LINK_COLUMNS",
-    "STAGE_COLUMNS",
+    "RAW_COLUMNS",
+    "ROW_COLUMNS",
     "BatchCounts",
     "canonicals_by_key",
     "claim_file",

@@ -1,0 +1,179 @@
+"""Ingest benchmark on PostgreSQL, as ratios against a baseline measured in the same run.
+
+Baseline: a raw ``COPY`` of the same URLs (one text column, the file streamed to the server in 1 MiB
+pieces) into a one-column table with a B-tree index — what PostgreSQL costs for just receiving and
+indexing the URLs, with no parsing, hashing, canonicalising or provenance at all.
+
+Measured, each in a fresh database and a fresh process (so peak memory is the load's own):
+  (a) the baseline on N rows;
+  (b) ``ingest_dump`` end to end on a generated N-row CSV panel export (visit id, URL, time and a
+      column that is not stored): reading, canonicalising, staging, set-wise inserts, provenance;
+  (c) the same load on N/10 rows, for peak RSS (VmHWM) at two sizes: memory must not grow with N.
+
+URLs repeat as in a browsing panel: each row draws from D distinct URLs with a Zipf-like skew.
+Target (issue 4): (b) >= 0.35x the baseline's rows/s (goal 0.8x); RSS at N about equal to RSS at N/10.
+The ratios are printed; nothing is asserted.
+
+Run:  python bench/ingest_bench.py [--rows 1000000] [--distinct 200000] [--pg postgresql+psycopg://…]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import random
+import subprocess
+import sys
+import tempfile
+import time
+import uuid
+from pathlib import Path
+
+import sqlalchemy as sa
+
+from linkfold.store import make_engine, upgrade
+
+TARGET, GOAL = 0.35, 0.8
+HOSTS = ["northvale-herald.example", "riverton-daily.test", "lakeside-wire.example", "harbourview-news.example"]
+PREFIXES = ["", "", "", "www.", "m."]
+TRACKING = ["", "", "?utm_source=newsletter&utm_medium=email", "?fbclid=IwAR0x1y2z", "?utm_campaign=morning"]
+WORDS = ["bridge", "council", "harbour", "ferry", "market", "budget", "library", "storm", "pier", "school"]
+
+
+def distinct_urls(d: int, rng: random.Random) -> list[str]:
+    hosts = HOSTS + [f"outlet{i}.example" for i in range(300)]
+    out = []
+    for i in range(d):
+        slug = "-".join(rng.choices(WORDS, k=rng.randint(2, 4)))
+        out.append(f"https://{rng.choice(PREFIXES)}{rng.choice(hosts)}/news/2031/{rng.randint(1, 12):02d}/"
+                   f"{slug}-{i}{rng.choice(TRACKING)}")
+    return out
+
+
+def write_dump(path: Path, urls_path: Path, rows: int, d: int, seed: int = 4) -> None:
+    rng = random.Random(seed)
+    pool = distinct_urls(d, rng)
+    # Zipf-like: index = floor(d * u^3) puts most draws on a small head of popular pages.
+    with path.open("w", encoding="utf-8") as dump, urls_path.open("w", encoding="utf-8") as plain:
+        dump.write("visit_id,url,visited,device\n")
+        for i in range(rows):
+            url = pool[int(d * rng.random() ** 3)]
+            dump.write(f"v{i},{url},2031-05-{1 + i % 28:02d}T{i % 24:02d}:{i % 60:02d}:00Z,"
+                       f"{'phone' if i % 3 else 'desktop'}\n")
+            plain.write(url + "\n")
+
+
+def _db(admin: str, name: str) -> str:
+    return sa.engine.make_url(admin).set(database=name).render_as_string(hide_password=False)
+
+
+class Scratch:
+    """A throwaway database, dropped afterwards."""
+
+    def __init__(self, admin: str) -> None:
+        self.admin = make_engine(admin, isolation_level="AUTOCOMMIT")
+        self.name = f"lf_bench_{uuid.uuid4().hex[:10]}"
+        self.url = _db(admin, self.name)
+
+    def __enter__(self) -> str:
+        with self.admin.connect() as conn:
+            conn.exec_driver_sql(f'CREATE DATABASE "{self.name}"')
+        return self.url
+
+    def __exit__(self, *exc) -> None:
+        with self.admin.connect() as conn:
+            conn.exec_driver_sql(f'DROP DATABASE IF EXISTS "{self.name}" WITH (FORCE)')
+        self.admin.dispose()
+
+
+def baseline_copy(url: str, urls_path: Path, rows: int) -> float:
+    engine = make_engine(url)
+    try:
+        with engine.begin() as conn:
+            conn.exec_driver_sql("CREATE TABLE raw_copy (url text NOT NULL)")
+            conn.exec_driver_sql("CREATE INDEX raw_copy_url ON raw_copy (url)")
+        t0 = time.perf_counter()
+        with engine.begin() as conn:
+            raw = conn.connection.driver_connection
+            with raw.cursor() as cur, cur.copy("COPY raw_copy (url) FROM STDIN") as copy, \
+                    urls_path.open("rb") as fh:
+                while chunk := fh.read(1 << 20):
+                    copy.write(chunk)
+        elapsed = time.perf_counter() - t0
+        with engine.connect() as conn:
+            assert conn.exec_driver_sql("SELECT count(*) FROM raw_copy").scalar_one() == rows
+        return elapsed
+    finally:
+        engine.dispose()
+
+
+CHILD = r"""
+import json, sys, time
+from linkfold.store import make_engine
+from linkfold.ingest import ingest_dump
+url, path = sys.argv[1], sys.argv[2]
+engine = make_engine(url)
+t0 = time.perf_counter()
+s = ingest_dump(engine, [path], dataset="bench", key_column="visit_id", time_column="visited")
+elapsed = time.perf_counter() - t0
+hwm = next(int(l.split()[1]) for l in open("/proc/self/status") if l.startswith("VmHWM:"))
+print(json.dumps({"seconds": elapsed, "rss_kib": hwm, "rows": s.rows, "sightings": s.sightings,
+                  "new_raw_urls": s.new_raw_urls, "new_canonical_urls": s.new_canonical_urls,
+                  "rejects": sum(s.rejects.values())}))
+"""
+
+
+def run_ingest(url: str, path: Path) -> dict:
+    engine = make_engine(url)
+    upgrade(engine)
+    engine.dispose()
+    proc = subprocess.run([sys.executable, "-c", CHILD, url, str(path)], capture_output=True, text=True,
+                          check=False)
+    if proc.returncode != 0:
+        raise SystemExit(f"ingest failed:\n{proc.stderr}")
+    return json.loads(proc.stdout)
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--rows", type=int, default=1_000_000)
+    ap.add_argument("--distinct", type=int, default=None, help="distinct URLs (default rows/5)")
+    ap.add_argument("--pg", default=os.environ.get("LINKFOLD_TEST_PG",
+                                                   "postgresql+psycopg://postgres@127.0.0.1:5432/postgres"))
+    args = ap.parse_args()
+    n = args.rows
+    d = args.distinct or max(n // 5, 1)
+    small = max(n // 10, 1)
+    with tempfile.TemporaryDirectory(prefix="lf-bench-") as tmp:
+        folder = Path(tmp)
+        big, big_urls = folder / "panel.csv", folder / "panel.urls"
+        little, little_urls = folder / "panel-small.csv", folder / "panel-small.urls"
+        t0 = time.perf_counter()
+        write_dump(big, big_urls, n, d)
+        write_dump(little, little_urls, small, max(small // 5, 1))
+        print(f"generated {n:,} rows over {d:,} distinct URLs ({big.stat().st_size / 1e6:.0f} MB) and "
+              f"{small:,} rows in {time.perf_counter() - t0:.1f} s", flush=True)
+
+        with Scratch(args.pg) as url:
+            copy_s = baseline_copy(url, big_urls, n)
+        print(f"(a) raw COPY into an indexed one-column table: {n / copy_s:,.0f} rows/s ({copy_s:.1f} s)",
+              flush=True)
+        with Scratch(args.pg) as url:
+            full = run_ingest(url, big)
+        with Scratch(args.pg) as url:
+            part = run_ingest(url, little)
+
+    rate = full["rows"] / full["seconds"]
+    ratio = rate / (n / copy_s)
+    print(f"(b) ingest_dump end to end: {rate:,.0f} rows/s ({full['seconds']:.1f} s); "
+          f"{full['sightings']:,} sightings, {full['new_raw_urls']:,} raw URLs, "
+          f"{full['new_canonical_urls']:,} canonical URLs, {full['rejects']:,} rejects")
+    print(f"    ratio to raw COPY: {ratio:.2f}x (target {TARGET}x, goal {GOAL}x): "
+          f"{'meets the target' if ratio >= TARGET else 'BELOW the target'}")
+    print(f"(c) peak RSS: {part['rss_kib'] / 1024:,.0f} MiB at {small:,} rows, "
+          f"{full['rss_kib'] / 1024:,.0f} MiB at {n:,} rows (ratio {full['rss_kib'] / part['rss_kib']:.2f})")
+
+
+if __name__ == "__main__":
+    main()

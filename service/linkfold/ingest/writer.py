@@ -1,0 +1,93 @@
+"""The batch writer: batches go to the database on a thread of their own, in order, one transaction each.
+
+Reading and canonicalising are Python work; inserting is the database's. With the writer on its own
+thread (and its own connection), the two overlap: while batch n is being inserted, batch n+1 is being
+read. The hand-over queue holds at most ``depth`` batches, so memory stays bounded and a slow database
+slows the reader down rather than letting batches pile up.
+
+Every batch handed over is written (or the writer fails and says so): stopping early waits for the
+batches already handed over, so what is committed is always "everything up to some batch", never a gap.
+"""
+
+from __future__ import annotations
+
+import logging
+import queue
+import threading
+from collections.abc import Callable
+from typing import Any, Generic, TypeVar
+
+from sqlalchemy.engine import Connection, Engine
+
+log = logging.getLogger("linkfold")
+
+Job = TypeVar("Job")
+_STOP = object()
+
+
+class BatchWriter(Generic[Job]):
+    """Run ``write(conn, job)`` for each submitted job on one thread, each inside ``conn.begin()``;
+    then ``committed(job, result)`` once that transaction is committed."""
+
+    def __init__(self, engine: Engine, write: Callable[[Connection, Job], Any],
+                 committed: Callable[[Job, Any], None] = lambda _job, _result: None, *, depth: int = 2,
+                 name: str = "linkfold-writer") -> None:
+        self._engine = engine
+        self._write = write
+        self._committed = committed
+        self._queue: queue.Queue = queue.Queue(maxsize=depth)
+        self._error: BaseException | None = None
+        self._thread = threading.Thread(target=self._run, name=name, daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        try:
+            with self._engine.connect() as conn:
+                while (job := self._queue.get()) is not _STOP:
+                    with conn.begin():
+                        result = self._write(conn, job)
+                    self._committed(job, result)
+                return
+        except BaseException as exc:  # handed to the submitting thread, which re-raises it
+            self._error = exc
+        # Keep taking batches (and dropping them) so a submitter never blocks, until told to stop.
+        while self._queue.get() is not _STOP:
+            pass
+
+    def _raise_if_failed(self) -> None:
+        if self._error is not None:
+            raise self._error
+
+    def submit(self, job: Job) -> None:
+        """Hand over a batch; blocks while ``depth`` batches are waiting. Raises the writer's error."""
+        while True:
+            self._raise_if_failed()
+            try:
+                self._queue.put(job, timeout=0.1)
+                return
+            except queue.Full:
+                continue
+
+    def close(self) -> None:
+        """Wait for every batch handed over to be written; raise the writer's error if it failed."""
+        self._put_stop()
+        self._thread.join()
+        self._raise_if_failed()
+
+    def abandon(self) -> None:
+        """Stop after the batches already handed over (used while another error propagates)."""
+        self._put_stop()
+        self._thread.join()
+        if self._error is not None:
+            log.warning("the batch writer failed as well: %s", self._error)
+
+    def _put_stop(self) -> None:
+        while self._thread.is_alive():
+            try:
+                self._queue.put(_STOP, timeout=0.1)
+                return
+            except queue.Full:
+                continue
+
+
+__all__ = ["BatchWriter"]
