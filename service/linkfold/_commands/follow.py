@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from pathlib import Path
+from typing import Any
 
 import click
 
@@ -119,7 +121,7 @@ def follow_report_command(obj: Context, dataset: str | None, fmt: str) -> None:
     with obj.engine().connect() as conn:
         dataset_id = registry.get_dataset(conn, dataset)["id"] if dataset else None
         totals = evidence.follow_totals(conn, dataset_id=dataset_id)
-    rows = [{"state": "resolved", "failure": None, "urls": totals["resolved"]}]
+    rows: list[Mapping[str, Any]] = [{"state": "resolved", "failure": None, "urls": totals["resolved"]}]
     for state in ("failed", "refused"):
         rows += [{"state": state, "failure": k, "urls": v} for k, v in sorted(totals.get(state, {}).items())]
     failed = sum(totals.get("failed", {}).values())

@@ -64,7 +64,7 @@ def register_urls(conn: Connection, urls: Iterable[tuple[str, Canonical]], *, ru
     pairs = {storable(raw): canon for raw, canon in urls}
     if not pairs:
         return {}
-    canon_rows = {}
+    canon_rows: dict[str, dict[str, Any]] = {}
     for canon in pairs.values():
         canon_rows.setdefault(canon.url_key, {
             "url_key": canon.url_key, "url": canon.url, "host": canon.host, "domain": canon.domain,
