@@ -324,3 +324,18 @@ def test_ruleset_by_version_and_unknown_version(engine, tmp_path):
         first.ruleset_version
     with pytest.raises(NotFound):
         ingest_dump(engine, [other], dataset="e", ruleset=999)
+
+
+def test_awkward_text_is_stored_verbatim(engine, tmp_path):
+    # Tabs, newlines, backslashes and quotes survive the COPY text format on PostgreSQL (escaped as the
+    # PostgreSQL manual's COPY "Text Format" section prescribes) and plain inserts on SQLite.
+    key = 'k\t1\\n"x"\nend'
+    url = "https://a.example/p\\q\tr?x=\\N"
+    path = tmp_path / "odd.csv"
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        import csv
+
+        csv.writer(fh).writerows([["id", "url"], [key, url], ["\\N", "https://a.example/ü"]])
+    ingest_dump(engine, [path], dataset="odd", key_column="id")
+    rows = sightings(engine)
+    assert [(r[2], r[3]) for r in rows] == [(key, url), ("\\N", "https://a.example/ü")]
