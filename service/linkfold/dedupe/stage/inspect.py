@@ -1,0 +1,224 @@
+"""Looking at what dedupe found: cluster lists, one cluster in detail, and the threshold view."""
+
+from __future__ import annotations
+
+import difflib
+from collections import Counter, defaultdict
+from collections.abc import Iterator, Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import sqlalchemy as sa
+from sqlalchemy.engine import Connection, Engine
+
+from ...errors import InputError, NotFound
+from ...store import clusters as cs
+from ...store import tables as t
+from ...store.registry import utc
+from .. import SignatureParams, render_curve, render_histogram
+from ..curve import DEFAULT_POINTS
+from .regions import link_level, links_touching
+
+PAGE = 500
+
+
+@dataclass
+class ClusterRow:
+    id: str
+    level: str
+    size: int
+    outlets: int
+    founder_url: str
+    min_score: float | None
+    max_score: float | None
+    evidence: dict[str, int] = field(default_factory=dict)
+
+    def as_dict(self) -> dict[str, Any]:
+        return {"id": self.id, "level": self.level, "size": self.size, "outlets": self.outlets,
+                "founder_url": self.founder_url, "min_score": self.min_score, "max_score": self.max_score,
+                "evidence": self.evidence}
+
+
+def _scores(links: Sequence[Any], members: set[int]) -> tuple[float | None, float | None, dict[str, int]]:
+    scores: list[float] = []
+    kinds: Counter[str] = Counter()
+    for r in links:
+        if r.src_id in members and r.dst_id in members and r.src_id != r.dst_id:
+            kinds[r.kind] += 1
+            if r.kind == "similar_text" and r.detail:
+                scores.append(float(r.detail.get("strength", 0.0)))
+    return (min(scores) if scores else None, max(scores) if scores else None, dict(sorted(kinds.items())))
+
+
+def list_clusters(engine: Engine, *, level: str = "article", min_size: int = 2, outlet: str | None = None,
+                  limit: int | None = None) -> Iterator[ClusterRow]:
+    """Clusters of ``level`` with at least ``min_size`` members (and, with ``outlet``, a member on that
+    outlet), largest first, with the range of similarity scores between their members."""
+    if level not in cs.LEVELS:
+        raise InputError(f"level must be article or story, not {level!r}")
+    if min_size < 1:
+        raise InputError(f"--min-size must be at least 1 (got {min_size})")
+    cm, c, ci = t.cluster_members, t.canonical_urls, t.cluster_ids
+    size = sa.func.count().label("size")
+    q = (sa.select(cm.c.cluster_id, size, sa.func.count(sa.distinct(c.c.outlet)).label("outlets"))
+         .select_from(cm.join(c, c.c.id == cm.c.canonical_id))
+         .where(cm.c.level == level).group_by(cm.c.cluster_id).having(sa.func.count() >= min_size))
+    if outlet is not None:
+        q = q.having(sa.func.sum(sa.case((c.c.outlet == outlet, 1), else_=0)) > 0)
+    q = q.order_by(size.desc(), cm.c.cluster_id)
+    if limit:
+        q = q.limit(limit)
+    with engine.connect() as conn:
+        head = conn.execute(q).all()
+        for i in range(0, len(head), PAGE):
+            page = head[i:i + PAGE]
+            ids = [r.cluster_id for r in page]
+            members = cs.members_of(conn, ids)
+            by_id: dict[str, set[int]] = defaultdict(set)
+            for m, cid in members.items():
+                by_id[cid].add(m)
+            links = links_touching(conn, sorted(members))
+            founders = dict(conn.execute(sa.select(ci.c.id, c.c.url).select_from(ci.join(c, c.c.id == ci.c.founder_id))
+                                         .where(ci.c.id.in_(ids))).all())
+            for r in page:
+                lo, hi, kinds = _scores(links, by_id[r.cluster_id])
+                yield ClusterRow(r.cluster_id, level, int(r.size), int(r.outlets), founders[r.cluster_id], lo, hi,
+                                 kinds)
+
+
+@dataclass
+class ClusterDetail:
+    asked: str
+    id: str
+    level: str
+    path: list[str]
+    events: list[dict[str, Any]]
+    members: list[dict[str, Any]]
+    links: list[dict[str, Any]]
+    decisions: list[dict[str, Any]]
+    differences: list[dict[str, Any]]
+
+
+def resolve_cluster_id(engine: Engine, cluster_id: str) -> cs.Resolution:
+    with engine.connect() as conn:
+        res = cs.resolve(conn, cluster_id.strip())
+    if res is None:
+        raise NotFound(f"{cluster_id}: no such article or story ID was ever issued")
+    return res
+
+
+def _current_documents(conn: Connection, canonical_ids: Sequence[int]) -> dict[int, Any]:
+    d = t.documents
+    out: dict[int, Any] = {}
+    for part in cs.chunks(sorted(set(canonical_ids))):
+        q = (sa.select(d.c.id, d.c.canonical_id, d.c.title, d.c.text, d.c.word_count, d.c.published)
+             .where(d.c.canonical_id.in_(part), d.c.status == "usable").order_by(d.c.id))
+        for r in conn.execute(q):
+            out[int(r.canonical_id)] = r   # ascending ids: the newest usable document wins
+    return out
+
+
+def differing_passages(a: str, b: str, *, context: int = 4, max_passages: int = 6,
+                       max_words: int = 40) -> list[tuple[str, str]]:
+    """Word-level passages where ``b`` differs from ``a``, each with a few words of context."""
+    wa, wb = a.split(), b.split()
+    out: list[tuple[str, str]] = []
+    matcher = difflib.SequenceMatcher(None, wa, wb, autojunk=False)
+    for tag, i1, i2, j1, j2 in matcher.get_opcodes():
+        if tag == "equal":
+            continue
+        left = wa[max(0, i1 - context):i1]
+        right_ctx = wa[i2:i2 + context]
+
+        def clip(words: list[str]) -> str:
+            return " ".join(words[:max_words]) + (" …" if len(words) > max_words else "")
+
+        out.append((clip([*left, "[", *wa[i1:i2], "]", *right_ctx]),
+                    clip([*wb[max(0, j1 - context):j1], "[", *wb[j1:j2], "]", *wb[j2:j2 + context]])))
+        if len(out) >= max_passages:
+            break
+    return out
+
+
+def show_cluster(engine: Engine, cluster_id: str, *, max_compared: int = 10) -> ClusterDetail:
+    """Members, the links between them with their evidence, the decisions on them, and, for up to
+    ``max_compared`` members, the passages where their text differs from the founder's."""
+    res = resolve_cluster_id(engine, cluster_id)
+    c = t.canonical_urls
+    with engine.connect() as conn:
+        row = cs.id_rows(conn, [res.current])[res.current]
+        members = cs.members_of(conn, [res.current])
+        ids = sorted(members)
+        urls: dict[int, Any] = {}
+        for part in cs.chunks(ids):
+            urls.update({int(r.id): r for r in conn.execute(
+                sa.select(c.c.id, c.c.url, c.c.url_key, c.c.outlet).where(c.c.id.in_(part)))})
+        other_level = "article" if res.level == "story" else "story"
+        other = cs.assignments(conn, other_level, ids)
+        docs = _current_documents(conn, ids)
+        member_set = set(ids)
+        links = [r for r in links_touching(conn, ids) if r.src_id in member_set and r.dst_id in member_set]
+        decisions = cs.decisions_touching(conn, res.level, ids)
+    founder = int(row["founder_id"])
+    member_rows = []
+    for m in sorted(ids, key=lambda x: (x != founder, urls[x].url)):
+        doc = docs.get(m)
+        member_rows.append({"url": urls[m].url, "url_key": urls[m].url_key, "outlet": urls[m].outlet,
+                            "founder": m == founder, f"{other_level}_id": other.get(m),
+                            "title": doc.title if doc else None, "words": doc.word_count if doc else None})
+    link_rows = [{"kind": r.kind, "from": urls[r.src_id].url, "to": urls[r.dst_id].url,
+                  "level": link_level(r.kind, r.src_outlet, r.dst_outlet), "detail": r.detail} for r in links]
+    decision_rows = [{"id": d["id"], "verdict": d["verdict"], "a": d["a_ref"], "b": d["b_ref"],
+                      "note": d["note"], "decided_by": d["decided_by"], "decided_at": utc(d["decided_at"])}
+                     for d in decisions]
+    differences = []
+    base = docs.get(founder)
+    if base is None:
+        base = next((docs[m] for m in sorted(docs, key=lambda x: urls[x].url)), None)
+    if base is not None:
+        for m in sorted(docs, key=lambda x: urls[x].url):
+            if docs[m].id == base.id or len(differences) >= max_compared:
+                continue
+            differences.append({"url": urls[m].url, "against": urls[int(base.canonical_id)].url,
+                                "passages": differing_passages(base.text or "", docs[m].text or "")})
+    return ClusterDetail(cluster_id, res.current, res.level, res.path, res.events, member_rows, link_rows,
+                         decision_rows, differences)
+
+
+def similarity_values(engine: Engine) -> dict[str, list[float]]:
+    """The text similarities of every stored ``similar_text`` link, by the level it serves."""
+    lk = t.links
+    src, dst = t.canonical_urls.alias("src"), t.canonical_urls.alias("dst")
+    q = (sa.select(lk.c.detail, src.c.outlet, dst.c.outlet.label("dst_outlet"))
+         .select_from(lk.join(src, src.c.id == lk.c.src_id).join(dst, dst.c.id == lk.c.dst_id))
+         .where(lk.c.kind == "similar_text"))
+    out: dict[str, list[float]] = {"article": [], "story": []}
+    with engine.connect() as conn:
+        for detail, a, b in conn.execute(q.execution_options(yield_per=10000)):
+            detail = detail or {}
+            score = detail.get("exact_jaccard")
+            if score is None:
+                score = detail.get("est_jaccard")
+            level = link_level("similar_text", a, b)
+            if score is not None and level:
+                out[level].append(float(score))
+    return out
+
+
+def thresholds_report(engine: Engine, *, settings: Mapping[str, Any]) -> str:
+    """The LSH S-curve for the current settings and the histograms of verified similarities."""
+    params = SignatureParams.from_settings(settings)
+    marks = {"story threshold": float(settings["story_threshold"]),
+             "article threshold": float(settings["article_threshold"])}
+    points = sorted(set(DEFAULT_POINTS) | {round(v, 4) for v in marks.values()})
+    parts = [f"settings: {params.band_token}; article ≥ {marks['article threshold']}, "
+             f"story ≥ {marks['story threshold']}",
+             render_curve(params.bands, params.rows, points, marks=marks)]
+    values = similarity_values(engine)
+    parts.append(render_histogram(values["article"], title="verified same-outlet similarities (articles)"))
+    parts.append(render_histogram(values["story"], title="verified cross-outlet similarities (stories)"))
+    return "\n\n".join(parts)
+
+
+__all__ = ["ClusterDetail", "ClusterRow", "differing_passages", "list_clusters", "resolve_cluster_id",
+           "show_cluster", "similarity_values", "thresholds_report"]

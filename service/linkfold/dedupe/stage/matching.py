@@ -1,0 +1,224 @@
+"""Matching and verification: candidate pairs from the band-key table, checked, stored as links.
+
+Documents signed past the ``dedupe.matched`` mark are matched in id windows, one transaction each (the
+mark moves with the links it produced). A pair ``(x, y)`` with ``x < y`` is looked for only when ``y``
+is matched — the join asks for partners with a *smaller* document id — so every pair is examined exactly
+once however the documents were split into runs, and the cost of a window is its own documents' band
+keys joined on the (band, key) index: it grows with the new documents, not with the registry.
+
+Candidates come from two set-based queries: equal band keys (LSH, docs/dedupe.md §4) and equal
+``text_hash`` (an exact copy, found even when a text is too short for shingles to decide). Every
+candidate is verified by the pure rule (§6); accepted pairs become ``links`` rows between the two
+documents' canonical URLs:
+
+* ``same_text`` — the normalised texts are equal;
+* ``similar_text`` — the verdict of :func:`linkfold.dedupe.verify_pairs`, with every score in ``detail``.
+
+Which level a link serves follows from the outlets of its two ends (same outlet: article; different
+outlets: story), so a link never needs rewriting when thresholds are read again.
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Sequence
+from dataclasses import dataclass
+from datetime import datetime
+from typing import Any
+
+import numpy as np
+import sqlalchemy as sa
+from sqlalchemy.engine import Connection, Engine
+
+from ...progress import SILENT, Progress
+from ...store import tables as t
+from ...store.clusters import chunks, get_mark, set_mark
+from ...store.evidence import add_links
+from ...store.registry import now
+from .. import DocFeatures, SignatureParams, Thresholds, shingle_hashes, signature_from_bytes, verify_pairs
+from .signing import MATCHED, SIGNED
+
+log = logging.getLogger("linkfold")
+
+LINK_SOURCE = "dedupe"
+WINDOW = 2000  # documents matched per transaction
+
+
+@dataclass
+class MatchCounts:
+    matched: int = 0
+    candidates: int = 0
+    same_text: int = 0
+    similar_text: int = 0
+    rejected: int = 0
+    oversize_buckets: int = 0
+    largest_bucket: int = 0
+    links_written: int = 0
+
+
+def count_unmatched(conn: Connection) -> int:
+    lo = get_mark(conn, MATCHED) or 0
+    hi = get_mark(conn, SIGNED) or 0
+    if hi <= lo:
+        return 0
+    bk = t.band_keys
+    return int(conn.execute(sa.select(sa.func.count(sa.distinct(bk.c.document_id)))
+                            .where(bk.c.document_id > lo, bk.c.document_id <= hi)).scalar_one())
+
+
+def _oversize(conn: Connection, lo: int, hi: int, max_bucket: int) -> tuple[list[tuple[int, int]], int]:
+    """(band, key) buckets met by the window's documents that hold more than ``max_bucket`` documents,
+    and the largest bucket size met."""
+    bk = t.band_keys
+    mine = sa.select(bk.c.band, bk.c.key).where(bk.c.document_id > lo, bk.c.document_id <= hi).subquery()
+    q = (sa.select(bk.c.band, bk.c.key, sa.func.count(sa.distinct(bk.c.document_id)).label("n"))
+         .where(sa.tuple_(bk.c.band, bk.c.key).in_(sa.select(mine.c.band, mine.c.key)))
+         .group_by(bk.c.band, bk.c.key).having(sa.func.count(sa.distinct(bk.c.document_id)) > 1))
+    big: list[tuple[int, int]] = []
+    largest = 0
+    for band, key, n in conn.execute(q):
+        largest = max(largest, int(n))
+        if n > max_bucket:
+            big.append((int(band), int(key)))
+    return big, largest
+
+
+def _band_pairs(conn: Connection, lo: int, hi: int, skip: Sequence[tuple[int, int]]) -> set[tuple[int, int]]:
+    n, o = t.band_keys.alias("n"), t.band_keys.alias("o")
+    q = (sa.select(o.c.document_id, n.c.document_id).distinct()
+         .select_from(n.join(o, sa.and_(o.c.band == n.c.band, o.c.key == n.c.key,
+                                        o.c.document_id < n.c.document_id)))
+         .where(n.c.document_id > lo, n.c.document_id <= hi))
+    if skip:
+        q = q.where(sa.tuple_(n.c.band, n.c.key).not_in(list(skip)))
+    return {(int(a), int(b)) for a, b in conn.execute(q)}
+
+
+def _hash_pairs(conn: Connection, lo: int, hi: int) -> set[tuple[int, int]]:
+    """Pairs of current documents with equal normalised text (band 0 present = current and non-empty)."""
+    dn, do = t.documents.alias("dn"), t.documents.alias("do")
+    bn, bo = t.band_keys.alias("bn"), t.band_keys.alias("bo")
+    q = (sa.select(do.c.id, dn.c.id).distinct()
+         .select_from(dn.join(bn, sa.and_(bn.c.document_id == dn.c.id, bn.c.band == 0))
+                      .join(do, sa.and_(do.c.text_hash == dn.c.text_hash, do.c.id < dn.c.id,
+                                        do.c.canonical_id != dn.c.canonical_id))
+                      .join(bo, sa.and_(bo.c.document_id == do.c.id, bo.c.band == 0)))
+         .where(dn.c.id > lo, dn.c.id <= hi, dn.c.text_hash.is_not(None)))
+    return {(int(a), int(b)) for a, b in conn.execute(q)}
+
+
+@dataclass(frozen=True)
+class _Doc:
+    features: DocFeatures
+    canonical_id: int
+    text_hash: str | None
+
+
+def _load_docs(conn: Connection, doc_ids: Sequence[int], params: SignatureParams) -> dict[int, _Doc]:
+    d, c, sg = t.documents, t.canonical_urls, t.signatures
+    out: dict[int, _Doc] = {}
+    for part in chunks(sorted(set(doc_ids))):
+        q = (sa.select(d.c.id, d.c.canonical_id, d.c.title, d.c.text, d.c.text_hash, d.c.word_count,
+                       d.c.published, c.c.outlet, sg.c.signature)
+             .select_from(d.join(c, c.c.id == d.c.canonical_id).join(sg, sg.c.document_id == d.c.id))
+             .where(d.c.id.in_(part)))
+        for r in conn.execute(q):
+            text = r.text or ""
+            feats = DocFeatures(
+                doc=int(r.id), outlet=r.outlet, words=int(r.word_count),
+                signature=signature_from_bytes(r.signature, params) if text else None,
+                # Exact Jaccard where both texts are at hand: the estimate alone falls below 0.5 about
+                # one time in eight at J = 0.55 (docs/dedupe.md §6).
+                shingles=shingle_hashes(text, params.shingle_size, width=params.width) if text else None,
+                title=r.title, published=r.published.date() if r.published else None)
+            out[int(r.id)] = _Doc(feats, int(r.canonical_id), r.text_hash)
+    return out
+
+
+def _link_row(kind: str, a: _Doc, b: _Doc, detail: dict[str, Any], run_id: int | None,
+              stamp: datetime) -> dict[str, Any]:
+    return {"kind": kind, "src_id": a.canonical_id, "dst_id": b.canonical_id, "source": LINK_SOURCE,
+            "detail": detail | {"documents": [a.features.doc, b.features.doc]}, "run_id": run_id,
+            "created_at": stamp}
+
+
+def match_window(conn: Connection, lo: int, hi: int, params: SignatureParams, thresholds: Thresholds, *,
+                 max_bucket: int, run_id: int | None, counts: MatchCounts) -> int:
+    """Match the documents with ids in ``(lo, hi]`` against every smaller current document; returns the
+    number of documents matched."""
+    skip, largest = _oversize(conn, lo, hi, max_bucket)
+    counts.oversize_buckets += len(skip)
+    counts.largest_bucket = max(counts.largest_bucket, largest)
+    band = _band_pairs(conn, lo, hi, skip)
+    exact = _hash_pairs(conn, lo, hi)
+    pairs = sorted(band | exact)
+    counts.candidates += len(pairs)
+    docs = _load_docs(conn, [x for p in pairs for x in p], params)
+    stamp = now()
+    rows: list[dict[str, Any]] = []
+    rest: list[tuple[int, int]] = []
+    for a, b in pairs:
+        da, db = docs.get(a), docs.get(b)
+        if da is None or db is None or da.canonical_id == db.canonical_id:
+            continue
+        if da.text_hash is not None and da.text_hash == db.text_hash:
+            fa, fb = da.features, db.features
+            if fa.outlet is None or fb.outlet is None:
+                continue
+            rows.append(_link_row("same_text", da, db, {"exact_jaccard": 1.0, "strength": 1.0,
+                                                       "same_outlet": fa.outlet == fb.outlet}, run_id, stamp))
+            counts.same_text += 1
+        else:
+            rest.append((a, b))
+    order = sorted({x for p in rest for x in p})
+    index = {doc: row for row, doc in enumerate(order)}
+    feats = [docs[doc].features for doc in order]
+    verified = verify_pairs(feats, np.array([(index[a], index[b]) for a, b in rest], dtype=np.int64),
+                            thresholds=thresholds)
+    for link in verified:
+        v = link.verdict
+        rows.append(_link_row("similar_text", docs[link.a], docs[link.b], {
+            "level": v.level.value, "reason": v.reason.value, "strength": v.strength,
+            "est_jaccard": v.est_jaccard, "exact_jaccard": v.exact_jaccard, "title_ratio": v.title_ratio,
+            "date_gap_days": v.date_gap_days, "same_outlet": v.same_outlet}, run_id, stamp))
+    counts.similar_text += len(verified)
+    counts.rejected += len(rest) - len(verified)
+    counts.links_written += add_links(conn, rows)
+    bk = t.band_keys
+    matched = int(conn.execute(sa.select(sa.func.count(sa.distinct(bk.c.document_id)))
+                               .where(bk.c.document_id > lo, bk.c.document_id <= hi)).scalar_one())
+    return matched
+
+
+def match_pending(engine: Engine, params: SignatureParams, thresholds: Thresholds, *, max_bucket: int,
+                  run_id: int | None, progress: Progress = SILENT, window: int = WINDOW) -> MatchCounts:
+    counts = MatchCounts()
+    bk = t.band_keys
+    with engine.connect() as conn:
+        total = count_unmatched(conn)
+    progress.start("matching and verifying", total)
+    while True:
+        with engine.begin() as conn:
+            lo = get_mark(conn, MATCHED) or 0
+            top = get_mark(conn, SIGNED) or 0
+            ids = conn.execute(sa.select(bk.c.document_id).distinct()
+                               .where(bk.c.document_id > lo, bk.c.document_id <= top)
+                               .order_by(bk.c.document_id).limit(window)).scalars().all()
+            if not ids:
+                if top > lo:
+                    set_mark(conn, MATCHED, top, run_id=run_id, now=now())
+                break
+            hi = int(ids[-1]) if len(ids) == window else top
+            done = match_window(conn, lo, hi, params, thresholds, max_bucket=max_bucket, run_id=run_id,
+                                counts=counts)
+            counts.matched += done
+            set_mark(conn, MATCHED, hi, run_id=run_id, now=now())
+        progress.advance(done)
+    progress.finish()
+    if counts.oversize_buckets:
+        log.warning("skipped %d band-key bucket(s) of more than %d documents (largest: %d); see lsh_max_bucket",
+                    counts.oversize_buckets, max_bucket, counts.largest_bucket)
+    return counts
+
+
+__all__ = ["LINK_SOURCE", "MatchCounts", "count_unmatched", "match_pending", "match_window"]

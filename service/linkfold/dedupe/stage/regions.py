@@ -1,0 +1,352 @@
+"""Incremental clustering: recompute only the parts of the registry that new evidence or decisions touch.
+
+Every canonical URL has an article ID and a story ID. A run starts from *seeds* — new canonical URLs,
+the ends of links written since the last run, the anchors of new decisions — and grows each seed into
+its **region**: the smallest set that holds the seed, every member of the clusters its members belong
+to now, and both ends of every link and manual "same" decision at that level touching any of them
+(for stories also every member of the articles involved). A region is a union of whole connected
+components of the evidence graph, and the pure clustering of a component does not depend on anything
+outside it (docs/dedupe.md §7), so clustering a region alone gives exactly what clustering the whole
+registry would give for those members: the cost follows the new evidence, and the result follows the
+data, not the batch boundaries.
+
+* Articles cluster canonical URLs. Evidence: ``redirect`` links (a short link and its target are one
+  article), same-outlet ``declared`` canonicals, and same-outlet ``same_text`` / ``similar_text``.
+* Stories cluster whole articles (an article is never cut by story clustering) across outlets:
+  ``same_text``, ``similar_text`` and ``declared`` links whose ends are on different outlets. Story IDs
+  are held by canonical URLs too, so a story's founder is a URL that never goes away, whatever happens to
+  the article IDs.
+
+Manual decisions are constraints at their level (``cluster``'s must- and cannot-links); the latest
+decision on a pair is in force. IDs are then assigned by :func:`linkfold.dedupe.assign_ids` over the
+region, with the registry's mint order and every issued ID that could clash loaded from the database.
+"""
+
+from __future__ import annotations
+
+import logging
+from collections import defaultdict
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import sqlalchemy as sa
+from sqlalchemy.engine import Connection, Engine
+
+from ...errors import DatabaseError
+from ...progress import SILENT, Progress
+from ...store import clusters as cs
+from ...store import tables as t
+from ...store.registry import now
+from .. import Edge, EventKind, IdState, Reason, Thresholds, assign_ids, cluster, derive_id
+
+log = logging.getLogger("linkfold")
+
+CANONICAL = "dedupe.canonical"
+LINKS = "dedupe.links"
+DECISIONS = "dedupe.decisions"
+SEEDS_PER_TRANSACTION = 5000
+
+
+@dataclass
+class ClusterCounts:
+    level: str
+    seeds: int = 0
+    members: int = 0
+    components: int = 0
+    minted: int = 0
+    split: int = 0
+    merged: int = 0
+    moved: int = 0
+    refused: int = 0
+    conflicts: list[str] = field(default_factory=list)
+
+    def as_dict(self) -> dict[str, Any]:
+        return {"seeds": self.seeds, "members": self.members, "components": self.components,
+                "minted": self.minted, "split": self.split, "merged": self.merged, "moved": self.moved,
+                "refused": self.refused, "conflicts": len(self.conflicts)}
+
+
+def link_level(kind: str, src_outlet: str | None, dst_outlet: str | None) -> str | None:
+    """The level a link is evidence for (``None``: neither)."""
+    if kind == "redirect":
+        return "article"
+    if kind in ("declared", "same_text", "similar_text"):
+        if src_outlet is None or dst_outlet is None:
+            return None
+        return "article" if src_outlet == dst_outlet else "story"
+    return None
+
+
+def link_strength(kind: str, detail: Mapping[str, Any] | None, thresholds: Thresholds) -> float | None:
+    """The edge strength of a link under the current thresholds (``None``: no longer strong enough).
+
+    A similarity link keeps the scores it was accepted with, so raising a threshold takes effect on the
+    next clustering of its region without verifying anything again.
+    """
+    if kind != "similar_text":
+        return 1.0
+    detail = detail or {}
+    strength = float(detail.get("strength", 0.0))
+    reason = detail.get("reason")
+    if reason == Reason.NEAR_EXACT_TEXT and strength < thresholds.article:
+        return None
+    if reason == Reason.SIMILAR_TEXT and strength < thresholds.story:
+        return None
+    if reason == Reason.TITLE_AND_DATE and strength * 100.0 < thresholds.title:
+        return None
+    return strength
+
+
+def links_touching(conn: Connection, members: Sequence[int], *, after: int | None = None,
+                   upto: int | None = None) -> list[Any]:
+    """Links with an end among ``members`` (or, with ``after``/``upto``, links in that id range), with the
+    outlets of both ends."""
+    lk = t.links
+    src, dst = t.canonical_urls.alias("src"), t.canonical_urls.alias("dst")
+    base = (sa.select(lk.c.id, lk.c.kind, lk.c.src_id, lk.c.dst_id, lk.c.detail,
+                      src.c.outlet.label("src_outlet"), dst.c.outlet.label("dst_outlet"))
+            .select_from(lk.join(src, src.c.id == lk.c.src_id).join(dst, dst.c.id == lk.c.dst_id)))
+    rows: dict[int, Any] = {}
+    if after is not None:
+        for r in conn.execute(base.where(lk.c.id > after, lk.c.id <= (upto or 0))):
+            rows[r.id] = r
+        return [rows[k] for k in sorted(rows)]
+    for part in cs.chunks(sorted(set(members))):
+        for col in (lk.c.src_id, lk.c.dst_id):
+            for r in conn.execute(base.where(col.in_(part))):
+                rows[r.id] = r
+    return [rows[k] for k in sorted(rows)]
+
+
+@dataclass
+class Region:
+    members: set[int]
+    edges: dict[tuple[int, int], tuple[float, str]]
+    decisions: list[dict[str, Any]]
+
+
+def closure(conn: Connection, level: str, seeds: Iterable[int], thresholds: Thresholds) -> Region:
+    region: set[int] = set()
+    frontier = set(seeds)
+    edges: dict[tuple[int, int], tuple[float, str]] = {}
+    decisions: dict[int, dict[str, Any]] = {}
+    while frontier:
+        region |= frontier
+        part = sorted(frontier)
+        grown: set[int] = set()
+        current = cs.assignments(conn, level, part)
+        grown.update(cs.members_of(conn, set(current.values())))
+        if level == "story":
+            articles = cs.assignments(conn, "article", part)
+            grown.update(cs.members_of(conn, set(articles.values())))
+        for r in links_touching(conn, part):
+            if r.src_id == r.dst_id or link_level(r.kind, r.src_outlet, r.dst_outlet) != level:
+                continue
+            strength = link_strength(r.kind, r.detail, thresholds)
+            if strength is None:
+                continue
+            pair = (min(r.src_id, r.dst_id), max(r.src_id, r.dst_id))
+            if pair not in edges or edges[pair][0] < strength:
+                edges[pair] = (strength, r.kind)
+            grown.update(pair)
+        for d in cs.decisions_touching(conn, level, part):
+            decisions[d["id"]] = d
+            if d["verdict"] == "same":
+                grown.update((d["a_member"], d["b_member"]))
+        frontier = grown - region
+    return Region(region, edges, cs.latest_per_pair(decisions.values()))
+
+
+def _url_keys(conn: Connection, ids: Iterable[int]) -> dict[int, str]:
+    c = t.canonical_urls
+    out: dict[int, str] = {}
+    for part in cs.chunks(sorted(set(ids))):
+        out.update((int(i), k) for i, k in conn.execute(sa.select(c.c.id, c.c.url_key).where(c.c.id.in_(part))))
+    return out
+
+
+def _components(conn: Connection, level: str, region: Region, ukey: Mapping[int, str],
+                counts: ClusterCounts) -> list[tuple[str, ...]]:
+    must = [(d["a_member"], d["b_member"]) for d in region.decisions if d["verdict"] == "same"]
+    apart = [(d["a_member"], d["b_member"]) for d in region.decisions
+             if d["verdict"] == "different" and d["a_member"] in region.members and d["b_member"] in region.members]
+    if level == "article":
+        found = cluster([ukey[m] for m in region.members],
+                        [Edge(ukey[a], ukey[b], s, k) for (a, b), (s, k) in region.edges.items()],
+                        must_link=[(ukey[a], ukey[b]) for a, b in must],
+                        cannot_link=[(ukey[a], ukey[b]) for a, b in apart])
+        comps = list(found.components)
+    else:
+        unit = cs.assignments(conn, "article", region.members)
+        missing = region.members - set(unit)
+        if missing:
+            raise DatabaseError(f"{len(missing)} canonical URL(s) have no article ID while clustering stories "
+                                f"(e.g. id {min(missing)}); run linkfold dedupe --full")
+        usable_apart = []
+        for a, b in apart:
+            if unit[a] == unit[b]:
+                counts.conflicts.append(f"story-level 'different' on {ukey[a]} and {ukey[b]} cannot be kept: "
+                                        f"both are in article {unit[a]}")
+            else:
+                usable_apart.append((unit[a], unit[b]))
+        found = cluster(sorted(set(unit.values())),
+                        [Edge(unit[a], unit[b], s, k) for (a, b), (s, k) in region.edges.items()
+                         if unit[a] != unit[b]],
+                        must_link=[(unit[a], unit[b]) for a, b in must if unit[a] != unit[b]],
+                        cannot_link=usable_apart)
+        by_unit: dict[str, list[str]] = defaultdict(list)
+        for m in region.members:
+            by_unit[unit[m]].append(ukey[m])
+        comps = [tuple(sorted(k for u in comp for k in by_unit[u])) for comp in found.components]
+    counts.refused += len(found.refused)
+    for r in found.refused:
+        if r.manual:
+            counts.conflicts.append(f"{level}-level 'same' on {r.edge.a} and {r.edge.b} conflicts with the "
+                                    f"'different' on {r.separated[0]} and {r.separated[1]}; the separation is kept")
+    return comps
+
+
+def cluster_region(conn: Connection, level: str, region: Region, *, run_id: int | None,
+                   counts: ClusterCounts) -> None:
+    """Cluster one region, assign IDs, and write the changes and their events."""
+    prefix = cs.PREFIXES[level]
+    current = cs.assignments(conn, level, region.members)
+    held = cs.id_rows(conn, set(current.values()))
+    founder_ids = {row["founder_id"] for row in held.values()}
+    ukey = _url_keys(conn, region.members | founder_ids)
+    comps = _components(conn, level, region, ukey, counts)
+    counts.members += len(region.members)
+    counts.components += len(comps)
+    cid_of = {k: c for c, k in ukey.items()}
+    founders = {i: ukey[row["founder_id"]] for i, row in held.items()}
+    outside = {i for i, row in held.items() if row["founder_id"] not in region.members}
+    if outside:
+        raise DatabaseError(f"ID {min(outside)} is held inside a region that does not hold its founder; "
+                            "the ID registry is inconsistent")
+    issued = cs.issued_with_stems(conn, {derive_id(prefix, k) for k in ukey.values()})
+    order = issued | {i: int(row["mint_order"]) for i, row in held.items()}
+    state = IdState(assigned={ukey[c]: i for c, i in current.items()}, founders=founders, order=order)
+    update = assign_ids(state, comps, prefix=prefix)
+    if not update.events and not update.changes:
+        return
+    next_order = cs.max_mint_order(conn, level)
+    minted, retired, events = [], {}, []
+    for e in update.events:
+        if e.kind is EventKind.MINTED:
+            next_order += 1
+            minted.append(cs.NewId(e.id, cid_of[e.member], next_order))
+            events.append(cs.EventRow(e.id, e.kind.value, None, cid_of[e.member], e.reason))
+            if e.reason == "split":
+                counts.split += 1
+            else:
+                counts.minted += 1
+        elif e.kind is EventKind.MERGED_INTO:
+            assert e.other is not None
+            retired[e.id] = e.other
+            events.append(cs.EventRow(e.id, e.kind.value, e.other, None, e.reason))
+            counts.merged += 1
+        else:
+            events.append(cs.EventRow(e.id, e.kind.value, e.other, None, e.reason))
+    moves = {cid_of[ch.member]: ch.new for ch in update.changes}
+    counts.moved += sum(1 for ch in update.changes if ch.old is not None)
+    cs.write_ids(conn, level, minted=minted, retired=retired, moves=moves, events=events, run_id=run_id,
+                 now=now())
+
+
+def cluster_seeds(engine: Engine, level: str, seeds: Iterable[int], thresholds: Thresholds, *,
+                  run_id: int | None, progress: Progress = SILENT,
+                  per_transaction: int = SEEDS_PER_TRANSACTION) -> tuple[ClusterCounts, set[int]]:
+    """Cluster the regions of ``seeds`` at ``level``, one transaction per group of seeds; returns the
+    counts and every member of the regions (story seeds, after the article pass)."""
+    ordered = sorted(set(seeds))
+    counts = ClusterCounts(level, seeds=len(ordered))
+    done: set[int] = set()
+    progress.start(f"clustering {level}s", len(ordered))
+    for i in range(0, len(ordered), per_transaction):
+        group = [s for s in ordered[i:i + per_transaction] if s not in done]
+        if group:
+            with engine.begin() as conn:
+                region = closure(conn, level, group, thresholds)
+                cluster_region(conn, level, region, run_id=run_id, counts=counts)
+            done |= region.members
+        progress.advance(len(ordered[i:i + per_transaction]))
+    progress.finish()
+    for line in counts.conflicts:
+        log.warning("%s", line)
+    return counts, done
+
+
+@dataclass(frozen=True)
+class Pending:
+    """What the clustering step has to look at: row-id ranges past the marks, snapshotted at the start."""
+
+    canonical: tuple[int, int]
+    links: tuple[int, int]
+    decisions: tuple[int, int]
+
+    @property
+    def empty(self) -> bool:
+        return all(hi <= lo for lo, hi in (self.canonical, self.links, self.decisions))
+
+
+def pending_ranges(conn: Connection) -> Pending:
+    def span(mark: str, column: sa.Column) -> tuple[int, int]:
+        lo = cs.get_mark(conn, mark) or 0
+        hi = int(conn.execute(sa.select(sa.func.max(column))).scalar() or 0)
+        return lo, max(lo, hi)
+
+    return Pending(span(CANONICAL, t.canonical_urls.c.id), span(LINKS, t.links.c.id),
+                   span(DECISIONS, t.decisions.c.id))
+
+
+def count_pending_clustering(conn: Connection) -> int:
+    p = pending_ranges(conn)
+    c, lk, d = t.canonical_urls, t.links, t.decisions
+
+    def n(table: sa.Table, span: tuple[int, int]) -> int:
+        if span[1] <= span[0]:
+            return 0
+        return int(conn.execute(sa.select(sa.func.count()).select_from(table)
+                                .where(table.c.id > span[0], table.c.id <= span[1])).scalar_one())
+
+    return n(c, p.canonical) + n(lk, p.links) + n(d, p.decisions)
+
+
+def seeds_of(conn: Connection, pending: Pending) -> tuple[set[int], set[int]]:
+    """(article seeds, extra story seeds) for the pending ranges."""
+    c, d = t.canonical_urls, t.decisions
+    article: set[int] = set()
+    story: set[int] = set()
+    lo, hi = pending.canonical
+    if hi > lo:
+        article.update(int(i) for i in conn.execute(sa.select(c.c.id).where(c.c.id > lo, c.c.id <= hi)).scalars())
+    lo, hi = pending.links
+    if hi > lo:
+        for r in links_touching(conn, [], after=lo, upto=hi):
+            lvl = link_level(r.kind, r.src_outlet, r.dst_outlet)
+            if lvl == "article":
+                article.update((r.src_id, r.dst_id))
+            elif lvl == "story":
+                story.update((r.src_id, r.dst_id))
+    lo, hi = pending.decisions
+    if hi > lo:
+        for r in conn.execute(sa.select(d.c.level, d.c.a_member, d.c.b_member).where(d.c.id > lo, d.c.id <= hi)):
+            (article if r.level == "article" else story).update((r.a_member, r.b_member))
+    return article, story
+
+
+def all_canonical_ids(conn: Connection) -> set[int]:
+    return {int(i) for i in conn.execute(sa.select(t.canonical_urls.c.id)).scalars()}
+
+
+def advance_marks(conn: Connection, pending: Pending, *, run_id: int | None) -> None:
+    stamp = now()
+    cs.set_mark(conn, CANONICAL, pending.canonical[1], run_id=run_id, now=stamp)
+    cs.set_mark(conn, LINKS, pending.links[1], run_id=run_id, now=stamp)
+    cs.set_mark(conn, DECISIONS, pending.decisions[1], run_id=run_id, now=stamp)
+
+
+__all__ = ["CANONICAL", "DECISIONS", "LINKS", "ClusterCounts", "Pending", "Region", "advance_marks",
+           "all_canonical_ids", "closure", "cluster_region", "cluster_seeds", "count_pending_clustering",
+           "link_level", "link_strength", "links_touching", "pending_ranges", "seeds_of"]

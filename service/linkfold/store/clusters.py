@@ -1,0 +1,266 @@
+"""Reads and writes of the ID registry: ``cluster_ids``, ``cluster_members``, ``id_events``, ``decisions``
+and ``stage_marks``.
+
+Every function works inside the caller's transaction. The pure ID algorithm (:mod:`linkfold.dedupe.ids`)
+sees members as url keys; here they are canonical URL ids, and the dedupe stage translates at the edge.
+Nothing here deletes: IDs are retired with a successor, events and decisions are append-only; only
+``cluster_members`` (the current assignment) and ``stage_marks`` are updated in place.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Iterator, Mapping, Sequence
+from dataclasses import dataclass
+from datetime import datetime
+from typing import Any
+
+import sqlalchemy as sa
+from sqlalchemy.engine import Connection
+
+from . import tables as t
+from .registry import utc
+
+LEVELS = ("article", "story")
+PREFIXES = {"article": "a", "story": "s"}
+LIVE, RETIRED = "live", "retired"
+_IN_CHUNK = 500  # ids per IN (…) list, under SQLite's default limit of bound parameters
+
+
+def chunks(items: Sequence[Any], size: int = _IN_CHUNK) -> Iterator[Sequence[Any]]:
+    for i in range(0, len(items), size):
+        yield items[i:i + size]
+
+
+def level_of_id(cluster_id: str) -> str | None:
+    """``article`` for ``a…``, ``story`` for ``s…`` (the shape docs/dedupe.md gives), else ``None``."""
+    for level, prefix in PREFIXES.items():
+        if cluster_id.startswith(prefix):
+            return level
+    return None
+
+
+def stem_of(cluster_id: str) -> str:
+    """The ID without its counter suffix: ``a…-2`` → ``a…``."""
+    return cluster_id.split("-", 1)[0]
+
+
+# --- stage marks ---------------------------------------------------------------------------------------
+def get_mark(conn: Connection, name: str) -> int | None:
+    return conn.execute(sa.select(t.stage_marks.c.value).where(t.stage_marks.c.name == name)).scalar()
+
+
+def set_mark(conn: Connection, name: str, value: int, *, run_id: int | None, now: datetime) -> None:
+    m = t.stage_marks
+    done = conn.execute(m.update().where(m.c.name == name).values(value=value, run_id=run_id, updated_at=now))
+    if done.rowcount == 0:
+        conn.execute(m.insert().values(name=name, value=value, run_id=run_id, updated_at=now))
+
+
+# --- assignments -----------------------------------------------------------------------------------------
+def assignments(conn: Connection, level: str, canonical_ids: Iterable[int]) -> dict[int, str]:
+    """Current ID of each of ``canonical_ids`` that has one."""
+    cm = t.cluster_members
+    out: dict[int, str] = {}
+    for part in chunks(sorted(set(canonical_ids))):
+        out.update((int(c), i) for c, i in conn.execute(
+            sa.select(cm.c.canonical_id, cm.c.cluster_id).where(cm.c.level == level, cm.c.canonical_id.in_(part))))
+    return out
+
+
+def members_of(conn: Connection, cluster_ids: Iterable[str]) -> dict[int, str]:
+    """Every current member (canonical id → ID) of the given IDs."""
+    cm = t.cluster_members
+    out: dict[int, str] = {}
+    for part in chunks(sorted(set(cluster_ids))):
+        out.update((int(c), i) for c, i in conn.execute(
+            sa.select(cm.c.canonical_id, cm.c.cluster_id).where(cm.c.cluster_id.in_(part))))
+    return out
+
+
+def id_rows(conn: Connection, ids: Iterable[str]) -> dict[str, dict[str, Any]]:
+    ci = t.cluster_ids
+    out: dict[str, dict[str, Any]] = {}
+    for part in chunks(sorted(set(ids))):
+        for row in conn.execute(sa.select(ci).where(ci.c.id.in_(part))).mappings():
+            out[row["id"]] = dict(row)
+    return out
+
+
+def issued_with_stems(conn: Connection, stems: Iterable[str]) -> dict[str, int]:
+    """Every issued ID (any level) whose stem is one of ``stems``, with its mint order: what a new mint
+    must not repeat."""
+    ci = t.cluster_ids
+    out: dict[str, int] = {}
+    for part in chunks(sorted(set(stems))):
+        out.update((i, int(o)) for i, o in conn.execute(
+            sa.select(ci.c.id, ci.c.mint_order).where(ci.c.stem.in_(part))))
+    return out
+
+
+def max_mint_order(conn: Connection, level: str) -> int:
+    ci = t.cluster_ids
+    return int(conn.execute(sa.select(sa.func.max(ci.c.mint_order)).where(ci.c.level == level)).scalar() or 0)
+
+
+@dataclass(frozen=True)
+class NewId:
+    id: str
+    founder_id: int
+    mint_order: int
+
+
+@dataclass(frozen=True)
+class EventRow:
+    cluster_id: str
+    event: str
+    other_id: str | None
+    member_id: int | None
+    reason: str
+
+
+def write_ids(conn: Connection, level: str, *, minted: Sequence[NewId], retired: Mapping[str, str],
+              moves: Mapping[int, str], events: Sequence[EventRow], run_id: int | None, now: datetime) -> None:
+    """Apply one clustering result: new IDs, retired IDs (→ successor), member moves, and their events."""
+    ci, cm = t.cluster_ids, t.cluster_members
+    if minted:
+        conn.execute(ci.insert(), [
+            {"id": n.id, "level": level, "stem": stem_of(n.id), "founder_id": n.founder_id,
+             "mint_order": n.mint_order, "state": LIVE, "successor": None, "minted_run": run_id,
+             "minted_at": now, "retired_run": None, "retired_at": None} for n in minted])
+    if retired:
+        conn.execute(ci.update().where(ci.c.id == sa.bindparam("b_id")).values(
+            state=RETIRED, successor=sa.bindparam("b_succ"), retired_run=run_id, retired_at=now),
+            [{"b_id": old, "b_succ": new} for old, new in sorted(retired.items())])
+    if moves:
+        have = set(assignments(conn, level, moves))
+        updates = [{"b_cid": c, "b_id": i} for c, i in sorted(moves.items()) if c in have]
+        inserts = [{"level": level, "canonical_id": c, "cluster_id": i, "run_id": run_id}
+                   for c, i in sorted(moves.items()) if c not in have]
+        if updates:
+            conn.execute(cm.update().where(cm.c.level == level, cm.c.canonical_id == sa.bindparam("b_cid"))
+                         .values(cluster_id=sa.bindparam("b_id"), run_id=run_id), updates)
+        if inserts:
+            conn.execute(cm.insert(), inserts)
+    if events:
+        conn.execute(t.id_events.insert(), [
+            {"cluster_id": e.cluster_id, "event": e.event, "other_id": e.other_id, "member_id": e.member_id,
+             "reason": e.reason, "run_id": run_id, "at": now} for e in events])
+
+
+# --- decisions ---------------------------------------------------------------------------------------------
+def add_decision(conn: Connection, row: Mapping[str, Any]) -> int:
+    return int(conn.execute(t.decisions.insert().values(**row).returning(t.decisions.c.id)).scalar_one())
+
+
+def decisions_touching(conn: Connection, level: str, members: Iterable[int]) -> list[dict[str, Any]]:
+    """The decision in force (the latest) for every pair at ``level`` with an anchor among ``members``."""
+    d = t.decisions
+    rows: dict[int, dict[str, Any]] = {}
+    ids = sorted(set(members))
+    for part in chunks(ids):
+        q = sa.select(d).where(d.c.level == level, sa.or_(d.c.a_member.in_(part), d.c.b_member.in_(part)))
+        for row in conn.execute(q).mappings():
+            rows[row["id"]] = dict(row)
+    return latest_per_pair(rows.values())
+
+
+def latest_per_pair(rows: Iterable[Mapping[str, Any]]) -> list[dict[str, Any]]:
+    latest: dict[tuple[int, int], dict[str, Any]] = {}
+    for row in sorted(rows, key=lambda r: r["id"]):
+        latest[(row["a_member"], row["b_member"])] = dict(row)
+    return [latest[k] for k in sorted(latest)]
+
+
+def decisions_after(conn: Connection, after_id: int, upto_id: int) -> list[dict[str, Any]]:
+    d = t.decisions
+    return [dict(r) for r in conn.execute(sa.select(d).where(d.c.id > after_id, d.c.id <= upto_id)
+                                          .order_by(d.c.id)).mappings()]
+
+
+def decision_history(conn: Connection, level: str, a_member: int, b_member: int) -> list[dict[str, Any]]:
+    d = t.decisions
+    q = sa.select(d).where(d.c.level == level, d.c.a_member == a_member, d.c.b_member == b_member)
+    return [dict(r) | {"decided_at": utc(r["decided_at"])} for r in conn.execute(q.order_by(d.c.id)).mappings()]
+
+
+# --- resolving IDs -----------------------------------------------------------------------------------------
+def events_of(conn: Connection, cluster_ids: Iterable[str]) -> list[dict[str, Any]]:
+    """Events naming any of the IDs, as subject or as the other side, oldest first."""
+    e = t.id_events
+    rows: dict[int, dict[str, Any]] = {}
+    for part in chunks(sorted(set(cluster_ids))):
+        q = sa.select(e).where(sa.or_(e.c.cluster_id.in_(part), e.c.other_id.in_(part)))
+        for row in conn.execute(q).mappings():
+            rows[row["id"]] = dict(row) | {"at": utc(row["at"])}
+    return [rows[k] for k in sorted(rows)]
+
+
+@dataclass(frozen=True)
+class Resolution:
+    """Where an issued ID stands today: ``current`` is the live ID it maps to; ``path`` the IDs passed
+    through (``id`` first, ``current`` last); ``events`` what happened to each of them."""
+
+    id: str
+    level: str
+    current: str
+    path: list[str]
+    events: list[dict[str, Any]]
+
+
+def resolve(conn: Connection, cluster_id: str) -> Resolution | None:
+    """Follow ``merged_into`` successors from an ID ever issued to the live one (``None``: never issued)."""
+    rows = id_rows(conn, [cluster_id])
+    if cluster_id not in rows:
+        return None
+    level = rows[cluster_id]["level"]
+    path = [cluster_id]
+    row = rows[cluster_id]
+    while row["state"] == RETIRED and row["successor"]:
+        nxt = row["successor"]
+        if nxt in path:
+            raise RuntimeError(f"successor cycle through {nxt!r} in cluster_ids")
+        path.append(nxt)
+        row = id_rows(conn, [nxt])[nxt]
+    events = [ev for ev in events_of(conn, path) if ev["cluster_id"] in path]
+    return Resolution(id=cluster_id, level=level, current=path[-1], path=path, events=events)
+
+
+def current_ids(conn: Connection, canonical_ids: Iterable[int]) -> dict[int, tuple[str | None, str | None]]:
+    """(article ID, story ID) of each canonical URL that has one, for lookup and export."""
+    cm = t.cluster_members
+    out: dict[int, list[str | None]] = {}
+    for part in chunks(sorted(set(canonical_ids))):
+        for cid, level, cluster_id in conn.execute(
+                sa.select(cm.c.canonical_id, cm.c.level, cm.c.cluster_id).where(cm.c.canonical_id.in_(part))):
+            out.setdefault(int(cid), [None, None])[0 if level == "article" else 1] = cluster_id
+    return {k: (v[0], v[1]) for k, v in out.items()}
+
+
+__all__ = [
+    "LEVELS",
+    "LIVE",
+    "PREFIXES",
+    "RETIRED",
+    "EventRow",
+    "NewId",
+    "Resolution",
+    "add_decision",
+    "assignments",
+    "chunks",
+    "current_ids",
+    "decision_history",
+    "decisions_after",
+    "decisions_touching",
+    "events_of",
+    "get_mark",
+    "id_rows",
+    "issued_with_stems",
+    "latest_per_pair",
+    "level_of_id",
+    "max_mint_order",
+    "members_of",
+    "resolve",
+    "set_mark",
+    "stem_of",
+    "write_ids",
+]
