@@ -12,6 +12,7 @@ import sys
 import click
 
 from . import __version__
+from ._commands import api as api_commands
 from ._commands import canon as canon_commands
 from ._commands import content as content_commands
 from ._commands import db as db_commands
@@ -23,7 +24,7 @@ from .errors import LinkfoldError
 
 log = logging.getLogger("linkfold")
 
-COMMAND_MODULES = [db_commands, canon_commands, ingest_commands, follow_commands, content_commands, demo_commands]
+COMMAND_MODULES = [db_commands, canon_commands, ingest_commands, follow_commands, content_commands, api_commands, demo_commands]
 
 
 class _Group(click.Group):

@@ -401,3 +401,18 @@ stage_marks = sa.Table(
     sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
     sa.Column("updated_at", UTC, nullable=False),
 )
+
+# --- API tokens (migration 0008) --------------------------------------------------------------------------
+# Bearer tokens of the HTTP API. Only the SHA-256 of a token is stored (hex); the token itself is shown
+# once, when it is created. ``scope`` is read | write (write includes read). A revoked token keeps its
+# row, so the log of who had access stays complete; ``last_used_at`` is refreshed at most once a minute.
+api_tokens = sa.Table(
+    "api_tokens", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("token_sha256", sa.String(64), nullable=False, unique=True),
+    sa.Column("scope", sa.String(10), nullable=False),
+    sa.Column("note", sa.Text, nullable=False),
+    sa.Column("created_at", UTC, nullable=False),
+    sa.Column("revoked_at", UTC, nullable=True),
+    sa.Column("last_used_at", UTC, nullable=True),
+)
