@@ -339,3 +339,25 @@ def test_awkward_text_is_stored_verbatim(engine, tmp_path):
     ingest_dump(engine, [path], dataset="odd", key_column="id")
     rows = sightings(engine)
     assert [(r[2], r[3]) for r in rows] == [(key, url), ("\\N", "https://a.example/ü")]
+
+
+def test_a_failure_on_the_writer_thread_reaches_the_caller(engine, tmp_path, monkeypatch):
+    path = tmp_path / "a.csv"
+    path.write_text("url\n" + "".join(f"https://a.example/{i}\n" for i in range(100)))
+    real = registry.write_batch
+    calls = {"n": 0}
+
+    def second_fails(conn, **kwargs):
+        calls["n"] += 1
+        if calls["n"] == 2:
+            raise LockHeld("simulated: another loader moved the resume point")
+        return real(conn, **kwargs)
+
+    monkeypatch.setattr(registry, "write_batch", second_fails)
+    with pytest.raises(LockHeld, match="simulated"):
+        ingest_dump(engine, [path], dataset="d", batch_size=10)
+    with engine.connect() as conn:
+        f = conn.execute(sa.select(t.dataset_files)).mappings().one()
+        run = conn.execute(sa.select(t.runs)).mappings().one()
+    assert (f["status"], f["rows"], f["lines_done"]) == ("loading", 10, 11)  # the first batch only
+    assert run["status"] == "failed" and "simulated" in run["error"]
