@@ -35,8 +35,8 @@ from sqlalchemy.engine import Engine
 from ..canon import Canonical, Canonicaliser
 from ..errors import ConfigError, InvalidURL
 from ..follow.chain import REFUSALS, Hop, _decode_location, next_url
-from ..follow.client import REDIRECT_STATUSES, ClientConfig, Failure, FetchError, Reply, SafeClient
-from ..follow.guard import Resolver
+from ..follow.client import REDIRECT_STATUSES, ClientConfig, Failure, FetchError, Reply, SafeClient, classify
+from ..follow.guard import AddressRefused, ResolveFailed, Resolver, literal_address
 from ..follow.stage import next_attempt
 from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
@@ -77,6 +77,24 @@ def _defragment(url: str) -> str:
     return url.split("#", 1)[0]
 
 
+async def _guard_check(client: SafeClient, url: str) -> None:
+    """Raise the guard's refusal for ``url``'s host, if it has one.
+
+    The client treats a robots.txt it cannot reach as "disallow all" (RFC 9309 §2.3.1.4), and a robots.txt
+    on a refused address is unreachable, so without this a private address would be stored as a robots
+    refusal. Asked only after robots.txt said no, so the common path resolves each name once.
+    """
+    parsed = httpx.URL(url)
+    host = parsed.host
+    port = parsed.port or (443 if parsed.scheme == "https" else 80)
+    literal = literal_address(host)
+    try:
+        addresses = [str(literal)] if literal is not None else await client.backend.resolver(host, port)
+        client.guard.check_all(host, addresses)
+    except (AddressRefused, ResolveFailed) as exc:
+        raise classify(exc, url) from None
+
+
 async def fetch_one(client: SafeClient, start: str, *, max_hops: int,
                     now: Callable[[], datetime] = lambda: datetime.now(UTC)) -> Fetched:
     """GET ``start``, following redirects, robots.txt checked before every hop; never raises for one URL."""
@@ -95,6 +113,7 @@ async def fetch_one(client: SafeClient, start: str, *, max_hops: int,
     while True:
         try:
             if not await client.robots_allows(url):
+                await _guard_check(client, url)  # a refused address is "refused", not a robots verdict
                 raise FetchError(Failure.ROBOTS, "robots.txt disallows this URL for linkfold", url=url)
             reply = await client.request("GET", url, truncate=True)
         except FetchError as exc:

@@ -23,7 +23,7 @@ import json
 import logging
 from collections import Counter
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -43,8 +43,9 @@ from .canonical_link import DeclaredLink, Relation, declared_link
 from .documents import MAX_LINE_BYTES, document_from_record
 from .extract import Document, extract_document, extractor_version
 from .fetching import FetchSummary, fetch_pages
+from .mediatype import is_html
 from .pages import DEFAULT_MAX_BYTES, MANIFEST_NAME, Page, PageProblem, ReadTally, read_pages
-from .usable import DEFAULT_RULES, UsableTextRules
+from .usable import DEFAULT_RULES, Unusable, UsableTextRules
 
 log = logging.getLogger("linkfold")
 
@@ -380,6 +381,17 @@ def _as_page(stored: sp.StoredPage) -> Page:
                 headers=stored.headers, body=stored.body, fetched_at=stored.fetched_at, source=stored.source)
 
 
+def _extract(stored: sp.StoredPage, rules: UsableTextRules) -> Document:
+    page = _as_page(stored)
+    doc = extract_document(page, rules=rules)
+    # The fetch stage keeps no body of a response that is not HTML (nothing would read it), so the core
+    # sees an empty body; the stored Content-Type still says why there is no text.
+    if (doc.unusable_reason is Unusable.EMPTY and not page.body and page.content_type
+            and not is_html(page.content_type, b"")):
+        doc = replace(doc, unusable_reason=Unusable.NOT_HTML)
+    return doc
+
+
 class _DocWriter:
     def __init__(self, engine: Engine, canon: Canonicaliser, rules: Ruleset, *, ruleset_id: int, run_id: int,
                  version: str, text_rules: UsableTextRules, summary: ExtractSummary) -> None:
@@ -393,7 +405,7 @@ class _DocWriter:
             stored = sp.load_pages(conn, page_ids)
         done: list[tuple[sp.StoredPage, Document]] = []
         for page in stored:
-            doc = extract_document(_as_page(page), rules=self.text_rules)
+            doc = _extract(page, self.text_rules)
             if doc.notes:
                 log.debug("page %d: %s", page.id, "; ".join(doc.notes))
             done.append((page, doc))
