@@ -16,6 +16,7 @@ from ._commands import api as api_commands
 from ._commands import canon as canon_commands
 from ._commands import content as content_commands
 from ._commands import db as db_commands
+from ._commands import dedupe as dedupe_commands
 from ._commands import demo as demo_commands
 from ._commands import follow as follow_commands
 from ._commands import ingest as ingest_commands
@@ -24,7 +25,8 @@ from .errors import LinkfoldError
 
 log = logging.getLogger("linkfold")
 
-COMMAND_MODULES = [db_commands, canon_commands, ingest_commands, follow_commands, content_commands, api_commands, demo_commands]
+COMMAND_MODULES = [db_commands, canon_commands, ingest_commands, follow_commands, content_commands, dedupe_commands, api_commands,
+                   demo_commands]
 
 
 class _Group(click.Group):

@@ -1,0 +1,338 @@
+"""``linkfold dedupe``, ``decide``, ``clusters``, ``thresholds``, ``nightly`` and ``runs``."""
+
+from __future__ import annotations
+
+import getpass
+import shutil
+import textwrap
+from typing import Any
+
+import click
+
+from ..dedupe.stage import (
+    list_clusters,
+    list_decisions,
+    record_decision,
+    run_dedupe,
+    show_cluster,
+    thresholds_report,
+)
+from ..errors import InputError
+from ..jobs.lock import hold_lock
+from ..jobs.nightly import list_runs, run_nightly, show_run
+from ._common import Context, common_options, format_option, pass_ctx, to_json, write_jsonl, write_table
+
+
+@click.command("dedupe")
+@click.option("--full", is_flag=True,
+              help="Match every current document again and recluster the whole registry (after lowering a "
+                   "threshold or changing the banding). Without it only pending work is done.")
+@click.option("--summary", "summary_format", type=click.Choice(["text", "json"]), default="text",
+              show_default=True, help="text: the summary on stderr; json: one JSON object on stdout.")
+@common_options
+@pass_ctx
+def dedupe_command(obj: Context, full: bool, summary_format: str) -> None:
+    """Sign, match, verify and cluster what is pending; hand out article and story IDs.
+
+    New documents get MinHash signatures and LSH band keys; their candidate pairs come from the band-key
+    table and are verified (same-outlet near-exact copies are one article, cross-outlet near-duplicates
+    one story); then the clusters touched by new evidence or decisions are recomputed and their IDs kept,
+    merged, split or minted. Takes the registry lock, like the nightly job.
+
+    \b
+    Example:
+      linkfold dedupe
+      linkfold dedupe --full --summary json
+    """
+    engine = obj.engine()
+    with hold_lock(engine):
+        summary = run_dedupe(engine, settings=obj.settings, full=full, progress=obj.progress())
+    if summary_format == "json":
+        click.echo(to_json(summary.as_dict()))
+    for line in summary.lines():
+        obj.message(line)
+
+
+@click.group("decide")
+def decide_group() -> None:
+    """Record a person's decision: two things are the same, or are not. Every later run obeys it.
+
+    A and B are URLs, url keys or article/story IDs. Two URLs or keys (or article IDs) decide at the
+    article level; a story ID on either side decides at the story level. The latest decision on a pair
+    is in force; earlier ones are kept. It takes effect at the next `linkfold dedupe` or nightly run.
+
+    \b
+    Example:
+      linkfold decide same https://herald.example/a/1 https://herald.example/print/1 --note "print view"
+      linkfold decide different s2k7q4m3v5bxa s7hw2ndq4ceuy --by rkim --note "two reports, one topic"
+      linkfold decide list
+    """
+
+
+def _decide(obj: Context, verdict: str, a: str, b: str, note: str | None, by: str | None) -> None:
+    who = by or getpass.getuser()
+    result = record_decision(obj.engine(), verdict, a, b, decided_by=who, note=note)
+    d = result.decision
+    click.echo(to_json({"decision": d.id, "verdict": d.verdict, "level": d.level,
+                        "a": {"ref": d.a.ref, "url": d.a.url, "id": d.a.cluster},
+                        "b": {"ref": d.b.ref, "url": d.b.url, "id": d.b.cluster},
+                        "note": d.note, "decided_by": d.decided_by, "supersedes": result.supersedes}))
+    obj.message(f"decision {d.id} recorded ({d.level} level: {d.verdict}); it takes effect at the next "
+                "`linkfold dedupe` or nightly run")
+
+
+_ref_options = [
+    click.argument("a"), click.argument("b"),
+    click.option("--note", metavar="TEXT", help="Why; kept with the decision."),
+    click.option("--by", metavar="NAME", help="Who decided (default: the login name)."),
+]
+
+
+def _with_refs(func):
+    for decorator in reversed(_ref_options):
+        func = decorator(func)
+    return func
+
+
+@decide_group.command("same")
+@_with_refs
+@common_options
+@pass_ctx
+def decide_same(obj: Context, a: str, b: str, note: str | None, by: str | None) -> None:
+    """A and B are the same article (or story): every run joins them.
+
+    \b
+    Example:
+      linkfold decide same https://herald.example/a/1 https://m.herald.example/a/1 --note "mobile mirror"
+    """
+    _decide(obj, "same", a, b, note, by)
+
+
+@decide_group.command("different")
+@_with_refs
+@common_options
+@pass_ctx
+def decide_different(obj: Context, a: str, b: str, note: str | None, by: str | None) -> None:
+    """A and B are not the same: no run puts them into one cluster.
+
+    \b
+    Example:
+      linkfold decide different a3xk2m4q7wbnc a5tq9v2lhe4rd --note "live page and the report"
+    """
+    _decide(obj, "different", a, b, note, by)
+
+
+@decide_group.command("list")
+@click.option("--limit", type=click.IntRange(min=1), default=100, show_default=True, metavar="N")
+@format_option()
+@common_options
+@pass_ctx
+def decide_list(obj: Context, limit: int, fmt: str) -> None:
+    """The decisions on record, newest first, and whether each is still in force.
+
+    \b
+    Example:
+      linkfold decide list --format jsonl
+    """
+    rows = list_decisions(obj.engine(), limit=limit)
+    keep = ["id", "verdict", "level", "a_ref", "b_ref", "in_force", "decided_by", "decided_at", "note"]
+    if fmt == "jsonl":
+        write_jsonl({k: r[k] for k in [*keep, "a_url", "b_url", "a_cluster", "b_cluster"]} for r in rows)
+    else:
+        write_table(rows, keep)
+
+
+@click.group("clusters", invoke_without_command=True)
+@click.option("--level", type=click.Choice(["article", "story"]), default="article", show_default=True)
+@click.option("--min-size", type=click.IntRange(min=1), default=2, show_default=True, metavar="N",
+              help="Only clusters with at least N URLs.")
+@click.option("--outlet", metavar="D", help="Only clusters with a URL on this outlet.")
+@click.option("--limit", type=click.IntRange(min=1), metavar="N", help="At most N clusters (largest first).")
+@format_option()
+@common_options
+@click.pass_context
+def clusters_group(ctx: click.Context, level: str, min_size: int, outlet: str | None, limit: int | None,
+                   fmt: str) -> None:
+    """List clusters with their sizes and the range of similarity scores inside them.
+
+    \b
+    Example:
+      linkfold clusters --level story --min-size 3
+      linkfold clusters --outlet herald.example --format jsonl
+      linkfold clusters show s4ljvvcsmrfdl
+    """
+    if ctx.invoked_subcommand is not None:
+        return
+    obj: Context = ctx.ensure_object(Context)
+    rows = [r.as_dict() for r in list_clusters(obj.engine(), level=level, min_size=min_size, outlet=outlet,
+                                               limit=limit)]
+    if fmt == "jsonl":
+        write_jsonl(rows)
+        return
+    for r in rows:
+        r["scores"] = ("" if r["min_score"] is None else f"{r['min_score']:.3f}–{r['max_score']:.3f}")
+        r["evidence"] = ", ".join(f"{k} {v}" for k, v in r["evidence"].items())
+    write_table(rows, ["id", "size", "outlets", "scores", "evidence", "founder_url"])
+    obj.message(f"{len(rows):,} {level} cluster(s) with at least {min_size} URL(s)")
+
+
+def _two_columns(left: str, right: str, width: int) -> list[str]:
+    col = max(20, (width - 3) // 2)
+    a, b = textwrap.wrap(left, col) or [""], textwrap.wrap(right, col) or [""]
+    n = max(len(a), len(b))
+    return [f"{(a[i] if i < len(a) else ''):<{col}} | {b[i] if i < len(b) else ''}".rstrip() for i in range(n)]
+
+
+@clusters_group.command("show")
+@click.argument("cluster_id")
+@format_option(("text", "json"), default="text")
+@common_options
+@pass_ctx
+def clusters_show(obj: Context, cluster_id: str, fmt: str) -> None:
+    """One cluster: its members, the links between them with their evidence, decisions, and a
+    side-by-side of the passages where the members' texts differ from the founder's.
+
+    \b
+    Example:
+      linkfold clusters show a2swtbc53jhcf
+    """
+    d = show_cluster(obj.engine(), cluster_id)
+    if fmt == "json":
+        click.echo(to_json(vars(d)))
+        return
+    width = shutil.get_terminal_size((120, 40)).columns
+    head = f"{d.level} {d.id}"
+    if d.path[0] != d.id:
+        head += f" (asked for {d.asked}: " + " → ".join(d.path) + ")"
+    click.echo(head)
+    for e in d.events:
+        other = f" {e['other_id']}" if e["other_id"] else ""
+        click.echo(f"  event: {e['cluster_id']} {e['event']}{other} ({e['reason']}, run {e['run_id']})")
+    click.echo(f"\nmembers ({len(d.members)}):")
+    other_key = "article_id" if d.level == "story" else "story_id"
+    for m in d.members:
+        star = "*" if m["founder"] else " "
+        words = f"{m['words']} words" if m["words"] is not None else "no text"
+        click.echo(f" {star} {m['url']}  [{m['outlet']}; {other_key} {m[other_key]}; {words}]")
+    click.echo(f"\nlinks ({len(d.links)}):")
+    for link in d.links:
+        detail = link["detail"] or {}
+        scores = ", ".join(f"{k}={v:.3f}" if isinstance(v, float) else f"{k}={v}" for k, v in detail.items()
+                           if k not in ("documents", "level"))
+        click.echo(f"  {link['kind']:<12} {link['from']} → {link['to']}  {scores}")
+    if d.decisions:
+        click.echo(f"\ndecisions ({len(d.decisions)}):")
+        for x in d.decisions:
+            click.echo(f"  #{x['id']} {x['verdict']}: {x['a']} / {x['b']} by {x['decided_by']}"
+                       + (f" — {x['note']}" if x["note"] else ""))
+    for diff in d.differences:
+        click.echo(f"\n{diff['against']}  |  {diff['url']}")
+        if not diff["passages"]:
+            click.echo("  (same text)")
+        for left, right in diff["passages"]:
+            for line in _two_columns(left, right, width):
+                click.echo("  " + line)
+            click.echo("")
+
+
+@click.command("thresholds")
+@common_options
+@pass_ctx
+def thresholds_command(obj: Context) -> None:
+    """The LSH S-curve for the current settings and the histograms of verified similarities.
+
+    Shows how likely a pair of each similarity is to become a candidate under lsh_bands × lsh_rows, and
+    where the pairs verified so far lie, so thresholds can be chosen against the lab's own data.
+
+    \b
+    Example:
+      LINKFOLD_STORY_THRESHOLD=0.45 linkfold thresholds
+    """
+    click.echo(thresholds_report(obj.engine(), settings=obj.settings))
+
+
+@click.command("nightly")
+@click.option("--summary", "summary_format", type=click.Choice(["text", "json"]), default="text",
+              show_default=True, help="text: the summary on stderr; json: one JSON object on stdout.")
+@common_options
+@pass_ctx
+def nightly_command(obj: Context, summary_format: str) -> None:
+    """Run every stage that has pending work, in order, under the registry lock.
+
+    recanonicalize → follow (shortener hosts) → fetch → extract → dedupe. Follow and fetch are skipped
+    when no contact is set. A second nightly job started while one runs says who holds the lock and
+    exits with status 8. A killed job is resumed by the next one. Exit status 1 when a stage failed.
+
+    \b
+    Example:
+      LINKFOLD_CONTACT=mailto:lab@university.example linkfold nightly
+      linkfold runs
+    """
+    summary = run_nightly(obj.engine(), settings=obj.settings, progress=obj.progress())
+    if summary_format == "json":
+        click.echo(to_json({"run_id": summary.run_id, "status": summary.status} | summary.as_dict()))
+    for line in summary.lines():
+        obj.message(line)
+    if not summary.ok:
+        raise _StageFailed(f"nightly run {summary.run_id} {summary.status}; see linkfold runs show "
+                           f"{summary.run_id}")
+
+
+class _StageFailed(InputError):
+    exit_code = 1
+    code = "stage_failed"
+
+
+def _run_row(r: dict[str, Any]) -> dict[str, Any]:
+    return {"id": r["id"], "stage": r["stage"], "status": r["status"], "started_at": r["started_at"],
+            "seconds": r.get("seconds"), "children": r.get("children"), "host": r["host"], "pid": r["pid"],
+            "counts": r["counts"], "error": r["error"]}
+
+
+@click.group("runs", invoke_without_command=True)
+@click.option("--limit", type=click.IntRange(min=1), default=20, show_default=True, metavar="N")
+@click.option("--stage", metavar="NAME", help="Only runs of this stage (nightly, dedupe, follow, ingest…).")
+@click.option("--all", "all_runs", is_flag=True, help="Include the stages of nightly runs (child runs).")
+@format_option()
+@common_options
+@click.pass_context
+def runs_group(ctx: click.Context, limit: int, stage: str | None, all_runs: bool, fmt: str) -> None:
+    """The run log: each run's stage, status, times and counts, newest first.
+
+    \b
+    Example:
+      linkfold runs --limit 5
+      linkfold runs --stage dedupe --all --format jsonl
+      linkfold runs show 42
+    """
+    if ctx.invoked_subcommand is not None:
+        return
+    obj: Context = ctx.ensure_object(Context)
+    rows = [_run_row(r) for r in list_runs(obj.engine(), limit=limit, stage=stage, top_level=not all_runs)]
+    if fmt == "jsonl":
+        write_jsonl(rows)
+        return
+    for r in rows:
+        r["started_at"] = r["started_at"].strftime("%Y-%m-%d %H:%M:%S") if r["started_at"] else ""
+        r["error"] = (r["error"] or "")[:60]
+    write_table(rows, ["id", "stage", "status", "started_at", "seconds", "children", "error"])
+
+
+@runs_group.command("show")
+@click.argument("run_id", type=int)
+@common_options
+@pass_ctx
+def runs_show(obj: Context, run_id: int) -> None:
+    """One run with its child runs (a nightly run's stages), their counts and errors, as JSON.
+
+    \b
+    Example:
+      linkfold runs show 42
+    """
+    click.echo(to_json(show_run(obj.engine(), run_id)))
+
+
+def register(cli: click.Group) -> None:
+    for command in (dedupe_command, decide_group, clusters_group, thresholds_command, nightly_command,
+                    runs_group):
+        cli.add_command(command)
