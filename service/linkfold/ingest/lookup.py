@@ -14,9 +14,13 @@ sightings      sightings of the canonical URL across all datasets (through every
 datasets       how many datasets hold those sightings
 matched_by     ``url_key`` (the input was a key), ``raw_url`` (this exact text was loaded before; its
                stored canonical URL is the answer), ``canonical_url`` (canonicalised now, then found or not)
-article_id     the article ID, once the dedupe stage assigns them (null until then)
+article_id     the article ID, once the dedupe stage assigns them (null until then); for an ID given as
+               input, the live ID it stands for today
 story_id       the story ID, likewise
 error          null, or the canonicaliser's reason code when the input cannot be canonicalised
+               (``unknown_id`` for an input shaped like an article or story ID that was never issued)
+id_history     for an ID given as input (``matched_by`` ``article_id`` / ``story_id``): the events from
+               that ID to the live one (minted, merged_into, split_from, with run and reason); else null
 =============  ======================================================================================
 """
 
@@ -31,7 +35,7 @@ from sqlalchemy.engine import Connection, Engine
 
 from ..canon import Canonicaliser, Ruleset, default_rules
 from ..errors import InvalidURL
-from ..store import registry
+from ..store import clusters, registry
 from ..store import tables as t
 from ..store.rulesets import latest_ruleset
 from .rows import raw_hash, storable
@@ -40,7 +44,7 @@ from .rows import raw_hash, storable
 URL_KEY_RE = re.compile(r"[a-z2-7]{24}")
 _CHUNK = 500
 LOOKUP_FIELDS = ("input", "canonical", "url_key", "domain", "outlet", "seen", "sightings", "datasets",
-                 "matched_by", "article_id", "story_id", "error")
+                 "matched_by", "article_id", "story_id", "error", "id_history")
 
 
 def is_url_key(text: str) -> bool:
@@ -77,8 +81,9 @@ def lookup(engine: Engine, items: Iterable[str], *, rules: Ruleset | None = None
 
 def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> list[dict[str, Any]]:
     answers = [_answer(text) for text in items]
+    id_inputs = [i for i, text in enumerate(items) if clusters.is_cluster_id(text.strip())]
     keyed = [i for i, text in enumerate(items) if is_url_key(text.strip().lower())]
-    keyed_set = set(keyed)
+    keyed_set = set(keyed) | set(id_inputs)
     urls = [i for i in range(len(items)) if i not in keyed_set]
     hashes = {i: raw_hash(storable(items[i])) for i in urls}
     known_raw = registry.raws_by_hash(conn, list(hashes.values()))
@@ -109,18 +114,34 @@ def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> l
 
     found = registry.canonicals_by_key(conn, list(wanted_keys.values()))
     counts = registry.sighting_counts(conn, [row["id"] for row in found.values()])
+    assigned = clusters.current_ids(conn, [row["id"] for row in found.values()])
     for i, key in wanted_keys.items():
         row = found.get(key)
         if row is None:
             continue
         n, nd = counts.get(row["id"], (0, 0))
+        article_id, story_id = assigned.get(row["id"], (None, None))
         answers[i].update(canonical=row["url"], url_key=key, domain=row["domain"], outlet=row["outlet"],
-                          seen=True, sightings=n, datasets=nd)
+                          seen=True, sightings=n, datasets=nd, article_id=article_id, story_id=story_id)
+    for i in id_inputs:
+        _answer_id(conn, answers[i], items[i].strip())
     if raw_only:
         raw_counts = registry.raw_sighting_counts(conn, list(raw_only.values()))
         for i, h in raw_only.items():
             answers[i]["sightings"], answers[i]["datasets"] = raw_counts.get(h, (0, 0))
     return answers
+
+
+def _answer_id(conn: Connection, answer: dict[str, Any], text: str) -> None:
+    """An article or story ID as input: the live ID it resolves to and the events on the way."""
+    found = clusters.resolve(conn, text)
+    if found is None:
+        answer["error"] = "unknown_id"
+        return
+    answer.update(seen=True, matched_by=f"{found.level}_id", id_history=[
+        {"id": e["cluster_id"], "event": e["event"], "other_id": e["other_id"], "reason": e["reason"],
+         "run_id": e["run_id"], "at": e["at"]} for e in found.events])
+    answer[f"{found.level}_id"] = found.current
 
 
 __all__ = ["LOOKUP_FIELDS", "URL_KEY_RE", "is_url_key", "lookup"]

@@ -9,6 +9,7 @@ Nothing here deletes: IDs are retired with a successor, events and decisions are
 
 from __future__ import annotations
 
+import re
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
@@ -24,6 +25,12 @@ LEVELS = ("article", "story")
 PREFIXES = {"article": "a", "story": "s"}
 LIVE, RETIRED = "live", "retired"
 _IN_CHUNK = 500  # ids per IN (…) list, under SQLite's default limit of bound parameters
+#: The shape of an ID (docs/dedupe.md §8): prefix, 12 base32 characters, optional counter suffix.
+ID_RE = re.compile(r"[as][a-z2-7]{12}(?:-[1-9][0-9]*)?")
+
+
+def is_cluster_id(text: str) -> bool:
+    return ID_RE.fullmatch(text) is not None
 
 
 def chunks(items: Sequence[Any], size: int = _IN_CHUNK) -> Iterator[Sequence[Any]]:
@@ -237,6 +244,7 @@ def current_ids(conn: Connection, canonical_ids: Iterable[int]) -> dict[int, tup
 
 
 __all__ = [
+    "ID_RE",
     "LEVELS",
     "LIVE",
     "PREFIXES",
@@ -254,6 +262,7 @@ __all__ = [
     "events_of",
     "get_mark",
     "id_rows",
+    "is_cluster_id",
     "issued_with_stems",
     "latest_per_pair",
     "level_of_id",

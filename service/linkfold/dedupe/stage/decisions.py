@@ -9,7 +9,6 @@ level. Decisions are append-only; the latest on a pair is in force, and the earl
 
 from __future__ import annotations
 
-import re
 from dataclasses import dataclass
 from typing import Any
 
@@ -23,8 +22,6 @@ from ...store import tables as t
 from ...store.registry import now, utc
 
 VERDICTS = ("same", "different")
-#: The shape of an ID (docs/dedupe.md §8): prefix, 12 base32 characters, optional counter suffix.
-ID_RE = re.compile(r"[as][a-z2-7]{12}(?:-[1-9][0-9]*)?")
 MAX_NOTE = 2000
 
 
@@ -58,7 +55,7 @@ def resolve_ref(engine: Engine, conn: Connection, ref: str) -> Anchor:
     text = ref.strip()
     if not text:
         raise InputError("an empty reference: give a URL, a url key or an article/story ID")
-    if ID_RE.fullmatch(text):
+    if cs.is_cluster_id(text):
         res = cs.resolve(conn, text)
         if res is None:
             raise NotFound(f"{text}: no such article or story ID was ever issued")
@@ -127,5 +124,5 @@ def list_decisions(engine: Engine, *, limit: int | None = None) -> list[dict[str
     return rows
 
 
-__all__ = ["ID_RE", "VERDICTS", "Anchor", "Decision", "DecisionResult", "list_decisions", "record_decision",
+__all__ = ["VERDICTS", "Anchor", "Decision", "DecisionResult", "list_decisions", "record_decision",
            "resolve_ref"]
