@@ -125,3 +125,54 @@ class LiveServer:
                 self.proc.kill()
                 self.proc.wait()
         self._log.close()
+
+
+# --- a small invented world with clusters: two outlets, one article at two URLs, a syndicated copy -------
+WORLD_URLS = {
+    "original": "https://harbour-gazette.example/2031/05/tide-barrier-vote",
+    "print": "https://harbour-gazette.example/print/2031/05/tide-barrier-vote",
+    "copy": "https://valley-courier.test/news/tide-barrier-vote",
+    "other": "https://valley-courier.test/news/orchard-festival",
+}
+
+
+def _words(rng, vocab, n):
+    from linkfold.dedupe.synthetic import random_words
+
+    return random_words(rng, vocab, n)
+
+
+def build_world(engine, tmp_path: Path, settings) -> dict[str, str]:
+    """Load the world's URLs and documents through the ingest and content stages, run dedupe once.
+
+    The URLs are in canonical form already (the dump adds a tracking parameter that canonicalisation drops).
+
+    ``print`` is a near-exact same-outlet copy of ``original`` (one article); ``copy`` is an edited
+    cross-outlet copy (one story); ``other`` is unrelated. Returns the URLs by role.
+    """
+    import numpy as np
+
+    from linkfold.content.stage import load_documents
+    from linkfold.dedupe.stage import run_dedupe
+    from linkfold.dedupe.synthetic import edited_copy, invented_vocabulary
+
+    rng = np.random.default_rng(2031)
+    vocab = invented_vocabulary(4000, rng)
+    base = _words(rng, vocab, 320)
+    texts = {"original": base, "print": [*base[:300], "closing", "note", *base[300:]],
+             "copy": edited_copy(rng, base, 0.08, vocab), "other": _words(rng, vocab, 280)}
+    dump = tmp_path / "world-panel.csv"
+    dump.write_text("visit,url\n" + "".join(f"w{i},{u}?utm_medium=social\n"
+                                            for i, u in enumerate(WORLD_URLS.values())), encoding="utf-8")
+    ingest_dump(engine, [dump], dataset="world-panel", key_column="visit")
+    docs = tmp_path / "world-documents.jsonl"
+    import json as _json
+
+    docs.write_text("".join(_json.dumps({"url": WORLD_URLS[role], "title": f"Tide barrier vote ({role})"
+                                         if role != "other" else "Orchard festival opens",
+                                         "text": " ".join(words).capitalize() + ".",
+                                         "published": "2024-05-04T08:00:00Z"}) + "\n"
+                            for role, words in texts.items()), encoding="utf-8")
+    load_documents(engine, docs, settings=settings)
+    run_dedupe(engine, settings=settings)
+    return dict(WORLD_URLS)

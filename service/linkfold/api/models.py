@@ -95,3 +95,98 @@ class Health(BaseModel):
     schema_revision: str | None
     version: str
     open_reads: bool
+
+
+class ClusterSummary(_Open):
+    id: str
+    level: str
+    size: int
+    outlets: int
+    founder_url: str
+    min_score: float | None = None
+    max_score: float | None = None
+    evidence: dict[str, int]
+
+
+class ClusterList(BaseModel):
+    clusters: list[ClusterSummary]
+
+
+class IdEventOut(_Open):
+    cluster_id: str
+    event: str
+    other_id: str | None = None
+    reason: str
+    run_id: int | None = None
+    at: datetime
+
+
+class IdHistory(_Open):
+    """Where an ID ever issued stands today. ``moved`` is true when it was retired (merged); ``current``
+    is then the live ID it maps to, and ``path`` the IDs passed through, the asked one first."""
+
+    id: str
+    level: str
+    current: str
+    moved: bool
+    path: list[str]
+    events: list[IdEventOut]
+
+
+class ClusterMember(_Open):
+    url: str
+    url_key: str
+    outlet: str | None = None
+    founder: bool
+    title: str | None = None
+    words: int | None = None
+
+
+class ClusterLink(_Open):
+    kind: str
+    level: str | None = None
+    detail: dict[str, Any] | None = None
+
+
+class DecisionOut(_Open):
+    id: int
+    verdict: str
+    decided_by: str
+    note: str | None = None
+    decided_at: datetime | None = None
+
+
+class ClusterDetailOut(IdHistory):
+    """An article or story: its members, the links between them with their evidence, the decisions on
+    them, and where members' texts differ from the founder's."""
+
+    members: list[ClusterMember]
+    links: list[ClusterLink]
+    decisions: list[DecisionOut]
+    differences: list[dict[str, Any]]
+
+
+class DecisionRequest(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    verdict: str = Field(pattern="^(same|different)$", description="same | different")
+    a: str = Field(min_length=1, max_length=8192, description="A URL, url key, or article or story ID")
+    b: str = Field(min_length=1, max_length=8192, description="A URL, url key, or article or story ID")
+    decided_by: str = Field(min_length=1, max_length=200, description="Who decided")
+    note: str | None = Field(default=None, max_length=2000)
+
+
+class DecisionCreated(_Open):
+    id: int
+    verdict: str
+    level: str
+    a: dict[str, Any]
+    b: dict[str, Any]
+    decided_by: str
+    note: str | None = None
+    supersedes: list[int]
+    takes_effect: str
+
+
+class DecisionList(BaseModel):
+    decisions: list[dict[str, Any]]
