@@ -339,3 +339,15 @@ def test_load_refuses_a_file_that_is_not_json_lines(engine, tmp_path):
         load_documents(engine, path)
     with engine.connect() as conn:
         assert _count(conn, t.documents) == 0
+
+
+def test_loaded_text_the_database_cannot_hold_is_stored_replaced(engine, tmp_path):
+    # PostgreSQL text refuses NUL and lone surrogates; both are valid escapes in a JSON string (RFC 8259 §7).
+    line = ('{"url": "https://northvale-herald.example/news/2026/11/odd", "title": "Odd\\u0000title", '
+            '"text": "' + STORY + ' \\ud800 end"}')
+    summary = load_documents(engine, _jsonl(tmp_path / "odd.jsonl", [line]))
+    assert summary.stored == 1
+    with engine.connect() as conn:
+        doc = sp.current_document(conn, _cid(conn, "https://northvale-herald.example/news/2026/11/odd"))
+        assert doc["title"] == "Odd\ufffdtitle" and doc["text"].endswith("\ufffd end")
+        assert doc["text_hash"] == hashlib.sha256(doc["text"].encode("utf-8")).hexdigest()

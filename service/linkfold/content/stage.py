@@ -40,11 +40,12 @@ from ..store import pages as sp
 from ..store.rulesets import latest_ruleset
 from ._files import LineProblem, json_objects
 from .canonical_link import DeclaredLink, Relation, declared_link
-from .documents import MAX_LINE_BYTES, document_from_record
+from .documents import DOCUMENT_FIELDS, MAX_LINE_BYTES, document_from_record
 from .extract import Document, extract_document, extractor_version
 from .fetching import FetchSummary, fetch_pages
 from .mediatype import is_html
 from .pages import DEFAULT_MAX_BYTES, MANIFEST_NAME, Page, PageProblem, ReadTally, read_pages
+from .text import text_hash
 from .usable import DEFAULT_RULES, Unusable, UsableTextRules
 
 log = logging.getLogger("linkfold")
@@ -254,6 +255,23 @@ class LoadSummary:
                 f"  problems:       {self.problems.total:,}" + _by_class(self.problems.counts)]
 
 
+def _storable_record(obj: dict[str, Any]) -> dict[str, Any]:
+    """The record's text fields as the database can hold them, before anything is computed from them.
+
+    A JSON string may escape NUL and lone surrogates (RFC 8259 §7 allows both); PostgreSQL text holds
+    neither, and a lone surrogate cannot even be encoded as UTF-8 for hashing. They become U+FFFD, as in
+    raw URLs (``linkfold.ingest.rows.storable``).
+    """
+    out = dict(obj)
+    for name in DOCUMENT_FIELDS:
+        value = out.get(name)
+        if isinstance(value, str):
+            out[name] = storable(value)
+        elif isinstance(value, list):
+            out[name] = [storable(v) if isinstance(v, str) else v for v in value]
+    return out
+
+
 def record_hash(doc: Document) -> str:
     """Identity of a loaded document: SHA-256 of its fields as stored, so loading a file twice adds
     nothing while a corrected record (another title, a fixed date) is stored as a new document."""
@@ -262,10 +280,25 @@ def record_hash(doc: Document) -> str:
     return hashlib.sha256(json.dumps(fields, ensure_ascii=False).encode("utf-8")).hexdigest()
 
 
+def _storable_text(doc: Document) -> tuple[str | None, str | None, str | None, str | None]:
+    """Title, text, text hash and author as the database can hold them.
+
+    PostgreSQL text cannot hold NUL or lone surrogates (a JSON line can carry both); they become U+FFFD,
+    and the hash is taken again so that it is always the SHA-256 of the text as stored.
+    """
+    text = storable(doc.text) if doc.text else None
+    digest = doc.text_hash
+    if digest is not None and text != doc.text:
+        digest = text_hash(text or "")
+    return (storable(doc.title) if doc.title else doc.title, text, digest,
+            storable(doc.author) if doc.author else doc.author)
+
+
 def _document_row(doc: Document, *, canonical_id: int, page_id: int | None, source: str, run_id: int,
                   record_sha256: str | None, at: datetime) -> dict[str, Any]:
-    return {"canonical_id": canonical_id, "page_id": page_id, "title": doc.title, "text": doc.text or None,
-            "text_hash": doc.text_hash, "word_count": doc.word_count, "author": doc.author,
+    title, text, digest, author = _storable_text(doc)
+    return {"canonical_id": canonical_id, "page_id": page_id, "title": title, "text": text,
+            "text_hash": digest, "word_count": doc.word_count, "author": author,
             "published": doc.published, "published_source": doc.published_source, "language": doc.language,
             "declared_canonical": doc.declared_canonical, "og_url": doc.og_url, "amp_url": doc.amp_url,
             "status": doc.status.value,
@@ -318,7 +351,7 @@ def load_documents(engine: Engine, path: str | Path, *, settings: Any = None, ba
                 try:
                     if isinstance(obj, LineProblem):
                         raise obj
-                    doc = document_from_record(obj, now=moment, rules=rules)
+                    doc = document_from_record(_storable_record(obj), now=moment, rules=rules)
                 except LineProblem as bad:
                     summary.problems.add(Problem(str(path), number, bad.reason, bad.detail))
                     continue
