@@ -43,7 +43,7 @@ def load_redirects(engine, pairs: Sequence[tuple[str, str]], tmp: Path) -> None:
 
 def canonical_id(conn, url_part: str) -> int:
     c = t.canonical_urls
-    rows = conn.execute(sa.select(c.c.id).where(c.c.url.like(f"%{url_part}%"))).scalars().all()
+    rows = conn.execute(sa.select(c.c.id).where(c.c.url.like(f"%//{url_part}"))).scalars().all()
     assert len(rows) == 1, (url_part, rows)
     return int(rows[0])
 
