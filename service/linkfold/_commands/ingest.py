@@ -12,6 +12,8 @@ from ..ingest import EXPORT_FORMATS, DumpFormat, export_dataset, ingest_dump, lo
 from ..store import registry
 from ._common import Context, common_options, format_option, pass_ctx, to_json, write_jsonl, write_table
 
+TABLE_LIMIT = 1000
+
 
 @click.command("ingest")
 @click.argument("files", nargs=-1, required=True, type=click.Path(dir_okay=False, path_type=Path))
@@ -80,6 +82,8 @@ def rejects_command(obj: Context, dataset: str, reason: str | None, limit: int |
     Example:
       linkfold rejects --dataset panel-2031 --reason bad_time --limit 20
     """
+    if fmt == "table" and limit is None:
+        limit = TABLE_LIMIT  # a table is built in memory to align it; JSON lines stream any number
     with obj.engine().connect() as conn:
         ds = registry.get_dataset(conn, dataset)
         rows = registry.iter_rejects(conn, ds["id"], reason=reason, limit=limit)
@@ -92,6 +96,8 @@ def rejects_command(obj: Context, dataset: str, reason: str | None, limit: int |
         totals = registry.reject_totals(conn, ds["id"])
     by_reason = ", ".join(f"{k} {v:,}" for k, v in totals.items()) or "none"
     obj.message(f"{n:,} rejects listed; dataset {dataset!r} holds {sum(totals.values()):,} ({by_reason})")
+    if fmt == "table" and n == limit:
+        obj.message(f"(at most {limit:,} shown: give --limit N, or --format jsonl for all of them)")
 
 
 def _stdin_items() -> Iterator[str]:

@@ -25,6 +25,7 @@ from .paths import JsonPath, parse_path, resolve
 
 EXCERPT_CHARS = 200
 JSONL_PEEK_LINES = 1000
+JSONL_PEEK_BYTES = 8 << 20  # and at most this much of them: the peeked lines are held until replayed
 
 
 class _Missing:
@@ -414,8 +415,10 @@ class _JsonLines(_Format):
         objects = reached = 0
         first_miss: str | None = None
         nonblank = 0
+        held = 0
         for line in self.r._lines:
             self.peeked.append(line)
+            held += len(line.data)
             if line.too_long or not line.data.strip():
                 continue
             nonblank += 1
@@ -432,7 +435,7 @@ class _JsonLines(_Format):
                         reached += 1
                     elif first_miss is None:
                         first_miss = got.missing or f"no element has the member at {path.text!r}"
-            if len(self.peeked) >= JSONL_PEEK_LINES:
+            if len(self.peeked) >= JSONL_PEEK_LINES or held >= JSONL_PEEK_BYTES:
                 break
         self.r.columns = list(members)
         if nonblank and not objects:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import enum
+import shlex
 from collections import Counter
 from dataclasses import dataclass, field
 from datetime import datetime
@@ -118,7 +119,7 @@ class IngestSummary:
         total = (f"total: {self.rows:,} rows, {self.sightings:,} sightings, {self.new_raw_urls:,} new raw URLs, "
                  f"{self.new_canonical_urls:,} new canonical URLs, {sum(rejects.values()):,} rejects")
         if rejects:
-            total += f" ({_reasons(rejects)}); list them with: linkfold rejects --dataset {self.dataset}"
+            total += f" ({_reasons(rejects)}); list them with: linkfold rejects --dataset {shlex.quote(self.dataset)}"
         out.append(total)
         return out
 
