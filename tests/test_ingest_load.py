@@ -361,3 +361,17 @@ def test_a_failure_on_the_writer_thread_reaches_the_caller(engine, tmp_path, mon
         run = conn.execute(sa.select(t.runs)).mappings().one()
     assert (f["status"], f["rows"], f["lines_done"]) == ("loading", 10, 11)  # the first batch only
     assert run["status"] == "failed" and "simulated" in run["error"]
+
+
+def test_in_memory_sqlite_registry_loads_on_one_thread(tmp_path):
+    from linkfold.store import make_engine, upgrade
+
+    engine = make_engine("sqlite://")  # one database per connection: the writer must not use a thread
+    try:
+        upgrade(engine)
+        path = tmp_path / "a.txt"
+        path.write_text("".join(f"https://a.example/{i}\n" for i in range(25)))
+        assert ingest_dump(engine, [path], dataset="d", batch_size=10).sightings == 25
+        assert counts(engine)["sightings"] == 25
+    finally:
+        engine.dispose()

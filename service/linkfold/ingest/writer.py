@@ -38,7 +38,11 @@ class BatchWriter(Generic[Job]):
         self._queue: queue.Queue = queue.Queue(maxsize=depth)
         self._error: BaseException | None = None
         self._thread = threading.Thread(target=self._run, name=name, daemon=True)
-        self._thread.start()
+        # An in-memory SQLite database exists once per connection (per thread, in SQLAlchemy's pool): a
+        # second thread would write into a database of its own. Write on the caller's thread instead.
+        self._inline = engine.dialect.name == "sqlite" and engine.url.database in (None, "", ":memory:")
+        if not self._inline:
+            self._thread.start()
 
     def _run(self) -> None:
         try:
@@ -60,6 +64,12 @@ class BatchWriter(Generic[Job]):
 
     def submit(self, job: Job) -> None:
         """Hand over a batch; blocks while ``depth`` batches are waiting. Raises the writer's error."""
+        if self._inline:
+            with self._engine.connect() as conn:
+                with conn.begin():
+                    result = self._write(conn, job)
+                self._committed(job, result)
+            return
         while True:
             self._raise_if_failed()
             try:
@@ -70,12 +80,16 @@ class BatchWriter(Generic[Job]):
 
     def close(self) -> None:
         """Wait for every batch handed over to be written; raise the writer's error if it failed."""
+        if self._inline:
+            return
         self._put_stop()
         self._thread.join()
         self._raise_if_failed()
 
     def abandon(self) -> None:
         """Stop after the batches already handed over (used while another error propagates)."""
+        if self._inline:
+            return
         self._put_stop()
         self._thread.join()
         if self._error is not None:
