@@ -351,3 +351,31 @@ def test_loaded_text_the_database_cannot_hold_is_stored_replaced(engine, tmp_pat
         doc = sp.current_document(conn, _cid(conn, "https://northvale-herald.example/news/2026/11/odd"))
         assert doc["title"] == "Odd\ufffdtitle" and doc["text"].endswith("\ufffd end")
         assert doc["text_hash"] == hashlib.sha256(doc["text"].encode("utf-8")).hexdigest()
+
+
+def test_an_interrupted_extract_keeps_its_batches_and_resumes(engine, tmp_path, monkeypatch):
+    from linkfold.content import stage
+
+    import_pages(engine, [_page_dir(tmp_path)])
+    real = stage.extract_document
+    calls = []
+
+    def interrupted_on_the_fifth(page, **kw):
+        calls.append(page.url)
+        if len(calls) == 5:
+            raise KeyboardInterrupt  # Ctrl-C in the middle of the third batch
+        return real(page, **kw)
+
+    monkeypatch.setattr(stage, "extract_document", interrupted_on_the_fifth)
+    with pytest.raises(KeyboardInterrupt):
+        extract_pages(engine, batch_size=2)
+    with engine.connect() as conn:
+        assert _count(conn, t.documents) == 4  # the two batches committed before it
+        run = conn.execute(sa.select(t.runs).where(t.runs.c.stage == "extract")).mappings().one()
+        assert run["status"] == "interrupted" and run["counts"]["selected"] == 4
+    monkeypatch.setattr(stage, "extract_document", real)
+    rest = extract_pages(engine)
+    assert rest.selected == 4
+    with engine.connect() as conn:
+        assert _count(conn, t.documents) == 8
+        assert conn.execute(sa.select(sa.func.count(sa.distinct(t.documents.c.page_id)))).scalar_one() == 8

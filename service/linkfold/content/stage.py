@@ -174,10 +174,10 @@ def import_pages(engine: Engine, paths: Iterable[str | Path], *, settings: Any =
     raises :class:`~linkfold.errors.InputError` after everything read before it was stored.
     ``max_bytes`` (default: the ``http_max_bytes`` setting) is the body cap, as for fetched pages.
     """
-    paths = [Path(p) for p in paths]
-    if not paths:
+    inputs = [Path(p) for p in paths]
+    if not inputs:
         raise ConfigError("give at least one WARC file, page directory or JSONL file")
-    for path in paths:
+    for path in inputs:
         if not path.exists():
             raise InputError(f"{path}: no such file or directory")
     cap = max_bytes or (settings.http_max_bytes if settings is not None else DEFAULT_MAX_BYTES)
@@ -191,7 +191,7 @@ def import_pages(engine: Engine, paths: Iterable[str | Path], *, settings: Any =
     with recording_run(engine, "import_pages") as run:
         summary.run_id = run.id
         writer = _PageWriter(engine, canon, ruleset_id=ruleset_id, run_id=run.id, summary=summary)
-        for path in paths:
+        for path in inputs:
             summary.files += 1
             tally = ReadTally()
             batch: list[tuple[Page, str]] = []

@@ -50,11 +50,10 @@ def _insert_ignoring_conflicts(conn: Connection, table: sa.Table, rows: Sequence
     """
     if not rows:
         return
-    if conn.dialect.name == "postgresql":
-        from sqlalchemy.dialects.postgresql import insert
-    else:
-        from sqlalchemy.dialects.sqlite import insert
-    conn.execute(insert(table).on_conflict_do_nothing(), list(rows))
+    from sqlalchemy.dialects import postgresql, sqlite
+
+    stmt = (postgresql.insert(table) if conn.dialect.name == "postgresql" else sqlite.insert(table))
+    conn.execute(stmt.on_conflict_do_nothing(), list(rows))
 
 
 # --- pages ---------------------------------------------------------------------------------------------------
@@ -317,15 +316,14 @@ def store_documents(conn: Connection, rows: Sequence[Mapping[str, Any]]) -> int:
     for part in _chunks(sorted({r["record_sha256"] for r in by_record if r.get("record_sha256")})):
         known_records |= set(conn.execute(sa.select(d.c.record_sha256).where(d.c.record_sha256.in_(part)))
                              .scalars())
-    fresh: dict[Any, Mapping[str, Any]] = {}
+    fresh: dict[tuple[Any, ...], Mapping[str, Any]] = {}
     for r in by_page:
-        key = ("page", int(r["page_id"]), r["extractor_version"])
-        if key[1:] not in known_pages:
-            fresh.setdefault(key, r)
+        page_key = (int(r["page_id"]), r["extractor_version"])
+        if page_key not in known_pages:
+            fresh.setdefault(("page", *page_key), r)
     for r in by_record:
-        key = ("record", r.get("record_sha256"))
         if r.get("record_sha256") not in known_records:
-            fresh.setdefault(key, r)
+            fresh.setdefault(("record", r.get("record_sha256")), r)
     _insert_ignoring_conflicts(conn, d, list(fresh.values()))
     return len(fresh)
 
