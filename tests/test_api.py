@@ -125,10 +125,17 @@ def test_datasets_and_one_dataset(api):
     assert r.status_code == 404 and _envelope(r)["code"] == "not_found"
 
 
-def test_runs_one(api, engine):
+def test_runs_list_and_one(api, engine):
     run_id = start_run(engine, "test-stage")
+    child = start_run(engine, "test-child", parent_id=run_id)
+    finish_run(engine, child, status="failed", error="InputError: broken file")
     finish_run(engine, run_id, status="ok", counts={"rows": 3})
+    listed = api.get("/v1/runs", params={"limit": 50}).json()["runs"]
+    assert listed[0]["id"] == run_id and listed[0]["children"] == 1  # newest first, top-level only
+    assert "ingest" in {r["stage"] for r in listed}
+    assert [r["id"] for r in api.get("/v1/runs", params={"stage": "test-stage"}).json()["runs"]] == [run_id]
     got = api.get(f"/v1/runs/{run_id}").json()
+    assert [c["id"] for c in got["children"]] == [child] and got["children"][0]["status"] == "failed"
     assert got["stage"] == "test-stage" and got["status"] == "ok" and got["counts"] == {"rows": 3}
     # RFC 3339 §5.6 date-time with an explicit UTC offset ("Z").
     assert datetime.fromisoformat(got["started_at"]).utcoffset() == timedelta(0)

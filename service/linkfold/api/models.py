@@ -31,6 +31,8 @@ class LookupAnswer(_Open):
     article_id: str | None = None
     story_id: str | None = None
     error: str | None = None
+    id_history: list[dict[str, Any]] | None = Field(
+        default=None, description="For an ID given as input: the events from it to the live ID")
 
 
 class BatchRequest(BaseModel):
@@ -84,10 +86,19 @@ class Run(_Open):
     error: str | None = None
     host: str | None = None
     pid: int | None = None
+    seconds: float | None = None
+
+
+class RunSummary(Run):
+    children: int = Field(description="How many stage runs this run started")
+
+
+class RunDetail(Run):
+    children: list[RunDetail] = Field(description="The stage runs this run started, with theirs")
 
 
 class RunList(BaseModel):
-    runs: list[Run]
+    runs: list[RunSummary]
 
 
 class Health(BaseModel):

@@ -16,9 +16,16 @@ from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from fastapi.templating import Jinja2Templates
 
 from .. import __version__
+from ..dedupe.stage import list_clusters, record_decision, resolve_cluster_id, show_cluster, similarity_values
+from ..errors import InputError
 from ..ingest import lookup
-from ..store.tokens import TokenState, check_token
-from .auth import COOKIE_NAME, Access, read_access
+from ..store import registry
+from ..store.pages import current_document
+from ..store.tokens import Scope, TokenState, check_token
+from . import charts
+from .auth import COOKIE_NAME, authorise, read_access, write_access
+from .errors import ApiError
+from .textdiff import side_by_side
 
 TEMPLATES = Jinja2Templates(directory=str(Path(__file__).with_name("templates")))
 TEMPLATES.env.globals["version"] = __version__
@@ -63,8 +70,7 @@ def home(request: Request) -> HTMLResponse:
 
 @router.get("/lookup", response_class=HTMLResponse)
 def lookup_page(request: Request, q: Annotated[str, Query(max_length=8192)] = "") -> HTMLResponse:
-    access: Access = read_access(request)
-    del access
+    read_access(request)
     answer = None
     if q.strip():
         state = request.app.state.linkfold
@@ -93,3 +99,106 @@ def end_session() -> Response:
     response = RedirectResponse("/", status_code=303)
     response.delete_cookie(COOKIE_NAME, path="/", httponly=True, samesite="strict")
     return response
+
+
+@router.get("/clusters", response_class=HTMLResponse)
+def clusters_page(request: Request, level: Annotated[str, Query(pattern="^(article|story)$")] = "article",
+                  min_size: Annotated[int, Query(ge=1, le=1_000_000)] = 2,
+                  outlet: Annotated[str, Query(max_length=255)] = "",
+                  limit: Annotated[int, Query(ge=1, le=1000)] = 200) -> HTMLResponse:
+    read_access(request)
+    engine = request.app.state.linkfold.engine
+    rows = [row.as_dict() for row in list_clusters(engine, level=level, min_size=min_size,
+                                                    outlet=outlet.strip() or None, limit=limit)]
+    return render(request, "clusters.html", {"rows": rows, "level": level, "min_size": min_size,
+                                             "outlet": outlet, "limit": limit})
+
+
+def _can_write(request: Request) -> bool:
+    try:
+        return authorise(request, Scope.WRITE).can_write
+    except ApiError:
+        return False
+
+
+def _texts(engine, keys: list[str]) -> dict[str, dict | None]:
+    with engine.connect() as conn:
+        found = registry.canonicals_by_key(conn, keys)
+        return {key: current_document(conn, found[key]["id"]) if key in found else None for key in keys}
+
+
+@router.get("/clusters/{cluster_id}", response_class=HTMLResponse)
+def cluster_page(request: Request, cluster_id: str,
+                 compare: Annotated[str, Query(max_length=64)] = "",
+                 decided: Annotated[int | None, Query(ge=1)] = None) -> HTMLResponse:
+    read_access(request)
+    engine = request.app.state.linkfold.engine
+    detail = show_cluster(engine, cluster_id)
+    members = detail.members
+    founder = next((m for m in members if m["founder"]), members[0] if members else None)
+    docs = _texts(engine, [m["url_key"] for m in members])
+    others = [m for m in members if founder is None or m["url_key"] != founder["url_key"]]
+    chosen = next((m for m in others if m["url_key"] == compare), None)
+    if chosen is None:
+        chosen = next((m for m in others if docs.get(m["url_key"])), others[0] if others else None)
+    view = None
+    if founder is not None and chosen is not None:
+        left, right = docs.get(founder["url_key"]), docs.get(chosen["url_key"])
+        if left is not None and right is not None:
+            view = side_by_side(left["text"] or "", right["text"] or "")
+    return render(request, "cluster.html", {
+        "d": detail, "founder": founder, "chosen": chosen, "others": others, "view": view,
+        "docs": docs, "can_write": _can_write(request), "decided": decided,
+        "other_level": "story" if detail.level == "article" else "article"})
+
+
+@router.post("/clusters/{cluster_id}/decide")
+def decide_page(request: Request, cluster_id: str,
+                verdict: Annotated[str, Form(pattern="^(same|different)$")],
+                member: Annotated[str, Form(min_length=1, max_length=64)],
+                by: Annotated[str, Form(max_length=200)] = "",
+                note: Annotated[str, Form(max_length=2000)] = "") -> Response:
+    write_access(request)
+    engine = request.app.state.linkfold.engine
+    res = resolve_cluster_id(engine, cluster_id)
+    if not by.strip():
+        raise InputError("say who decided: fill in 'your name'")
+    result = record_decision(engine, verdict, res.current, member, decided_by=by.strip(),
+                             note=note.strip() or None)
+    target = f"/clusters/{quote(res.current, safe='')}?compare={quote(member, safe='')}" \
+             f"&decided={result.decision.id}"
+    # RFC 9110 §15.4.4: 303 sends the browser to GET the page again, so a reload does not post twice.
+    return RedirectResponse(target, status_code=303)
+
+
+@router.get("/ids/{cluster_id}", response_class=HTMLResponse)
+def id_page(request: Request, cluster_id: str) -> HTMLResponse:
+    read_access(request)
+    res = resolve_cluster_id(request.app.state.linkfold.engine, cluster_id)
+    return render(request, "id.html", {"res": res})
+
+
+@router.get("/charts", response_class=HTMLResponse)
+def charts_page(request: Request) -> HTMLResponse:
+    read_access(request)
+    return render(request, "charts.html", {})
+
+
+def _svg(body: str) -> Response:
+    return Response(body, media_type="image/svg+xml", headers={"Cache-Control": "no-store"})
+
+
+@router.get("/charts/similarity.svg")
+def similarity_chart(request: Request) -> Response:
+    read_access(request)
+
+    state = request.app.state.linkfold
+    return _svg(charts.similarity_svg(similarity_values(state.engine),
+                                      article_threshold=state.settings.article_threshold,
+                                      story_threshold=state.settings.story_threshold))
+
+
+@router.get("/charts/cluster-sizes.svg")
+def sizes_chart(request: Request) -> Response:
+    read_access(request)
+    return _svg(charts.sizes_svg(request.app.state.linkfold.engine))

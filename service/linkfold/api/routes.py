@@ -11,13 +11,13 @@ from fastapi import APIRouter, Depends, Path, Query, Request
 from fastapi.responses import StreamingResponse
 
 from .. import __version__
-from ..errors import LinkfoldError, NotFound
+from ..errors import LinkfoldError
 from ..ingest import lookup
-from ..jobs.runlog import get_run
+from ..jobs.nightly import list_runs, show_run
 from ..store import current_revision, registry
 from .auth import Access, read_access
 from .errors import ApiError, envelope, error_responses
-from .models import BatchRequest, DatasetDetail, DatasetList, Health, LookupAnswer, Run
+from .models import BatchRequest, DatasetDetail, DatasetList, Health, LookupAnswer, RunDetail, RunList
 from .state import ApiState
 
 log = logging.getLogger("linkfold")
@@ -155,12 +155,18 @@ def dataset(request: Request, _access: ReadAccess,
         return {**summary, "files_detail": files, "rejects_by_reason": registry.reject_totals(conn, ds["id"])}
 
 
-@router.get("/runs/{run_id}", response_model=Run, tags=["runs"], summary="One run with its counts",
+@router.get("/runs", response_model=RunList, tags=["runs"],
+            summary="Runs, newest first: stages run alone and nightly jobs (their stages are children)",
+            responses=READ_ERRORS)
+def runs(request: Request, _access: ReadAccess,
+         limit: Annotated[int, Query(ge=1, le=1000)] = 20,
+         stage: Annotated[str | None, Query(min_length=1, max_length=40)] = None) -> dict[str, Any]:
+    return {"runs": list_runs(api_state(request).engine, limit=limit, stage=stage)}
+
+
+@router.get("/runs/{run_id}", response_model=RunDetail, tags=["runs"],
+            summary="One run with its counts, errors and child runs",
             responses={**READ_ERRORS, **error_responses(404)})
 def run(request: Request, _access: ReadAccess,
         run_id: Annotated[int, Path(ge=1, le=2**31 - 1)]) -> dict[str, Any]:
-    found = get_run(api_state(request).engine, run_id)
-    if found is None:
-        raise NotFound(f"no run with id {run_id}")
-    return {**found, "started_at": registry.utc(found["started_at"]),
-            "finished_at": registry.utc(found["finished_at"])}
+    return show_run(api_state(request).engine, run_id)
