@@ -103,3 +103,26 @@ def partition(engine, level: str) -> set[frozenset[str]]:
     for url, cid in ids_of(engine, level).items():
         groups.setdefault(cid, set()).add(url)
     return {frozenset(g) for g in groups.values()}
+
+
+def bulk_world(engine, tmp: Path, n_families: int, *, seed: int = 5, family: int = 3) -> None:
+    """``n_families`` families of near-duplicates over four outlets: URLs loaded, documents stored."""
+    texts = Texts(seed)
+    outlets = ["herald.example", "courier.test", "gazette.example", "ledger.test"]
+    urls, bodies = [], []
+    for f in range(n_families):
+        base = texts.article(200)
+        for k in range(family):
+            urls.append(f"https://{outlets[(f + k) % 4]}/n/{f}-{k}")
+            bodies.append(base if k == 0 else texts.copy(base, 0.02 * k))
+    load_urls(engine, urls, tmp, dataset=f"bulk-{seed}")
+    with engine.begin() as conn:
+        ids = dict(conn.execute(sa.select(t.canonical_urls.c.url, t.canonical_urls.c.id)).all())
+        rows = []
+        for url, words in zip(urls, bodies, strict=True):
+            norm = normalise_text(" ".join(words))
+            rows.append({"canonical_id": ids[url], "page_id": None, "title": None, "text": norm,
+                         "text_hash": text_hash(norm), "word_count": count_words(norm), "published": None,
+                         "status": "usable", "unusable_reason": None, "extractor_version": "test-world",
+                         "source": f"test:{url}", "record_sha256": None, "created_at": STAMP})
+        conn.execute(t.documents.insert(), rows)
