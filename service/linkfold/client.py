@@ -1,0 +1,183 @@
+"""A small client of the linkfold HTTP API, for other projects: IDs without touching the database.
+
+    from linkfold.client import Client
+    lf = Client("http://127.0.0.1:8750", token="lf_…")
+    lf.lookup("https://harbour-gazette.example/2031/05/tide-barrier-vote?utm_source=feed")["article_id"]
+
+``lookup_many`` sends any number of URLs in batches of at most the server's limit and yields the answers
+in input order as they stream back; ``add_ids`` adds ``article_id`` / ``story_id`` columns to a pandas
+DataFrame of URLs. Errors from the server raise :class:`ApiError` with the envelope's code and message.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Iterable, Iterator
+from typing import Any
+
+import httpx
+
+from .errors import LinkfoldError, NetworkError
+from .settings import load_settings
+
+DEFAULT_BATCH = 10000  # the server's default api_max_batch
+
+
+class ApiError(LinkfoldError):
+    """The server answered with an error envelope; ``status`` is the HTTP status, ``code`` its code."""
+
+    exit_code = 9
+
+    def __init__(self, status: int, code: str, message: str) -> None:
+        super().__init__(f"HTTP {status} {code}: {message}")
+        self.status = status
+        self.code = code
+        self.server_message = message
+
+
+class Client:
+    """The API at ``base_url`` (default: the ``api_url`` setting) with a bearer ``token``.
+
+    One connection pool for the client's life; use it as a context manager or call :meth:`close`.
+    """
+
+    def __init__(self, base_url: str | None = None, *, token: str | None = None, timeout: float = 60.0,
+                 batch_size: int = DEFAULT_BATCH, transport: httpx.BaseTransport | None = None) -> None:
+        if base_url is None:
+            base_url = load_settings().api_url
+        if batch_size < 1:
+            raise ValueError("batch_size must be at least 1")
+        headers = {"Accept": "application/json"}
+        if token:
+            headers["Authorization"] = f"Bearer {token}"
+        self.base_url = base_url.rstrip("/")
+        self.batch_size = batch_size
+        # trust_env=False: no proxy from the environment, and no credentials from ~/.netrc, are ever
+        # mixed into requests to the registry.
+        self._http = httpx.Client(base_url=self.base_url + "/v1", headers=headers, timeout=timeout,
+                                  transport=transport, trust_env=False)
+
+    # --- plumbing ------------------------------------------------------------------------------------------
+    def __enter__(self) -> Client:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    def close(self) -> None:
+        self._http.close()
+
+    def _check(self, response: httpx.Response) -> httpx.Response:
+        if response.is_success:
+            return response
+        response.read()
+        try:
+            err = response.json()["error"]
+            code, message = str(err["code"]), str(err["message"])
+        except (ValueError, KeyError, TypeError):
+            code, message = "http", response.text[:200] or response.reason_phrase
+        raise ApiError(response.status_code, code, message)
+
+    def _get(self, path: str, **params: Any) -> Any:
+        try:
+            response = self._http.get(path, params={k: v for k, v in params.items() if v is not None})
+        except httpx.TransportError as exc:
+            raise NetworkError(f"cannot reach the linkfold API at {self.base_url}: {exc}") from exc
+        return self._check(response).json()
+
+    # --- the three calls -----------------------------------------------------------------------------------
+    def lookup(self, item: str) -> dict[str, Any]:
+        """What the registry knows about one URL, url key or ID (``linkfold lookup``'s fields)."""
+        return self._get("/lookup", q=item)
+
+    def lookup_many(self, items: Iterable[str]) -> Iterator[dict[str, Any]]:
+        """One answer per item, in order, for any number of items (sent ``batch_size`` at a time)."""
+        batch: list[str] = []
+        for item in items:
+            batch.append(item)
+            if len(batch) >= self.batch_size:
+                yield from self._batch(batch)
+                batch = []
+        if batch:
+            yield from self._batch(batch)
+
+    def article(self, article_id: str) -> dict[str, Any]:
+        """An article with its members, links and decisions; a retired ID answers with ``moved`` true
+        and ``current`` the ID it maps to now."""
+        return self._get(f"/articles/{_path_part(article_id)}")
+
+    # --- more of the API --------------------------------------------------------------------------------------
+    def story(self, story_id: str) -> dict[str, Any]:
+        return self._get(f"/stories/{_path_part(story_id)}")
+
+    def history(self, cluster_id: str) -> dict[str, Any]:
+        return self._get(f"/ids/{_path_part(cluster_id)}/history")
+
+    def datasets(self) -> list[dict[str, Any]]:
+        return self._get("/datasets")["datasets"]
+
+    def clusters(self, *, level: str = "article", min_size: int = 2, outlet: str | None = None,
+                 limit: int = 100) -> list[dict[str, Any]]:
+        return self._get("/clusters", level=level, min_size=min_size, outlet=outlet, limit=limit)["clusters"]
+
+    def decide(self, verdict: str, a: str, b: str, *, decided_by: str, note: str | None = None) -> dict[str, Any]:
+        """Record a manual decision (needs a write token); it takes effect at the next dedupe run."""
+        body = {"verdict": verdict, "a": a, "b": b, "decided_by": decided_by, "note": note}
+        try:
+            response = self._http.post("/decisions", json=body)
+        except httpx.TransportError as exc:
+            raise NetworkError(f"cannot reach the linkfold API at {self.base_url}: {exc}") from exc
+        return self._check(response).json()
+
+    def _batch(self, batch: list[str]) -> Iterator[dict[str, Any]]:
+        n = 0
+        try:
+            with self._http.stream("POST", "/lookup", json={"urls": batch},
+                                   headers={"Accept": "application/x-ndjson"}) as response:
+                self._check(response)
+                for line in response.iter_lines():
+                    if not line:
+                        continue
+                    answer = json.loads(line)
+                    if "error" in answer and isinstance(answer["error"], dict):
+                        # The server failed after the stream began: it says so in a last line.
+                        raise ApiError(response.status_code, answer["error"]["code"], answer["error"]["message"])
+                    n += 1
+                    yield answer
+        except httpx.TransportError as exc:
+            raise NetworkError(f"the batch lookup from {self.base_url} broke off after {n:,} of "
+                               f"{len(batch):,} answers: {exc}") from exc
+        if n != len(batch):
+            raise NetworkError(f"the batch lookup from {self.base_url} ended after {n:,} of {len(batch):,} answers")
+
+
+def _path_part(text: str) -> str:
+    from urllib.parse import quote
+
+    return quote(text.strip(), safe="")
+
+
+def add_ids(frame: Any, column: str = "url", *, client: Client, prefix: str = "") -> Any:
+    """A copy of a pandas DataFrame with ``article_id`` and ``story_id`` columns for the URLs in ``column``.
+
+    Each distinct URL is looked up once. Rows whose URL is missing (NaN/None) get missing IDs. pandas is
+    imported only here, so the rest of the client works without it.
+    """
+    try:
+        import pandas as pd
+    except ImportError as exc:  # pragma: no cover - exercised only where pandas is absent
+        raise ImportError("add_ids needs pandas: pip install pandas") from exc
+    if column not in frame.columns:
+        raise KeyError(f"no column {column!r} in the DataFrame (columns: {', '.join(map(str, frame.columns))})")
+    values = frame[column]
+    present = values.notna()
+    distinct = list(dict.fromkeys(str(v) for v in values[present]))
+    answers = dict(zip(distinct, client.lookup_many(distinct), strict=True))
+    out = frame.copy()
+    for field in ("article_id", "story_id"):
+        mapped = values[present].map(lambda v, f=field: answers[str(v)][f])
+        out[prefix + field] = pd.Series(mapped, index=frame.index).astype("object").where(present, None)
+    return out
+
+
+__all__ = ["ApiError", "Client", "add_ids"]
