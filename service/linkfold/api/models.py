@@ -38,7 +38,8 @@ class LookupAnswer(_Open):
 class BatchRequest(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
-    urls: list[str] = Field(description="URLs, url keys or IDs; at most api_max_batch (default 10,000).")
+    urls: list[str] = Field(max_length=10000,
+                            description="URLs, url keys or IDs; at most api_max_batch (default 10,000).")
 
 
 class DatasetSummary(_Open):
