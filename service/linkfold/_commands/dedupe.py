@@ -5,6 +5,7 @@ from __future__ import annotations
 import getpass
 import shutil
 import textwrap
+from collections.abc import Mapping
 from typing import Any
 
 import click
@@ -21,6 +22,10 @@ from ..errors import InputError
 from ..jobs.lock import hold_lock
 from ..jobs.nightly import list_runs, run_nightly, show_run
 from ._common import Context, common_options, format_option, pass_ctx, to_json, write_jsonl, write_table
+
+
+def _table(rows: list[dict[str, Any]]) -> list[Mapping[str, Any]]:
+    return list(rows)
 
 
 @click.command("dedupe")
@@ -139,7 +144,7 @@ def decide_list(obj: Context, limit: int, fmt: str) -> None:
     if fmt == "jsonl":
         write_jsonl({k: r[k] for k in [*keep, "a_url", "b_url", "a_cluster", "b_cluster"]} for r in rows)
     else:
-        write_table(rows, keep)
+        write_table(_table(rows), keep)
 
 
 @click.group("clusters", invoke_without_command=True)
@@ -172,7 +177,7 @@ def clusters_group(ctx: click.Context, level: str, min_size: int, outlet: str | 
     for r in rows:
         r["scores"] = ("" if r["min_score"] is None else f"{r['min_score']:.3f}–{r['max_score']:.3f}")
         r["evidence"] = ", ".join(f"{k} {v}" for k, v in r["evidence"].items())
-    write_table(rows, ["id", "size", "outlets", "scores", "evidence", "founder_url"])
+    write_table(_table(rows), ["id", "size", "outlets", "scores", "evidence", "founder_url"])
     obj.message(f"{len(rows):,} {level} cluster(s) with at least {min_size} URL(s)")
 
 
@@ -315,7 +320,7 @@ def runs_group(ctx: click.Context, limit: int, stage: str | None, all_runs: bool
     for r in rows:
         r["started_at"] = r["started_at"].strftime("%Y-%m-%d %H:%M:%S") if r["started_at"] else ""
         r["error"] = (r["error"] or "")[:60]
-    write_table(rows, ["id", "stage", "status", "started_at", "seconds", "children", "error"])
+    write_table(_table(rows), ["id", "stage", "status", "started_at", "seconds", "children", "error"])
 
 
 @runs_group.command("show")

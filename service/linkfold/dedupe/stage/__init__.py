@@ -116,6 +116,7 @@ def run_dedupe(engine: Engine, *, settings: Any, full: bool = False, parent_id: 
         summary.matching = match_pending(engine, params, thresholds, max_bucket=settings.lsh_max_bucket,
                                          run_id=run.id, progress=progress)
         run.counts = summary.as_dict()
+        story_extra: set[int]
         with engine.connect() as conn:
             pending = pending_ranges(conn)
             if full:

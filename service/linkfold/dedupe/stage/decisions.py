@@ -68,10 +68,10 @@ def resolve_ref(engine: Engine, conn: Connection, ref: str) -> Anchor:
     if not answer["seen"] or not answer["url_key"]:
         raise NotFound(f"{text}: not in the registry (canonical form {answer['canonical']!r}); load it first")
     c = t.canonical_urls
-    row = conn.execute(sa.select(c.c.id, c.c.url).where(c.c.url_key == answer["url_key"])).first()
-    if row is None:
+    found = conn.execute(sa.select(c.c.id, c.c.url).where(c.c.url_key == answer["url_key"])).first()
+    if found is None:
         raise NotFound(f"{text}: not in the registry")
-    return Anchor(text, int(row.id), row.url, None, None)
+    return Anchor(text, int(found.id), found.url, None, None)
 
 
 def record_decision(engine: Engine, verdict: str, a_ref: str, b_ref: str, *, decided_by: str,

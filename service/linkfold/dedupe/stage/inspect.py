@@ -171,7 +171,7 @@ def show_cluster(engine: Engine, cluster_id: str, *, max_compared: int = 10) -> 
     decision_rows = [{"id": d["id"], "verdict": d["verdict"], "a": d["a_ref"], "b": d["b_ref"],
                       "note": d["note"], "decided_by": d["decided_by"], "decided_at": utc(d["decided_at"])}
                      for d in decisions]
-    differences = []
+    differences: list[dict[str, Any]] = []
     base = docs.get(founder)
     if base is None:
         base = next((docs[m] for m in sorted(docs, key=lambda x: urls[x].url)), None)

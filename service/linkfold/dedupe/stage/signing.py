@@ -75,7 +75,7 @@ def settings_changed(conn: Connection, params: SignatureParams) -> bool:
 def _band_rows(doc_ids: list[int], sigs: np.ndarray, params: SignatureParams) -> list[dict]:
     keys = band_keys(sigs, params.bands, params.rows)
     empty = empty_rows(sigs, params)
-    rows = []
+    rows: list[dict[str, int]] = []
     for row, doc in enumerate(doc_ids):
         if empty[row]:
             continue  # an empty text's signature equals every other empty one: never a candidate
@@ -116,7 +116,7 @@ def sign_pending(engine: Engine, params: SignatureParams, *, run_id: int | None,
             for doc_id, cid, _text in batch:
                 newest[int(cid)] = max(newest.get(int(cid), 0), int(doc_id))
             chosen = [(int(i), txt or "") for i, c, txt in batch if newest[int(c)] == int(i)]
-            already = set()
+            already: set[int] = set()
             for part in chunks([i for i, _ in chosen]):
                 already.update(int(x) for x in conn.execute(sa.select(sg.c.document_id)
                                                             .where(sg.c.document_id.in_(part))).scalars())
@@ -166,7 +166,7 @@ def refresh_signatures(engine: Engine, params: SignatureParams, *, run_id: int |
                 break
             last = int(batch[-1].document_id)
             ids = [int(r.document_id) for r in batch]
-            current = set()
+            current: set[int] = set()
             for part in chunks(ids):
                 current.update(int(x) for x in conn.execute(sa.select(bk.c.document_id).distinct()
                                                             .where(bk.c.document_id.in_(part))).scalars())

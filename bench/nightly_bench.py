@@ -1,0 +1,116 @@
+"""Incremental nightly benchmark: the cost of a night with 1% new documents against a full run.
+
+A registry is filled with generated documents in families of near-duplicates over four invented
+outlets (URLs through the real ingest path, documents as the content stage stores them). Measured in
+one run, on one database:
+
+* **full**: the first nightly run over everything (sign, match, verify, cluster every URL);
+* **incremental**: after adding 1% new documents (new URLs, some of them copies of stored texts), the next
+  nightly run;
+* **full again**: ``dedupe --full`` over the grown registry (everything matched and clustered again), a
+  second baseline that does not include first-time signing.
+
+The ratio incremental / full is the figure of merit (target ≤ 0.05); the absolute times depend on the
+machine and are printed for context only.
+
+Run:  python bench/nightly_bench.py [--docs 20000] [--db URL]
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import tempfile
+import time
+from datetime import UTC, datetime
+from pathlib import Path
+
+import numpy as np
+import sqlalchemy as sa
+
+from linkfold.content import count_words, normalise_text, text_hash
+from linkfold.dedupe.stage import run_dedupe
+from linkfold.dedupe.synthetic import edited_copy, invented_vocabulary, random_words
+from linkfold.ingest import ingest_dump
+from linkfold.jobs.nightly import run_nightly
+from linkfold.settings import load_settings
+from linkfold.store import make_engine, upgrade
+from linkfold.store import tables as t
+
+TARGET = 0.05
+OUTLETS = ("herald.example", "courier.test", "gazette.example", "ledger.test")
+STAMP = datetime(2031, 1, 1, tzinfo=UTC)
+
+
+def _add(engine, tmp: Path, rng, vocab, start: int, n: int, stored: list[list[str]], tag: str) -> None:
+    urls, bodies = [], []
+    for i in range(start, start + n):
+        if stored and rng.random() < 0.5:
+            base = stored[int(rng.integers(len(stored)))]
+            words = edited_copy(rng, base, 0.03, vocab)
+        else:
+            words = random_words(rng, vocab, int(rng.integers(200, 400)))
+            stored.append(words)
+        urls.append(f"https://{OUTLETS[i % 4]}/n/{i}")
+        bodies.append(" ".join(words))
+    path = tmp / f"{tag}.txt"
+    path.write_text("\n".join(urls) + "\n", encoding="utf-8")
+    ingest_dump(engine, [path], dataset=tag)
+    with engine.begin() as conn:
+        c = t.canonical_urls
+        ids = dict(conn.execute(sa.select(c.c.url, c.c.id)).all())
+        rows = []
+        for url, body in zip(urls, bodies, strict=True):
+            norm = normalise_text(body)
+            rows.append({"canonical_id": ids[url], "page_id": None, "title": None, "text": norm,
+                         "text_hash": text_hash(norm), "word_count": count_words(norm), "published": None,
+                         "status": "usable", "unusable_reason": None, "extractor_version": "bench",
+                         "source": "bench", "record_sha256": None, "created_at": STAMP})
+        for i in range(0, len(rows), 5000):
+            conn.execute(t.documents.insert(), rows[i:i + 5000])
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--docs", type=int, default=20_000)
+    ap.add_argument("--new-share", type=float, default=0.01)
+    ap.add_argument("--db", help="database URL (default: a fresh SQLite file in a temporary folder)")
+    args = ap.parse_args(argv)
+    with tempfile.TemporaryDirectory() as tmpdir:
+        tmp = Path(tmpdir)
+        url = args.db or f"sqlite:///{tmp / 'bench.db'}"
+        engine = make_engine(url)
+        upgrade(engine)
+        settings = load_settings(overrides={"database_url": url}, environ={})
+        rng = np.random.default_rng(1)
+        vocab = invented_vocabulary(20000, rng)
+        stored: list[list[str]] = []
+        _add(engine, tmp, rng, vocab, 0, args.docs, stored, "base")
+
+        t0 = time.perf_counter()
+        first = run_nightly(engine, settings=settings)
+        full = time.perf_counter() - t0
+        assert first.ok, first.lines()
+
+        n_new = max(1, int(args.docs * args.new_share))
+        _add(engine, tmp, rng, vocab, args.docs, n_new, stored, "night-2")
+        t0 = time.perf_counter()
+        second = run_nightly(engine, settings=settings)
+        incremental = time.perf_counter() - t0
+        assert second.ok, second.lines()
+
+        t0 = time.perf_counter()
+        run_dedupe(engine, settings=settings, full=True)
+        full_again = time.perf_counter() - t0
+        engine.dispose()
+
+    ratio, ratio_again = incremental / full, incremental / full_again
+    print(f"documents: {args.docs:,} then {n_new:,} new ({100 * args.new_share:g}%) on {url.split(':')[0]}")
+    print(f"full nightly run:        {full:8.2f} s")
+    print(f"incremental nightly run: {incremental:8.2f} s   ratio {ratio:.4f} (target ≤ {TARGET})")
+    print(f"dedupe --full afterwards:{full_again:8.2f} s   ratio {ratio_again:.4f}")
+    return 0 if ratio <= TARGET else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())
