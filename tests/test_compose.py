@@ -24,3 +24,22 @@ def test_postgres_service_with_port_volume_and_healthcheck():
     assert db["environment"]["POSTGRES_DB"] == "linkfold"
     # The password is required from the environment, never a default committed to the repository.
     assert db["environment"]["POSTGRES_PASSWORD"].startswith("${")
+
+
+def test_api_service_next_to_postgres():
+    doc = _compose()
+    api = doc["services"]["api"]
+    # Starts only once PostgreSQL answers, and talks to it by its service name.
+    assert api["depends_on"]["db"]["condition"] == "service_healthy"
+    env = api["environment"]
+    assert env["LINKFOLD_DATABASE_URL"].startswith("postgresql+psycopg://linkfold:${LINKFOLD_PG_PASSWORD")
+    assert "@db:5432/linkfold" in env["LINKFOLD_DATABASE_URL"]
+    # Reads stay closed unless a lab opens them on purpose.
+    assert env["LINKFOLD_OPEN_READS"] == "false"
+    # The API port is published on loopback only, like the database's: the registry holds personal data.
+    assert api["ports"] == ["127.0.0.1:8750:8750"]
+    assert "linkfold serve" in api["command"] and "--port 8750" in api["command"]
+    assert "linkfold db upgrade" in api["command"]
+    assert "/v1/health" in " ".join(api["healthcheck"]["test"])
+    # The source is mounted read-only; nothing in the container writes back into the checkout.
+    assert all(v.endswith(":ro") for v in api["volumes"])
