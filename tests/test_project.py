@@ -50,3 +50,9 @@ def test_demo_runs_in_a_fresh_folder(tmp_path):
     # Variants of one article fold onto one canonical URL.
     canon = [ln.split("-> ", 1)[1].split(" (", 1)[0] for ln in proc.stdout.splitlines() if "-> " in ln]
     assert len(canon) == 3 and canon[0] == canon[1]
+    # The short link resolves to the same article ID as the variants (redirect evidence).
+    ids = [ln.split("article ", 1)[1].split(",", 1)[0] for ln in proc.stdout.splitlines() if "-> " in ln]
+    assert len(set(ids)) == 1 and ids[0].startswith("a")
+    # The wire story and its syndicated copy on another outlet form one story.
+    story = [ln for ln in proc.stdout.splitlines() if "old-mill-bridge-reopens" in ln and ln.strip().startswith("s")]
+    assert story and "similar_text" in story[0]

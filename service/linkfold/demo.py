@@ -16,9 +16,13 @@ from pathlib import Path
 import sqlalchemy as sa
 
 from .canon import load_rules
+from .content.stage import import_pages
+from .dedupe.stage import list_clusters
 from .follow import import_redirects
 from .ingest import ingest_dump, lookup
+from .jobs.nightly import run_nightly
 from .progress import SILENT, Progress
+from .settings import Settings, load_settings
 from .store import ensure_schema, make_engine
 from .store import tables as t
 from .store.rulesets import store_ruleset
@@ -61,15 +65,24 @@ class DemoReport:
     steps: list[tuple[str, dict[str, int]]] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
     examples: list[dict] = field(default_factory=list)
+    clusters: dict[str, list[dict]] = field(default_factory=dict)
 
     def lines(self) -> list[str]:
         out = [f"registry: {self.database}", *self.notes]
         for name, counts in self.steps:
             parts = ", ".join(f"{k} {v:,}" for k, v in counts.items())
             out.append(f"{name}: {parts}")
+        for level, rows in self.clusters.items():
+            out.append(f"{level} clusters with more than one member: {len(rows)}")
+            for c in rows[:8]:
+                evidence = ", ".join(f"{k} {v}" for k, v in sorted(c["evidence"].items()))
+                out.append(f"  {c['id']}  {c['size']} URLs on {c['outlets']} host(s), founded by "
+                           f"{c['founder_url']}  [{evidence}]")
+            if len(rows) > 8:
+                out.append(f"  … and {len(rows) - 8} more (linkfold clusters --level {level})")
         for ex in self.examples:
             out.append(f"lookup {ex['input']}\n    -> {ex['canonical']} (url key {ex['url_key']}, "
-                       f"seen {ex['seen']})")
+                       f"article {ex.get('article_id')}, story {ex.get('story_id')}, seen {ex['seen']})")
         return out
 
 
@@ -80,7 +93,7 @@ def table_counts(engine: sa.Engine) -> dict[str, int]:
                 for n in names}
 
 
-def run_demo(workdir: Path, *, progress: Progress = SILENT,
+def run_demo(workdir: Path, *, settings: Settings | None = None, progress: Progress = SILENT,
              say: Callable[[str], None] = lambda _m: None) -> DemoReport:
     """Run the demo into ``workdir/demo.db`` (the folder is emptied first) and report counts."""
     if workdir.exists():
@@ -89,6 +102,7 @@ def run_demo(workdir: Path, *, progress: Progress = SILENT,
     db_path = workdir / "demo.db"
     engine = make_engine(f"sqlite:///{db_path}")
     fx = fixtures_dir()
+    settings = settings or load_settings()
     try:
         say(f"creating a fresh registry at {db_path}")
         ensure_schema(engine)
@@ -101,7 +115,15 @@ def run_demo(workdir: Path, *, progress: Progress = SILENT,
             report.notes.extend(summary.lines())
         imported = import_redirects(engine, fx / "short_links.csv", progress=progress)
         report.notes.extend(imported.lines_for_people())
+        pages = import_pages(engine, [fx / "pages"], settings=settings, progress=progress)
+        report.notes.extend(pages.lines())
+        # The nightly job runs every stage with pending work. With no contact address the stages that
+        # would reach the network (follow, fetch) are skipped: the demo never leaves the machine.
+        nightly = run_nightly(engine, settings=settings.replace(contact=""), progress=progress)
+        report.notes.extend(nightly.lines())
         report.steps.append(("registry", table_counts(engine)))
+        for level in ("article", "story"):
+            report.clusters[level] = [c.as_dict() for c in list_clusters(engine, level=level, min_size=2)]
         report.examples = list(lookup(engine, demo_lookups(fx)))
         return report
     finally:

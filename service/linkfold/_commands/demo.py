@@ -22,7 +22,7 @@ def demo_command(obj: Context, workdir: Path) -> None:
     Example:
       linkfold demo
     """
-    report = run_demo(workdir, progress=obj.progress(), say=obj.message)
+    report = run_demo(workdir, settings=obj.settings, progress=obj.progress(), say=obj.message)
     for line in report.lines():
         click.echo(line)
 
