@@ -36,10 +36,21 @@ class LookupAnswer(_Open):
 
 
 class BatchRequest(BaseModel):
+    """The batch body as the OpenAPI document describes it, with the default limit."""
+
     model_config = ConfigDict(extra="forbid")
 
     urls: list[str] = Field(max_length=10000,
                             description="URLs, url keys or IDs; at most api_max_batch (default 10,000).")
+
+
+class BatchBody(BaseModel):
+    """The batch body as parsed: the limit is the server's setting, checked after parsing, so that too
+    many items is a 413 that says so rather than a schema error."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    urls: list[str]
 
 
 class DatasetSummary(_Open):

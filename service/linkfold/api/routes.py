@@ -17,7 +17,16 @@ from ..jobs.nightly import list_runs, show_run
 from ..store import current_revision, registry
 from .auth import Access, read_access
 from .errors import ApiError, envelope, error_responses
-from .models import BatchRequest, DatasetDetail, DatasetList, Health, LookupAnswer, RunDetail, RunList
+from .models import (
+    BatchBody,
+    BatchRequest,
+    DatasetDetail,
+    DatasetList,
+    Health,
+    LookupAnswer,
+    RunDetail,
+    RunList,
+)
 from .state import ApiState
 
 log = logging.getLogger("linkfold")
@@ -68,7 +77,7 @@ def _batch_items(body: bytes, content_type: str, limit: int) -> list[str]:
     media = content_type.split(";", 1)[0].strip().lower()
     if media == "application/json":
         try:
-            parsed = BatchRequest.model_validate_json(body)
+            parsed = BatchBody.model_validate_json(body)
         except ValueError as exc:
             first = str(exc).splitlines()[0] if str(exc) else "invalid JSON"
             raise ApiError(400, "invalid_request", f'the body must be {{"urls": ["…", …]}}: {first}') from None
