@@ -120,3 +120,16 @@ def test_a_file_that_is_not_jsonl(tmp_path):
         list(read_documents(path))
     with pytest.raises(InputError, match="no such file"):
         list(read_documents(tmp_path / "missing.jsonl"))
+
+
+def test_a_lone_surrogate_escape_becomes_a_replacement_character(tmp_path):
+    # RFC 8259 §8.2: JSON may carry "\ud800" alone, which is no Unicode scalar value and cannot be
+    # encoded as UTF-8 (RFC 3629 §3); like a decoder meeting a broken sequence we use U+FFFD.
+    path = tmp_path / "docs.jsonl"
+    body = " ".join(["word"] * 80)
+    path.write_text('{"url": "https://daily.example/a", "title": "T", "text": "' + body + ' \\ud800 end"}\n',
+                    encoding="utf-8")
+    tally = ReadTally()
+    (doc,) = read_documents(path, now=NOW, tally=tally)
+    assert "\ufffd" in doc.text and doc.text_hash == text_hash(doc.text)
+    assert not tally.problems

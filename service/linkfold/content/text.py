@@ -22,6 +22,9 @@ _INVISIBLE = dict.fromkeys(map(ord, "\u00ad\u200b\u200c\u200d\u2060\ufeff"))
 _SPACES = re.compile(r"[^\S\n]+")  # any Unicode whitespace except the newline
 
 
+_SURROGATE = re.compile("[\ud800-\udfff]")
+
+
 def normalise_text(text: str) -> str:
     """Invisible characters removed, NFC, whitespace runs inside a line to one space, lines stripped,
     line breaks unified and empty lines dropped: one paragraph a line.
@@ -29,6 +32,9 @@ def normalise_text(text: str) -> str:
     # Invisible characters go first: one between a letter and its combining mark would otherwise keep
     # the pair from composing.
     text = text.translate(_INVISIBLE)
+    # A lone surrogate (JSON allows "\ud800" escapes) cannot be encoded as UTF-8, so it could be neither
+    # hashed nor stored: it becomes U+FFFD, as a decoder does with a broken byte sequence.
+    text = _SURROGATE.sub("\ufffd", text)
     text = unicodedata.normalize("NFC", text)
     # str.splitlines knows every Unicode line boundary (CR LF, U+2028, U+2029, NEL …).
     lines = (_SPACES.sub(" ", line).strip() for line in text.splitlines())
