@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import ipaddress
 import logging
+from collections.abc import Mapping
+from typing import Any
 
 import click
 
@@ -102,7 +104,7 @@ def tokens_list(obj: Context, active: bool, fmt: str) -> None:
       linkfold tokens list --active --format jsonl
     """
     with obj.engine().connect() as conn:
-        rows = tok.list_tokens(conn, include_revoked=not active)
+        rows: list[Mapping[str, Any]] = list(tok.list_tokens(conn, include_revoked=not active))
     if fmt == "jsonl":
         write_jsonl(rows)
     elif rows:
