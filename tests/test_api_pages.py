@@ -58,7 +58,7 @@ def test_pages_without_a_token_show_the_token_form(world):
     assert world["web"].get("/").status_code == 200  # the home page holds the search box and the form
 
 
-def test_token_form_sets_a_strict_httponly_cookie_and_refuses_a_bad_token(world):
+def test_token_form_sets_a_strict_httponly_cookie_and_refuses_a_bad_token(world, caplog):
     r = world["web"].post("/session", data={"token": world["read"], "next": "/clusters"})
     assert r.status_code == 303 and r.headers["location"] == "/clusters"
     cookie = r.headers["set-cookie"].lower()
@@ -68,6 +68,9 @@ def test_token_form_sets_a_strict_httponly_cookie_and_refuses_a_bad_token(world)
     assert r.headers["location"] == "/"
     r = world["web"].post("/session", data={"token": "lf_wrong", "next": "/"})
     assert r.status_code == 401 and "not valid" in r.text
+    # The refusal is logged, the token is not.
+    assert any("POST /session" in rec.getMessage() for rec in caplog.records)
+    assert all("lf_wrong" not in rec.getMessage() for rec in caplog.records)
 
 
 def test_search_box_lookup_page(world):

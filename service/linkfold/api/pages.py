@@ -7,6 +7,7 @@ is what keeps another site from posting a decision in the reviewer's name). Deci
 
 from __future__ import annotations
 
+import logging
 from pathlib import Path
 from typing import Annotated, Any
 from urllib.parse import quote
@@ -32,6 +33,7 @@ TEMPLATES.env.globals["version"] = __version__
 TEMPLATES.env.filters["q"] = lambda value: quote(str(value), safe="")
 
 router = APIRouter()
+log = logging.getLogger("linkfold")
 
 COOKIE_MAX_AGE = 8 * 3600  # a working day; a reviewer signs in again tomorrow
 
@@ -85,6 +87,9 @@ def start_session(request: Request, token: Annotated[str, Form(max_length=200)],
     state = request.app.state.linkfold
     check = check_token(state.engine, token.strip())
     if check.state is not TokenState.VALID:
+        client = request.client.host if request.client else "-"
+        log.warning("api access refused: POST /session from %s: %s token (%s)", client, check.state.value,
+                    f"token id {check.token_id}" if check.token_id is not None else "no known token")
         return render_error_page(request, 401, "unauthorized" if check.state is TokenState.UNKNOWN
                                  else "token_revoked", "that token is not valid" if check.state is
                                  TokenState.UNKNOWN else "that token has been revoked")
