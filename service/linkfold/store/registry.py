@@ -168,6 +168,13 @@ def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
             conn.execute(sa.schema.CreateTable(table, if_not_exists=True))
         insert_tuples(conn, stage_raws, RAW_COLUMNS, raws)
         insert_tuples(conn, stage_rows, ROW_COLUMNS, rows)
+        if conn.dialect.name == "postgresql":
+            # Every join below pairs a few thousand staged rows with a large table through its unique
+            # index, so an index nested loop is always the right plan. The planner, with no statistics on
+            # the temporary tables and stale ones on tables that grow during the load, otherwise picks
+            # hash joins that scan the whole registry once per batch (the load slowed as it grew).
+            conn.exec_driver_sql("SET LOCAL enable_hashjoin = off")
+            conn.exec_driver_sql("SET LOCAL enable_mergejoin = off")
         _move_stage(conn, dataset_id=dataset_id, file_id=file_id, ruleset_id=ruleset_id, counts=counts)
         if conn.dialect.name != "postgresql":
             conn.execute(sa.delete(stage_rows))
