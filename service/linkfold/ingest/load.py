@@ -8,8 +8,12 @@ Order of work, chosen so that bad input costs nothing:
 3. rows are read, canonicalised and written one batch per transaction; each batch moves the file's
    resume point (``lines_done``) in the same transaction, so an interruption keeps whole batches only;
 4. the last batch marks the file complete. Loading a complete file again adds nothing; loading a file
-   whose load was interrupted resumes after its resume point, and the unique keys of sightings and
-   rejects turn any overlap into no-ops.
+   whose load was interrupted resumes after its resume point. Nothing after the resume point can be
+   stored (it moves with the rows), so a resumed load never writes a row twice; the unique keys of
+   sightings and rejects would turn a bug that tried into an error, never into a duplicate.
+
+Batches are written on a writer thread with its own connection (``writer.BatchWriter``), overlapping
+the database's work with the reading of the next batch.
 """
 
 from __future__ import annotations

@@ -1,11 +1,12 @@
 """Queries and writes of ingest, lookup and export: datasets, their files, raw and canonical URLs,
 sightings and rejects.
 
-A batch of a load is written set-wise: its entries go into a temporary staging table (COPY on
-PostgreSQL, executemany on SQLite, through :func:`linkfold.store.bulk.insert_rows`), then four
-``INSERT … SELECT … ON CONFLICT DO NOTHING`` statements move them into canonical URLs, raw URLs,
-sightings and rejects, resolving ids by join on the unique keys (url key, raw hash) rather than row by
-row. The unique keys make every statement safe to repeat, which is what lets an interrupted load resume.
+A batch of a load is written set-wise: its rows and its distinct raw URLs go into two temporary staging
+tables (COPY on PostgreSQL, executemany on SQLite, through :func:`linkfold.store.bulk.insert_tuples`),
+then four ``INSERT … SELECT`` statements move them into canonical URLs and raw URLs (``ON CONFLICT DO
+NOTHING``: they are shared by every dataset), sightings and rejects, resolving ids by join on the unique
+keys (url key, raw hash) rather than row by row. The file's resume point moves in the same transaction,
+which is what lets an interrupted load resume without writing anything twice.
 """
 
 from __future__ import annotations
