@@ -16,7 +16,7 @@ from ._common import Context, common_options, pass_ctx
 @common_options
 @pass_ctx
 def demo_command(obj: Context, workdir: Path) -> None:
-    """Run every stage that exists on the invented fixtures into a fresh embedded registry.
+    """Run the whole pipeline on the invented fixtures into a fresh embedded registry and show the IDs.
 
     \b
     Example:
