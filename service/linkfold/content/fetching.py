@@ -20,7 +20,6 @@ most the batch in flight (those URLs stay pending).
 
 from __future__ import annotations
 
-import asyncio
 import logging
 from collections import Counter
 from collections.abc import Callable, Sequence
@@ -37,6 +36,7 @@ from ..errors import ConfigError, InvalidURL
 from ..follow.chain import REFUSALS, Hop, _decode_location, next_url
 from ..follow.client import REDIRECT_STATUSES, ClientConfig, Failure, FetchError, Reply, SafeClient, classify
 from ..follow.guard import AddressRefused, ResolveFailed, Resolver, literal_address
+from ..follow.runner import request_url, run_requests
 from ..follow.stage import next_attempt
 from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
@@ -196,15 +196,6 @@ def _by_class(counts: Counter[str]) -> str:
     return (" (" + ", ".join(f"{k} {v:,}" for k, v in sorted(counts.items())) + ")") if counts else ""
 
 
-def _request_url(item: sp.FetchPending) -> str | None:
-    """The first raw URL seen for it, trimmed, else the canonical URL (docs/following.md: a canonical fold
-    can name a URL the server does not answer)."""
-    for candidate in (item.raw, item.url):
-        if candidate and candidate.strip().lower().startswith(("http://", "https://")):
-            return candidate.strip()
-    return None
-
-
 class _Writer:
     def __init__(self, engine: Engine, canon: Canonicaliser, *, ruleset_id: int, run_id: int,
                  summary: FetchSummary) -> None:
@@ -290,24 +281,6 @@ class _Writer:
                            fetched_at=got.at, run_id=self.run_id)
 
 
-async def _run_all(client: SafeClient, items: Sequence[sp.FetchPending], *, max_hops: int, parallel: int,
-                   on_done: Callable[[sp.FetchPending, Fetched | None], None]) -> None:
-    queue: asyncio.Queue[sp.FetchPending] = asyncio.Queue()
-    for item in items:
-        queue.put_nowait(item)
-
-    async def worker() -> None:
-        while True:
-            try:
-                item = queue.get_nowait()
-            except asyncio.QueueEmpty:
-                return
-            url = _request_url(item)
-            on_done(item, None if url is None else await fetch_one(client, url, max_hops=max_hops))
-
-    await asyncio.gather(*(worker() for _ in range(max(1, min(parallel, len(items))))))
-
-
 def fetch_pages(engine: Engine, *, settings: Any, dataset: str | None = None, only_articles: bool = False,
                 limit: int | None = None, retry_refused: bool = False, resolver: Resolver | None = None,
                 progress: Progress = SILENT, now: datetime | None = None,
@@ -338,32 +311,22 @@ def fetch_pages(engine: Engine, *, settings: Any, dataset: str | None = None, on
     with recording_run(engine, "fetch") as run:
         summary.run_id = run.id
         writer = _Writer(engine, canon, ruleset_id=ruleset_id, run_id=run.id, summary=summary)
-        pending: list[tuple[sp.FetchPending, Fetched]] = []
 
-        def done(item: sp.FetchPending, got: Fetched | None) -> None:
-            progress.advance(1)
-            if got is None:
-                summary.skipped += 1
-                return
-            pending.append((item, got))
-            if len(pending) >= batch_size:
-                batch = list(pending)
-                pending.clear()  # a batch that fails to write is not written again on the way out
-                writer.write(batch)
-                run.counts = summary.counts()
+        def write(batch: list[tuple[sp.FetchPending, Fetched]]) -> None:
+            writer.write(batch)
+            run.counts = summary.counts()
 
-        async def go() -> None:
-            async with SafeClient(config, resolver=resolver, backend=backend) as client:
-                await _run_all(client, items, max_hops=settings.max_hops, parallel=config.concurrency,
-                               on_done=done)
+        async def fetch(client: SafeClient, item: sp.FetchPending) -> Fetched | None:
+            url = request_url(item.raw, item.url)
+            return None if url is None else await fetch_one(client, url, max_hops=settings.max_hops)
+
+        def skip(_item: sp.FetchPending) -> None:
+            summary.skipped += 1
 
         try:
-            asyncio.run(go())
+            run_requests(items, config=config, resolver=resolver, backend=backend, request=fetch,
+                         write=write, batch_size=batch_size, progress=progress, on_skip=skip)
         finally:
-            # What finished before an interruption is stored too.
-            if pending:
-                writer.write(pending)
-                pending.clear()
             run.counts = summary.counts()
             progress.finish()
     return summary

@@ -20,10 +20,9 @@ For each chain:
 
 from __future__ import annotations
 
-import asyncio
 import logging
 from collections import Counter
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from typing import Any
@@ -41,6 +40,7 @@ from ..store.rulesets import latest_ruleset
 from .chain import Chain, State, follow_chain
 from .client import ClientConfig, Failure, SafeClient
 from .guard import Resolver
+from .runner import request_url, run_requests
 
 log = logging.getLogger("linkfold")
 
@@ -146,14 +146,6 @@ def canonical_hosts(hosts: Iterable[str]) -> frozenset[str]:
     return frozenset(out)
 
 
-def _fetch_url(item: ev.Pending) -> str | None:
-    """The URL to request: the first raw URL seen for it, trimmed, else the canonical URL."""
-    for candidate in (item.raw, item.url):
-        if candidate and candidate.strip().lower().startswith(("http://", "https://")):
-            return candidate.strip()
-    return None
-
-
 class _Writer:
     """Turns finished chains into rows, one transaction per batch."""
 
@@ -256,25 +248,6 @@ class _Writer:
         return out
 
 
-async def _run_chains(client: SafeClient, items: Sequence[ev.Pending], *, max_hops: int, parallel: int,
-                      on_done: Callable[[ev.Pending, Chain | None], None]) -> None:
-    queue: asyncio.Queue[ev.Pending] = asyncio.Queue()
-    for item in items:
-        queue.put_nowait(item)
-
-    async def worker() -> None:
-        while True:
-            try:
-                item = queue.get_nowait()
-            except asyncio.QueueEmpty:
-                return
-            url = _fetch_url(item)
-            chain = None if url is None else await follow_chain(client, url, max_hops=max_hops)
-            on_done(item, chain)
-
-    await asyncio.gather(*(worker() for _ in range(max(1, min(parallel, len(items))))))
-
-
 def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
                  hosts: Iterable[str] | None = None, all_urls: bool = False, limit: int | None = None,
                  retry_failed: bool = False, retry_refused: bool = False, resolver: Resolver | None = None,
@@ -322,32 +295,22 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
     with recording_run(engine, "follow") as run:
         summary.run_id = run.id
         writer = _Writer(engine, canon, ruleset_id=ruleset_id, run_id=run.id, summary=summary)
-        pending: list[tuple[ev.Pending, Chain]] = []
 
-        def done(item: ev.Pending, chain: Chain | None) -> None:
-            progress.advance(1)
-            if chain is None:
-                summary.skipped += 1
-                return
-            pending.append((item, chain))
-            if len(pending) >= batch_size:
-                batch = list(pending)
-                pending.clear()  # a batch that fails to write is not written again on the way out
-                writer.write(batch)
-                run.counts = summary.as_dict()
+        def write(batch: list[tuple[ev.Pending, Chain]]) -> None:
+            writer.write(batch)
+            run.counts = summary.as_dict()
 
-        async def go() -> None:
-            async with SafeClient(config, resolver=resolver, backend=backend) as client:
-                await _run_chains(client, items, max_hops=settings.max_hops,
-                                  parallel=config.concurrency, on_done=done)
+        async def follow_one(client: SafeClient, item: ev.Pending) -> Chain | None:
+            url = request_url(item.raw, item.url)
+            return None if url is None else await follow_chain(client, url, max_hops=settings.max_hops)
+
+        def skip(_item: ev.Pending) -> None:
+            summary.skipped += 1
 
         try:
-            asyncio.run(go())
+            run_requests(items, config=config, resolver=resolver, backend=backend, request=follow_one,
+                         write=write, batch_size=batch_size, progress=progress, on_skip=skip)
         finally:
-            # What finished before an interruption is stored too.
-            if pending:
-                writer.write(pending)
-                pending.clear()
             run.counts = summary.as_dict()
             progress.finish()
     return summary

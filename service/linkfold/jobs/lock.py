@@ -14,6 +14,7 @@ from __future__ import annotations
 import logging
 import os
 import socket
+import time
 import zlib
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -113,15 +114,28 @@ def _is_stale(info: LockInfo, *, stale_after: float, have_advisory: bool | None)
     return _now() - info.heartbeat_at > timedelta(seconds=stale_after)
 
 
+def _try_advisory(pg_conn: sa.Connection, name: str) -> bool:
+    return bool(pg_conn.execute(sa.text("SELECT pg_try_advisory_lock(:k)"),
+                                {"k": _advisory_key(name)}).scalar())
+
+
 def acquire_lock(engine: Engine, name: str = "registry", *, run_id: int | None = None,
-                 stale_after: float = 6 * 3600) -> RegistryLock:
+                 stale_after: float = 6 * 3600, release_wait: float = 10.0) -> RegistryLock:
     """Take the lock or raise :class:`LockHeld` naming its holder."""
     pg_conn = None
     have_advisory: bool | None = None
     if engine.dialect.name == "postgresql":
         pg_conn = engine.connect().execution_options(isolation_level="AUTOCOMMIT")
-        have_advisory = bool(pg_conn.execute(sa.text("SELECT pg_try_advisory_lock(:k)"),
-                                             {"k": _advisory_key(name)}).scalar())
+        have_advisory = _try_advisory(pg_conn, name)
+        if not have_advisory:
+            info = read_lock(engine, name)
+            if info is not None and info.host == socket.gethostname() and not _pid_alive(info.pid):
+                # The holder died a moment ago: its server session ends a few moments after the process,
+                # and only then is the advisory lock free. Wait that long rather than refuse.
+                deadline = time.monotonic() + release_wait
+                while not have_advisory and time.monotonic() < deadline:
+                    time.sleep(0.1)
+                    have_advisory = _try_advisory(pg_conn, name)
         if not have_advisory:
             pg_conn.close()
             info = read_lock(engine, name)
