@@ -98,3 +98,15 @@ def test_every_error_has_a_distinct_code_and_documented_exit():
         assert cls.exit_code in documented
     codes = [c.code for c in subclasses]
     assert len(codes) == len(set(codes))
+
+
+def test_the_client_does_not_load_the_pipeline():
+    # Other projects import linkfold.client in notebooks: it must stay light (no extraction library,
+    # numpy or database driver on import).
+    import subprocess
+    import sys
+
+    code = ("import sys, linkfold.client; "
+            "print(sorted(m for m in ('trafilatura', 'numpy', 'sqlalchemy', 'psycopg') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip() == "[]"

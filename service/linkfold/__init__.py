@@ -1,9 +1,14 @@
 """linkfold: a registry that folds the many URLs of one news article onto one stable ID.
 
-What other projects may import is listed in ``__all__``; everything else is internal.
+What other projects may import is listed in ``__all__``; everything else is internal. The pipeline's
+functions are loaded on first use (PEP 562), so ``import linkfold.client`` in another project does not
+pull in the extraction library, numpy or the database drivers.
 """
 
 from __future__ import annotations
+
+import importlib
+from typing import Any
 
 __version__ = "0.1.0"
 
@@ -23,7 +28,44 @@ from .errors import (
 )
 from .settings import Settings, load_settings
 
+# name -> module that defines it; one line per public function or type of the pipeline.
+_LAZY = {
+    "Canonical": "linkfold.canon",
+    "Canonicaliser": "linkfold.canon",
+    "Ruleset": "linkfold.canon",
+    "canonicalize": "linkfold.canon",
+    "load_rules": "linkfold.canon",
+    "url_key": "linkfold.canon",
+    "make_engine": "linkfold.store",
+    "ingest_dump": "linkfold.ingest",
+    "lookup": "linkfold.ingest",
+    "export_dataset": "linkfold.ingest",
+    "follow_links": "linkfold.follow",
+    "import_redirects": "linkfold.follow",
+    "fetch_pages": "linkfold.content.fetching",
+    "import_pages": "linkfold.content.stage",
+    "load_documents": "linkfold.content.stage",
+    "extract_pages": "linkfold.content.stage",
+    "run_dedupe": "linkfold.dedupe.stage",
+    "record_decision": "linkfold.dedupe.stage",
+    "list_clusters": "linkfold.dedupe.stage",
+    "recanonicalize": "linkfold.jobs.recanon",
+    "run_nightly": "linkfold.jobs.nightly",
+}
+
+
+def __getattr__(name: str) -> Any:
+    module = _LAZY.get(name)
+    if module is None:
+        raise AttributeError(f"module 'linkfold' has no attribute {name!r}")
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value
+
+
 __all__ = [
+    "Canonical",
+    "Canonicaliser",
     "ConfigError",
     "DatabaseError",
     "DumpFormatError",
@@ -35,8 +77,27 @@ __all__ = [
     "NetworkError",
     "NotFound",
     "RulesError",
+    "Ruleset",
     "SchemaError",
     "Settings",
     "__version__",
+    "canonicalize",
+    "export_dataset",
+    "extract_pages",
+    "fetch_pages",
+    "follow_links",
+    "import_pages",
+    "import_redirects",
+    "ingest_dump",
+    "list_clusters",
+    "load_documents",
+    "load_rules",
     "load_settings",
+    "lookup",
+    "make_engine",
+    "recanonicalize",
+    "record_decision",
+    "run_dedupe",
+    "run_nightly",
+    "url_key",
 ]
