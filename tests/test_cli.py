@@ -92,7 +92,7 @@ def test_public_names_are_sorted_and_importable():
 
 def test_every_error_has_a_distinct_code_and_documented_exit():
     subclasses = [getattr(errors, n) for n in errors.__all__]
-    documented = {0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 130}
+    documented = {0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 130}
     for cls in subclasses:
         assert issubclass(cls, errors.LinkfoldError)
         assert cls.exit_code in documented
@@ -110,3 +110,7 @@ def test_the_client_does_not_load_the_pipeline():
             "print(sorted(m for m in ('trafilatura', 'numpy', 'sqlalchemy', 'psycopg') if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "[]"
+
+
+def test_every_error_class_is_public():
+    assert set(errors.__all__) <= set(linkfold.__all__)

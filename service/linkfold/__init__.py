@@ -25,6 +25,8 @@ from .errors import (
     NotFound,
     RulesError,
     SchemaError,
+    SignatureError,
+    StageFailed,
 )
 from .settings import Settings, load_settings
 
@@ -80,6 +82,8 @@ __all__ = [
     "Ruleset",
     "SchemaError",
     "Settings",
+    "SignatureError",
+    "StageFailed",
     "__version__",
     "canonicalize",
     "export_dataset",

@@ -17,6 +17,7 @@ Exit codes (documented in README.md, kept stable for scripts):
 7   not found (unknown dataset, ID, run …)
 8   lock held (another job holds the registry lock)
 9   network error (fetching or following links failed as a whole)
+10  a stage of the nightly job failed (the other stages ran; see ``linkfold runs show``)
 130 interrupted (Ctrl-C); what was committed stays committed
 ==  =====================================================
 """
@@ -113,6 +114,13 @@ class SignatureError(DatabaseError):
     """A stored signature or its parameter record is malformed or does not match its parameters."""
 
     code = "signature"
+
+
+class StageFailed(LinkfoldError):
+    """A stage of a multi-stage job failed; what the other stages did is committed and logged."""
+
+    exit_code = 10
+    code = "stage_failed"
 
 
 class NotFound(LinkfoldError):

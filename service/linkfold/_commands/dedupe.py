@@ -18,7 +18,7 @@ from ..dedupe.stage import (
     show_cluster,
     thresholds_report,
 )
-from ..errors import InputError
+from ..errors import StageFailed
 from ..jobs.lock import hold_lock
 from ..jobs.nightly import list_runs, run_nightly, show_run
 from ._common import Context, common_options, format_option, pass_ctx, to_json, write_jsonl, write_table
@@ -279,13 +279,8 @@ def nightly_command(obj: Context, summary_format: str) -> None:
     for line in summary.lines():
         obj.message(line)
     if not summary.ok:
-        raise _StageFailed(f"nightly run {summary.run_id} {summary.status}; see linkfold runs show "
+        raise StageFailed(f"nightly run {summary.run_id} {summary.status}; see linkfold runs show "
                            f"{summary.run_id}")
-
-
-class _StageFailed(InputError):
-    exit_code = 1
-    code = "stage_failed"
 
 
 def _run_row(r: dict[str, Any]) -> dict[str, Any]:
