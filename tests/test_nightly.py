@@ -133,3 +133,15 @@ def test_killed_nightly_then_rerun_equals_an_uninterrupted_run(db_url, engine, t
         assert mine == clean
     finally:
         other.dispose()
+
+
+def test_extract_is_a_child_run_of_the_nightly_run(engine):
+    # Pages imported from the invented fixtures give the extract stage work; its run hangs under the
+    # nightly run (passed down as parent_id, not found afterwards).
+    from linkfold.content.stage import import_pages
+
+    import_pages(engine, [ROOT / "fixtures" / "pages"])
+    summary = run_nightly(engine, settings=settings())
+    shown = show_run(engine, summary.run_id)
+    assert [c["stage"] for c in shown["children"]] == ["extract", "dedupe"]
+    assert {s.name: s.run_id for s in summary.stages}["extract"] == shown["children"][0]["id"]

@@ -284,7 +284,8 @@ class _Writer:
 def fetch_pages(engine: Engine, *, settings: Any, dataset: str | None = None, only_articles: bool = False,
                 limit: int | None = None, retry_refused: bool = False, resolver: Resolver | None = None,
                 progress: Progress = SILENT, now: datetime | None = None,
-                backend: httpcore.AsyncNetworkBackend | None = None) -> FetchSummary:
+                backend: httpcore.AsyncNetworkBackend | None = None,
+                parent_id: int | None = None) -> FetchSummary:
     """Fetch pending canonical URLs (see :func:`linkfold.store.pages.select_fetch_pending`) and store pages.
 
     ``dataset`` keeps URLs sighted in that dataset; ``only_articles`` those matching the ruleset's article
@@ -308,7 +309,7 @@ def fetch_pages(engine: Engine, *, settings: Any, dataset: str | None = None, on
     canon = Canonicaliser(rules, cache_size=settings.canon_cache_size)
     batch_size = max(1, min(settings.batch_size, WRITE_BATCH))
     progress.start("fetch", total=len(items))
-    with recording_run(engine, "fetch") as run:
+    with recording_run(engine, "fetch", parent_id=parent_id) as run:
         summary.run_id = run.id
         writer = _Writer(engine, canon, ruleset_id=ruleset_id, run_id=run.id, summary=summary)
 

@@ -503,7 +503,7 @@ class _DocWriter:
 
 def extract_pages(engine: Engine, *, settings: Any = None, reextract: bool = False, limit: int | None = None,
                   batch_size: int | None = None, rules: UsableTextRules = DEFAULT_RULES,
-                  progress: Progress = SILENT) -> ExtractSummary:
+                  progress: Progress = SILENT, parent_id: int | None = None) -> ExtractSummary:
     """Turn stored pages into documents (see the module doc); returns the counts.
 
     Without ``reextract``: pages that have no document yet. With it: pages that have no document under
@@ -524,7 +524,7 @@ def extract_pages(engine: Engine, *, settings: Any = None, reextract: bool = Fal
         return summary
     canon = Canonicaliser(ruleset, cache_size=settings.canon_cache_size if settings is not None else 65536)
     progress.start("extract", total=total)
-    with recording_run(engine, "extract") as run:
+    with recording_run(engine, "extract", parent_id=parent_id) as run:
         summary.run_id = run.id
         writer = _DocWriter(engine, canon, ruleset, ruleset_id=ruleset_id, run_id=run.id, version=version,
                             text_rules=rules, summary=summary)

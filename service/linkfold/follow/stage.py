@@ -253,7 +253,8 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
                  retry_failed: bool = False, retry_refused: bool = False, resolver: Resolver | None = None,
                  progress: Progress = SILENT,
                  now: datetime | None = None,
-                 backend: httpcore.AsyncNetworkBackend | None = None) -> FollowSummary:
+                 backend: httpcore.AsyncNetworkBackend | None = None,
+                 parent_id: int | None = None) -> FollowSummary:
     """Follow pending canonical URLs (see the module doc) and return the counts.
 
     Which URLs: without ``all_urls``, those on ``hosts`` or, when ``hosts`` is not given, on the
@@ -292,7 +293,7 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
     canon = Canonicaliser(rules, cache_size=settings.canon_cache_size)
     batch_size = max(1, min(settings.batch_size, WRITE_BATCH))
     progress.start("follow", total=len(items))
-    with recording_run(engine, "follow") as run:
+    with recording_run(engine, "follow", parent_id=parent_id) as run:
         summary.run_id = run.id
         writer = _Writer(engine, canon, ruleset_id=ruleset_id, run_id=run.id, summary=summary)
 

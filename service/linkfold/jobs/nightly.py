@@ -125,7 +125,7 @@ def _follow_pending(engine: Engine, settings: Any) -> int:
 def _follow_run(engine: Engine, settings: Any, parent: int, progress: Progress) -> dict[str, Any]:
     from ..follow import follow_links
 
-    return follow_links(engine, settings=settings, progress=progress).as_dict()
+    return follow_links(engine, settings=settings, progress=progress, parent_id=parent).as_dict()
 
 
 def _fetch_pending(engine: Engine, settings: Any) -> int:
@@ -137,7 +137,7 @@ def _fetch_pending(engine: Engine, settings: Any) -> int:
 def _fetch_run(engine: Engine, settings: Any, parent: int, progress: Progress) -> dict[str, Any]:
     from ..content.stage import fetch_pages
 
-    return fetch_pages(engine, settings=settings, progress=progress).counts()
+    return fetch_pages(engine, settings=settings, progress=progress, parent_id=parent).counts()
 
 
 def _extract_pending(engine: Engine, settings: Any) -> int:
@@ -149,7 +149,7 @@ def _extract_pending(engine: Engine, settings: Any) -> int:
 def _extract_run(engine: Engine, settings: Any, parent: int, progress: Progress) -> dict[str, Any]:
     from ..content.stage import extract_pages
 
-    return extract_pages(engine, settings=settings, progress=progress).counts()
+    return extract_pages(engine, settings=settings, progress=progress, parent_id=parent).counts()
 
 
 def _dedupe_pending(engine: Engine, settings: Any) -> int:
@@ -202,20 +202,6 @@ def mark_interrupted(engine: Engine, *, own_run: int) -> list[int]:
     return sorted(dead)
 
 
-def _last_run_id(engine: Engine) -> int:
-    with engine.connect() as conn:
-        return int(conn.execute(sa.select(sa.func.max(t.runs.c.id))).scalar() or 0)
-
-
-def _adopt(engine: Engine, parent: int, after: int) -> None:
-    """Make the runs a stage recorded for itself (this process, since the stage began) children of ours."""
-    r = t.runs
-    with engine.begin() as conn:
-        conn.execute(r.update().where(r.c.parent_id.is_(None), r.c.id != parent, r.c.id > after,
-                                      r.c.pid == os.getpid(), r.c.host == socket.gethostname()[:255])
-                     .values(parent_id=parent))
-
-
 # --- the job ----------------------------------------------------------------------------------------------------
 def run_nightly(engine: Engine, *, settings: Any, progress: Progress = SILENT,
                 stages: tuple[Stage, ...] = DEFAULT_STAGES, stale_after: float = 6 * 3600) -> NightlySummary:
@@ -256,7 +242,6 @@ def _one_stage(engine: Engine, settings: Any, stage: Stage, parent: int, progres
         return StageOutcome(stage.name, "failed", reason=f"could not count pending work: {exc}")
     if pending == 0:
         return StageOutcome(stage.name, "skipped", pending=0, reason="nothing pending")
-    before = _last_run_id(engine)
     started = time.monotonic()
     outcome = StageOutcome(stage.name, "ok", pending=pending)
     try:
@@ -271,7 +256,6 @@ def _one_stage(engine: Engine, settings: Any, stage: Stage, parent: int, progres
         outcome.status, outcome.reason = "failed", f"{type(exc).__name__}: {exc}"
     finally:
         outcome.seconds = time.monotonic() - started
-        _adopt(engine, parent, before)
     outcome.run_id = _child_run(engine, parent, stage.name)
     return outcome
 
