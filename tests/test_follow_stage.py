@@ -188,3 +188,26 @@ def test_retry_refused_after_the_rule_changed(engine, db_url, tmp_path, server):
     with engine.connect() as conn:
         start = canonical_id(conn, server.url("/to?loc=/final", host="short.test"))
         assert [a["state"] for a in ev.follow_attempts_of(conn, start)] == ["refused", "resolved"]
+
+
+
+def test_count_pending_agrees_with_the_selection(engine):
+    # The nightly job asks how many URLs are pending without loading them: the count and the selection
+    # must follow the same rule (never followed; restricted to hosts; none for an empty host list).
+    from datetime import UTC, datetime
+
+    from linkfold.store import evidence as ev
+    from linkfold.store import tables as t
+
+    now = datetime.now(UTC)
+    with engine.begin() as conn:
+        for i, host in enumerate(["short.test", "short.test", "daily.example"]):
+            conn.execute(t.canonical_urls.insert().values(url_key=f"k{i:023d}", url=f"https://{host}/{i}",
+                                                           host=host, created_at=now))
+        first = conn.execute(sa.select(sa.func.min(t.canonical_urls.c.id))).scalar_one()
+        conn.execute(t.follow_results.insert().values(canonical_id=first, state="resolved", via="fetched",
+                                                      attempts=1, first_attempt_at=now, last_attempt_at=now))
+    with engine.begin() as conn:
+        for hosts in (None, ["short.test"], ["daily.example"], []):
+            assert ev.count_pending(conn, hosts=hosts) == len(ev.select_pending(conn, hosts=hosts))
+        assert ev.count_pending(conn, hosts=["short.test"]) == 1

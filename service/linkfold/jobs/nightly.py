@@ -119,7 +119,7 @@ def _follow_pending(engine: Engine, settings: Any) -> int:
         hosts = frozenset(rules.shortener_hosts)
         if not hosts:
             return 0
-        return len(ev.select_pending(conn, hosts=hosts))
+        return ev.count_pending(conn, hosts=hosts)
 
 
 def _follow_run(engine: Engine, settings: Any, parent: int, progress: Progress) -> dict[str, Any]:

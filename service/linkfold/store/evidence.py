@@ -213,6 +213,31 @@ class Pending:
     raw: str | None  # the first raw URL stored for it, the one to fetch (see docs/following.md)
 
 
+def _pending_where(q: sa.Select, *, hosts: Iterable[str] | None, dataset_id: int | None, retry_failed: bool,
+                   retry_refused: bool, now: datetime | None) -> sa.Select | None:
+    """``q`` (over canonical_urls outer-joined to follow_results) narrowed to the pending URLs; None when
+    ``hosts`` is empty, so nothing can be pending."""
+    c, fr, r = t.canonical_urls, t.follow_results, t.raw_urls
+    if retry_failed:
+        due = now or datetime.now(UTC)
+        # URLs that only inherited a failure from another URL's chain are settled when that URL is retried.
+        q = q.where(fr.c.state == "failed", fr.c.via != "chain", fr.c.next_attempt_at <= due)
+    elif retry_refused:
+        q = q.where(fr.c.state == "refused", fr.c.via != "chain")
+    else:
+        q = q.where(fr.c.id.is_(None))
+    if hosts is not None:
+        host_list = sorted(set(hosts))
+        if not host_list:
+            return None
+        q = q.where(c.c.host.in_(host_list))
+    if dataset_id is not None:
+        sighted = (sa.select(r.c.canonical_id).select_from(r.join(t.sightings, t.sightings.c.raw_url_id == r.c.id))
+                   .where(t.sightings.c.dataset_id == dataset_id, r.c.canonical_id.is_not(None)))
+        q = q.where(c.c.id.in_(sighted))
+    return q
+
+
 def select_pending(conn: Connection, *, hosts: Iterable[str] | None, dataset_id: int | None = None,
                    retry_failed: bool = False, retry_refused: bool = False, now: datetime | None = None,
                    limit: int | None = None) -> list[Pending]:
@@ -226,27 +251,24 @@ def select_pending(conn: Connection, *, hosts: Iterable[str] | None, dataset_id:
     first_raw = (sa.select(r.c.raw).where(r.c.canonical_id == c.c.id).order_by(r.c.id).limit(1)
                  .correlate(c).scalar_subquery())
     q = sa.select(c.c.id, c.c.url, first_raw.label("raw")).select_from(c.outerjoin(fr, fr.c.canonical_id == c.c.id))
-    if retry_failed:
-        due = now or datetime.now(UTC)
-        # URLs that only inherited a failure from another URL's chain are settled when that URL is retried.
-        q = q.where(fr.c.state == "failed", fr.c.via != "chain", fr.c.next_attempt_at <= due)
-    elif retry_refused:
-        q = q.where(fr.c.state == "refused", fr.c.via != "chain")
-    else:
-        q = q.where(fr.c.id.is_(None))
-    if hosts is not None:
-        host_list = sorted(set(hosts))
-        if not host_list:
-            return []
-        q = q.where(c.c.host.in_(host_list))
-    if dataset_id is not None:
-        sighted = (sa.select(r.c.canonical_id).select_from(r.join(t.sightings, t.sightings.c.raw_url_id == r.c.id))
-                   .where(t.sightings.c.dataset_id == dataset_id, r.c.canonical_id.is_not(None)))
-        q = q.where(c.c.id.in_(sighted))
+    q = _pending_where(q, hosts=hosts, dataset_id=dataset_id, retry_failed=retry_failed,
+                       retry_refused=retry_refused, now=now)
+    if q is None:
+        return []
     q = q.order_by(c.c.id)
     if limit is not None:
         q = q.limit(limit)
     return [Pending(int(i), url, raw) for i, url, raw in conn.execute(q)]
+
+
+def count_pending(conn: Connection, *, hosts: Iterable[str] | None, dataset_id: int | None = None,
+                  retry_failed: bool = False, retry_refused: bool = False, now: datetime | None = None) -> int:
+    """How many URLs :func:`select_pending` would choose, counted in the database."""
+    c, fr = t.canonical_urls, t.follow_results
+    q = sa.select(sa.func.count()).select_from(c.outerjoin(fr, fr.c.canonical_id == c.c.id))
+    q = _pending_where(q, hosts=hosts, dataset_id=dataset_id, retry_failed=retry_failed,
+                       retry_refused=retry_refused, now=now)
+    return 0 if q is None else int(conn.execute(q).scalar_one())
 
 
 def follow_totals(conn: Connection, *, dataset_id: int | None = None) -> dict[str, Any]:
