@@ -12,6 +12,7 @@ import shutil
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import sqlalchemy as sa
 
@@ -38,7 +39,7 @@ def fixtures_dir() -> Path:
 
 # (dataset, file under fixtures/, ingest options): a browsing panel (CSV; the panellist column is
 # deliberately not stored) and a post archive (JSON lines, links nested in an array).
-DEMO_DUMPS = [
+DEMO_DUMPS: list[tuple[str, str, dict[str, Any]]] = [
     ("northvale-panel", "panel_visits.csv",
      {"url_column": "url", "key_column": "visit_id", "time_column": "visited_at",
       "description": "invented browsing panel, one visit a row"}),

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import json
 import sys
-from collections.abc import Callable, Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import date, datetime
 from typing import Any
@@ -109,7 +109,7 @@ def write_jsonl(rows: Iterable[Mapping[str, Any]]) -> int:
     return n
 
 
-def write_table(rows: list[Mapping[str, Any]], columns: list[str]) -> None:
+def write_table(rows: Sequence[Mapping[str, Any]], columns: Sequence[str]) -> None:
     """A plain aligned table on stdout, for people; JSON lines are the choice for scripts."""
     if not rows:
         return

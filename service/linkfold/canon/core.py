@@ -89,6 +89,25 @@ class _Switches:
     """Effective switches for one host: the ruleset's, overridden by its site rule."""
 
     __slots__ = SWITCHES
+    # One annotation per switch, for the type checker (tests check they match SWITCHES).
+    redirect_wrappers: bool
+    amp_cache: bool
+    drop_userinfo: bool
+    host_trailing_dot: bool
+    host_prefixes: bool
+    https: bool
+    percent_case: bool
+    percent_unreserved: bool
+    session_ids: bool
+    amp: bool
+    print_view: bool
+    index_documents: bool
+    trailing_slash: bool
+    tracking_params: bool
+    sort_params: bool
+    empty_query: bool
+    fragment: bool
+    hashbang: bool
 
     def __init__(self, rules: Ruleset, site: SiteRule | None) -> None:
         over = site.switches if site is not None else {}
@@ -330,9 +349,9 @@ class _Engine:
         if sw.amp_cache and rules.amp_cache_suffixes:
             for suffix in rules.amp_cache_suffixes:
                 if parts.host.endswith("." + suffix):
-                    target = _amp_cache_target(parts)
-                    if target is not None and self._usable(target):
-                        return "amp_cache", target
+                    cached = _amp_cache_target(parts)
+                    if cached is not None and self._usable(cached):
+                        return "amp_cache", cached
         return None
 
     def _usable(self, target: str) -> bool:

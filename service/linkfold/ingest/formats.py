@@ -14,7 +14,7 @@ import zlib
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
-from typing import BinaryIO
+from typing import Any, BinaryIO
 
 from ..errors import InputError
 
@@ -195,7 +195,7 @@ def physical_lines(stream: BinaryIO, max_line_bytes: int) -> Iterator[PhysicalLi
     A longer line comes out once, flagged ``too_long`` with its first bytes; the rest of it is read and
     dropped, so the next line still starts at the right place and keeps its true line number.
     """
-    reader = stream if isinstance(stream, io.BufferedIOBase | gzip.GzipFile) else io.BufferedReader(stream)
+    reader: Any = stream if isinstance(stream, io.BufferedIOBase | gzip.GzipFile) else io.BufferedReader(stream)  # type: ignore[type-var]
     number = 0
     first = True
     try:

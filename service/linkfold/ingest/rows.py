@@ -112,6 +112,7 @@ class Batch:
             return known
         raw = storable(value)
         h = raw_hash(raw)
+        answer: tuple[str, str | None, str | None]
         try:
             c = self.canon(value)
         except InvalidURL as exc:
@@ -160,8 +161,8 @@ class Batch:
                                    f"a JSON {type(value).__name__} where a URL was expected",
                                    json.dumps(value)[:400]))
                 continue
-            h, reason, detail = self._url(value)
-            out.append((n, pos, row_key, seen_at, h, reason, detail, None))
+            h, url_reason, url_detail = self._url(value)
+            out.append((n, pos, row_key, seen_at, h, url_reason, url_detail, None))
 
 
 __all__ = ["RAW_FIELDS", "ROW_FIELDS", "ROW_POSITION", "TIME_POSITION", "Batch", "RowEntry", "raw_hash",

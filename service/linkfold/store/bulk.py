@@ -20,7 +20,7 @@ _stage_counter = itertools.count()
 
 def _copy_rows(conn: sa.Connection, target: str, columns: Sequence[str],
                rows: Iterable[Sequence[Any]]) -> None:
-    raw = conn.connection.driver_connection  # the psycopg 3 connection under SQLAlchemy
+    raw: Any = conn.connection.driver_connection  # the psycopg 3 connection under SQLAlchemy
     cols = ", ".join(f'"{c}"' for c in columns)
     with raw.cursor() as cur, cur.copy(f"COPY {target} ({cols}) FROM STDIN") as copy:
         for row in rows:
@@ -77,7 +77,7 @@ def insert_new_rows(conn: sa.Connection, table: sa.Table, rows: Sequence[Mapping
         return result.rowcount
     stmt = sqlite.insert(table).on_conflict_do_nothing(index_elements=list(conflict))
     # executemany's rowcount is not reliable for INSERT OR IGNORE; the connection's change counter is.
-    raw = conn.connection.driver_connection
+    raw: Any = conn.connection.driver_connection
     before = raw.total_changes
     conn.execute(stmt, list(rows))
     return raw.total_changes - before

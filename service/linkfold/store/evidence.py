@@ -250,8 +250,9 @@ def select_pending(conn: Connection, *, hosts: Iterable[str] | None, dataset_id:
     c, fr, r = t.canonical_urls, t.follow_results, t.raw_urls
     first_raw = (sa.select(r.c.raw).where(r.c.canonical_id == c.c.id).order_by(r.c.id).limit(1)
                  .correlate(c).scalar_subquery())
-    q = sa.select(c.c.id, c.c.url, first_raw.label("raw")).select_from(c.outerjoin(fr, fr.c.canonical_id == c.c.id))
-    q = _pending_where(q, hosts=hosts, dataset_id=dataset_id, retry_failed=retry_failed,
+    base = sa.select(c.c.id, c.c.url, first_raw.label("raw")).select_from(
+        c.outerjoin(fr, fr.c.canonical_id == c.c.id))
+    q = _pending_where(base, hosts=hosts, dataset_id=dataset_id, retry_failed=retry_failed,
                        retry_refused=retry_refused, now=now)
     if q is None:
         return []
@@ -265,8 +266,8 @@ def count_pending(conn: Connection, *, hosts: Iterable[str] | None, dataset_id: 
                   retry_failed: bool = False, retry_refused: bool = False, now: datetime | None = None) -> int:
     """How many URLs :func:`select_pending` would choose, counted in the database."""
     c, fr = t.canonical_urls, t.follow_results
-    q = sa.select(sa.func.count()).select_from(c.outerjoin(fr, fr.c.canonical_id == c.c.id))
-    q = _pending_where(q, hosts=hosts, dataset_id=dataset_id, retry_failed=retry_failed,
+    base = sa.select(sa.func.count()).select_from(c.outerjoin(fr, fr.c.canonical_id == c.c.id))
+    q = _pending_where(base, hosts=hosts, dataset_id=dataset_id, retry_failed=retry_failed,
                        retry_refused=retry_refused, now=now)
     return 0 if q is None else int(conn.execute(q).scalar_one())
 
