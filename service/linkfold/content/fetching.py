@@ -33,7 +33,7 @@ from sqlalchemy.engine import Engine
 
 from ..canon import Canonical, Canonicaliser
 from ..errors import ConfigError, InvalidURL
-from ..follow.chain import REFUSALS, Hop, _decode_location, next_url
+from ..follow.chain import REFUSALS, Hop, decode_location, next_url
 from ..follow.client import REDIRECT_STATUSES, ClientConfig, Failure, FetchError, Reply, SafeClient, classify
 from ..follow.guard import AddressRefused, ResolveFailed, Resolver, literal_address
 from ..follow.runner import request_url, run_requests
@@ -123,7 +123,7 @@ async def fetch_one(client: SafeClient, start: str, *, max_hops: int,
         requests += reply.attempts
         status = reply.status
         if status in REDIRECT_STATUSES:
-            location = _decode_location(reply)
+            location = decode_location(reply)
             if not location:
                 return stop("failed", Failure.BAD_LOCATION, f"HTTP {status} without a Location header",
                             final=url, status=status)

@@ -72,7 +72,7 @@ def _defragment(url: str) -> str:
     return url.split("#", 1)[0]
 
 
-def _decode_location(reply: Reply) -> str | None:
+def decode_location(reply: Reply) -> str | None:
     """The Location header as text. Servers send raw UTF-8 in it although RFC 9110 §5.5 asks for
     ASCII; httpx decodes header bytes as Latin-1, so we re-read the raw bytes as UTF-8 first."""
     for name, value in reply.headers.raw:
@@ -139,7 +139,7 @@ async def follow_chain(client: SafeClient, start: str, *, max_hops: int,
         requests += made
         status = reply.status
         if status in REDIRECT_STATUSES:
-            location = _decode_location(reply)
+            location = decode_location(reply)
             if not location:
                 return stop(State.FAILED, Failure.BAD_LOCATION, f"HTTP {status} without a Location header",
                             final=url, status=status)
@@ -170,4 +170,4 @@ async def follow_chain(client: SafeClient, start: str, *, max_hops: int,
                     retry_after=reply.retry_after)
 
 
-__all__ = ["REFUSALS", "Chain", "Hop", "State", "follow_chain", "next_url"]
+__all__ = ["REFUSALS", "Chain", "Hop", "State", "decode_location", "follow_chain", "next_url"]
