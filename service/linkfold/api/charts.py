@@ -14,10 +14,9 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from xml.sax.saxutils import escape
 
-import sqlalchemy as sa
 from sqlalchemy.engine import Engine
 
-from ..store import tables as t
+from ..store.clusters import cluster_size_counts
 
 BINS = 20
 # Sizes of clusters, grouped so that the long tail of big clusters stays readable on one axis.
@@ -43,12 +42,8 @@ def similarity_bins(values: Sequence[float], bins: int = BINS) -> list[int]:
 
 def size_distribution(engine: Engine, level: str) -> list[int]:
     """Clusters of ``level`` per size bucket of :data:`SIZE_BUCKETS`."""
-    cm = t.cluster_members
-    sizes = (sa.select(sa.func.count().label("size")).where(cm.c.level == level)
-             .group_by(cm.c.cluster_id).subquery())
-    q = sa.select(sizes.c.size, sa.func.count()).group_by(sizes.c.size)
     with engine.connect() as conn:
-        by_size = {int(size): int(n) for size, n in conn.execute(q)}
+        by_size = cluster_size_counts(conn, level)
     out = []
     for lo, hi in SIZE_BUCKETS:
         out.append(sum(n for size, n in by_size.items() if size >= lo and (hi is None or size <= hi)))

@@ -273,3 +273,12 @@ __all__ = [
     "stem_of",
     "write_ids",
 ]
+
+
+def cluster_size_counts(conn: Connection, level: str) -> dict[int, int]:
+    """How many clusters of ``level`` have each size (members counted in ``cluster_members``)."""
+    cm = t.cluster_members
+    sizes = (sa.select(sa.func.count().label("size")).where(cm.c.level == level)
+             .group_by(cm.c.cluster_id).subquery())
+    q = sa.select(sizes.c.size, sa.func.count()).group_by(sizes.c.size)
+    return {int(size): int(n) for size, n in conn.execute(q)}
