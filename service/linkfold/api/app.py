@@ -40,7 +40,7 @@ def create_app(settings: Settings | None = None, *, engine: Engine | None = None
     app = FastAPI(title="linkfold", version=__version__, description=DESCRIPTION,
                   openapi_url=f"{API_PREFIX}/openapi.json", docs_url=None, redoc_url=None)
     app.state.linkfold = ApiState(settings=settings, engine=engine)
-    install_handlers(app)
+    install_handlers(app, render_page=pages.render_error_page)
     app.add_middleware(BodyLimit, limit=settings.api_max_body_bytes)
     app.include_router(routes.router, prefix=API_PREFIX)
     app.include_router(routes_clusters.router, prefix=API_PREFIX)

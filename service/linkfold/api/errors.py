@@ -10,6 +10,7 @@ one of the API's own codes (``unauthorized``, ``token_revoked``, ``insufficient_
 from __future__ import annotations
 
 import logging
+from collections.abc import Callable
 from typing import Any
 
 from fastapi import FastAPI, Request
@@ -91,12 +92,15 @@ def is_page_request(request: Request) -> bool:
     return not request.url.path.startswith(API_PREFIX)
 
 
+# Renders an error for a page request: (request, status, code, message, headers=) -> Response.
+PageRenderer = Callable[..., Response]
+
+
 def _respond(request: Request, status: int, code: str, message: str,
              headers: dict[str, str] | None = None) -> Response:
-    if is_page_request(request):
-        from .pages import render_error_page  # the pages import this module; import late to avoid a cycle
-
-        return render_error_page(request, status, code, message, headers=headers)
+    render_page: PageRenderer | None = getattr(request.app.state, "render_error_page", None)
+    if render_page is not None and is_page_request(request):
+        return render_page(request, status, code, message, headers=headers)
     return JSONResponse(envelope(code, message), status_code=status, headers=headers)
 
 
@@ -108,7 +112,11 @@ def _validation_message(exc: RequestValidationError) -> str:
     return "; ".join(parts) or "invalid request"
 
 
-def install_handlers(app: FastAPI) -> None:
+def install_handlers(app: FastAPI, *, render_page: PageRenderer | None = None) -> None:
+    """One error envelope for the API; ``render_page`` draws the error page for page requests (the
+    pages module hands it in, so this module needs no import of the pages)."""
+    app.state.render_error_page = render_page
+
     @app.exception_handler(ApiError)
     async def _api_error(request: Request, exc: ApiError) -> Response:
         return _respond(request, exc.status, exc.code, exc.message, exc.headers)
