@@ -15,7 +15,7 @@ from __future__ import annotations
 import csv
 import json
 from collections import deque
-from collections.abc import Iterator
+from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -145,6 +145,20 @@ class _Format:
     def rows(self) -> Iterator[DumpRow]:  # pragma: no cover - overridden
         raise NotImplementedError
 
+    def _screened(self, lines: Iterable[PhysicalLine]) -> Iterator[tuple[PhysicalLine, DumpRow | None]]:
+        """Each non-blank line, with its reject when it is too long or not UTF-8; blank lines are counted."""
+        for line in lines:
+            n = line.number
+            if line.too_long:
+                yield line, DumpRow(n, n, reject=RowReject(Reason.LINE_TOO_LONG, _too_long(self.opt),
+                                                           excerpt(line.data)))
+            elif not line.data.strip():
+                self.r.blank_lines += 1
+            else:
+                problem = _utf8_problem(line.data)
+                yield line, (DumpRow(n, n, reject=RowReject(Reason.INVALID_UTF8, problem, excerpt(line.data)))
+                             if problem else None)
+
 
 # --- plain lists ------------------------------------------------------------------------------------------
 class _PlainLines(_Format):
@@ -158,20 +172,11 @@ class _PlainLines(_Format):
                              "(one URL a line, keyed by line number)")
 
     def rows(self) -> Iterator[DumpRow]:
-        for line in self.r._lines:
-            n = line.number
-            if line.too_long:
-                yield DumpRow(n, n, reject=RowReject(Reason.LINE_TOO_LONG, _too_long(self.opt),
-                                                     excerpt(line.data)))
+        for line, reject in self._screened(self.r._lines):
+            if reject is not None:
+                yield reject
                 continue
-            if not line.data.strip():
-                self.r.blank_lines += 1
-                continue
-            problem = _utf8_problem(line.data)
-            if problem:
-                yield DumpRow(n, n, reject=RowReject(Reason.INVALID_UTF8, problem, excerpt(line.data)))
-                continue
-            yield DumpRow(n, n, urls=[line.data.decode("utf-8")])
+            yield DumpRow(line.number, line.number, urls=[line.data.decode("utf-8")])
 
 
 def _too_long(opt: ReadOptions) -> str:
@@ -453,19 +458,11 @@ class _JsonLines(_Format):
         yield from self.r._lines
 
     def rows(self) -> Iterator[DumpRow]:
-        for line in self._all_lines():
+        for line, reject in self._screened(self._all_lines()):
+            if reject is not None:
+                yield reject
+                continue
             n = line.number
-            if line.too_long:
-                yield DumpRow(n, n, reject=RowReject(Reason.LINE_TOO_LONG, _too_long(self.opt),
-                                                     excerpt(line.data)))
-                continue
-            if not line.data.strip():
-                self.r.blank_lines += 1
-                continue
-            problem = _utf8_problem(line.data)
-            if problem:
-                yield DumpRow(n, n, reject=RowReject(Reason.INVALID_UTF8, problem, excerpt(line.data)))
-                continue
             try:
                 record = json.loads(line.data.decode("utf-8"))
             except ValueError as exc:

@@ -54,7 +54,8 @@ def _aware(value: datetime) -> datetime:
     return value if value.tzinfo else value.replace(tzinfo=UTC)
 
 
-def _pid_alive(pid: int) -> bool:
+def pid_alive(pid: int) -> bool:
+    """Whether a process with this id runs on this machine (signal 0 probes without signalling)."""
     try:
         os.kill(pid, 0)
     except ProcessLookupError:
@@ -109,7 +110,7 @@ def _is_stale(info: LockInfo, *, stale_after: float, have_advisory: bool | None)
     if have_advisory is not None:
         # PostgreSQL: we got the advisory lock, so whoever wrote the row is gone.
         return have_advisory
-    if info.host == socket.gethostname() and not _pid_alive(info.pid):
+    if info.host == socket.gethostname() and not pid_alive(info.pid):
         return True
     return _now() - info.heartbeat_at > timedelta(seconds=stale_after)
 
@@ -129,7 +130,7 @@ def acquire_lock(engine: Engine, name: str = "registry", *, run_id: int | None =
         have_advisory = _try_advisory(pg_conn, name)
         if not have_advisory:
             info = read_lock(engine, name)
-            if info is not None and info.host == socket.gethostname() and not _pid_alive(info.pid):
+            if info is not None and info.host == socket.gethostname() and not pid_alive(info.pid):
                 # The holder died a moment ago: its server session ends a few moments after the process,
                 # and only then is the advisory lock free. Wait that long rather than refuse.
                 deadline = time.monotonic() + release_wait

@@ -31,7 +31,7 @@ from sqlalchemy.engine import Engine
 from ..errors import LinkfoldError
 from ..progress import SILENT, Progress
 from ..store import tables as t
-from .lock import acquire_lock
+from .lock import acquire_lock, pid_alive
 from .runlog import RunStatus, finish_run, recording_run, start_run
 
 log = logging.getLogger("linkfold")
@@ -174,16 +174,6 @@ DEFAULT_STAGES = (
 
 
 # --- runs left behind ------------------------------------------------------------------------------------------
-def _pid_alive(pid: int) -> bool:
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:
-        return True
-    return True
-
-
 def mark_interrupted(engine: Engine, *, own_run: int) -> list[int]:
     """Runs a killed job left ``running``: every nightly run (and its children) other than ours — we hold
     the lock, so no other nightly job is alive — and any run of a process on this host that is gone."""
@@ -195,7 +185,7 @@ def mark_interrupted(engine: Engine, *, own_run: int) -> list[int]:
     nightly = {row.id for row in rows if row.stage == "nightly"}
     dead = [row.id for row in rows
             if row.id in nightly or row.parent_id in nightly
-            or (row.host == host and row.pid is not None and row.pid != os.getpid() and not _pid_alive(row.pid))]
+            or (row.host == host and row.pid is not None and row.pid != os.getpid() and not pid_alive(row.pid))]
     for run_id in sorted(dead):
         finish_run(engine, run_id, status=RunStatus.INTERRUPTED,
                    error="interrupted: its process ended without recording an end (found by a later nightly run)")
