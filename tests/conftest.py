@@ -80,6 +80,15 @@ def pg_server() -> Iterator[_PgServer]:
 
 
 @pytest.fixture
+def server():
+    """A real HTTP server on 127.0.0.1 with redirect chains, robots.txt and slow or huge answers."""
+    from httpserver import LoopbackServer
+
+    with LoopbackServer() as srv:
+        yield srv
+
+
+@pytest.fixture
 def sqlite_url(tmp_path) -> str:
     url = f"sqlite:///{tmp_path / 'registry.db'}"
     engine = make_engine(url)

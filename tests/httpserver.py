@@ -232,3 +232,22 @@ class LoopbackOnlyBackend(httpcore.AnyIOBackend):
         self.connected.append((host, port))
         return await super().connect_tcp(host, port, timeout=timeout, local_address=local_address,
                                          socket_options=socket_options)
+
+
+def loopback_settings(db_url: str, **extra):
+    """Settings for a stage that talks to the loopback server: a contact, loopback allowed, no waiting."""
+    from linkfold.settings import load_settings
+
+    values = {"database_url": db_url, "contact": "mailto:lab@university.example",
+              "allow_networks": ("127.0.0.0/8",), "http_host_delay": 0.0, "http_timeout": 2.0,
+              "http_retries": 0, **extra}
+    return load_settings(values, environ={})
+
+
+def load_url_list(engine, tmp_path, name: str, urls: list[str]):
+    """Ingest ``urls`` as a plain-list dump into dataset ``name``."""
+    from linkfold.ingest import ingest_dump
+
+    path = tmp_path / f"{name}.txt"
+    path.write_text("\n".join(urls) + "\n", encoding="utf-8")
+    return ingest_dump(engine, [path], dataset=name)

@@ -7,7 +7,7 @@ import dataclasses
 
 import pytest
 
-from httpserver import LoopbackOnlyBackend, LoopbackServer
+from httpserver import LoopbackOnlyBackend
 from linkfold.errors import InvalidURL
 from linkfold.follow.chain import State, follow_chain, next_url
 from linkfold.follow.client import ClientConfig, Failure, SafeClient
@@ -16,12 +16,6 @@ from linkfold.follow.guard import StaticResolver
 CONFIG = ClientConfig(contact="mailto:lab@university.example", timeout=2.0, max_bytes=64 * 1024,
                       host_delay=0.0, retries=1, max_wait=5.0, allow_networks=("127.0.0.0/8",))
 NAMES = {"short.test": ["127.0.0.1"], "news.test": ["127.0.0.1"], "private.test": ["10.0.0.5"]}
-
-
-@pytest.fixture
-def server():
-    with LoopbackServer() as srv:
-        yield srv
 
 
 def follow(url, *, max_hops=10, **config):

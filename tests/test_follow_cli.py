@@ -10,14 +10,7 @@ import json
 
 import pytest
 
-from httpserver import LoopbackServer
 from linkfold.cli import main
-
-
-@pytest.fixture
-def server():
-    with LoopbackServer() as srv:
-        yield srv
 
 
 @pytest.fixture

@@ -8,35 +8,16 @@ from datetime import UTC, datetime, timedelta
 import pytest
 import sqlalchemy as sa
 
-from httpserver import LoopbackOnlyBackend, LoopbackServer
+from httpserver import LoopbackOnlyBackend
+from httpserver import load_url_list as load
+from httpserver import loopback_settings as settings_for
 from linkfold.errors import ConfigError, NotFound
 from linkfold.follow import follow_links, next_attempt
 from linkfold.follow.guard import StaticResolver
-from linkfold.ingest import ingest_dump
-from linkfold.settings import load_settings
 from linkfold.store import evidence as ev
 from linkfold.store import tables as t
 
 NAMES = {"short.test": ["127.0.0.1"], "news.test": ["127.0.0.1"], "private.test": ["10.0.0.5"]}
-
-
-@pytest.fixture
-def server():
-    with LoopbackServer() as srv:
-        yield srv
-
-
-def settings_for(db_url, **extra):
-    values = {"database_url": db_url, "contact": "mailto:lab@university.example",
-              "allow_networks": ("127.0.0.0/8",), "http_host_delay": 0.0, "http_timeout": 2.0,
-              "http_retries": 0, **extra}
-    return load_settings(values, environ={})
-
-
-def load(engine, tmp_path, name, urls):
-    path = tmp_path / f"{name}.txt"
-    path.write_text("\n".join(urls) + "\n", encoding="utf-8")
-    return ingest_dump(engine, [path], dataset=name)
 
 
 def run(engine, db_url, **kw):

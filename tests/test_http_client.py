@@ -49,12 +49,6 @@ class FakeTime:
         await asyncio.sleep(0)
 
 
-@pytest.fixture
-def server():
-    with LoopbackServer() as srv:
-        yield srv
-
-
 class Harness:
     def __init__(self, **config) -> None:
         self.config = dataclasses.replace(BASE, **config)
