@@ -10,6 +10,8 @@ from linkfold import errors
 from linkfold.cli import cli, main
 from linkfold.settings import SETTINGS, load_settings
 
+cli.load_all()  # commands are registered on first use; the tests below look at all of them
+
 
 def _all_commands(group: click.Group, prefix: str = ""):
     for name, cmd in group.commands.items():
@@ -114,3 +116,21 @@ def test_the_client_does_not_load_the_pipeline():
 
 def test_every_error_class_is_public():
     assert set(errors.__all__) <= set(linkfold.__all__)
+
+
+def test_command_table_names_exactly_what_the_modules_register():
+    from linkfold.cli import COMMANDS
+
+    assert set(cli.load_all()) == set(COMMANDS)
+
+
+def test_a_lookup_loads_only_what_it_needs():
+    # Scripts call `linkfold lookup` in loops: its start must not import the extraction library, the
+    # web framework or numpy, which only other commands use.
+    import subprocess
+    import sys
+
+    code = ("import sys; from linkfold.cli import main; main(['lookup', '--help']); "
+            "print(sorted(m for m in ('trafilatura', 'fastapi', 'numpy', 'warcio') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip().splitlines()[-1] == "[]"

@@ -6,34 +6,61 @@ library (:class:`linkfold.errors.LinkfoldError`) become one line on stderr and t
 
 from __future__ import annotations
 
+import importlib
 import logging
 import sys
+from collections.abc import MutableMapping
 
 import click
 
 from . import __version__
-from ._commands import api as api_commands
-from ._commands import canon as canon_commands
-from ._commands import content as content_commands
-from ._commands import db as db_commands
-from ._commands import dedupe as dedupe_commands
-from ._commands import demo as demo_commands
-from ._commands import follow as follow_commands
-from ._commands import ingest as ingest_commands
 from ._commands._common import Context, common_options
 from .errors import LinkfoldError
 
 log = logging.getLogger("linkfold")
 
-COMMAND_MODULES = [db_commands, canon_commands, ingest_commands, follow_commands, content_commands, dedupe_commands, api_commands,
-                   demo_commands]
+# Command name -> the module under linkfold._commands that registers it, in the order of the pipeline.
+# Modules are imported only when one of their commands runs (or for --help), so `linkfold lookup` in a
+# script loop does not pay for the extraction library, numpy or the web framework at every start.
+COMMANDS: dict[str, str] = {
+    "db": "db", "settings": "db",
+    "canonicalize": "canon", "rules": "canon",
+    "ingest": "ingest", "rejects": "ingest", "lookup": "ingest", "export": "ingest", "datasets": "ingest",
+    "follow": "follow", "follow-report": "follow",
+    "fetch": "content", "import-pages": "content", "documents": "content", "extract": "content",
+    "dedupe": "dedupe", "decide": "dedupe", "clusters": "dedupe", "thresholds": "dedupe",
+    "nightly": "dedupe", "runs": "dedupe",
+    "serve": "api", "tokens": "api",
+    "demo": "demo",
+}
 
 
 class _Group(click.Group):
-    """Lists commands in the order they were registered (the order of the pipeline), not A–Z."""
+    """Loads each command's module on first use and lists commands in pipeline order, not A–Z."""
+
+    def __init__(self, *args, **kwargs) -> None:
+        super().__init__(*args, **kwargs)
+        self._loaded: set[str] = set()
+
+    def _load(self, module: str) -> None:
+        if module not in self._loaded:
+            self._loaded.add(module)
+            importlib.import_module(f"{__package__}._commands.{module}").register(self)
+
+    def get_command(self, ctx: click.Context, cmd_name: str) -> click.Command | None:
+        module = COMMANDS.get(cmd_name)
+        if module is not None:
+            self._load(module)
+        return super().get_command(ctx, cmd_name)
 
     def list_commands(self, ctx: click.Context) -> list[str]:
-        return list(self.commands)
+        return list(COMMANDS)
+
+    def load_all(self) -> MutableMapping[str, click.Command]:
+        """Every command, registered (for help, docs and tests)."""
+        for module in dict.fromkeys(COMMANDS.values()):
+            self._load(module)
+        return self.commands
 
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
@@ -56,10 +83,6 @@ def cli(ctx: click.Context, verbose: int) -> None:
     if obj.quiet:
         logging.getLogger("linkfold").setLevel(logging.ERROR)
     ctx.call_on_close(obj.close)
-
-
-for _module in COMMAND_MODULES:
-    _module.register(cli)
 
 
 def main(argv: list[str] | None = None) -> int:
