@@ -111,5 +111,6 @@ def test_shortcut_takes_the_usual_url_and_leaves_the_doubtful_ones() -> None:
     assert _parse._simple("https://daily.example/news/a-b?x=1&y=%2F#c") is not None
     for doubtful in ["https://daily.example:443/", "https://xn--bcher-kva.example/", "http://1.2.3.4/",
                      "http://a.test/./b", "http://a.test/%2e%2e/b", "http://a.test/a b", "HTTP://a.test/",
-                     "http://a.test", "http://u@a.test/", "http://a.test/?q='", "http://a.test./"]:
+                     "http://a.test", "http://u@a.test/", "http://a.test/?q='", "http://a.test./", "http://-a.test/",
+                     "http://.a.test/"]:
         assert _parse._simple(doubtful) is None, doubtful

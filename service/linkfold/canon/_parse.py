@@ -36,18 +36,38 @@ class Parts(NamedTuple):
 
 
 # A strict subset of URLs that the WHATWG parser serialises unchanged: lower-case http(s), a lower-case
-# ASCII host name, a non-default port without leading zeros, a path, and query and fragment made only of
+# ASCII host name (starting and ending with a letter or digit: plain_host checks the ends, once per host), a non-default port without leading zeros, a path, and query and fragment made only of
 # characters no WHATWG percent-encode set touches. Such a URL is its own serialisation, so its components
 # can be sliced without the parser (most URLs in a dump look like this). Everything else, and every
 # doubtful case below (IDNA labels, hosts that could be IPv4, dot segments, default ports), goes to the
 # parser. tests/test_canon_parser.py checks this shortcut against the parser on generated URLs.
 _SIMPLE = re.compile(
-    r"(https?)://([a-z0-9](?:[a-z0-9.\-]*[a-z0-9])?)(?::([1-9][0-9]{0,4}))?"
-    r"(/[A-Za-z0-9\-._~!$&()*+,;=:@/%|]*)"
-    r"(?:\?([A-Za-z0-9\-._~!$&()*+,;=:@/?%|]*))?"
-    r"(?:#([A-Za-z0-9\-._~!$&'()*+,;=:@/?%|]*))?")
+    r"(https?)://([a-z0-9.\-]++)(?::([1-9][0-9]{0,4}))?"
+    r"(/[A-Za-z0-9\-._~!$&()*+,;=:@/%|]*+)"
+    r"(?:\?([A-Za-z0-9\-._~!$&()*+,;=:@/?%|]*+))?"
+    r"(?:#([A-Za-z0-9\-._~!$&'()*+,;=:@/?%|]*+))?")
 _NUMERIC_LAST_LABEL = re.compile(r"(?:^|\.)(?:[0-9]+|0x[0-9a-f]*)$")
 _DEFAULT_PORT = {"http": "80", "https": "443"}
+
+
+#: The shortcut's pattern, for callers that slice the groups themselves (the canonicaliser's fast lane);
+#: a match is only a plain URL when :func:`plain_host` and :func:`plain_rest` also agree.
+simple_match = _SIMPLE.fullmatch
+
+
+def plain_host(host: str) -> bool:
+    """Whether a host the pattern matched is serialised unchanged (no IDNA label, not IPv4-like, no dot or
+    hyphen at either end)."""
+    return (host[0] not in ".-" and host[-1] not in ".-" and "xn--" not in host
+            and _NUMERIC_LAST_LABEL.search(host) is None)
+
+
+def plain_rest(scheme: str, port: str | None, path: str) -> bool:
+    """Whether the port and path the pattern matched are serialised unchanged (no default or
+    out-of-range port, no dot segment, plain or percent-encoded)."""
+    if "/." in path or ("%2" in path and ("%2e" in path or "%2E" in path)):
+        return False
+    return port is None or (port != _DEFAULT_PORT[scheme] and int(port) <= 65535)
 
 
 def _simple(text: str) -> Parts | None:
@@ -55,8 +75,7 @@ def _simple(text: str) -> Parts | None:
     if m is None:
         return None
     scheme, host, port, path, query, fragment = m.groups()
-    if ("xn--" in host or _NUMERIC_LAST_LABEL.search(host) or "/." in path or "%2e" in path
-            or "%2E" in path or (port is not None and (port == _DEFAULT_PORT[scheme] or int(port) > 65535))):
+    if not (plain_host(host) and plain_rest(scheme, port, path)):
         return None
     return Parts(text, scheme, False, host, port or "", path, query, fragment, HOST_NAME)
 

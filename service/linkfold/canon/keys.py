@@ -25,5 +25,5 @@ def url_key(canonical_url: str) -> str:
     """The url key of a canonical URL (24 lower-case base32 characters)."""
     n = int.from_bytes(hashlib.sha256(canonical_url.encode("utf-8")).digest()[:KEY_BYTES], "big")
     t = _TRIPLES
-    return (t[n >> 105] + t[(n >> 90) & 0x7FFF] + t[(n >> 75) & 0x7FFF] + t[(n >> 60) & 0x7FFF]
-            + t[(n >> 45) & 0x7FFF] + t[(n >> 30) & 0x7FFF] + t[(n >> 15) & 0x7FFF] + t[n & 0x7FFF])
+    return "".join((t[n >> 105], t[(n >> 90) & 0x7FFF], t[(n >> 75) & 0x7FFF], t[(n >> 60) & 0x7FFF],
+                    t[(n >> 45) & 0x7FFF], t[(n >> 30) & 0x7FFF], t[(n >> 15) & 0x7FFF], t[n & 0x7FFF]))
