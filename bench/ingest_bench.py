@@ -10,7 +10,7 @@ Measured, each in a fresh database and a fresh process (so peak memory is the lo
       column that is not stored): reading, canonicalising, staging, set-wise inserts, provenance;
   (c) the same load on N/10 rows, for peak RSS (VmHWM) at two sizes: memory must not grow with N;
   (d) a second reference: COPY of N ready-made sighting rows (raw URL ids already resolved) into the
-      migrated sightings table, i.e. the cost of that table's indexes and foreign keys on their own.
+      migrated sightings table, i.e. the cost of that table's indexes on their own.
 
 URLs repeat as in a browsing panel: each row draws from D distinct URLs with a Zipf-like skew.
 Target (issue 4): (b) >= 0.35x the baseline's rows/s (goal 0.8x); RSS at N about equal to RSS at N/10.
@@ -116,7 +116,7 @@ def baseline_copy(url: str, urls_path: Path, rows: int) -> float:
 
 def schema_floor(url: str, urls_path: Path, rows: int) -> float:
     """COPY N ready-made sightings (raw URL ids already known) straight into the migrated ``sightings``
-    table: what its indexes and foreign keys alone cost, with no reading, canonicalising or joins."""
+    table: what its indexes alone cost, with no reading, canonicalising or joins."""
     engine = make_engine(url)
     upgrade(engine)
     try:
@@ -199,7 +199,7 @@ def main() -> None:
               flush=True)
         with Scratch(args.pg) as url:
             floor_s = schema_floor(url, big_urls, n)
-        print(f"(d) COPY of ready-made sightings into the sightings table (its 4 indexes and 3 foreign keys): "
+        print(f"(d) COPY of ready-made sightings into the sightings table (its three indexes): "
               f"{n / floor_s:,.0f} rows/s ({floor_s:.1f} s), {(n / floor_s) / (n / copy_s):.2f}x the raw COPY",
               flush=True)
         with Scratch(args.pg) as url:

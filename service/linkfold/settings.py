@@ -70,6 +70,9 @@ SETTINGS: tuple[Setting, ...] = (
             "directory) or postgresql+psycopg://user@host/dbname for a lab server."),
     Setting("batch_size", 5000, _positive_int,
             "Rows written per transaction by bulk stages; a crash loses at most the batch in flight."),
+    Setting("ingest_batch_size", 20000, _positive_int,
+            "Dump rows per transaction of an ingest; an interrupted load resumes after the last whole "
+            "batch. Larger batches mean fewer round trips per row (a batch costs about ten)."),
     Setting("canon_cache_size", 65536, _positive_int,
             "Entries in the canonicaliser's LRU cache (panels repeat the same URLs heavily)."),
     Setting("max_line_bytes", 1 << 20, _positive_int,

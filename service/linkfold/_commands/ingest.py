@@ -60,7 +60,7 @@ def ingest_command(obj: Context, files: tuple[Path, ...], dataset: str, dump_for
         obj.engine(), list(files), dataset=dataset, fmt=dump_format, url_column=url_columns or None,
         key_column=key_column, time_column=time_column,
         ruleset=version if version is not None else rules_file, description=description,
-        batch_size=settings.batch_size, max_line_bytes=settings.max_line_bytes,
+        batch_size=settings.ingest_batch_size, max_line_bytes=settings.max_line_bytes,
         cache_size=settings.canon_cache_size, progress=obj.progress())
     if summary_format == "json":
         click.echo(to_json(summary.as_dict()))

@@ -51,7 +51,22 @@ from .writer import BatchWriter
 
 log = logging.getLogger("linkfold")
 
-DEFAULT_BATCH_SIZE = 5000
+DEFAULT_BATCH_SIZE = 20000
+#: Raw URL ids kept between batches (raw hash -> id). Panels revisit the same pages, so most rows of a
+#: batch point at a raw URL an earlier batch already stored; with its id at hand the batch sends nothing
+#: for it. About 200 bytes an entry: the bound keeps the load's memory flat.
+RAW_ID_CACHE = 100_000
+
+
+class _RawIds(dict[str, int]):
+    """The bounded raw-id cache; when full, the older half goes (insertion order is age)."""
+
+    def learn(self, ids: dict[str, int]) -> None:
+        self.update(ids)
+        if len(self) > RAW_ID_CACHE:
+            keep = list(self.items())[len(self) - RAW_ID_CACHE // 2:]
+            self.clear()
+            self.update(keep)
 
 
 @dataclass(frozen=True)
@@ -143,6 +158,7 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
             version, rules = _resolve_ruleset(conn, ruleset)
         summary = IngestSummary(dataset=name, ruleset_version=version)
         canonicalisers: dict[int, Canonicaliser] = {}
+        raw_ids = _RawIds()  # shared by the files: raw URLs are shared by every dataset
         with recording_run(engine, "ingest") as run:
             summary.run_id = run.id
             with conn.begin():
@@ -170,10 +186,12 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
                     if file_version != version:
                         with conn.begin():
                             file_rules = get_ruleset(conn, file_version)
-                    canonicalisers[file_version] = Canonicaliser(file_rules, cache_size=cache_size)
+                    # The batch's memo is the load's cache of canonical forms (cache_size entries); the
+                    # canonicaliser's own only needs to catch what the memo has just dropped.
+                    canonicalisers[file_version] = Canonicaliser(file_rules, cache_size=4096)
                 result = _load_file(engine, plan, stored, dataset_id=dataset_id, ruleset_id=file_version,
                                     canon=canonicalisers[file_version], batch_size=batch_size,
-                                    progress=progress)
+                                    progress=progress, raw_ids=raw_ids, memo_size=cache_size)
                 summary.files.append(result)
                 run.counts = summary.as_dict()
             run.counts = summary.as_dict()
@@ -202,7 +220,8 @@ class _Job:
 
 
 def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_id: int, ruleset_id: int,
-               canon: Canonicaliser, batch_size: int, progress: Progress) -> FileSummary:
+               canon: Canonicaliser, batch_size: int, progress: Progress, raw_ids: _RawIds,
+               memo_size: int) -> FileSummary:
     resume_after = int(stored["lines_done"] or 0)
     outcome = FileOutcome.RESUMED if resume_after else FileOutcome.LOADED
     summary = FileSummary(plan.name, plan.facts.sha256, outcome, resumed_after_line=resume_after)
@@ -215,13 +234,15 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
         # Runs on the writer thread, inside one transaction per batch.
         counts = registry.write_batch(conn, dataset_id=dataset_id, file_id=stored["id"], ruleset_id=ruleset_id,
                                       rows=job.rows, raws=job.raws, row_count=job.row_count,
-                                      lines_before=state["lines_done"], lines_after=job.lines_after)
+                                      lines_before=state["lines_done"], lines_after=job.lines_after,
+                                      known_ids=raw_ids)
         if job.final:
             registry.complete_file(conn, stored["id"], lines_done=max(job.lines_after, plan.facts.lines))
         return counts
 
     def committed(job: _Job, counts: registry.BatchCounts) -> None:
-        # Only after the commit: the summary counts what is stored.
+        # Only after the commit: the summary counts what is stored, and an id is only certain now.
+        raw_ids.learn(counts.raw_ids)
         state["lines_done"] = job.lines_after
         summary.rows += counts.rows
         summary.sightings += counts.sightings
@@ -233,7 +254,7 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
         state["reported"] = max(done, state["reported"])
 
     batch = Batch(canon, keyed=plan.options.key_column is not None,
-                  timed=plan.options.time_column is not None)
+                  timed=plan.options.time_column is not None, memo_size=memo_size)
     last_line = resume_after
 
     def job(final: bool) -> _Job:

@@ -84,32 +84,38 @@ def _time(value: Any) -> tuple[datetime | None, tuple[str, str, str | None] | No
 class Batch:
     """The staging rows of one batch, and each distinct raw URL in it once.
 
-    A raw URL that repeats within the batch (panels revisit pages all the time) is hashed and
-    canonicalised once; its later rows reuse the answer.
+    A raw URL is hashed and canonicalised once per load, not once per row: a bounded memo (``memo_size``
+    entries, the older half dropped when full) keeps the answer across batches, as panels revisit the
+    same pages all the time. Each batch still lists every distinct raw URL it uses in ``raws``.
     """
 
-    def __init__(self, canon: Callable[[str], Canonical], *, keyed: bool, timed: bool) -> None:
+    def __init__(self, canon: Callable[[str], Canonical], *, keyed: bool, timed: bool,
+                 memo_size: int = 65536) -> None:
         self.canon = canon
         self.keyed = keyed
         self.timed = timed
+        self.memo_size = max(memo_size, 1)
         self.rows: list[RowEntry] = []
         self.raws: dict[str, tuple[Any, ...]] = {}  # raw hash -> RAW_FIELDS tuple
-        self._seen: dict[str, tuple[str, str | None, str | None]] = {}  # text -> (hash, reason, detail)
+        # text -> ((hash, reason, detail), RAW_FIELDS tuple)
+        self._memo: dict[str, tuple[tuple[str, str | None, str | None], tuple[Any, ...]]] = {}
         self.count = 0  # dump rows added
 
     def clear(self) -> None:
+        """Start the next batch (the memo stays)."""
         self.rows = []
         self.raws = {}
-        self._seen = {}
         self.count = 0
 
     def reasons(self) -> Counter[str]:
         return Counter(r[_REASON] for r in self.rows if r[_REASON] is not None)
 
     def _url(self, value: str) -> tuple[str, str | None, str | None]:
-        known = self._seen.get(value)
+        known = self._memo.get(value)
         if known is not None:
-            return known
+            answer, entry = known
+            self.raws[answer[0]] = entry
+            return answer
         raw = storable(value)
         h = raw_hash(raw)
         answer: tuple[str, str | None, str | None]
@@ -117,17 +123,23 @@ class Batch:
             c = self.canon(value)
         except InvalidURL as exc:
             answer = (h, exc.reason, exc.detail)
-            self.raws[h] = (h, raw, exc.reason, None, None, None, None, None, None)
+            entry = (h, raw, exc.reason, None, None, None, None, None, None)
         else:
             if raw != value:
                 # Never store a canonical form for text we could not store verbatim; the canonicaliser
                 # refuses such text itself, this only keeps that promise if it ever changes.
                 answer = (h, Reason.CONTROL_CHARS, "NUL or broken Unicode in the URL")
-                self.raws[h] = (h, raw, Reason.CONTROL_CHARS, None, None, None, None, None, None)
+                entry = (h, raw, Reason.CONTROL_CHARS, None, None, None, None, None, None)
             else:
                 answer = (h, None, None)
-                self.raws[h] = (h, raw, None, c.url_key, c.url, c.host, c.domain, c.outlet, c.is_article)
-        self._seen[value] = answer
+                entry = (h, raw, None, c.url_key, c.url, c.host, c.domain, c.outlet, c.is_article)
+        self.raws[h] = entry
+        memo = self._memo
+        if len(memo) >= self.memo_size:
+            keep = list(memo.items())[len(memo) // 2:]
+            memo.clear()
+            memo.update(keep)
+        memo[value] = (answer, entry)
         return answer
 
     def add(self, row: DumpRow) -> None:
@@ -139,9 +151,13 @@ class Batch:
             rej = row.reject
             out.append((n, ROW_POSITION, None, None, None, rej.reason, rej.detail, rej.excerpt))
             return
-        values = [v for v in row.urls if v is not None and not (isinstance(v, str) and not v.strip())]
+        urls = row.urls
+        if len(urls) == 1 and type(urls[0]) is str and urls[0].strip():
+            values = urls  # the usual row: one URL
+        else:
+            values = [v for v in urls if v is not None and not (isinstance(v, str) and not v.strip())]
         if not values:
-            detail = "the URL column is empty" if row.urls else "the URL path reaches no value"
+            detail = "the URL column is empty" if urls else "the URL path reaches no value"
             out.append(_reject(n, ROW_POSITION, None, Reason.NO_URL, detail))
             return
         if self.keyed:

@@ -14,6 +14,7 @@ _MS_THRESHOLD = 1e11
 _EPOCH_RE = re.compile(r"[+-]?\d+(?:\.\d+)?")
 _LEAP_RE = re.compile(r"(T|\s|^)(\d{2}):?(\d{2}):?60(?=[.,]|Z|z|[+-]|$)")
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
+_ZERO = timedelta(0)
 
 
 class BadTime(ValueError):
@@ -65,6 +66,15 @@ def parse_time(value: Any) -> datetime:
         return _from_epoch(float(value))
     if not isinstance(value, str):
         raise BadTime(f"a JSON {type(value).__name__} is not a time")
+    if len(value) > 10 and value[4] == "-" and value[-1] == "Z":
+        # The usual case, an RFC 3339 UTC time ("2031-05-04T08:00:00Z"): no epoch test, no zone shift.
+        try:
+            parsed = datetime.fromisoformat(value)
+        except ValueError:
+            pass  # leap seconds and the like: the general path below says what is wrong
+        else:
+            if parsed.utcoffset() == _ZERO:
+                return parsed if parsed.tzinfo is UTC else parsed.replace(tzinfo=UTC)
     text = value.strip()
     if not text:
         raise BadTime("empty")

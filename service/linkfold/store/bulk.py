@@ -18,11 +18,37 @@ from sqlalchemy.dialects import sqlite
 _stage_counter = itertools.count()
 
 
+# PostgreSQL type names for binary COPY, by SQLAlchemy type (the most specific first).
+_BINARY_TYPES: tuple[tuple[type, str], ...] = (
+    (sa.BigInteger, "int8"), (sa.SmallInteger, "int2"), (sa.Integer, "int4"), (sa.Boolean, "bool"),
+    (sa.DateTime, "timestamptz"), (sa.Text, "text"), (sa.String, "text"),
+)
+
+
+def _binary_types(table: sa.Table, columns: Sequence[str]) -> list[str] | None:
+    """The binary COPY types of ``columns``, or None if one of them has no entry above."""
+    out = []
+    for name in columns:
+        col_type = table.c[name].type
+        for sa_type, pg_name in _BINARY_TYPES:
+            if isinstance(col_type, sa_type):
+                if pg_name == "timestamptz" and not getattr(col_type, "timezone", False):
+                    return None
+                out.append(pg_name)
+                break
+        else:
+            return None
+    return out
+
+
 def _copy_rows(conn: sa.Connection, target: str, columns: Sequence[str],
-               rows: Iterable[Sequence[Any]]) -> None:
+               rows: Iterable[Sequence[Any]], types: Sequence[str] | None = None) -> None:
     raw: Any = conn.connection.driver_connection  # the psycopg 3 connection under SQLAlchemy
     cols = ", ".join(f'"{c}"' for c in columns)
-    with raw.cursor() as cur, cur.copy(f"COPY {target} ({cols}) FROM STDIN") as copy:
+    binary = " (FORMAT BINARY)" if types is not None else ""
+    with raw.cursor() as cur, cur.copy(f"COPY {target} ({cols}) FROM STDIN{binary}") as copy:
+        if types is not None:
+            copy.set_types(list(types))
         for row in rows:
             copy.write_row(row)
 
@@ -40,13 +66,19 @@ def insert_rows(conn: sa.Connection, table: sa.Table, rows: Sequence[Mapping[str
 
 
 def insert_tuples(conn: sa.Connection, table: sa.Table, columns: Sequence[str],
-                  rows: Sequence[Sequence[Any]]) -> int:
+                  rows: Sequence[Sequence[Any]], *, binary: bool = False) -> int:
     """Like :func:`insert_rows` for rows given as tuples in ``columns`` order (no per-row dict on the
-    COPY path, which is where a bulk loader spends its time). Returns the number of rows written."""
+    COPY path, which is where a bulk loader spends its time). Returns the number of rows written.
+
+    ``binary``: COPY in PostgreSQL's binary format, a fifth of the client's work per row of the text
+    format (measured: 0.46 vs 1.87 µs for a sighting). Only for callers whose values have exactly the
+    columns' Python types (int for integers, str for text, aware datetimes): binary COPY converts nothing.
+    Columns of other types fall back to text COPY."""
     if not rows:
         return 0
     if conn.dialect.name == "postgresql":
-        _copy_rows(conn, f'"{table.name}"', columns, rows)
+        types = _binary_types(table, columns) if binary else None
+        _copy_rows(conn, f'"{table.name}"', columns, rows, types)
     else:
         # Through SQLAlchemy, so column types (times on SQLite) are converted as everywhere else.
         conn.execute(table.insert(), [dict(zip(columns, r, strict=True)) for r in rows])

@@ -233,7 +233,7 @@ def _pending_where(q: sa.Select, *, hosts: Iterable[str] | None, dataset_id: int
         q = q.where(c.c.host.in_(host_list))
     if dataset_id is not None:
         sighted = (sa.select(r.c.canonical_id).select_from(r.join(t.sightings, t.sightings.c.raw_url_id == r.c.id))
-                   .where(t.sightings.c.dataset_id == dataset_id, r.c.canonical_id.is_not(None)))
+                   .where(t.sightings_in_dataset(dataset_id), r.c.canonical_id.is_not(None)))
         q = q.where(c.c.id.in_(sighted))
     return q
 
@@ -278,7 +278,7 @@ def follow_totals(conn: Connection, *, dataset_id: int | None = None) -> dict[st
     q = sa.select(fr.c.state, fr.c.failure, sa.func.count()).group_by(fr.c.state, fr.c.failure)
     if dataset_id is not None:
         sighted = (sa.select(r.c.canonical_id).select_from(r.join(t.sightings, t.sightings.c.raw_url_id == r.c.id))
-                   .where(t.sightings.c.dataset_id == dataset_id))
+                   .where(t.sightings_in_dataset(dataset_id)))
         q = q.where(fr.c.canonical_id.in_(sighted))
     out: dict[str, Any] = {"resolved": 0, "failed": {}, "refused": {}}
     for state, failure, n in conn.execute(q):

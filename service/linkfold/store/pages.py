@@ -238,7 +238,7 @@ def _fetch_pending_query(*, dataset_id: int | None, only_articles: bool, retry_r
         q = q.where(c.c.is_article.is_(True))
     if dataset_id is not None:
         sighted = (sa.select(r.c.canonical_id).select_from(r.join(t.sightings, t.sightings.c.raw_url_id == r.c.id))
-                   .where(t.sightings.c.dataset_id == dataset_id, r.c.canonical_id.is_not(None)))
+                   .where(t.sightings_in_dataset(dataset_id), r.c.canonical_id.is_not(None)))
         q = q.where(c.c.id.in_(sighted))
     return q
 

@@ -1,18 +1,19 @@
 """Queries and writes of ingest, lookup and export: datasets, their files, raw and canonical URLs,
 sightings and rejects.
 
-A batch of a load is written set-wise: its rows and its distinct raw URLs go into two temporary staging
-tables (COPY on PostgreSQL, executemany on SQLite, through :func:`linkfold.store.bulk.insert_tuples`),
-then four ``INSERT … SELECT`` statements move them into canonical URLs and raw URLs (``ON CONFLICT DO
-NOTHING``: they are shared by every dataset), sightings and rejects, resolving ids by join on the unique
-keys (url key, raw hash) rather than row by row. The file's resume point moves in the same transaction,
+A batch of a load is written set-wise. The raw URLs the loader has not met in an earlier batch go into a
+temporary staging table (COPY on PostgreSQL, executemany on SQLite, through
+:func:`linkfold.store.bulk.insert_tuples`); two ``INSERT … SELECT`` statements move them into canonical
+URLs and raw URLs (``ON CONFLICT DO NOTHING``: they are shared by every dataset), and one join on the
+unique raw hash returns their ids. The sightings and rejects then go straight into their tables with those
+ids (COPY again): no row is looked up one by one, and a raw URL the loader already knows costs nothing. The file's resume point moves in the same transaction,
 which is what lets an interrupted load resume without writing anything twice.
 """
 
 from __future__ import annotations
 
-from collections.abc import Iterator, Sequence
-from dataclasses import dataclass
+from collections.abc import Iterator, Mapping, Sequence
+from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from typing import Any
 
@@ -99,22 +100,10 @@ def claim_file(conn: Connection, file_id: int, run_id: int | None) -> None:
     conn.execute(sa.update(t.dataset_files).where(t.dataset_files.c.id == file_id).values(run_id=run_id))
 
 
-# --- the staging tables and one batch ---------------------------------------------------------------------
+# --- the staging table and one batch ----------------------------------------------------------------------
 _stage_meta = sa.MetaData()
 # Temporary tables are never WAL-logged and carry no index: the cheap place to COPY into. PostgreSQL
 # empties them at each commit; SQLite gets an explicit DELETE.
-stage_rows = sa.Table(
-    "lf_stage_rows", _stage_meta,
-    sa.Column("line_no", sa.BigInteger),
-    sa.Column("position", sa.Integer),
-    sa.Column("row_key", sa.Text),
-    sa.Column("seen_at", UTC_TYPE),
-    sa.Column("raw_hash", sa.String(64)),
-    sa.Column("reason", sa.String(40)),
-    sa.Column("detail", sa.Text),
-    sa.Column("excerpt", sa.Text),
-    prefixes=["TEMPORARY"], postgresql_on_commit="DELETE ROWS",
-)
 stage_raws = sa.Table(
     "lf_stage_raws", _stage_meta,
     sa.Column("raw_hash", sa.String(64)),
@@ -128,8 +117,10 @@ stage_raws = sa.Table(
     sa.Column("is_article", sa.Boolean),
     prefixes=["TEMPORARY"], postgresql_on_commit="DELETE ROWS",
 )
-ROW_COLUMNS = tuple(c.name for c in stage_rows.columns)
+ROW_COLUMNS = ("line_no", "position", "row_key", "seen_at", "raw_hash", "reason", "detail", "excerpt")
 RAW_COLUMNS = tuple(c.name for c in stage_raws.columns)
+_SIGHTING_COLUMNS = ("dataset_id", "file_id", "line_no", "position", "row_key", "seen_at", "raw_url_id")
+_REJECT_COLUMNS = ("dataset_id", "file_id", "line_no", "position", "reason", "detail", "excerpt", "raw_url_id")
 
 
 @dataclass
@@ -139,6 +130,9 @@ class BatchCounts:
     new_raw_urls: int = 0
     new_canonical_urls: int = 0
     rejects: int = 0
+    #: Raw URL ids this batch looked up or created (raw hash -> id), for the caller's cache once the
+    #: batch is committed: an id is only certain after the commit.
+    raw_ids: dict[str, int] = field(default_factory=dict)
 
 
 def _insert(conn: Connection, table: sa.Table):
@@ -149,13 +143,20 @@ def _insert(conn: Connection, table: sa.Table):
 
 def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: int | None,
                 rows: Sequence[Sequence[Any]], raws: Sequence[Sequence[Any]], row_count: int,
-                lines_before: int, lines_after: int) -> BatchCounts:
+                lines_before: int, lines_after: int,
+                known_ids: Mapping[str, int] | None = None) -> BatchCounts:
     """Write one batch inside the caller's transaction and move the file's resume point forward.
 
     ``rows`` are sightings and rejects in ``ROW_COLUMNS`` order, ``raws`` the batch's distinct raw URLs
     in ``RAW_COLUMNS`` order; ``row_count`` is how many dump rows they came from. ``lines_before`` is the
     resume point this batch continues from: if the stored one differs, another process is loading the
-    same file, and :class:`LockHeld` is raised before anything is written.
+    same file, and :class:`LockHeld` is raised before anything is written. ``known_ids`` are raw URL ids
+    the caller learned from earlier, committed batches (raw hash -> id): those raw URLs are not sent to
+    the database again.
+
+    Only raw URLs new to the caller are staged and resolved set-wise; the sightings and rejects then go
+    straight into their tables (COPY on PostgreSQL) with their raw URL ids filled in here, since a panel
+    repeats its URLs so much that most rows of a batch need no lookup at all.
     """
     guard = conn.execute(sa.update(t.dataset_files)
                          .where(t.dataset_files.c.id == file_id, t.dataset_files.c.lines_done == lines_before)
@@ -165,21 +166,24 @@ def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
                        "moved under this load); let that load finish, then run this one again")
     counts = BatchCounts(rows=row_count)
     if rows:
-        for table in (stage_rows, stage_raws):
-            conn.execute(sa.schema.CreateTable(table, if_not_exists=True))
-        insert_tuples(conn, stage_raws, RAW_COLUMNS, raws)
-        insert_tuples(conn, stage_rows, ROW_COLUMNS, rows)
-        if conn.dialect.name == "postgresql":
-            # Every join below pairs a few thousand staged rows with a large table through its unique
-            # index, so an index nested loop is always the right plan. The planner, with no statistics on
-            # the temporary tables and stale ones on tables that grow during the load, otherwise picks
-            # hash joins that scan the whole registry once per batch (the load slowed as it grew).
-            conn.exec_driver_sql("SET LOCAL enable_hashjoin = off")
-            conn.exec_driver_sql("SET LOCAL enable_mergejoin = off")
-        _move_stage(conn, dataset_id=dataset_id, file_id=file_id, ruleset_id=ruleset_id, counts=counts)
-        if conn.dialect.name != "postgresql":
-            conn.execute(sa.delete(stage_rows))
-            conn.execute(sa.delete(stage_raws))
+        known = known_ids if known_ids is not None else {}
+        fresh = [w for w in raws if w[0] not in known]
+        ids = counts.raw_ids
+        if fresh:
+            _register_raws(conn, fresh, ruleset_id=ruleset_id, counts=counts)
+        sightings: list[tuple] = []
+        rejects: list[tuple] = []
+        for line_no, position, row_key, seen_at, h, reason, detail, text in rows:
+            raw_id = None if h is None else (ids.get(h) or known[h])
+            if position >= 0 and raw_id is not None:
+                sightings.append((dataset_id, file_id, line_no, position, row_key, seen_at, raw_id))
+            if reason is not None:
+                rejects.append((dataset_id, file_id, line_no, position, reason, detail, text, raw_id))
+        # No ON CONFLICT (whose speculative insertion costs a good part of a load): the resume-point guard
+        # above guarantees that no row after the stored resume point exists, so a conflict here would be
+        # a bug, and the unique keys turn it into an error, never into a duplicate.
+        counts.sightings = insert_tuples(conn, t.sightings, _SIGHTING_COLUMNS, sightings, binary=True)
+        counts.rejects = insert_tuples(conn, t.rejects, _REJECT_COLUMNS, rejects, binary=True)
     conn.execute(sa.update(t.dataset_files).where(t.dataset_files.c.id == file_id).values(
         rows=t.dataset_files.c.rows + counts.rows,
         sightings=t.dataset_files.c.sightings + counts.sightings,
@@ -187,9 +191,22 @@ def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
     return counts
 
 
-def _move_stage(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: int | None,
-                counts: BatchCounts) -> None:
-    s, w, c, r = stage_rows, stage_raws, t.canonical_urls, t.raw_urls
+def _register_raws(conn: Connection, raws: Sequence[Sequence[Any]], *, ruleset_id: int | None,
+                   counts: BatchCounts) -> None:
+    """Store the raw URLs (and their canonical URLs) the registry may not know yet; learn their ids."""
+    create = str(sa.schema.CreateTable(stage_raws, if_not_exists=True).compile(dialect=conn.dialect))
+    if conn.dialect.name == "postgresql":
+        # Every join below pairs a few thousand staged rows with a large table through its unique
+        # index, so an index nested loop is always the right plan. The planner, with no statistics on
+        # the temporary table and stale ones on tables that grow during the load, otherwise picks
+        # hash joins that scan the whole registry once per batch (the load slowed as it grew).
+        # One round trip for the three statements: the writer thread waits for the interpreter after
+        # every round trip while the reader thread canonicalises, so round trips are what a batch costs.
+        conn.exec_driver_sql(f"{create}; SET LOCAL enable_hashjoin = off; SET LOCAL enable_mergejoin = off")
+    else:
+        conn.exec_driver_sql(create)
+    insert_tuples(conn, stage_raws, RAW_COLUMNS, raws, binary=True)
+    w, c, r = stage_raws, t.canonical_urls, t.raw_urls
     stamp = sa.bindparam("stamp", now(), type_=UTC_TYPE)
     rs = sa.literal(ruleset_id, sa.Integer)
 
@@ -203,32 +220,21 @@ def _move_stage(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
     ).on_conflict_do_nothing(index_elements=["url_key"]))
     counts.new_canonical_urls = max(res.rowcount, 0)
 
-    res = conn.execute(_insert(conn, r).from_select(
+    # The new raw URLs say their ids as they are inserted; only those already stored (by an earlier
+    # load, or a concurrent one) need the join afterwards.
+    inserted = conn.execute(_insert(conn, r).from_select(
         ["raw_hash", "raw", "canonical_id", "ruleset_id", "error", "created_at"],
         sa.select(w.c.raw_hash, w.c.raw, c.c.id, rs, w.c.raw_error, stamp)
         .select_from(w.outerjoin(c, c.c.url_key == w.c.url_key))
         .where(w.c.raw_hash.is_not(None)),
-    ).on_conflict_do_nothing(index_elements=["raw_hash"]))
-    counts.new_raw_urls = max(res.rowcount, 0)
-
-    # Sightings and rejects need no ON CONFLICT (whose speculative insertion costs a good part of the
-    # load): the resume-point guard in write_batch guarantees that no row after the stored resume point
-    # exists, so a conflict here would be a bug, and the unique key turns it into an error, not a dup.
-    res = conn.execute(_insert(conn, t.sightings).from_select(
-        ["dataset_id", "file_id", "line_no", "position", "row_key", "seen_at", "raw_url_id"],
-        sa.select(sa.literal(dataset_id, sa.Integer), sa.literal(file_id, sa.Integer), s.c.line_no,
-                  s.c.position, s.c.row_key, s.c.seen_at, r.c.id)
-        .select_from(s.join(r, r.c.raw_hash == s.c.raw_hash))
-        .where(s.c.position >= 0)))
-    counts.sightings = max(res.rowcount, 0)
-
-    res = conn.execute(_insert(conn, t.rejects).from_select(
-        ["dataset_id", "file_id", "line_no", "position", "reason", "detail", "excerpt", "raw_url_id"],
-        sa.select(sa.literal(dataset_id, sa.Integer), sa.literal(file_id, sa.Integer), s.c.line_no,
-                  s.c.position, s.c.reason, s.c.detail, s.c.excerpt, r.c.id)
-        .select_from(s.outerjoin(r, r.c.raw_hash == s.c.raw_hash))
-        .where(s.c.reason.is_not(None))))
-    counts.rejects = max(res.rowcount, 0)
+    ).on_conflict_do_nothing(index_elements=["raw_hash"]).returning(r.c.raw_hash, r.c.id)).all()
+    counts.new_raw_urls = len(inserted)
+    counts.raw_ids.update(inserted)
+    if len(inserted) < len(raws):
+        counts.raw_ids.update(conn.execute(sa.select(w.c.raw_hash, r.c.id)
+                                           .select_from(w.join(r, r.c.raw_hash == w.c.raw_hash))).all())
+    if conn.dialect.name != "postgresql":
+        conn.execute(sa.delete(stage_raws))
 
 
 def complete_file(conn: Connection, file_id: int, *, lines_done: int) -> None:
