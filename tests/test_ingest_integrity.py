@@ -11,7 +11,6 @@ from __future__ import annotations
 import sqlalchemy as sa
 
 from linkfold.ingest import ingest_dump
-from linkfold.ingest import load as load_module
 from linkfold.store import tables as t
 
 
@@ -45,16 +44,16 @@ def write(path, urls) -> list[tuple[int, str]]:
     return [(i + 2, u) for i, u in enumerate(urls)]
 
 
-def test_every_reference_holds_across_loads(engine, tmp_path, monkeypatch):
-    monkeypatch.setattr(load_module, "RAW_ID_CACHE", 6)  # overflow the raw-id cache many times
+def test_every_reference_holds_across_loads(engine, tmp_path):
+    # A four-entry memo and the smallest raw-id cache: both overflow many times over.
     pool = [f"https://daily-{i % 7}.example/news/{i % 13}?utm_source=x" for i in range(40)]
     first = write(tmp_path / "a.csv", pool[:25])
-    ingest_dump(engine, [tmp_path / "a.csv"], dataset="panel", batch_size=4)
-    ingest_dump(engine, [tmp_path / "a.csv"], dataset="panel", batch_size=4)  # already loaded: nothing new
+    ingest_dump(engine, [tmp_path / "a.csv"], dataset="panel", batch_size=4, cache_size=4)
+    ingest_dump(engine, [tmp_path / "a.csv"], dataset="panel", batch_size=4, cache_size=4)  # already loaded: nothing new
     second = write(tmp_path / "b.csv", [*pool[10:], "not a url", "https://daily-1.example/news/1"])
-    ingest_dump(engine, [tmp_path / "b.csv"], dataset="panel", batch_size=3)
+    ingest_dump(engine, [tmp_path / "b.csv"], dataset="panel", batch_size=3, cache_size=4)
     other = write(tmp_path / "c.csv", list(reversed(pool)))
-    ingest_dump(engine, [tmp_path / "c.csv"], dataset="posts", batch_size=5)
+    ingest_dump(engine, [tmp_path / "c.csv"], dataset="posts", batch_size=5, cache_size=4)
 
     assert dangling(engine) == {"file": 0, "dataset": 0, "raw": 0}
     assert stored_urls(engine, "panel") == first + second

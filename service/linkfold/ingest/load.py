@@ -52,19 +52,25 @@ from .writer import BatchWriter
 log = logging.getLogger("linkfold")
 
 DEFAULT_BATCH_SIZE = 20000
-#: Raw URL ids kept between batches (raw hash -> id). Panels revisit the same pages, so most rows of a
-#: batch point at a raw URL an earlier batch already stored; with its id at hand the batch sends nothing
-#: for it. About 200 bytes an entry: the bound keeps the load's memory flat.
-RAW_ID_CACHE = 100_000
+#: Raw URL ids kept between batches (raw hash -> id), per entry of the canonical-form memo
+#: (``cache_size``). Panels revisit the same pages, so most rows of a batch point at a raw URL an earlier
+#: batch already stored; with its id at hand the batch sends nothing for it, and a raw URL whose id was
+#: dropped costs a second trip through the staging table. About 200 bytes an entry; the bound keeps the
+#: load's memory flat once the caches are full.
+RAW_IDS_PER_MEMO_ENTRY = 4
 
 
 class _RawIds(dict[str, int]):
     """The bounded raw-id cache; when full, the older half goes (insertion order is age)."""
 
+    def __init__(self, bound: int) -> None:
+        super().__init__()
+        self.bound = max(bound, 16)
+
     def learn(self, ids: dict[str, int]) -> None:
         self.update(ids)
-        if len(self) > RAW_ID_CACHE:
-            keep = list(self.items())[len(self) - RAW_ID_CACHE // 2:]
+        if len(self) > self.bound:
+            keep = list(self.items())[len(self) - self.bound // 2:]
             self.clear()
             self.update(keep)
 
@@ -158,7 +164,7 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
             version, rules = _resolve_ruleset(conn, ruleset)
         summary = IngestSummary(dataset=name, ruleset_version=version)
         canonicalisers: dict[int, Canonicaliser] = {}
-        raw_ids = _RawIds()  # shared by the files: raw URLs are shared by every dataset
+        raw_ids = _RawIds(RAW_IDS_PER_MEMO_ENTRY * cache_size)  # shared by the files, as raw URLs are
         with recording_run(engine, "ingest") as run:
             summary.run_id = run.id
             with conn.begin():

@@ -113,12 +113,12 @@ class Batch:
     def _url(self, value: str) -> tuple[str, str | None, str | None]:
         known = self._memo.get(value)
         if known is not None:
-            answer, entry = known
-            self.raws[answer[0]] = entry
-            return answer
+            self.raws[known[0][0]] = known[1]
+            return known[0]
         raw = storable(value)
         h = raw_hash(raw)
         answer: tuple[str, str | None, str | None]
+        entry: tuple[Any, ...]
         try:
             c = self.canon(value)
         except InvalidURL as exc:
