@@ -74,7 +74,8 @@ SETTINGS: tuple[Setting, ...] = (
             "Dump rows per transaction of an ingest; an interrupted load resumes after the last whole "
             "batch. Larger batches mean fewer round trips per row (a batch costs about ten)."),
     Setting("canon_cache_size", 65536, _positive_int,
-            "Entries in the canonicaliser's LRU cache (panels repeat the same URLs heavily)."),
+            "Entries in the canonicaliser's LRU cache (panels repeat the same URLs heavily); for an "
+            "ingest, entries of its memo of canonical forms (and four raw URL ids per entry)."),
     Setting("max_line_bytes", 1 << 20, _positive_int,
             "Longest line (or quoted CSV record) an ingest reads, in bytes; a longer one becomes a "
             "line_too_long or malformed_csv reject with its line number."),
