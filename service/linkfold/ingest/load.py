@@ -20,8 +20,8 @@ from __future__ import annotations
 
 import logging
 import time
-from collections import Counter, OrderedDict
-from collections.abc import Iterable, Sequence
+from collections import Counter
+from collections.abc import Sequence
 from contextlib import closing
 from dataclasses import dataclass
 from pathlib import Path
@@ -60,21 +60,19 @@ DEFAULT_BATCH_SIZE = 20000
 RAW_IDS_PER_MEMO_ENTRY = 4
 
 
-class _RawIds(OrderedDict[str, int]):
-    """The bounded raw-id cache, least recently used dropped first."""
+class _RawIds(dict[str, int]):
+    """The bounded raw-id cache; when full, the older half goes (insertion order is age)."""
 
     def __init__(self, bound: int) -> None:
         super().__init__()
         self.bound = max(bound, 16)
 
-    def learn(self, ids: dict[str, int], used: Iterable[str]) -> None:
-        """After a commit: the batch's new ids, and the batch's use of the known ones."""
-        for h in used:
-            if h in self:
-                self.move_to_end(h)
+    def learn(self, ids: dict[str, int]) -> None:
         self.update(ids)
-        while len(self) > self.bound:
-            self.popitem(last=False)
+        if len(self) > self.bound:
+            keep = list(self.items())[len(self) - self.bound // 2:]
+            self.clear()
+            self.update(keep)
 
 
 @dataclass(frozen=True)
@@ -250,7 +248,7 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
 
     def committed(job: _Job, counts: registry.BatchCounts) -> None:
         # Only after the commit: the summary counts what is stored, and an id is only certain now.
-        raw_ids.learn(counts.raw_ids, (w[0] for w in job.raws))
+        raw_ids.learn(counts.raw_ids)
         state["lines_done"] = job.lines_after
         summary.rows += counts.rows
         summary.sightings += counts.sightings

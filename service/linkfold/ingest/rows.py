@@ -17,7 +17,7 @@ from __future__ import annotations
 import hashlib
 import json
 import re
-from collections import Counter, OrderedDict
+from collections import Counter
 from collections.abc import Callable
 from datetime import datetime
 from typing import Any
@@ -85,7 +85,7 @@ class Batch:
     """The staging rows of one batch, and each distinct raw URL in it once.
 
     A raw URL is hashed and canonicalised once per load, not once per row: a bounded memo (``memo_size``
-    entries, least recently used dropped first) keeps the answer across batches, as panels revisit the
+    entries, the older half dropped when full) keeps the answer across batches, as panels revisit the
     same pages all the time. Each batch still lists every distinct raw URL it uses in ``raws``.
     """
 
@@ -98,7 +98,7 @@ class Batch:
         self.rows: list[RowEntry] = []
         self.raws: dict[str, tuple[Any, ...]] = {}  # raw hash -> RAW_FIELDS tuple
         # text -> ((hash, reason, detail), RAW_FIELDS tuple)
-        self._memo: OrderedDict[str, tuple[tuple[str, str | None, str | None], tuple[Any, ...]]] = OrderedDict()
+        self._memo: dict[str, tuple[tuple[str, str | None, str | None], tuple[Any, ...]]] = {}
         self.count = 0  # dump rows added
 
     def clear(self) -> None:
@@ -113,9 +113,6 @@ class Batch:
     def _url(self, value: str) -> tuple[str, str | None, str | None]:
         known = self._memo.get(value)
         if known is not None:
-            # Least recently used goes first: with first-in-first-out the most visited pages, met early,
-            # would be the first dropped (measured: twice the canonicalising on a Zipf-like panel).
-            self._memo.move_to_end(value)
             self.raws[known[0][0]] = known[1]
             return known[0]
         raw = storable(value)
@@ -139,7 +136,9 @@ class Batch:
         self.raws[h] = entry
         memo = self._memo
         if len(memo) >= self.memo_size:
-            memo.popitem(last=False)
+            keep = list(memo.items())[len(memo) // 2:]
+            memo.clear()
+            memo.update(keep)
         memo[value] = (answer, entry)
         return answer
 
