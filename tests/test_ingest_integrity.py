@@ -73,3 +73,13 @@ def test_a_raw_url_stored_by_an_earlier_process_is_found_not_duplicated(engine, 
     ingest_dump(engine, [tmp_path / "b.csv"], dataset="two", batch_size=5)
     assert stored_urls(engine, "two") == expected
     assert dangling(engine) == {"file": 0, "dataset": 0, "raw": 0}
+
+
+def test_binary_copy_types_follow_the_columns_and_fall_back_to_text():
+    from linkfold.store.bulk import _binary_types
+
+    assert _binary_types(t.sightings, ("dataset_id", "file_id", "line_no", "position", "row_key", "seen_at",
+                                       "raw_url_id")) == ["int4", "int4", "int8", "int4", "text", "timestamptz",
+                                                          "int4"]
+    # A JSON column has no binary entry: the whole COPY goes in text format, which converts values.
+    assert _binary_types(t.dataset_files, ("id", "options")) is None
