@@ -36,7 +36,8 @@ class Parts(NamedTuple):
 
 
 # A strict subset of URLs that the WHATWG parser serialises unchanged: lower-case http(s), a lower-case
-# ASCII host name (starting and ending with a letter or digit: plain_host checks the ends, once per host), a non-default port without leading zeros, a path, and query and fragment made only of
+# ASCII host name (starting and ending with a letter or digit: plain_host checks the ends, once per host),
+# a non-default port without leading zeros, a path, and query and fragment made only of
 # characters no WHATWG percent-encode set touches. Such a URL is its own serialisation, so its components
 # can be sliced without the parser (most URLs in a dump look like this). Everything else, and every
 # doubtful case below (IDNA labels, hosts that could be IPv4, dot segments, default ports), goes to the

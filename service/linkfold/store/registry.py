@@ -4,10 +4,11 @@ sightings and rejects.
 A batch of a load is written set-wise. The raw URLs the loader has not met in an earlier batch go into a
 temporary staging table (COPY on PostgreSQL, executemany on SQLite, through
 :func:`linkfold.store.bulk.insert_tuples`); two ``INSERT … SELECT`` statements move them into canonical
-URLs and raw URLs (``ON CONFLICT DO NOTHING``: they are shared by every dataset), and one join on the
-unique raw hash returns their ids. The sightings and rejects then go straight into their tables with those
-ids (COPY again): no row is looked up one by one, and a raw URL the loader already knows costs nothing. The file's resume point moves in the same transaction,
-which is what lets an interrupted load resume without writing anything twice.
+URLs and raw URLs (``ON CONFLICT DO NOTHING``: they are shared by every dataset); the insert returns the
+new ids, and a join on the unique raw hash finds those already stored. The sightings and rejects then go
+straight into their tables with those ids (COPY again): no row is looked up one by one, and a raw URL the
+loader already knows costs nothing. The file's resume point moves in the same transaction, which is what
+lets an interrupted load resume without writing anything twice.
 """
 
 from __future__ import annotations
