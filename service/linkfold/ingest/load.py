@@ -45,7 +45,7 @@ from .formats import (
     physical_lines,
 )
 from .readers import DumpReader, ReadOptions
-from .rows import Batch
+from .rows import Batch, drop_older_half
 from .summary import FileOutcome, FileSummary, IngestSummary
 from .writer import BatchWriter
 
@@ -69,10 +69,8 @@ class _RawIds(dict[str, int]):
 
     def learn(self, ids: dict[str, int]) -> None:
         self.update(ids)
-        if len(self) > self.bound:
-            keep = list(self.items())[len(self) - self.bound // 2:]
-            self.clear()
-            self.update(keep)
+        while len(self) > self.bound:
+            drop_older_half(self)
 
 
 @dataclass(frozen=True)

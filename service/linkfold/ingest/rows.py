@@ -81,6 +81,14 @@ def _time(value: Any) -> tuple[datetime | None, tuple[str, str, str | None] | No
         return None, (Reason.BAD_TIME, f"{exc}; the sightings have no time", storable(shown))
 
 
+def drop_older_half(cache: dict) -> None:
+    """Empty half of a bounded cache, keeping the newer half (a dict's order is insertion order): cheaper
+    per entry than keeping it in least-recently-used order, which was tried and gave no gain (docs/ingest.md)."""
+    keep = list(cache.items())[len(cache) // 2:]
+    cache.clear()
+    cache.update(keep)
+
+
 class Batch:
     """The staging rows of one batch, and each distinct raw URL in it once.
 
@@ -136,9 +144,7 @@ class Batch:
         self.raws[h] = entry
         memo = self._memo
         if len(memo) >= self.memo_size:
-            keep = list(memo.items())[len(memo) // 2:]
-            memo.clear()
-            memo.update(keep)
+            drop_older_half(memo)
         memo[value] = (answer, entry)
         return answer
 
@@ -181,5 +187,5 @@ class Batch:
             out.append((n, pos, row_key, seen_at, h, url_reason, url_detail, None))
 
 
-__all__ = ["RAW_FIELDS", "ROW_FIELDS", "ROW_POSITION", "TIME_POSITION", "Batch", "RowEntry", "raw_hash",
-           "storable"]
+__all__ = ["RAW_FIELDS", "ROW_FIELDS", "ROW_POSITION", "TIME_POSITION", "Batch", "RowEntry", "drop_older_half",
+           "raw_hash", "storable"]
