@@ -284,7 +284,7 @@ def test_a_second_loader_of_the_same_file_is_refused(engine, tmp_path):
     with engine.begin() as conn, pytest.raises(LockHeld):
         # This loader believes the file is at line 0; another one has moved it to 100.
         conn.execute(sa.update(t.dataset_files).values(lines_done=100))
-        registry.write_batch(conn, dataset_id=ds, file_id=f["id"], ruleset_id=None, rows=[], raws=[], row_count=0,
+        registry.write_batch(conn, dataset_id=ds, file_id=f["id"], ruleset_id=None, sightings=[], rejects=[], row_count=0,
                              lines_before=0, lines_after=10)
 
 

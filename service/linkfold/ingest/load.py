@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import logging
 import time
-from collections import Counter
+from collections import ChainMap, Counter
 from collections.abc import Sequence
 from contextlib import closing
 from dataclasses import dataclass
@@ -45,32 +45,17 @@ from .formats import (
     physical_lines,
 )
 from .readers import DumpReader, ReadOptions
-from .rows import Batch, drop_older_half
+from .rows import Batch, RawIds, drop_older_half
 from .summary import FileOutcome, FileSummary, IngestSummary
 from .writer import BatchWriter
 
 log = logging.getLogger("linkfold")
 
 DEFAULT_BATCH_SIZE = 20000
-#: Raw URL ids kept between batches (raw hash -> id), per entry of the canonical-form memo
-#: (``cache_size``). Panels revisit the same pages, so most rows of a batch point at a raw URL an earlier
-#: batch already stored; with its id at hand the batch sends nothing for it, and a raw URL whose id was
-#: dropped costs a second trip through the staging table. About 200 bytes an entry; the bound keeps the
-#: load's memory flat once the caches are full.
+#: Raw URL ids kept between batches (``rows.RawIds``: raw text -> id), per entry of the canonical-form
+#: memo (``cache_size``). The ids are what most rows need, and an entry costs about a quarter of a memo
+#: entry; the bound keeps the load's memory flat once the caches are full.
 RAW_IDS_PER_MEMO_ENTRY = 4
-
-
-class _RawIds(dict[str, int]):
-    """The bounded raw-id cache; when full, the older half goes (insertion order is age)."""
-
-    def __init__(self, bound: int) -> None:
-        super().__init__()
-        self.bound = max(bound, 16)
-
-    def learn(self, ids: dict[str, int]) -> None:
-        self.update(ids)
-        while len(self) > self.bound:
-            drop_older_half(self)
 
 
 @dataclass(frozen=True)
@@ -162,7 +147,7 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
             version, rules = _resolve_ruleset(conn, ruleset)
         summary = IngestSummary(dataset=name, ruleset_version=version)
         canonicalisers: dict[int, Canonicaliser] = {}
-        raw_ids = _RawIds(RAW_IDS_PER_MEMO_ENTRY * cache_size)  # shared by the files, as raw URLs are
+        raw_ids = RawIds(RAW_IDS_PER_MEMO_ENTRY * cache_size)  # shared by the files, as raw URLs are
         with recording_run(engine, "ingest") as run:
             summary.run_id = run.id
             with conn.begin():
@@ -215,8 +200,11 @@ def _check_resume(stored: dict[str, Any], plan: _Plan, version: int, *, explicit
 
 @dataclass
 class _Job:
-    rows: list[tuple]
+    sightings: list[tuple]
+    rejects: list[tuple]
+    pending: list[int]
     raws: list[tuple]
+    known: dict[str, int]
     row_count: int
     lines_after: int
     reasons: Counter[str]
@@ -224,7 +212,7 @@ class _Job:
 
 
 def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_id: int, ruleset_id: int,
-               canon: Canonicaliser, batch_size: int, progress: Progress, raw_ids: _RawIds,
+               canon: Canonicaliser, batch_size: int, progress: Progress, raw_ids: RawIds,
                memo_size: int) -> FileSummary:
     resume_after = int(stored["lines_done"] or 0)
     outcome = FileOutcome.RESUMED if resume_after else FileOutcome.LOADED
@@ -234,19 +222,27 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
         log.info("%s: resuming an interrupted load after line %d", plan.name, resume_after)
     state = {"lines_done": resume_after, "reported": 0}
 
+    # Raw hash -> id of what the last batches staged (writer thread only): a later batch read before those
+    # were committed refers to them by hash, and finds them here rather than by a query.
+    recent: dict[str, int] = {}
+
     def write(conn: Connection, job: _Job) -> registry.BatchCounts:
         # Runs on the writer thread, inside one transaction per batch.
         counts = registry.write_batch(conn, dataset_id=dataset_id, file_id=stored["id"], ruleset_id=ruleset_id,
-                                      rows=job.rows, raws=job.raws, row_count=job.row_count,
-                                      lines_before=state["lines_done"], lines_after=job.lines_after,
-                                      known_ids=raw_ids)
+                                      sightings=job.sightings, rejects=job.rejects, pending=job.pending,
+                                      raws=job.raws, known=ChainMap(job.known, recent), row_count=job.row_count,
+                                      lines_before=state["lines_done"], lines_after=job.lines_after)
+        if len(recent) + len(counts.raw_ids) > memo_size:
+            drop_older_half(recent)
+        recent.update(counts.raw_ids)
         if job.final:
             registry.complete_file(conn, stored["id"], lines_done=max(job.lines_after, plan.facts.lines))
         return counts
 
     def committed(job: _Job, counts: registry.BatchCounts) -> None:
-        # Only after the commit: the summary counts what is stored, and an id is only certain now.
-        raw_ids.learn(counts.raw_ids)
+        # Only after the commit: the summary counts what is stored, and an id is only certain now. The
+        # reading thread takes the ids in between batches.
+        raw_ids.offer(job.raws, counts.raw_ids)
         state["lines_done"] = job.lines_after
         summary.rows += counts.rows
         summary.sightings += counts.sightings
@@ -257,12 +253,15 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
         progress.advance(max(done - state["reported"], 0))
         state["reported"] = max(done, state["reported"])
 
-    batch = Batch(canon, keyed=plan.options.key_column is not None,
-                  timed=plan.options.time_column is not None, memo_size=memo_size)
+    batch = Batch(canon, dataset_id=dataset_id, file_id=stored["id"], keyed=plan.options.key_column is not None,
+                  timed=plan.options.time_column is not None, memo_size=memo_size, ids=raw_ids)
     last_line = resume_after
 
     def job(final: bool) -> _Job:
-        out = _Job(batch.rows, list(batch.raws.values()), batch.count, last_line, batch.reasons(), final)
+        known = batch.known()
+        fresh = [w for h, w in batch.raws.items() if h not in known]
+        out = _Job(batch.sightings, batch.rejects, batch.pending, fresh, known, batch.count, last_line,
+                   batch.reasons(), final)
         batch.clear()
         return out
 

@@ -17,8 +17,8 @@ from __future__ import annotations
 import hashlib
 import json
 import re
-from collections import Counter
-from collections.abc import Callable
+from collections import Counter, deque
+from collections.abc import Callable, Iterable, Mapping
 from datetime import datetime
 from typing import Any
 
@@ -32,12 +32,15 @@ TIME_POSITION = -2  # the row's time
 
 _UNSTORABLE = re.compile("[\x00\ud800-\udfff]")
 
-# A staging row: one per sighting or reject.
-RowEntry = tuple[Any, ...]
-ROW_FIELDS = ("line_no", "position", "row_key", "seen_at", "raw_hash", "reason", "detail", "excerpt")
-# A staging raw URL: one per distinct raw URL of a batch, with its canonical form if it has one.
+# What a batch hands the writer, in the column order of the tables it goes into (registry.SIGHTING_COLUMNS,
+# registry.REJECT_COLUMNS). The raw URL (last field) is its id when the load already knows it, else its raw
+# hash (a str), which the writer swaps for the id once the batch's new raw URLs are stored.
+SightingEntry = tuple[Any, ...]  # dataset_id, file_id, line_no, position, row_key, seen_at, raw URL
+RejectEntry = tuple[Any, ...]  # dataset_id, file_id, line_no, position, reason, detail, excerpt, raw URL
+_REASON = 4
+# A staging raw URL: one per distinct raw URL of a batch that the load has no id for, with its canonical
+# form if it has one (registry.RAW_COLUMNS).
 RAW_FIELDS = ("raw_hash", "raw", "raw_error", "url_key", "url", "host", "domain", "outlet", "is_article")
-_REASON = 5
 
 
 def storable(text: str) -> str:
@@ -48,11 +51,6 @@ def storable(text: str) -> str:
 def raw_hash(text: str) -> str:
     """The raw URL's identity: SHA-256 (hex) of the stored text in UTF-8."""
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
-
-
-def _reject(line_no: int, position: int, row_key: str | None, reason: str, detail: str | None,
-            text: str | None = None) -> RowEntry:
-    return (line_no, position, row_key, None, None, reason, detail, excerpt(text))
 
 
 def _key(value: Any, line_no: int) -> tuple[str, tuple[str, str, str | None] | None]:
@@ -89,39 +87,103 @@ def drop_older_half(cache: dict) -> None:
     cache.update(keep)
 
 
-class Batch:
-    """The staging rows of one batch, and each distinct raw URL in it once.
+class RawIds(dict[str, int]):
+    """Raw URL text -> ``raw_urls.id``, for raw URLs whose batch this load has committed; bounded (the
+    older half goes when full), shared by the files of one load.
 
-    A raw URL is hashed and canonicalised once per load, not once per row: a bounded memo (``memo_size``
-    entries, the older half dropped when full) keeps the answer across batches, as panels revisit the
-    same pages all the time. Each batch still lists every distinct raw URL it uses in ``raws``.
+    Panels revisit the same pages, so most rows of a batch name a raw URL an earlier batch stored: with its
+    id at hand the row is finished on the spot, with nothing to hash, canonicalise or send. Only raw URLs
+    with a canonical form are kept (a refused one needs its reason on every row; the memo has it). An
+    entry is a key string and an int, about 200 bytes.
+
+    The writer thread learns ids, the reading thread uses them: :meth:`offer` (any thread) queues what a
+    committed batch learned, :meth:`absorb` (the reading thread, between batches) takes it in, so the dict
+    is only ever changed by the thread that reads it.
     """
 
-    def __init__(self, canon: Callable[[str], Canonical], *, keyed: bool, timed: bool,
-                 memo_size: int = 65536) -> None:
+    def __init__(self, bound: int) -> None:
+        super().__init__()
+        self.bound = max(bound, 16)
+        self._inbox: deque[tuple[Iterable[tuple[Any, ...]], Mapping[str, int]]] = deque()
+
+    def offer(self, raws: Iterable[tuple[Any, ...]], ids: Mapping[str, int]) -> None:
+        """Queue the ids of a committed batch's staged raw URLs (``RAW_FIELDS`` tuples; raw hash -> id)."""
+        self._inbox.append((raws, ids))
+
+    def absorb(self) -> list[str]:
+        """Take in what committed batches learned; return the raw texts now known."""
+        learned: list[str] = []
+        while self._inbox:
+            raws, ids = self._inbox.popleft()
+            for w in raws:
+                if w[2] is None and w[0] in ids:
+                    self[w[1]] = ids[w[0]]
+                    learned.append(w[1])
+        while len(self) > self.bound:
+            drop_older_half(self)
+        return learned
+
+
+class Batch:
+    """The sightings and rejects of one batch, and each raw URL in it that the load has no id for yet.
+
+    A row whose raw URL has a known id (``ids``) is finished here. Any other raw URL is hashed and
+    canonicalised once per load, not once per row: a bounded memo (``memo_size`` entries, the older half
+    dropped when full) keeps the answer until the URL's id is known. Its rows carry the raw hash
+    (``pending`` says which sightings do); the batch that first met it stages it in ``raws``, and a later
+    batch relies on that one being stored first.
+    """
+
+    def __init__(self, canon: Callable[[str], Canonical], *, dataset_id: int, file_id: int, keyed: bool,
+                 timed: bool, memo_size: int = 65536, ids: RawIds | None = None) -> None:
         self.canon = canon
+        self.dataset_id = dataset_id
+        self.file_id = file_id
         self.keyed = keyed
         self.timed = timed
         self.memo_size = max(memo_size, 1)
-        self.rows: list[RowEntry] = []
+        self.ids = ids if ids is not None else RawIds(4 * self.memo_size)
+        self.sightings: list[SightingEntry] = []
+        self.rejects: list[RejectEntry] = []
+        self.pending: list[int] = []  # indexes of the sightings that carry a raw hash, not an id
         self.raws: dict[str, tuple[Any, ...]] = {}  # raw hash -> RAW_FIELDS tuple
         # text -> ((hash, reason, detail), RAW_FIELDS tuple)
         self._memo: dict[str, tuple[tuple[str, str | None, str | None], tuple[Any, ...]]] = {}
         self.count = 0  # dump rows added
 
     def clear(self) -> None:
-        """Start the next batch (the memo stays)."""
-        self.rows = []
+        """Start the next batch (the memo and the ids stay); take in the ids committed meanwhile."""
+        self.sightings = []
+        self.rejects = []
+        self.pending = []
         self.raws = {}
         self.count = 0
+        self.learn()
+
+    def learn(self) -> None:
+        memo = self._memo
+        for text in self.ids.absorb():
+            memo.pop(text, None)  # its id replaces it
+
+    def known(self) -> dict[str, int]:
+        """Raw hash -> id for this batch's staged raw URLs whose id became known after their rows were
+        staged (an earlier batch committed them meanwhile): the writer need not send those."""
+        self.learn()
+        ids = self.ids
+        return {h: ids[w[1]] for h, w in self.raws.items() if w[2] is None and w[1] in ids}
 
     def reasons(self) -> Counter[str]:
-        return Counter(r[_REASON] for r in self.rows if r[_REASON] is not None)
+        return Counter(r[_REASON] for r in self.rejects)
+
+    def _reject(self, line_no: int, position: int, reason: str, detail: str | None,
+                text: str | None = None) -> None:
+        self.rejects.append((self.dataset_id, self.file_id, line_no, position, reason, detail, excerpt(text), None))
 
     def _url(self, value: str) -> tuple[str, str | None, str | None]:
         known = self._memo.get(value)
         if known is not None:
-            self.raws[known[0][0]] = known[1]
+            # Staged by this batch or an earlier one of this file, which the writer stores first (batches
+            # are written in order): either way the writer can give its id.
             return known[0]
         raw = storable(value)
         h = raw_hash(raw)
@@ -149,13 +211,13 @@ class Batch:
         return answer
 
     def add(self, row: DumpRow) -> None:
-        """Stage one dump row (it always leaves at least one staging row: every row leaves a trace)."""
+        """Stage one dump row (it always leaves at least one sighting or reject: every row leaves a trace)."""
         self.count += 1
-        out = self.rows
+        ds, fid = self.dataset_id, self.file_id
         n = row.line_no
         if row.reject is not None:
             rej = row.reject
-            out.append((n, ROW_POSITION, None, None, None, rej.reason, rej.detail, rej.excerpt))
+            self.rejects.append((ds, fid, n, ROW_POSITION, rej.reason, rej.detail, rej.excerpt, None))
             return
         urls = row.urls
         if len(urls) == 1 and type(urls[0]) is str and urls[0].strip():
@@ -164,28 +226,36 @@ class Batch:
             values = [v for v in urls if v is not None and not (isinstance(v, str) and not v.strip())]
         if not values:
             detail = "the URL column is empty" if urls else "the URL path reaches no value"
-            out.append(_reject(n, ROW_POSITION, None, Reason.NO_URL, detail))
+            self._reject(n, ROW_POSITION, Reason.NO_URL, detail)
             return
         if self.keyed:
             row_key, key_problem = _key(row.key, n)
             if key_problem:
-                out.append(_reject(n, ROW_POSITION, row_key, *key_problem))
+                self._reject(n, ROW_POSITION, *key_problem)
         else:
             row_key = str(n)
         seen_at = None
         if self.timed:
             seen_at, time_problem = _time(row.time)
             if time_problem:
-                out.append(_reject(n, TIME_POSITION, row_key, *time_problem))
+                self._reject(n, TIME_POSITION, *time_problem)
+        out = self.sightings
+        ids = self.ids
         for pos, value in enumerate(values):
             if not isinstance(value, str):
-                out.append(_reject(n, pos, row_key, Reason.NOT_TEXT,
-                                   f"a JSON {type(value).__name__} where a URL was expected",
-                                   json.dumps(value)[:400]))
+                self._reject(n, pos, Reason.NOT_TEXT, f"a JSON {type(value).__name__} where a URL was expected",
+                             json.dumps(value)[:400])
+                continue
+            rid = ids.get(value)
+            if rid is not None:
+                out.append((ds, fid, n, pos, row_key, seen_at, rid))
                 continue
             h, url_reason, url_detail = self._url(value)
-            out.append((n, pos, row_key, seen_at, h, url_reason, url_detail, None))
+            self.pending.append(len(out))
+            out.append((ds, fid, n, pos, row_key, seen_at, h))
+            if url_reason is not None:
+                self.rejects.append((ds, fid, n, pos, url_reason, url_detail, None, h))
 
 
-__all__ = ["RAW_FIELDS", "ROW_FIELDS", "ROW_POSITION", "TIME_POSITION", "Batch", "RowEntry", "drop_older_half",
-           "raw_hash", "storable"]
+__all__ = ["RAW_FIELDS", "ROW_POSITION", "TIME_POSITION", "Batch", "RawIds", "RejectEntry", "SightingEntry",
+           "drop_older_half", "raw_hash", "storable"]

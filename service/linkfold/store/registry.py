@@ -13,7 +13,7 @@ lets an interrupted load resume without writing anything twice.
 
 from __future__ import annotations
 
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from typing import Any
@@ -118,10 +118,24 @@ stage_raws = sa.Table(
     sa.Column("is_article", sa.Boolean),
     prefixes=["TEMPORARY"], postgresql_on_commit="DELETE ROWS",
 )
-ROW_COLUMNS = ("line_no", "position", "row_key", "seen_at", "raw_hash", "reason", "detail", "excerpt")
 RAW_COLUMNS = tuple(c.name for c in stage_raws.columns)
-_SIGHTING_COLUMNS = ("dataset_id", "file_id", "line_no", "position", "row_key", "seen_at", "raw_url_id")
-_REJECT_COLUMNS = ("dataset_id", "file_id", "line_no", "position", "reason", "detail", "excerpt", "raw_url_id")
+SIGHTING_COLUMNS = ("dataset_id", "file_id", "line_no", "position", "row_key", "seen_at", "raw_url_id")
+REJECT_COLUMNS = ("dataset_id", "file_id", "line_no", "position", "reason", "detail", "excerpt", "raw_url_id")
+
+
+def _stage_setup(dialect) -> str:
+    create = str(sa.schema.CreateTable(stage_raws, if_not_exists=True).compile(dialect=dialect))
+    if dialect.name != "postgresql":
+        return create
+    # Every join of _register_raws pairs a few thousand staged rows with a large table through its unique
+    # index, so an index nested loop is always the right plan. The planner, with no statistics on the
+    # temporary table and stale ones on tables that grow during the load, otherwise picks hash joins that
+    # scan the whole registry once per batch (the load slowed as it grew).
+    return f"{create}; SET LOCAL enable_hashjoin = off; SET LOCAL enable_mergejoin = off"
+
+
+_STAGE_SETUP = {name: _stage_setup(d) for name, d in (("postgresql", postgresql.dialect()),
+                                                     ("sqlite", sqlite.dialect()))}
 
 
 @dataclass
@@ -131,7 +145,7 @@ class BatchCounts:
     new_raw_urls: int = 0
     new_canonical_urls: int = 0
     rejects: int = 0
-    #: Raw URL ids this batch looked up or created (raw hash -> id), for the caller's cache once the
+    #: Raw hash -> id of the raw URLs this batch staged (new or found), for the caller's cache once the
     #: batch is committed: an id is only certain after the commit.
     raw_ids: dict[str, int] = field(default_factory=dict)
 
@@ -143,72 +157,74 @@ def _insert(conn: Connection, table: sa.Table):
 
 
 def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: int | None,
-                rows: Sequence[Sequence[Any]], raws: Sequence[Sequence[Any]], row_count: int,
-                lines_before: int, lines_after: int,
-                known_ids: Mapping[str, int] | None = None) -> BatchCounts:
+                sightings: list[tuple], rejects: list[tuple], pending: Sequence[int] = (),
+                raws: Sequence[Sequence[Any]] = (), known: Mapping[str, int] | None = None, row_count: int,
+                lines_before: int, lines_after: int) -> BatchCounts:
     """Write one batch inside the caller's transaction and move the file's resume point forward.
 
-    ``rows`` are sightings and rejects in ``ROW_COLUMNS`` order, ``raws`` the batch's distinct raw URLs
-    in ``RAW_COLUMNS`` order; ``row_count`` is how many dump rows they came from. ``lines_before`` is the
-    resume point this batch continues from: if the stored one differs, another process is loading the
-    same file, and :class:`LockHeld` is raised before anything is written. ``known_ids`` are raw URL ids
-    the caller learned from earlier, committed batches (raw hash -> id): those raw URLs are not sent to
-    the database again.
+    ``sightings`` and ``rejects`` are rows in ``SIGHTING_COLUMNS`` / ``REJECT_COLUMNS`` order whose last
+    field, the raw URL, is its id or, where the caller had none, its raw hash (``pending`` lists the
+    sightings that carry one). ``raws`` are the raw URLs to store for those, in ``RAW_COLUMNS`` order;
+    ``known`` gives raw hash -> id for hashed rows whose raw URL the caller knows to be stored; any other
+    hash not among ``raws`` is looked up (a raw URL an earlier, committed batch stored).
+    ``row_count`` is how many dump rows the batch came from. ``lines_before`` is the resume point this
+    batch continues from: if the stored one differs, another process is loading the same file, and
+    :class:`LockHeld` is raised before anything is written. The lists are completed in place.
 
-    Only raw URLs new to the caller are staged and resolved set-wise; the sightings and rejects then go
-    straight into their tables (COPY on PostgreSQL) with their raw URL ids filled in here, since a panel
-    repeats its URLs so much that most rows of a batch need no lookup at all.
+    The raw URLs are staged and resolved set-wise; the sightings and rejects then go straight into their
+    tables (COPY on PostgreSQL), since a panel repeats its URLs so much that the caller already holds the
+    id of most rows' raw URL and nothing is looked up for them.
     """
-    guard = conn.execute(sa.update(t.dataset_files)
-                         .where(t.dataset_files.c.id == file_id, t.dataset_files.c.lines_done == lines_before)
-                         .values(lines_done=lines_after))
-    if guard.rowcount != 1:
+    counts = BatchCounts(rows=row_count, sightings=len(sightings), rejects=len(rejects))
+    f = t.dataset_files
+    # The resume point and the file's counts move first, in one statement that is also the guard; the
+    # counts are known before anything is written, and a failure later rolls the whole batch back.
+    guard = sa.update(f).where(f.c.id == file_id, f.c.lines_done == lines_before).values(
+        lines_done=lines_after, rows=f.c.rows + counts.rows, sightings=f.c.sightings + counts.sightings,
+        rejects=f.c.rejects + counts.rejects)
+    if conn.dialect.name == "postgresql":
+        # One round trip for the guard and the staging table's set-up: the writer thread waits for the
+        # interpreter after every round trip while the reading thread works. Only integers are inlined.
+        sql = str(guard.compile(dialect=conn.dialect, compile_kwargs={"literal_binds": True}))
+        if raws:
+            sql = f"{sql}; {_STAGE_SETUP[conn.dialect.name]}"
+        moved = conn.exec_driver_sql(sql).rowcount  # the first statement's
+    else:
+        moved = conn.execute(guard).rowcount
+        if raws:
+            conn.exec_driver_sql(_STAGE_SETUP[conn.dialect.name])
+    if moved != 1:
         raise LockHeld(f"dataset file {file_id} is being loaded by another process (its resume point "
                        "moved under this load); let that load finish, then run this one again")
-    counts = BatchCounts(rows=row_count)
-    if rows:
-        known = known_ids if known_ids is not None else {}
-        fresh = [w for w in raws if w[0] not in known]
-        ids = counts.raw_ids
-        if fresh:
-            _register_raws(conn, fresh, ruleset_id=ruleset_id, counts=counts)
-        sightings: list[tuple] = []
-        rejects: list[tuple] = []
-        for line_no, position, row_key, seen_at, h, reason, detail, text in rows:
-            raw_id = None if h is None else (ids.get(h) or known[h])
-            if position >= 0 and raw_id is not None:
-                sightings.append((dataset_id, file_id, line_no, position, row_key, seen_at, raw_id))
-            if reason is not None:
-                rejects.append((dataset_id, file_id, line_no, position, reason, detail, text, raw_id))
-        # Straight into the indexed table, not through a staging table: staging first pays the same index
-        # work again in the INSERT … SELECT, plus the staging COPY and a join, and with every id known here
-        # there is nothing for a join to do (bench/ingest_bench.py (d): 0.9-1.05x the raw COPY baseline).
-        # No ON CONFLICT (whose speculative insertion costs a good part of a load): the resume-point guard
-        # above guarantees that no row after the stored resume point exists, so a conflict here would be
-        # a bug, and the unique keys turn it into an error, never into a duplicate.
-        counts.sightings = insert_tuples(conn, t.sightings, _SIGHTING_COLUMNS, sightings, binary=True)
-        counts.rejects = insert_tuples(conn, t.rejects, _REJECT_COLUMNS, rejects, binary=True)
-    conn.execute(sa.update(t.dataset_files).where(t.dataset_files.c.id == file_id).values(
-        rows=t.dataset_files.c.rows + counts.rows,
-        sightings=t.dataset_files.c.sightings + counts.sightings,
-        rejects=t.dataset_files.c.rejects + counts.rejects))
+    ids = counts.raw_ids
+    if raws:
+        _register_raws(conn, raws, ruleset_id=ruleset_id, counts=counts)
+    known = known or {}
+    missing = {h for i in pending if (h := sightings[i][6]) not in ids and h not in known}
+    missing.update(h for r in rejects if isinstance(h := r[7], str) and h not in ids and h not in known)
+    found = ids_by_hash(conn, missing) if missing else {}
+    for i in pending:
+        s = sightings[i]
+        h = s[6]
+        sightings[i] = (*s[:6], ids.get(h) or known.get(h) or found[h])
+    for i, r in enumerate(rejects):
+        if isinstance(h := r[7], str):
+            rejects[i] = (*r[:7], ids.get(h) or known.get(h) or found[h])
+    # Straight into the indexed table, not through a staging table: staging first pays the same index
+    # work again in the INSERT … SELECT, plus the staging COPY and a join, and with every id known here
+    # there is nothing for a join to do (bench/ingest_bench.py (d): 0.9-1.05x the raw COPY baseline).
+    # No ON CONFLICT (whose speculative insertion costs a good part of a load): the resume-point guard
+    # above guarantees that no row after the stored resume point exists, so a conflict here would be
+    # a bug, and the unique keys turn it into an error, never into a duplicate.
+    insert_tuples(conn, t.sightings, SIGHTING_COLUMNS, sightings, binary=True)
+    insert_tuples(conn, t.rejects, REJECT_COLUMNS, rejects, binary=True)
     return counts
 
 
 def _register_raws(conn: Connection, raws: Sequence[Sequence[Any]], *, ruleset_id: int | None,
                    counts: BatchCounts) -> None:
-    """Store the raw URLs (and their canonical URLs) the registry may not know yet; learn their ids."""
-    create = str(sa.schema.CreateTable(stage_raws, if_not_exists=True).compile(dialect=conn.dialect))
-    if conn.dialect.name == "postgresql":
-        # Every join below pairs a few thousand staged rows with a large table through its unique
-        # index, so an index nested loop is always the right plan. The planner, with no statistics on
-        # the temporary table and stale ones on tables that grow during the load, otherwise picks
-        # hash joins that scan the whole registry once per batch (the load slowed as it grew).
-        # One round trip for the three statements: the writer thread waits for the interpreter after
-        # every round trip while the reader thread canonicalises, so round trips are what a batch costs.
-        conn.exec_driver_sql(f"{create}; SET LOCAL enable_hashjoin = off; SET LOCAL enable_mergejoin = off")
-    else:
-        conn.exec_driver_sql(create)
+    """Store the raw URLs (and their canonical URLs) the registry may not know yet; learn their ids.
+    The staging table is set up (``_STAGE_SETUP``) by the caller."""
     insert_tuples(conn, stage_raws, RAW_COLUMNS, raws, binary=True)
     w, c, r = stage_raws, t.canonical_urls, t.raw_urls
     stamp = sa.bindparam("stamp", now(), type_=UTC_TYPE)
@@ -346,6 +362,15 @@ def _chunks(items: Sequence[str]) -> Iterator[Sequence[str]]:
         yield items[i:i + _IN_CHUNK]
 
 
+def ids_by_hash(conn: Connection, hashes: Iterable[str]) -> dict[str, int]:
+    """Raw hash -> raw URL id for the stored ones among ``hashes``."""
+    r = t.raw_urls
+    out: dict[str, int] = {}
+    for part in _chunks(sorted(hashes)):
+        out.update(conn.execute(sa.select(r.c.raw_hash, r.c.id).where(r.c.raw_hash.in_(part))).tuples().all())
+    return out
+
+
 def canonicals_by_key(conn: Connection, keys: Sequence[str]) -> dict[str, dict[str, Any]]:
     c = t.canonical_urls
     out: dict[str, dict[str, Any]] = {}
@@ -400,7 +425,8 @@ def raw_sighting_counts(conn: Connection, hashes: Sequence[str]) -> dict[str, tu
 __all__ = [
     "LINK_COLUMNS",
     "RAW_COLUMNS",
-    "ROW_COLUMNS",
+    "REJECT_COLUMNS",
+    "SIGHTING_COLUMNS",
     "BatchCounts",
     "canonicals_by_key",
     "claim_file",
@@ -412,6 +438,7 @@ __all__ = [
     "find_dataset",
     "find_file",
     "get_dataset",
+    "ids_by_hash",
     "iter_links",
     "iter_rejects",
     "list_datasets",
