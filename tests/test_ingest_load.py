@@ -375,3 +375,37 @@ def test_in_memory_sqlite_registry_loads_on_one_thread(tmp_path):
         assert counts(engine)["sightings"] == 25
     finally:
         engine.dispose()
+
+
+def test_the_switch_interval_is_lowered_only_while_a_writer_thread_runs(engine, tmp_path, monkeypatch):
+    # Behaviour test of writer.py's GIL hand-over setting (a measured tuning, see its docstring).
+    import sys
+
+    from linkfold.ingest import writer as writer_module
+
+    before = sys.getswitchinterval()
+    seen: list[float] = []
+    real = registry.write_batch
+
+    def spy(conn, **kwargs):
+        seen.append(sys.getswitchinterval())
+        return real(conn, **kwargs)
+
+    monkeypatch.setattr(registry, "write_batch", spy)
+    path = tmp_path / "a.csv"
+    path.write_text("url\n" + "".join(f"https://a.example/{i}\n" for i in range(30)))
+    ingest_dump(engine, [path], dataset="d", batch_size=10)
+    assert seen and sys.getswitchinterval() == before
+    if engine.url.database not in (None, "", ":memory:"):  # a file or a server: the writer has a thread
+        assert max(seen) == pytest.approx(min(before, writer_module.SWITCH_INTERVAL))  # stored in microseconds
+
+    calls = {"n": 0}
+
+    def fails(conn, **kwargs):
+        calls["n"] += 1
+        raise LockHeld("simulated")
+
+    monkeypatch.setattr(registry, "write_batch", fails)
+    with pytest.raises(LockHeld):
+        ingest_dump(engine, [path], dataset="e", batch_size=10)
+    assert sys.getswitchinterval() == before  # restored on failure too

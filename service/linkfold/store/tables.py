@@ -141,10 +141,11 @@ canon_changes = sa.Table(
 # registry.write_batch, which resolves raw_url_id by a join on raw_urls' unique key in the transaction
 # that also holds its file row; nothing deletes raw URLs, files or datasets. tests/test_ingest_integrity.py
 # checks that no reference dangles. Queries by dataset go through the dataset's files (file_id leads the
-# unique key).
+# unique key). On PostgreSQL the id is a bigint without an index (migration 0011): the natural key below is
+# how a sighting is found, and the primary-key index served no query; on SQLite it is the row id.
 sightings = sa.Table(
     "sightings", metadata,
-    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("id", sa.BigInteger().with_variant(sa.Integer(), "sqlite"), primary_key=True),
     sa.Column("dataset_id", sa.Integer, nullable=False),      # datasets.id (not enforced, see above)
     sa.Column("file_id", sa.Integer, nullable=False),         # dataset_files.id
     sa.Column("line_no", sa.BigInteger, nullable=False),
