@@ -333,3 +333,66 @@ def test_lines_format_keeps_text_verbatim_and_skips_blank_lines():
 def test_lines_format_refuses_column_options():
     with pytest.raises(InputError, match="do not apply"):
         read("https://a.example/\n", "lines", key_column="id")
+
+
+# --- the CSV/TSV fast lane against the csv-module lane -----------------------------------------------------
+_PIECES = ["https://a.example/p", "k1", "2031-05-04T08:00:00Z", ",", ",", "\t", '"', '""', "\r", "\r\n", "\n",
+           "\n", " ", "\x00", "é", "\u2028", "x"]
+
+
+def _both_lanes(data: bytes, fmt: str, monkeypatch) -> tuple[list, list]:
+    from linkfold.ingest import readers
+
+    def rows(fast: bool) -> list:
+        monkeypatch.setattr(readers._Delimited, "fast_lane", fast)
+        options = ReadOptions(fmt=DumpFormat(fmt), key_column="key", time_column="t", max_line_bytes=40)
+        reader = DumpReader(physical_lines(io.BytesIO(data), 40), options, name="dump")
+        out = [(r.line_no, r.end_line, r.urls, r.key, r.time,
+                None if r.reject is None else (r.reject.reason, r.reject.detail, r.reject.excerpt)) for r in reader]
+        return [*out, ("blank lines", reader.blank_lines)]
+
+    return rows(True), rows(False)
+
+
+@pytest.mark.parametrize("fmt", ["csv", "tsv"])
+def test_fast_lane_reads_every_line_as_the_csv_module_lane_does(fmt, monkeypatch):
+    # Behaviour test: the fast lane (str.split for lines csv would split the same way) must never change
+    # what a row becomes; the slow lane is the one checked against RFC 4180 above. Random lines from
+    # pieces that matter to a CSV parser: quotes, doubled quotes, CR, LF, CRLF, NUL, delimiters, blanks,
+    # non-ASCII, invalid UTF-8 and lines over the 40-byte limit.
+    from hypothesis import given, settings
+    from hypothesis import strategies as st
+
+    sep = "," if fmt == "csv" else "\t"
+    header = f"url{sep}key{sep}t\n".encode()
+    piece = st.one_of(st.sampled_from(_PIECES).map(str.encode), st.just(b"\xff"), st.just(b"y" * 45))
+    field = st.lists(piece, max_size=3).map(b"".join)
+    # Mostly lines of the header's width (the fast lane's candidates), some of any shape.
+    line = st.one_of(st.tuples(field, field, field).map(sep.encode().join), st.lists(piece, max_size=8).map(b"".join))
+
+    @settings(max_examples=400, deadline=None)
+    @given(st.lists(line, max_size=8))
+    def check(lines):
+        fast, slow = _both_lanes(header + b"\n".join(lines), fmt, monkeypatch)
+        assert fast == slow
+
+    check()
+
+
+def test_fast_lane_takes_the_usual_lines():
+    from linkfold.ingest import readers
+
+    calls = {"csv": 0}
+    real = readers._Feed.__next__
+
+    def counting(self):
+        calls["csv"] += 1
+        return real(self)
+
+    data = b"url,key\n" + b"".join(b"https://a.example/%d,k%d\n" % (i, i) for i in range(50))
+    options = ReadOptions(fmt=DumpFormat.CSV, key_column="key")
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(readers._Feed, "__next__", counting)
+        rows = list(DumpReader(physical_lines(io.BytesIO(data), 1 << 20), options, name="d"))
+    assert len(rows) == 50 and rows[-1].key == "k49"
+    assert calls["csv"] == 1  # the header only

@@ -19,7 +19,7 @@ import json
 import re
 from collections import Counter, deque
 from collections.abc import Callable, Iterable, Mapping
-from datetime import datetime
+from datetime import UTC, datetime
 from typing import Any
 
 from ..canon import Canonical
@@ -31,6 +31,7 @@ ROW_POSITION = -1  # the row itself: a row that could not be read, or a problem 
 TIME_POSITION = -2  # the row's time
 
 _UNSTORABLE = re.compile("[\x00\ud800-\udfff]")
+_fromisoformat = datetime.fromisoformat
 
 # What a batch hands the writer, in the column order of the tables it goes into (registry.SIGHTING_COLUMNS,
 # registry.REJECT_COLUMNS). The raw URL (last field) is its id when the load already knows it, else its raw
@@ -220,7 +221,8 @@ class Batch:
             self.rejects.append((ds, fid, n, ROW_POSITION, rej.reason, rej.detail, rej.excerpt, None))
             return
         urls = row.urls
-        if len(urls) == 1 and type(urls[0]) is str and urls[0].strip():
+        # (x and not x.isspace()) is "not blank", as x.strip() would say, without a copy of x.
+        if len(urls) == 1 and type(urls[0]) is str and urls[0] and not urls[0].isspace():
             values = urls  # the usual row: one URL
         else:
             values = [v for v in urls if v is not None and not (isinstance(v, str) and not v.strip())]
@@ -229,16 +231,31 @@ class Batch:
             self._reject(n, ROW_POSITION, Reason.NO_URL, detail)
             return
         if self.keyed:
-            row_key, key_problem = _key(row.key, n)
-            if key_problem:
-                self._reject(n, ROW_POSITION, *key_problem)
+            key = row.key
+            # The usual key (plain ASCII text) is taken as it is; _key has every other case.
+            if type(key) is str and key.isascii() and key and not key.isspace() and "\x00" not in key:
+                row_key = key
+            else:
+                row_key, key_problem = _key(key, n)
+                if key_problem:
+                    self._reject(n, ROW_POSITION, *key_problem)
         else:
             row_key = str(n)
         seen_at = None
         if self.timed:
-            seen_at, time_problem = _time(row.time)
-            if time_problem:
-                self._reject(n, TIME_POSITION, *time_problem)
+            t = row.time
+            # parse_time's own first case (RFC 3339 in UTC, "…Z"), inline: it is met on nearly every row.
+            if type(t) is str and len(t) > 10 and t[-1] == "Z" and t[4] == "-":
+                try:
+                    seen_at = _fromisoformat(t)
+                except ValueError:
+                    seen_at = None
+                if seen_at is not None and seen_at.tzinfo is not UTC:
+                    seen_at = None
+            if seen_at is None:
+                seen_at, time_problem = _time(t)
+                if time_problem:
+                    self._reject(n, TIME_POSITION, *time_problem)
         out = self.sightings
         ids = self.ids
         for pos, value in enumerate(values):

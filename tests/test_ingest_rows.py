@@ -1,0 +1,40 @@
+"""Batch.add's inline cases for the usual key and time give what the general rules (_key, parse_time) give.
+
+Behaviour tests without a database: keys and times drawn at random, including the awkward ones (blank,
+NUL, lone surrogates, non-ASCII, offsets other than Z, impossible dates), and each row's staged key,
+time and rejects compared with the general functions' answers.
+"""
+
+from __future__ import annotations
+
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from linkfold.canon import Canonicaliser
+from linkfold.ingest.readers import MISSING, DumpRow
+from linkfold.ingest.rows import TIME_POSITION, Batch, _key, _time
+
+_TIMES = st.one_of(
+    st.datetimes(timezones=st.just(__import__("datetime").UTC)).map(lambda d: d.isoformat().replace("+00:00", "Z")),
+    st.sampled_from(["2031-05-04T08:00:00Z", "2031-02-30T08:00:00Z", "2031-05-04T08:00:60Z", "2031-05-04 08:00Z",
+                     "2031-05-04T08:00:00+02:00", "2031-05-04T08:00:00.123456Z", "1999-12-31T23:59:59z",
+                     "  2031-05-04T08:00:00Z", "20310504T080000Z", "2031-05-04", "", " ", "1715000000", "Z" * 11]),
+    st.text(max_size=25), st.integers(), st.none(), st.just(MISSING))
+_KEYS = st.one_of(st.text(max_size=12), st.sampled_from(["v1", " ", "", "a\x00b", "\ud800", "é1", "k 1 "]),
+                  st.integers(), st.none(), st.just(MISSING))
+
+
+@settings(max_examples=500, deadline=None)
+@given(key=_KEYS, when=_TIMES)
+def test_inline_key_and_time_match_the_general_rules(key, when):
+    batch = Batch(Canonicaliser(), dataset_id=1, file_id=1, keyed=True, timed=True)
+    batch.add(DumpRow(7, 7, ["https://a.example/p"], key, when))
+    (sighting,) = batch.sightings
+    want_key, key_problem = _key(key, 7)
+    want_time, time_problem = _time(when)
+    assert sighting[4] == want_key and sighting[5] == want_time
+    assert type(sighting[5]) is type(want_time)
+    got = {(r[3], r[4]) for r in batch.rejects}
+    want = {(-1, key_problem[0])} if key_problem else set()
+    want |= {(TIME_POSITION, time_problem[0])} if time_problem else set()
+    assert got == want
