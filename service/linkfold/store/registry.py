@@ -233,21 +233,33 @@ def _register_raws(conn: Connection, raws: Sequence[Sequence[Any]], *, ruleset_i
     # Canonical URLs, only for raw URLs the registry does not know yet: a known raw URL keeps the
     # canonical URL it has (re-canonicalisation under a new ruleset is its own stage, with a record).
     known_raw = sa.select(r.c.id).where(r.c.raw_hash == w.c.raw_hash).exists()
-    res = conn.execute(_insert(conn, c).from_select(
+    canonicals = _insert(conn, c).from_select(
         ["url_key", "url", "host", "domain", "outlet", "is_article", "ruleset_id", "created_at"],
         sa.select(w.c.url_key, w.c.url, w.c.host, w.c.domain, w.c.outlet, w.c.is_article, rs, stamp)
         .where(w.c.url_key.is_not(None), ~known_raw),
-    ).on_conflict_do_nothing(index_elements=["url_key"]))
-    counts.new_canonical_urls = max(res.rowcount, 0)
-
+    ).on_conflict_do_nothing(index_elements=["url_key"])
     # The new raw URLs say their ids as they are inserted; only those already stored (by an earlier
     # load, or a concurrent one) need the join afterwards.
-    inserted = conn.execute(_insert(conn, r).from_select(
+    raw_insert = _insert(conn, r).from_select(
         ["raw_hash", "raw", "canonical_id", "ruleset_id", "error", "created_at"],
         sa.select(w.c.raw_hash, w.c.raw, c.c.id, rs, w.c.raw_error, stamp)
         .select_from(w.outerjoin(c, c.c.url_key == w.c.url_key))
         .where(w.c.raw_hash.is_not(None)),
-    ).on_conflict_do_nothing(index_elements=["raw_hash"]).returning(r.c.raw_hash, r.c.id)).all()
+    ).on_conflict_do_nothing(index_elements=["raw_hash"]).returning(r.c.raw_hash, r.c.id)
+    inserted: Sequence[tuple[str, int]]
+    if conn.dialect.name == "postgresql":
+        # Both statements in one round trip (the values inlined are an integer and a time), read back
+        # as plain tuples: this runs once per batch on the writer thread, which shares the interpreter.
+        sql = "; ".join(str(q.compile(dialect=conn.dialect, compile_kwargs={"literal_binds": True}))
+                        for q in (canonicals, raw_insert))
+        with conn.connection.driver_connection.cursor() as cur:  # type: ignore[union-attr]
+            cur.execute(sql)
+            counts.new_canonical_urls = max(cur.rowcount, 0)
+            cur.nextset()
+            inserted = cur.fetchall()
+    else:
+        counts.new_canonical_urls = max(conn.execute(canonicals).rowcount, 0)
+        inserted = [tuple(row) for row in conn.execute(raw_insert).all()]
     counts.new_raw_urls = len(inserted)
     counts.raw_ids.update(inserted)
     if len(inserted) < len(raws):
@@ -367,7 +379,7 @@ def ids_by_hash(conn: Connection, hashes: Iterable[str]) -> dict[str, int]:
     r = t.raw_urls
     out: dict[str, int] = {}
     for part in _chunks(sorted(hashes)):
-        out.update(conn.execute(sa.select(r.c.raw_hash, r.c.id).where(r.c.raw_hash.in_(part))).tuples().all())
+        out.update(conn.execute(sa.select(r.c.raw_hash, r.c.id).where(r.c.raw_hash.in_(part))).all())
     return out
 
 
