@@ -409,3 +409,24 @@ def test_the_switch_interval_is_lowered_only_while_a_writer_thread_runs(engine, 
     with pytest.raises(LockHeld):
         ingest_dump(engine, [path], dataset="e", batch_size=10)
     assert sys.getswitchinterval() == before  # restored on failure too
+
+
+def test_the_collector_threshold_is_raised_only_while_a_file_is_read(engine, tmp_path, monkeypatch):
+    import gc
+
+    from linkfold.ingest import load as load_module
+
+    before = gc.get_threshold()
+    seen: list[tuple[int, int, int]] = []
+    real = registry.write_batch
+
+    def spy(conn, **kwargs):
+        seen.append(gc.get_threshold())
+        return real(conn, **kwargs)
+
+    monkeypatch.setattr(registry, "write_batch", spy)
+    path = tmp_path / "a.csv"
+    path.write_text("url\n" + "".join(f"https://a.example/{i}\n" for i in range(30)))
+    ingest_dump(engine, [path], dataset="d", batch_size=10)
+    assert gc.get_threshold() == before
+    assert seen[0][0] == max(before[0], load_module.GC_THRESHOLD_WHILE_LOADING)
