@@ -1,9 +1,11 @@
-"""Sightings carry no foreign keys (migration 0009): the loader itself must keep every reference whole.
+"""Sightings carry no foreign keys (migration 0009), nor do raw and canonical URLs on PostgreSQL (migration
+0010): the writers themselves must keep every reference whole.
 
 Behaviour tests on both backends (invented data on reserved names): after a fresh load, a reload, an
 append of an overlapping file, a load with bad rows, a second dataset sharing raw URLs, and a load whose
 raw-id cache overflows, every sighting points at an existing file of its own dataset and at an existing
-raw URL whose text is the one on that line of the dump.
+raw URL whose text is the one on that line of the dump; every raw URL's canonical URL and ruleset, and
+every canonical URL's ruleset, exist, also after a re-canonicalisation under a new ruleset.
 """
 
 from __future__ import annotations
@@ -19,7 +21,16 @@ def dangling(engine) -> dict[str, int]:
     with engine.connect() as conn:
         def count(q) -> int:
             return int(conn.execute(q).scalar_one())
+        c, rs = t.canonical_urls, t.rulesets
+
+        def orphans(table, column, target) -> int:
+            return count(sa.select(sa.func.count()).select_from(table.outerjoin(target, target.c.id == column))
+                         .where(column.is_not(None), target.c.id.is_(None)))
+
         return {
+            "raw canonical": orphans(r, r.c.canonical_id, c),
+            "raw ruleset": orphans(r, r.c.ruleset_id, rs),
+            "canonical ruleset": orphans(c, c.c.ruleset_id, rs),
             "file": count(sa.select(sa.func.count()).select_from(s.outerjoin(f, f.c.id == s.c.file_id))
                           .where(f.c.id.is_(None))),
             "dataset": count(sa.select(sa.func.count()).select_from(s.join(f, f.c.id == s.c.file_id))
@@ -55,7 +66,7 @@ def test_every_reference_holds_across_loads(engine, tmp_path):
     other = write(tmp_path / "c.csv", list(reversed(pool)))
     ingest_dump(engine, [tmp_path / "c.csv"], dataset="posts", batch_size=5, cache_size=4)
 
-    assert dangling(engine) == {"file": 0, "dataset": 0, "raw": 0}
+    assert not any(dangling(engine).values()), dangling(engine)
     assert stored_urls(engine, "panel") == first + second
     assert stored_urls(engine, "posts") == other
     with engine.connect() as conn:
@@ -72,7 +83,7 @@ def test_a_raw_url_stored_by_an_earlier_process_is_found_not_duplicated(engine, 
     expected = write(tmp_path / "b.csv", urls[::-1])
     ingest_dump(engine, [tmp_path / "b.csv"], dataset="two", batch_size=5)
     assert stored_urls(engine, "two") == expected
-    assert dangling(engine) == {"file": 0, "dataset": 0, "raw": 0}
+    assert not any(dangling(engine).values()), dangling(engine)
 
 
 def test_binary_copy_types_follow_the_columns_and_fall_back_to_text():
@@ -83,3 +94,18 @@ def test_binary_copy_types_follow_the_columns_and_fall_back_to_text():
                                                           "int4"]
     # A JSON column has no binary entry: the whole COPY goes in text format, which converts values.
     assert _binary_types(t.dataset_files, ("id", "options")) is None
+
+
+def test_references_hold_after_a_recanonicalisation(engine, tmp_path):
+    from linkfold.canon import parse_rules
+    from linkfold.jobs.recanon import recanonicalize
+    from linkfold.store.rulesets import store_ruleset
+
+    urls = [f"https://www.harbour-{i % 3}.example/story/{i}?utm_source=x&ref=side" for i in range(20)]
+    write(tmp_path / "a.csv", urls)
+    ingest_dump(engine, [tmp_path / "a.csv"], dataset="panel", batch_size=6)
+    with engine.begin() as conn:  # a new ruleset: more canonical URLs, raw URLs move to them
+        store_ruleset(conn, parse_rules("name = 'lab'\n[steps]\nhost_prefixes = false\n"))  # www. kept
+    summary = recanonicalize(engine, batch_size=7)
+    assert summary.moved > 0
+    assert not any(dangling(engine).values()), dangling(engine)
