@@ -377,6 +377,23 @@ def test_in_memory_sqlite_registry_loads_on_one_thread(tmp_path):
         engine.dispose()
 
 
+def _load_reading_setting(engine, tmp_path, monkeypatch, read):
+    """Load a 30-row file in batches of 10; return ``read()`` as seen inside each batch's write."""
+    seen: list = []
+    real = registry.write_batch
+
+    def spy(conn, **kwargs):
+        seen.append(read())
+        return real(conn, **kwargs)
+
+    monkeypatch.setattr(registry, "write_batch", spy)
+    path = tmp_path / "a.csv"
+    path.write_text("url\n" + "".join(f"https://a.example/{i}\n" for i in range(30)))
+    ingest_dump(engine, [path], dataset="d", batch_size=10)
+    monkeypatch.setattr(registry, "write_batch", real)
+    return path, seen
+
+
 def test_the_switch_interval_is_lowered_only_while_a_writer_thread_runs(engine, tmp_path, monkeypatch):
     # Behaviour test of writer.py's GIL hand-over setting (a measured tuning, see its docstring).
     import sys
@@ -384,25 +401,12 @@ def test_the_switch_interval_is_lowered_only_while_a_writer_thread_runs(engine, 
     from linkfold.ingest import writer as writer_module
 
     before = sys.getswitchinterval()
-    seen: list[float] = []
-    real = registry.write_batch
-
-    def spy(conn, **kwargs):
-        seen.append(sys.getswitchinterval())
-        return real(conn, **kwargs)
-
-    monkeypatch.setattr(registry, "write_batch", spy)
-    path = tmp_path / "a.csv"
-    path.write_text("url\n" + "".join(f"https://a.example/{i}\n" for i in range(30)))
-    ingest_dump(engine, [path], dataset="d", batch_size=10)
+    path, seen = _load_reading_setting(engine, tmp_path, monkeypatch, sys.getswitchinterval)
     assert seen and sys.getswitchinterval() == before
     if engine.url.database not in (None, "", ":memory:"):  # a file or a server: the writer has a thread
         assert max(seen) == pytest.approx(min(before, writer_module.SWITCH_INTERVAL))  # stored in microseconds
 
-    calls = {"n": 0}
-
     def fails(conn, **kwargs):
-        calls["n"] += 1
         raise LockHeld("simulated")
 
     monkeypatch.setattr(registry, "write_batch", fails)
@@ -417,16 +421,6 @@ def test_the_collector_threshold_is_raised_only_while_a_file_is_read(engine, tmp
     from linkfold.ingest import load as load_module
 
     before = gc.get_threshold()
-    seen: list[tuple[int, int, int]] = []
-    real = registry.write_batch
-
-    def spy(conn, **kwargs):
-        seen.append(gc.get_threshold())
-        return real(conn, **kwargs)
-
-    monkeypatch.setattr(registry, "write_batch", spy)
-    path = tmp_path / "a.csv"
-    path.write_text("url\n" + "".join(f"https://a.example/{i}\n" for i in range(30)))
-    ingest_dump(engine, [path], dataset="d", batch_size=10)
+    _path, seen = _load_reading_setting(engine, tmp_path, monkeypatch, gc.get_threshold)
     assert gc.get_threshold() == before
     assert seen[0][0] == max(before[0], load_module.GC_THRESHOLD_WHILE_LOADING)
