@@ -21,7 +21,7 @@ from sqlalchemy.engine import Connection
 from ..canon import Canonical
 from . import tables as t
 from .bulk import insert_new_rows
-from .registry import utc
+from .registry import ids_by_hash, utc
 
 _IN_CHUNK = 500  # ids per IN (…) list, well under SQLite's limit of bound parameters
 _UNSTORABLE = re.compile("[\x00\ud800-\udfff]")  # what PostgreSQL text cannot hold
@@ -79,10 +79,7 @@ def register_urls(conn: Connection, urls: Iterable[tuple[str, Canonical]], *, ru
     raw_rows = [{"raw_hash": hashes[raw], "raw": raw, "canonical_id": ids[canon.url_key], "ruleset_id": ruleset_id,
                  "error": None, "created_at": stamp} for raw, canon in pairs.items()]
     insert_new_rows(conn, t.raw_urls, raw_rows, ["raw_hash"])
-    r = t.raw_urls
-    raw_ids: dict[str, int] = {}
-    for part in _chunks(list(hashes.values())):
-        raw_ids.update({h: int(i) for i, h in conn.execute(sa.select(r.c.id, r.c.raw_hash).where(r.c.raw_hash.in_(part)))})
+    raw_ids = ids_by_hash(conn, hashes.values())
     return {raw: UrlIds(ids[canon.url_key], raw_ids[hashes[raw]]) for raw, canon in pairs.items()}
 
 
