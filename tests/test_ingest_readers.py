@@ -340,13 +340,14 @@ _PIECES = ["https://a.example/p", "k1", "2031-05-04T08:00:00Z", ",", ",", "\t", 
            "\n", " ", "\x00", "é", "\u2028", "x"]
 
 
-def _both_lanes(data: bytes, fmt: str, monkeypatch) -> tuple[list, list]:
+def _both_lanes(data: bytes, fmt: str, monkeypatch, chunk: int = 1 << 20) -> tuple[list, list]:
     from linkfold.ingest import readers
 
     def rows(fast: bool) -> list:
         monkeypatch.setattr(readers._Delimited, "fast_lane", fast)
         options = ReadOptions(fmt=DumpFormat(fmt), key_column="key", time_column="t", max_line_bytes=40)
-        reader = DumpReader(physical_lines(io.BytesIO(data), 40), options, name="dump")
+        # The fast lane reads pieces of ``chunk`` bytes, so that runs of plain lines start and end anywhere.
+        reader = DumpReader(physical_lines(io.BytesIO(data), 40, chunk), options, name="dump")
         out = [(r.line_no, r.end_line, r.urls, r.key, r.time,
                 None if r.reject is None else (r.reject.reason, r.reject.detail, r.reject.excerpt)) for r in reader]
         return [*out, ("blank lines", reader.blank_lines)]
@@ -371,9 +372,9 @@ def test_fast_lane_reads_every_line_as_the_csv_module_lane_does(fmt, monkeypatch
     line = st.one_of(st.tuples(field, field, field).map(sep.encode().join), st.lists(piece, max_size=8).map(b"".join))
 
     @settings(max_examples=400, deadline=None)
-    @given(st.lists(line, max_size=8))
-    def check(lines):
-        fast, slow = _both_lanes(header + b"\n".join(lines), fmt, monkeypatch)
+    @given(st.lists(line, max_size=8), st.integers(1, 200))
+    def check(lines, chunk):
+        fast, slow = _both_lanes(header + b"\n".join(lines), fmt, monkeypatch, chunk)
         assert fast == slow
 
     check()
@@ -396,3 +397,88 @@ def test_fast_lane_takes_the_usual_lines():
         rows = list(DumpReader(physical_lines(io.BytesIO(data), 1 << 20), options, name="d"))
     assert len(rows) == 50 and rows[-1].key == "k49"
     assert calls["csv"] == 1  # the header only
+    pieces = list(DumpReader(physical_lines(io.BytesIO(data), 1 << 20), options, name="d").pieces())
+    # Blocks only (no row objects at all), consecutive; they grow while every line passes (16, 32, …).
+    assert {type(p).__name__ for p in pieces} == {"RowBlock"}
+    assert [p.first for p in pieces] == [2, 18, 50] and sum(map(len, pieces)) == 50
+    assert pieces[0].urls[0] == "https://a.example/0" and pieces[-1].keys[-1] == "k49"
+
+
+# --- the line source: pieces against one line at a time -----------------------------------------------------
+def _one_line_at_a_time(stream: io.BytesIO, limit: int) -> list[tuple]:
+    """The oracle: how lines were read before the line source read pieces (readline with the limit),
+    except that a byte order mark is dropped before the limit applies, not after."""
+    out, number = [], 0
+    if stream.read(3) != b"\xef\xbb\xbf":
+        stream.seek(0)
+    while data := stream.readline(limit + 1):
+        number += 1
+        if data.endswith(b"\r\n"):
+            out.append((number, data[:-2], b"\r\n", False))
+        elif data.endswith(b"\n"):
+            out.append((number, data[:-1], b"\n", False))
+        elif len(data) <= limit:
+            out.append((number, data, b"", False))
+            break
+        else:
+            while (rest := stream.readline(1 << 20)) and not rest.endswith(b"\n"):
+                pass
+            out.append((number, data[:512], b"", True))
+    return out
+
+
+_LINE_PIECES = [b"a", b"bc", b"\n", b"\n", b"\r\n", b"\r", b"\x00", b'"', b"\xff", "é".encode(), b"x" * 30]
+
+
+def test_pieces_give_the_lines_one_line_at_a_time_gives():
+    # Behaviour test: whatever the piece size and the line limit, and however a reader mixes taking
+    # plain runs with taking single lines, the lines (numbers, bytes, ends, over-long flags) are the same.
+    from hypothesis import given, settings
+    from hypothesis import strategies as st
+
+    @settings(max_examples=500, deadline=None)
+    @given(parts=st.lists(st.sampled_from(_LINE_PIECES), max_size=40), bom=st.booleans(),
+           limit=st.integers(1, 40), chunk=st.integers(1, 64), takes=st.lists(st.integers(0, 5), max_size=30))
+    def check(parts, bom, limit, chunk, takes):
+        data = (b"\xef\xbb\xbf" if bom else b"") + b"".join(parts)
+        want = _one_line_at_a_time(io.BytesIO(data), limit)
+        source = physical_lines(io.BytesIO(data), limit, chunk)
+        got: list[tuple] = []
+        moves = iter(takes)
+        while True:
+            take = next(moves, 0)
+            run = source.plain_run(b'"') if take else None
+            if run is not None:
+                texts, start = run
+                used = texts[start:start + take]
+                # A plain run is what the lines would be, decoded: no quote, NUL or stray CR, valid UTF-8.
+                for k, text in enumerate(used):
+                    got.append((source.number + 1 + k, text, "plain"))
+                source.skip(len(used))
+                continue
+            line = next(source, None)
+            if line is None:
+                break
+            got.append((line.number, line.data, line.terminator, line.too_long))
+        expect = []
+        for number, line_data, end, too_long in want:
+            match = next((g for g in got if g[0] == number), None)
+            if match is not None and match[-1] == "plain":
+                assert not too_long and end in (b"\n", b"\r\n")
+                assert b'"' not in line_data and b"\x00" not in line_data and b"\r" not in line_data
+                assert match[1] == line_data.decode("utf-8")
+                expect.append(match)
+            else:
+                expect.append((number, line_data, end, too_long))
+        assert got == expect
+
+    check()
+
+
+def test_a_file_of_ordinary_lines_comes_as_one_plain_run_per_piece():
+    data = b"".join(b"https://a.example/%d,k%d\r\n" % (i, i) for i in range(100))
+    source = physical_lines(io.BytesIO(data), 1 << 20)
+    texts, start = source.plain_run(b'"')
+    assert start == 0 and len(texts) == 100 and texts[-1] == "https://a.example/99,k99"  # CRLF ends are not content
+    source.skip(100)
+    assert source.number == 100 and next(source, None) is None

@@ -1,4 +1,5 @@
-"""Batch.add's inline cases for the usual key and time give what the general rules (_key, parse_time) give.
+"""Batch.add's inline cases for the usual key and time give what the general rules (_key, parse_time) give;
+Batch.add_block stages a block's rows as Batch.add stages the same rows one by one.
 
 Behaviour tests without a database: keys and times drawn at random, including the awkward ones (blank,
 NUL, lone surrogates, non-ASCII, offsets other than Z, impossible dates), and each row's staged key,
@@ -11,8 +12,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from linkfold.canon import Canonicaliser
-from linkfold.ingest.readers import MISSING, DumpRow
-from linkfold.ingest.rows import TIME_POSITION, Batch, _key, _time
+from linkfold.ingest.readers import MISSING, DumpRow, RowBlock
+from linkfold.ingest.rows import TIME_POSITION, Batch, RawIds, _key, _time
 
 _TIMES = st.one_of(
     st.datetimes(timezones=st.just(__import__("datetime").UTC)).map(lambda d: d.isoformat().replace("+00:00", "Z")),
@@ -38,3 +39,34 @@ def test_inline_key_and_time_match_the_general_rules(key, when):
     want = {(-1, key_problem[0])} if key_problem else set()
     want |= {(TIME_POSITION, time_problem[0])} if time_problem else set()
     assert got == want
+
+
+_URLS = st.one_of(st.sampled_from(["https://a.example/p", "https://a.example/p?utm_source=x", "http://b.test/q",
+                                   "", " ", "not a url", "https://a.example/\x00", "https://é.example/",
+                                   "https://a.example/known"]), st.text(max_size=20))
+
+
+@settings(max_examples=300, deadline=None)
+@given(rows=st.lists(st.tuples(_URLS, st.one_of(st.text(max_size=12), _KEYS.filter(lambda k: type(k) is str)),
+                               _TIMES.filter(lambda t: type(t) is str)), max_size=12),
+       keyed=st.booleans(), timed=st.booleans(), cut=st.tuples(st.integers(0, 12), st.integers(0, 12)))
+def test_a_block_is_staged_as_its_rows_one_by_one(rows, keyed, timed, cut):
+    # Behaviour test: the block path has its own inline checks; every row it does not take as the usual
+    # one must go through add(), and the rows it takes must come out as add() would have them.
+    start, stop = sorted((min(cut[0], len(rows)), min(cut[1], len(rows))))
+    block = RowBlock(5, [r[0] for r in rows], [r[1] for r in rows], [r[2] for r in rows])
+
+    def batch() -> Batch:
+        ids = RawIds(64)
+        ids["https://a.example/known"] = 41  # a raw URL whose id the load already has
+        return Batch(Canonicaliser(), dataset_id=1, file_id=2, keyed=keyed, timed=timed, ids=ids)
+
+    whole, single = batch(), batch()
+    whole.add_block(block, start, stop)
+    for row in list(block.rows())[start:stop]:
+        single.add(DumpRow(row.line_no, row.end_line, row.urls, row.key if keyed else MISSING,
+                           row.time if timed else MISSING))
+    assert whole.sightings == single.sightings
+    assert whole.rejects == single.rejects
+    assert whole.pending == single.pending and whole.raws == single.raws
+    assert whole.count == single.count == stop - start

@@ -45,7 +45,7 @@ from .formats import (
     parse_format,
     physical_lines,
 )
-from .readers import DumpReader, ReadOptions
+from .readers import DumpReader, ReadOptions, RowBlock
 from .rows import Batch, RawIds, drop_older_half
 from .summary import FileOutcome, FileSummary, IngestSummary
 from .writer import BatchWriter
@@ -289,11 +289,22 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
             reader = DumpReader(physical_lines(stream.binary, plan.options.max_line_bytes), plan.options,
                                 name=plan.name)
             try:
-                for row in reader:
-                    if row.line_no <= resume_after:
+                for piece in reader.pieces():
+                    if type(piece) is RowBlock:
+                        # Consecutive lines: taken in slices that end where a batch is full.
+                        start, end = max(resume_after - piece.first + 1, 0), len(piece)
+                        while start < end:
+                            stop = min(end, start + batch_size - batch.count)
+                            batch.add_block(piece, start, stop)
+                            last_line = piece.first + stop - 1
+                            start = stop
+                            if batch.count >= batch_size:
+                                writer.submit(job(final=False))
+                        continue
+                    if piece.line_no <= resume_after:
                         continue  # committed by the interrupted load
-                    batch.add(row)
-                    last_line = row.end_line
+                    batch.add(piece)
+                    last_line = piece.end_line
                     if batch.count >= batch_size:
                         writer.submit(job(final=False))
             except InputError as exc:

@@ -17,6 +17,7 @@ import json
 from collections import deque
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
+from operator import itemgetter
 from typing import Any
 
 from ..errors import DumpFormatError, InputError, MissingColumnError
@@ -25,7 +26,8 @@ from .paths import JsonPath, parse_path, resolve
 
 EXCERPT_CHARS = 200
 JSONL_PEEK_LINES = 1000
-JSONL_PEEK_BYTES = 8 << 20  # and at most this much of them: the peeked lines are held until replayed
+JSONL_PEEK_BYTES = 8 << 20
+RUN_MIN, RUN_MAX = 16, 8192  # lines the CSV/TSV fast lane splits at once  # and at most this much of them: the peeked lines are held until replayed
 
 
 class _Missing:
@@ -73,6 +75,29 @@ class DumpRow:
     key: Any = MISSING
     time: Any = MISSING
     reject: RowReject | None = None  # set: the row as a whole could not be read
+
+
+@dataclass(slots=True)
+class RowBlock:
+    """Rows of consecutive single lines, one URL each, as columns: line ``first + i`` has ``urls[i]``,
+    ``keys[i]`` and ``times[i]`` (``None`` when the column is not read). The values are the fields as they
+    stand, checked no further than a :class:`DumpRow`'s would be: the loader applies the same rules to
+    both (``rows.Batch``). A block is how the CSV/TSV fast lane hands on a run of ordinary lines."""
+
+    first: int
+    urls: list[str]
+    keys: list[str] | None
+    times: list[str] | None
+
+    def __len__(self) -> int:
+        return len(self.urls)
+
+    def rows(self) -> Iterator[DumpRow]:
+        """The block as :class:`DumpRow` objects."""
+        keys, times = self.keys, self.times
+        for i, url in enumerate(self.urls):
+            n = self.first + i
+            yield DumpRow(n, n, [url], MISSING if keys is None else keys[i], MISSING if times is None else times[i])
 
 
 @dataclass(frozen=True)
@@ -130,6 +155,15 @@ class DumpReader:
             self._checked = True
 
     def __iter__(self) -> Iterator[DumpRow]:
+        for piece in self.pieces():
+            if type(piece) is RowBlock:
+                yield from piece.rows()
+            else:
+                yield piece
+
+    def pieces(self) -> Iterator[DumpRow | RowBlock]:
+        """The rows in line order, runs of ordinary CSV/TSV lines as :class:`RowBlock` columns (the loader's
+        way in: a row object costs more than the reading of most rows), the rest as :class:`DumpRow`."""
         self.check()
         return self._impl.rows()
 
@@ -142,7 +176,7 @@ class _Format:
     def check(self) -> None:  # pragma: no cover - overridden
         raise NotImplementedError
 
-    def rows(self) -> Iterator[DumpRow]:  # pragma: no cover - overridden
+    def rows(self) -> Iterator[DumpRow | RowBlock]:  # pragma: no cover - overridden
         raise NotImplementedError
 
     def _screened(self, lines: Iterable[PhysicalLine]) -> Iterator[tuple[PhysicalLine, DumpRow | None]]:
@@ -260,6 +294,7 @@ class _Delimited(_Format):
         else:
             self.csv = csv.reader(self.feed, delimiter=",", quotechar='"', doublequote=True, strict=True)
         self.url_idx: list[int] = []
+        self._run_size = RUN_MIN
         self.key_idx: int | None = None
         self.time_idx: int | None = None
 
@@ -308,7 +343,33 @@ class _Delimited(_Format):
                                      f"{_list(header)}", hint=hint)
         return hits[0]
 
-    def rows(self) -> Iterator[DumpRow]:
+    def _blocks(self, texts: list[str], start: int, first: int, width: int) -> tuple[RowBlock | None, int]:
+        """The longest run of ``texts[start:]`` that the fast lane would pass line by line, as a block, and
+        its length. ``texts`` are plain (PhysicalLines.plain_run): no quote, CR, NUL or bad UTF-8."""
+        delimiter = "\t" if self.opt.fmt is DumpFormat.TSV else ","
+        # Runs grow while every line passes and start small again after one that does not, so that a file
+        # with many unusual lines does not split the same lines over and over.
+        run = texts[start:start + self._run_size]
+        split = [t.split(delimiter) for t in run]
+        good = len(split)
+        if width == 1:
+            good = next((k for k, t in enumerate(run) if not t or t.isspace()), good)
+        elif not all(len(f) == width for f in split):
+            good = next(k for k, f in enumerate(split) if len(f) != width)
+        if good < len(split):
+            self._run_size = RUN_MIN
+            if good == 0:
+                return None, 0
+            split = split[:good]
+        else:
+            self._run_size = min(2 * self._run_size, RUN_MAX)
+        (url,) = self.url_idx
+        key_idx, time_idx = self.key_idx, self.time_idx
+        return RowBlock(first, list(map(itemgetter(url), split)),
+                        None if key_idx is None else list(map(itemgetter(key_idx), split)),
+                        None if time_idx is None else list(map(itemgetter(time_idx), split))), good
+
+    def rows(self) -> Iterator[DumpRow | RowBlock]:
         feed = self.feed
         width = len(self.r.columns)
         lines, pending = feed.lines, feed.pending
@@ -316,7 +377,19 @@ class _Delimited(_Format):
         tsv = self.opt.fmt is DumpFormat.TSV
         delimiter = "\t" if tsv else ","
         fast = self.fast_lane
+        # Whole runs of ordinary lines at once, where the line source can give them (one URL column).
+        plain_run = getattr(lines, "plain_run", None) if fast and len(url_idx) == 1 else None
+        quote = None if tsv else b'"'
         while True:
+            if plain_run is not None and not pending:
+                got = plain_run(quote)
+                if got is not None:
+                    texts, start = got
+                    block, used = self._blocks(texts, start, lines.number + 1, width)
+                    if block is not None:
+                        lines.skip(used)
+                        yield block
+                        continue
             if fast and not pending:
                 # The fast lane: a line that csv would split exactly as str.split does (no quote, no CR,
                 # no NUL; TSV has no quoting at all), is UTF-8, is not blank and has the header's width.
@@ -527,4 +600,4 @@ class _JsonLines(_Format):
         return got.values[0] if got.values else MISSING
 
 
-__all__ = ["MISSING", "DumpReader", "DumpRow", "ReadOptions", "Reason", "RowReject", "excerpt"]
+__all__ = ["MISSING", "DumpReader", "DumpRow", "ReadOptions", "Reason", "RowBlock", "RowReject", "excerpt"]

@@ -24,7 +24,7 @@ from typing import Any
 
 from ..canon import Canonical
 from ..errors import InvalidURL
-from .readers import MISSING, DumpRow, Reason, excerpt
+from .readers import MISSING, DumpRow, Reason, RowBlock, excerpt
 from .times import BadTime, parse_time
 
 ROW_POSITION = -1  # the row itself: a row that could not be read, or a problem with its key
@@ -210,6 +210,50 @@ class Batch:
             drop_older_half(memo)
         memo[value] = (answer, entry)
         return answer
+
+    def add_block(self, block: RowBlock, start: int = 0, stop: int | None = None) -> None:
+        """Stage the block's rows ``start:stop``, as :meth:`add` would stage each of them (a row that is not
+        the usual one goes through :meth:`add`)."""
+        stop = len(block) if stop is None else stop
+        ds, fid = self.dataset_id, self.file_id
+        first = block.first
+        urls = block.urls
+        keys = block.keys if self.keyed else None
+        times = block.times if self.timed else None
+        out, pending, rejects, ids = self.sightings, self.pending, self.rejects, self.ids
+        usual = 0
+        for i in range(start, stop):
+            n = first + i
+            value = urls[i]
+            key = keys[i] if keys is not None else MISSING
+            t = times[i] if times is not None else MISSING
+            # The usual row, as in add(): a URL that is not blank, a plain ASCII key, an RFC 3339 time in UTC.
+            if not value or value.isspace() or (keys is not None and not (
+                    key.isascii() and key and not key.isspace() and "\x00" not in key)):
+                self.add(DumpRow(n, n, [value], key, t))
+                continue
+            seen_at = None
+            if times is not None:
+                if len(t) > 10 and t[-1] == "Z" and t[4] == "-":
+                    try:
+                        seen_at = _fromisoformat(t)
+                    except ValueError:
+                        seen_at = None
+                if seen_at is None or seen_at.tzinfo is not UTC:
+                    self.add(DumpRow(n, n, [value], key, t))
+                    continue
+            usual += 1
+            row_key = key if keys is not None else str(n)
+            rid = ids.get(value)
+            if rid is not None:
+                out.append((ds, fid, n, 0, row_key, seen_at, rid))
+                continue
+            h, url_reason, url_detail = self._url(value)
+            pending.append(len(out))
+            out.append((ds, fid, n, 0, row_key, seen_at, h))
+            if url_reason is not None:
+                rejects.append((ds, fid, n, 0, url_reason, url_detail, None, h))
+        self.count += usual
 
     def add(self, row: DumpRow) -> None:
         """Stage one dump row (it always leaves at least one sighting or reject: every row leaves a trace)."""
