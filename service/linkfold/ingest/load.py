@@ -35,6 +35,7 @@ from ..errors import ConfigError, InputError
 from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
 from ..store import registry
+from ..store.bulk import EncodedRows
 from ..store.rulesets import get_ruleset, latest_ruleset, store_ruleset
 from .formats import (
     DEFAULT_MAX_LINE_BYTES,
@@ -46,7 +47,7 @@ from .formats import (
     physical_lines,
 )
 from .readers import DumpReader, ReadOptions, RowBlock
-from .rows import Batch, RawIds, drop_older_half
+from .rows import Batch, RawIds
 from .summary import FileOutcome, FileSummary, IngestSummary
 from .writer import BatchWriter
 
@@ -226,6 +227,25 @@ class _Job:
     lines_after: int
     reasons: Counter[str]
     final: bool = False
+    ready: EncodedRows | None = None  # complete sightings, encoded for COPY (PostgreSQL)
+    raws_ready: EncodedRows | None = None  # ``raws``, encoded for COPY (PostgreSQL)
+
+
+def _resolve(job: _Job, recent: list[dict[str, int]]) -> list[int]:
+    """Give the job's hashed sightings the ids the writer already knows (plain dict lookups, not through
+    ``write_batch``'s general mapping); return the indexes of those still hashed."""
+    sightings = job.sightings
+    here, newer, older = job.known.get, recent[0].get, recent[1].get
+    left = []
+    for i in job.pending:
+        s = sightings[i]
+        h = s[6]
+        rid = here(h) or newer(h) or older(h)  # ids start at 1
+        if rid is None:
+            left.append(i)
+        else:
+            sightings[i] = (s[0], s[1], s[2], s[3], s[4], s[5], rid)
+    return left
 
 
 def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_id: int, ruleset_id: int,
@@ -239,19 +259,23 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
         log.info("%s: resuming an interrupted load after line %d", plan.name, resume_after)
     state = {"lines_done": resume_after, "reported": 0}
 
-    # Raw hash -> id of what the last batches staged (writer thread only): a later batch read before those
-    # were committed refers to them by hash, and finds them here rather than by a query.
-    recent: dict[str, int] = {}
+    # Raw hash -> id of what the last batches staged (writer thread only), in two generations that take
+    # turns (dropping the older costs nothing): a later batch read before those were committed refers to
+    # them by hash, and finds them here rather than by a query.
+    recent: list[dict[str, int]] = [{}, {}]  # newer, older
 
     def write(conn: Connection, job: _Job) -> registry.BatchCounts:
         # Runs on the writer thread, inside one transaction per batch.
+        pending = _resolve(job, recent)
         counts = registry.write_batch(conn, dataset_id=dataset_id, file_id=stored["id"], ruleset_id=ruleset_id,
-                                      sightings=job.sightings, rejects=job.rejects, pending=job.pending,
-                                      raws=job.raws, known=ChainMap(job.known, recent), row_count=job.row_count,
-                                      lines_before=state["lines_done"], lines_after=job.lines_after)
-        if len(recent) + len(counts.raw_ids) > memo_size:
-            drop_older_half(recent)
-        recent.update(counts.raw_ids)
+                                      sightings=job.sightings, rejects=job.rejects, pending=pending,
+                                      raws=job.raws, known=ChainMap(job.known, *recent), row_count=job.row_count,
+                                      lines_before=state["lines_done"], lines_after=job.lines_after,
+                                      ready=job.ready, raws_ready=job.raws_ready)
+        if len(recent[0]) + len(counts.raw_ids) > memo_size // 2:
+            recent[1] = recent[0]
+            recent[0] = {}
+        recent[0].update(counts.raw_ids)
         if job.final:
             registry.complete_file(conn, stored["id"], lines_done=max(job.lines_after, plan.facts.lines))
         return counts
@@ -274,11 +298,26 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
                   timed=plan.options.time_column is not None, memo_size=memo_size, ids=raw_ids)
     last_line = resume_after
 
+    # On PostgreSQL the reading thread also encodes the batch for COPY, so that the writer thread, whose
+    # connection is the load's bottleneck, only sends bytes: what it did for a row in Python it did while
+    # the database waited for it. Only the sightings still naming a raw URL by hash are left to it.
+    encode = engine.dialect.name == "postgresql"
+    sighting_encoder = registry.sighting_encoder() if encode else None
+    raw_encoder = registry.raw_encoder() if encode else None
+
     def job(final: bool) -> _Job:
         known = batch.known()
         fresh = [w for h, w in batch.raws.items() if h not in known]
-        out = _Job(batch.sightings, batch.rejects, batch.pending, fresh, known, batch.count, last_line,
-                   batch.reasons(), final)
+        sightings, pending = batch.sightings, batch.pending
+        ready = raws_ready = None
+        if sighting_encoder is not None and len(pending) < len(sightings):
+            ready = sighting_encoder.encode([s for s in sightings if type(s[6]) is int])
+            sightings = [sightings[i] for i in pending]
+            pending = list(range(len(sightings)))
+        if raw_encoder is not None and fresh:
+            raws_ready = raw_encoder.encode(fresh)
+        out = _Job(sightings, batch.rejects, pending, fresh, known, batch.count, last_line, batch.reasons(), final,
+                   ready, raws_ready)
         batch.clear()
         return out
 

@@ -10,12 +10,29 @@ from __future__ import annotations
 
 import itertools
 from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass
 from typing import Any
 
+import psycopg
 import sqlalchemy as sa
+from psycopg import pq
+from psycopg.adapt import Transformer
 from sqlalchemy.dialects import sqlite
 
+try:
+    # psycopg's own binary row formatter (C code in psycopg[binary]), the one Copy.write_row calls. Its
+    # module is psycopg's, not a documented API: without it, rows are sent through write_row as before.
+    from psycopg._copy_base import format_row_binary as _format_row_binary
+except ImportError:  # pragma: no cover - depends on the psycopg release
+    _format_row_binary = None
+
 _stage_counter = itertools.count()
+
+# PostgreSQL's binary COPY file format (PostgreSQL documentation, COPY, "Binary Format"): the 11-byte
+# signature, a 32-bit flags field (0: no OIDs) and a 32-bit header extension length (0); the trailer is a
+# 16-bit field count of -1.
+BINARY_HEADER = b"PGCOPY\n\xff\r\n\x00" + bytes(4) + bytes(4)
+BINARY_TRAILER = b"\xff\xff"
 
 
 # PostgreSQL type names for binary COPY, by SQLAlchemy type (the most specific first).
@@ -39,6 +56,42 @@ def _binary_types(table: sa.Table, columns: Sequence[str]) -> list[str] | None:
         else:
             return None
     return out
+
+
+@dataclass
+class EncodedRows:
+    """Rows already in binary COPY form (no header or trailer), and how many."""
+
+    data: bytearray
+    count: int
+
+
+class BinaryRows:
+    """Encodes rows of ``columns`` (in that order, with the columns' Python types as ``insert_tuples`` with
+    ``binary`` needs them) the way a binary COPY into ``table`` sends them, with no connection: a loader's
+    reading thread prepares a batch's rows while the writer thread's connection is busy, and the writer
+    only sends bytes (``insert_tuples(..., ready=...)``). One encoder per thread."""
+
+    def __init__(self, table: sa.Table, columns: Sequence[str]) -> None:
+        types = _binary_types(table, columns)
+        if types is None or _format_row_binary is None:
+            raise ValueError(f"no binary COPY encoding for {table.name} ({', '.join(columns)})")
+        self.columns = tuple(columns)
+        self._tx = Transformer()
+        self._tx.set_dumper_types([psycopg.adapters.types[name].oid for name in types], pq.Format.BINARY)
+
+    @staticmethod
+    def available(table: sa.Table, columns: Sequence[str]) -> bool:
+        return _format_row_binary is not None and _binary_types(table, columns) is not None
+
+    def encode(self, rows: Iterable[Sequence[Any]]) -> EncodedRows:
+        out = bytearray()
+        fmt, tx = _format_row_binary, self._tx
+        count = 0
+        for row in rows:
+            fmt(row, tx, out)  # type: ignore[misc]
+            count += 1
+        return EncodedRows(out, count)
 
 
 def _copy_rows(conn: sa.Connection, target: str, columns: Sequence[str],
@@ -66,14 +119,29 @@ def insert_rows(conn: sa.Connection, table: sa.Table, rows: Sequence[Mapping[str
 
 
 def insert_tuples(conn: sa.Connection, table: sa.Table, columns: Sequence[str],
-                  rows: Sequence[Sequence[Any]], *, binary: bool = False) -> int:
+                  rows: Sequence[Sequence[Any]], *, binary: bool = False, ready: EncodedRows | None = None) -> int:
     """Like :func:`insert_rows` for rows given as tuples in ``columns`` order (no per-row dict on the
     COPY path, which is where a bulk loader spends its time). Returns the number of rows written.
 
     ``binary``: COPY in PostgreSQL's binary format, a fifth of the client's work per row of the text
     format (measured: 0.46 vs 1.87 µs for a sighting). Only for callers whose values have exactly the
     columns' Python types (int for integers, str for text, aware datetimes): binary COPY converts nothing.
-    Columns of other types fall back to text COPY."""
+    Columns of other types fall back to text COPY.
+
+    ``ready``: more rows of the same columns, already encoded by a :class:`BinaryRows` (PostgreSQL only);
+    they go first, in the same COPY."""
+    if ready is not None and ready.count:
+        if conn.dialect.name != "postgresql":
+            raise ValueError("encoded rows are for PostgreSQL's binary COPY only")
+        raw: Any = conn.connection.driver_connection
+        cols = ", ".join(f'"{c}"' for c in columns)
+        with raw.cursor() as cur, cur.copy(f'COPY "{table.name}" ({cols}) FROM STDIN (FORMAT BINARY)') as copy:
+            copy.write(BINARY_HEADER)
+            copy.write(ready.data)
+            if rows:
+                copy.write(BinaryRows(table, columns).encode(rows).data)
+            copy.write(BINARY_TRAILER)
+        return ready.count + len(rows)
     if not rows:
         return 0
     if conn.dialect.name == "postgresql":
@@ -115,4 +183,4 @@ def insert_new_rows(conn: sa.Connection, table: sa.Table, rows: Sequence[Mapping
     return raw.total_changes - before
 
 
-__all__ = ["insert_new_rows", "insert_rows", "insert_tuples"]
+__all__ = ["BINARY_HEADER", "BINARY_TRAILER", "BinaryRows", "EncodedRows", "insert_new_rows", "insert_rows", "insert_tuples"]

@@ -24,7 +24,7 @@ from sqlalchemy.engine import Connection
 
 from ..errors import LockHeld, NotFound
 from . import tables as t
-from .bulk import insert_tuples
+from .bulk import BinaryRows, EncodedRows, insert_tuples
 
 UTC_TYPE = sa.DateTime(timezone=True)
 _IN_CHUNK = 500  # ids per IN (…) list: well under SQLite's default limit of 999 bound parameters
@@ -159,7 +159,8 @@ def _insert(conn: Connection, table: sa.Table):
 def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: int | None,
                 sightings: list[tuple], rejects: list[tuple], pending: Sequence[int] = (),
                 raws: Sequence[Sequence[Any]] = (), known: Mapping[str, int] | None = None, row_count: int,
-                lines_before: int, lines_after: int) -> BatchCounts:
+                lines_before: int, lines_after: int, ready: EncodedRows | None = None,
+                raws_ready: EncodedRows | None = None) -> BatchCounts:
     """Write one batch inside the caller's transaction and move the file's resume point forward.
 
     ``sightings`` and ``rejects`` are rows in ``SIGHTING_COLUMNS`` / ``REJECT_COLUMNS`` order whose last
@@ -167,6 +168,9 @@ def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
     sightings that carry one). ``raws`` are the raw URLs to store for those, in ``RAW_COLUMNS`` order;
     ``known`` gives raw hash -> id for hashed rows whose raw URL the caller knows to be stored; any other
     hash not among ``raws`` is looked up (a raw URL an earlier, committed batch stored).
+    On PostgreSQL, ``ready`` holds more sightings, complete (raw URL ids, not hashes) and already encoded
+    for binary COPY (``sighting_encoder``), and ``raws_ready`` holds ``raws`` encoded the same way
+    (``raw_encoder``): the caller's thread did that work, and this one only sends bytes.
     ``row_count`` is how many dump rows the batch came from. ``lines_before`` is the resume point this
     batch continues from: if the stored one differs, another process is loading the same file, and
     :class:`LockHeld` is raised before anything is written. The lists are completed in place.
@@ -175,7 +179,8 @@ def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
     tables (COPY on PostgreSQL), since a panel repeats its URLs so much that the caller already holds the
     id of most rows' raw URL and nothing is looked up for them.
     """
-    counts = BatchCounts(rows=row_count, sightings=len(sightings), rejects=len(rejects))
+    counts = BatchCounts(rows=row_count, sightings=len(sightings) + (ready.count if ready else 0),
+                         rejects=len(rejects))
     f = t.dataset_files
     # The resume point and the file's counts move first, in one statement that is also the guard; the
     # counts are known before anything is written, and a failure later rolls the whole batch back.
@@ -185,7 +190,15 @@ def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
     if conn.dialect.name == "postgresql":
         # One round trip for the guard and the staging table's set-up: the writer thread waits for the
         # interpreter after every round trip while the reading thread works. Only integers are inlined.
-        sql = str(guard.compile(dialect=conn.dialect, compile_kwargs={"literal_binds": True}))
+        if isinstance(lines_before, int):
+            # The same statement, written out: compiling it costs the writer thread about a millisecond a
+            # batch, while the database waits.
+            sql = (f"UPDATE {f.name} SET lines_done={int(lines_after)}, rows=({f.name}.rows + {int(counts.rows)}), "
+                   f"sightings=({f.name}.sightings + {int(counts.sightings)}), "
+                   f"rejects=({f.name}.rejects + {int(counts.rejects)}) "
+                   f"WHERE {f.name}.id = {int(file_id)} AND {f.name}.lines_done = {lines_before}")
+        else:
+            sql = str(guard.compile(dialect=conn.dialect, compile_kwargs={"literal_binds": True}))
         if raws:
             sql = f"{sql}; {_STAGE_SETUP[conn.dialect.name]}"
         moved = conn.exec_driver_sql(sql).rowcount  # the first statement's
@@ -198,7 +211,7 @@ def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
                        "moved under this load); let that load finish, then run this one again")
     ids = counts.raw_ids
     if raws:
-        _register_raws(conn, raws, ruleset_id=ruleset_id, counts=counts)
+        _register_raws(conn, raws, ruleset_id=ruleset_id, counts=counts, ready=raws_ready)
     known = known or {}
     missing = {h for i in pending if (h := sightings[i][6]) not in ids and h not in known}
     missing.update(h for r in rejects if isinstance(h := r[7], str) and h not in ids and h not in known)
@@ -216,18 +229,66 @@ def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
     # No ON CONFLICT (whose speculative insertion costs a good part of a load): the resume-point guard
     # above guarantees that no row after the stored resume point exists, so a conflict here would be
     # a bug, and the unique keys turn it into an error, never into a duplicate.
-    insert_tuples(conn, t.sightings, SIGHTING_COLUMNS, sightings, binary=True)
+    insert_tuples(conn, t.sightings, SIGHTING_COLUMNS, sightings, binary=True, ready=ready)
     insert_tuples(conn, t.rejects, REJECT_COLUMNS, rejects, binary=True)
     return counts
 
 
+def sighting_encoder() -> BinaryRows | None:
+    """An encoder for complete sightings (``write_batch(ready=...)``), or None where there is none."""
+    return BinaryRows(t.sightings, SIGHTING_COLUMNS) if BinaryRows.available(t.sightings, SIGHTING_COLUMNS) else None
+
+
+def raw_encoder() -> BinaryRows | None:
+    """An encoder for staged raw URLs (``write_batch(raws_ready=...)``), or None where there is none."""
+    return BinaryRows(stage_raws, RAW_COLUMNS) if BinaryRows.available(stage_raws, RAW_COLUMNS) else None
+
+
 def _register_raws(conn: Connection, raws: Sequence[Sequence[Any]], *, ruleset_id: int | None,
-                   counts: BatchCounts) -> None:
+                   counts: BatchCounts, ready: EncodedRows | None = None) -> None:
     """Store the raw URLs (and their canonical URLs) the registry may not know yet; learn their ids.
-    The staging table is set up (``_STAGE_SETUP``) by the caller."""
-    insert_tuples(conn, stage_raws, RAW_COLUMNS, raws, binary=True)
+    The staging table is set up (``_STAGE_SETUP``) by the caller. ``ready``: ``raws`` already encoded."""
+    if ready is not None and conn.dialect.name == "postgresql":
+        insert_tuples(conn, stage_raws, RAW_COLUMNS, (), ready=ready)
+    else:
+        insert_tuples(conn, stage_raws, RAW_COLUMNS, raws, binary=True)
+    if conn.dialect.name == "postgresql":
+        # Both statements in one round trip, read back as plain tuples: this runs once per batch on the
+        # writer thread, which shares the interpreter. The SQL is made once per ruleset (compiling it
+        # costs milliseconds); only the ruleset's id is inlined, and the time is the server's.
+        sql = _PG_REGISTER_SQL.get(ruleset_id)
+        if sql is None:
+            if len(_PG_REGISTER_SQL) > 64:
+                _PG_REGISTER_SQL.clear()
+            sql = _PG_REGISTER_SQL[ruleset_id] = "; ".join(
+                str(q.compile(dialect=conn.dialect, compile_kwargs={"literal_binds": True}))
+                for q in _register_statements(conn, ruleset_id, sa.func.statement_timestamp()))
+        with conn.connection.driver_connection.cursor() as cur:  # type: ignore[union-attr]
+            cur.execute(sql)
+            counts.new_canonical_urls = max(cur.rowcount, 0)
+            cur.nextset()
+            inserted: Sequence[tuple[str, int]] = cur.fetchall()
+    else:
+        canonicals, raw_insert = _register_statements(conn, ruleset_id,
+                                                      sa.bindparam("stamp", now(), type_=UTC_TYPE))
+        counts.new_canonical_urls = max(conn.execute(canonicals).rowcount, 0)
+        inserted = [tuple(row) for row in conn.execute(raw_insert).all()]
+    counts.new_raw_urls = len(inserted)
+    counts.raw_ids.update(inserted)
+    if len(inserted) < len(raws):
+        w, r = stage_raws, t.raw_urls
+        counts.raw_ids.update(conn.execute(sa.select(w.c.raw_hash, r.c.id)
+                                           .select_from(w.join(r, r.c.raw_hash == w.c.raw_hash))).all())
+    if conn.dialect.name != "postgresql":
+        conn.execute(sa.delete(stage_raws))
+
+
+_PG_REGISTER_SQL: dict[int | None, str] = {}
+
+
+def _register_statements(conn: Connection, ruleset_id: int | None, stamp: Any) -> tuple[Any, Any]:
+    """The two statements that move staged raw URLs into canonical_urls and raw_urls."""
     w, c, r = stage_raws, t.canonical_urls, t.raw_urls
-    stamp = sa.bindparam("stamp", now(), type_=UTC_TYPE)
     rs = sa.literal(ruleset_id, sa.Integer)
 
     # Canonical URLs, only for raw URLs the registry does not know yet: a known raw URL keeps the
@@ -246,27 +307,7 @@ def _register_raws(conn: Connection, raws: Sequence[Sequence[Any]], *, ruleset_i
         .select_from(w.outerjoin(c, c.c.url_key == w.c.url_key))
         .where(w.c.raw_hash.is_not(None)),
     ).on_conflict_do_nothing(index_elements=["raw_hash"]).returning(r.c.raw_hash, r.c.id)
-    inserted: Sequence[tuple[str, int]]
-    if conn.dialect.name == "postgresql":
-        # Both statements in one round trip (the values inlined are an integer and a time), read back
-        # as plain tuples: this runs once per batch on the writer thread, which shares the interpreter.
-        sql = "; ".join(str(q.compile(dialect=conn.dialect, compile_kwargs={"literal_binds": True}))
-                        for q in (canonicals, raw_insert))
-        with conn.connection.driver_connection.cursor() as cur:  # type: ignore[union-attr]
-            cur.execute(sql)
-            counts.new_canonical_urls = max(cur.rowcount, 0)
-            cur.nextset()
-            inserted = cur.fetchall()
-    else:
-        counts.new_canonical_urls = max(conn.execute(canonicals).rowcount, 0)
-        inserted = [tuple(row) for row in conn.execute(raw_insert).all()]
-    counts.new_raw_urls = len(inserted)
-    counts.raw_ids.update(inserted)
-    if len(inserted) < len(raws):
-        counts.raw_ids.update(conn.execute(sa.select(w.c.raw_hash, r.c.id)
-                                           .select_from(w.join(r, r.c.raw_hash == w.c.raw_hash))).all())
-    if conn.dialect.name != "postgresql":
-        conn.execute(sa.delete(stage_raws))
+    return canonicals, raw_insert
 
 
 def complete_file(conn: Connection, file_id: int, *, lines_done: int) -> None:
@@ -454,10 +495,12 @@ __all__ = [
     "iter_links",
     "iter_rejects",
     "list_datasets",
+    "raw_encoder",
     "raw_sighting_counts",
     "raws_by_hash",
     "reject_totals",
     "sighting_counts",
+    "sighting_encoder",
     "utc",
     "write_batch",
 ]
