@@ -70,3 +70,22 @@ def test_a_block_is_staged_as_its_rows_one_by_one(rows, keyed, timed, cut):
     assert whole.rejects == single.rejects
     assert whole.pending == single.pending and whole.raws == single.raws
     assert whole.count == single.count == stop - start
+
+
+def test_raw_ids_keep_what_the_load_keeps_meeting():
+    # Behaviour test of the two generations: a raw URL met in every generation survives any number of
+    # turns; one not met for a whole generation is dropped; the size stays within twice the bound.
+    ids = RawIds(16)
+
+    def commit(texts: list[str]) -> None:
+        raws = [(f"h-{x}", x, None) for x in texts]
+        ids.offer(raws, {f"h-{x}": 1000 + len(x) for x in texts})
+        ids.absorb()
+
+    commit(["popular", "once"])
+    for turn in range(6):
+        assert ids.get("popular") == 1007  # met again in every generation
+        commit([f"new-{turn}-{i}" for i in range(16)])  # fills young: a turn of generations
+        assert len(ids) <= 2 * 16 + 1
+    assert "popular" in ids and "once" not in ids
+    assert ids.get("once") is None

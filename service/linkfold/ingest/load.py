@@ -55,8 +55,8 @@ log = logging.getLogger("linkfold")
 
 DEFAULT_BATCH_SIZE = 20000
 #: Raw URL ids kept between batches (``rows.RawIds``: raw text -> id), per entry of the canonical-form
-#: memo (``cache_size``). The ids are what most rows need, and an entry costs about a quarter of a memo
-#: entry; the bound keeps the load's memory flat once the caches are full.
+#: memo (``cache_size``), per generation (two at most). The ids are what most rows need, and an entry
+#: costs about a quarter of a memo entry; the bound keeps the load's memory flat once the caches are full.
 RAW_IDS_PER_MEMO_ENTRY = 4
 
 
