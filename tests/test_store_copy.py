@@ -26,7 +26,7 @@ def test_header_and_trailer_are_the_documented_ones():
     # flags field (bit 16 says OIDs follow; 0 here), a 32-bit header extension length (0); the trailer is
     # a 16-bit integer -1.
     assert bulk.BINARY_HEADER == b"PGCOPY\n\xff\r\n\x00" + b"\x00\x00\x00\x00" + b"\x00\x00\x00\x00"
-    assert bulk.BINARY_TRAILER == (-1).to_bytes(2, "big", signed=True)
+    assert (-1).to_bytes(2, "big", signed=True) == bulk.BINARY_TRAILER
 
 
 def test_a_row_is_a_field_count_then_length_prefixed_fields():
@@ -86,7 +86,6 @@ def test_a_load_leaves_the_same_registry_with_and_without_encoding_ahead(pg_serv
     # Behaviour test: the encoded path (reading thread encodes, writer sends bytes) against the plain one
     # (writer formats every row), on an invented panel with repeats, refused URLs and rows across batches.
     from conftest import PG_ADMIN_URL, _with_database
-
     from linkfold.ingest import ingest_dump
     from linkfold.store import make_engine
 

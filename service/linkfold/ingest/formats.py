@@ -1,7 +1,7 @@
 """The byte layer of a dump: which format it is, gzip or not, its digest, and its physical lines.
 
-Everything here streams: a file is read in bounded pieces whatever its size, and no line longer than
-the limit is ever held in memory whole.
+Everything here streams: a file is read in bounded pieces whatever its size (a piece and at most the line
+limit more), and a line longer than the limit is never held whole beyond its piece.
 """
 
 from __future__ import annotations
@@ -11,7 +11,6 @@ import gzip
 import hashlib
 import io
 import zlib
-from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, BinaryIO
@@ -257,10 +256,9 @@ class PhysicalLines:
         if b"\x00" in region or (quote is not None and quote in region):
             return None
         crs = region.count(b"\r")
-        if crs:
-            # Only CRLF files: every line ends in CR and no other CR appears.
-            if crs != self._clean or region.count(b"\r\n") != crs - 1 or not region.endswith(b"\r"):
-                return None
+        # With CRs, only CRLF files: every line ends in CR and no other CR appears.
+        if crs and (crs != self._clean or region.count(b"\r\n") != crs - 1 or not region.endswith(b"\r")):
+            return None
         try:
             text = region.decode("utf-8")
         except UnicodeDecodeError:

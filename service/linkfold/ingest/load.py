@@ -329,7 +329,7 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
                                 name=plan.name)
             try:
                 for piece in reader.pieces():
-                    if type(piece) is RowBlock:
+                    if isinstance(piece, RowBlock):
                         # Consecutive lines: taken in slices that end where a batch is full.
                         start, end = max(resume_after - piece.first + 1, 0), len(piece)
                         while start < end:

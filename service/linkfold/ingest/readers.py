@@ -21,7 +21,7 @@ from operator import itemgetter
 from typing import Any
 
 from ..errors import DumpFormatError, InputError, MissingColumnError
-from .formats import DumpFormat, PhysicalLine
+from .formats import DumpFormat, PhysicalLine, PhysicalLines
 from .paths import JsonPath, parse_path, resolve
 
 EXCERPT_CHARS = 200
@@ -156,7 +156,7 @@ class DumpReader:
 
     def __iter__(self) -> Iterator[DumpRow]:
         for piece in self.pieces():
-            if type(piece) is RowBlock:
+            if isinstance(piece, RowBlock):
                 yield from piece.rows()
             else:
                 yield piece
@@ -378,16 +378,16 @@ class _Delimited(_Format):
         delimiter = "\t" if tsv else ","
         fast = self.fast_lane
         # Whole runs of ordinary lines at once, where the line source can give them (one URL column).
-        plain_run = getattr(lines, "plain_run", None) if fast and len(url_idx) == 1 else None
+        source = lines if fast and len(url_idx) == 1 and isinstance(lines, PhysicalLines) else None
         quote = None if tsv else b'"'
         while True:
-            if plain_run is not None and not pending:
-                got = plain_run(quote)
+            if source is not None and not pending:
+                got = source.plain_run(quote)
                 if got is not None:
                     texts, start = got
-                    block, used = self._blocks(texts, start, lines.number + 1, width)
+                    block, used = self._blocks(texts, start, source.number + 1, width)
                     if block is not None:
-                        lines.skip(used)
+                        source.skip(used)
                         yield block
                         continue
             if fast and not pending:
