@@ -274,6 +274,30 @@ def test_path_syntax():
             parse_path(broken)
 
 
+def test_the_quick_walk_of_a_path_gives_what_the_full_walk_gives():
+    # Behaviour test: resolve() walks plain member paths on its own; on any record and path it must give
+    # what the general walk (_resolve) gives — values, missing reason and dropped count.
+    from hypothesis import given, settings
+    from hypothesis import strategies as st
+
+    from linkfold.ingest import paths
+
+    names = st.sampled_from(["a", "b", "0", "1", "*"])
+    leaf = st.one_of(st.none(), st.booleans(), st.integers(), st.text(max_size=3))
+    json_value = st.recursive(leaf, lambda inner: st.lists(inner, max_size=3) | st.dictionaries(names, inner,
+                                                                                               max_size=3),
+                              max_leaves=12)
+    path_text = st.lists(st.sampled_from(["a", "b", "0", "1", "*", "\\*"]), min_size=1, max_size=4).map(".".join)
+
+    @settings(max_examples=500, deadline=None)
+    @given(json_value, path_text)
+    def check(record, text):
+        path = parse_path(text)
+        assert paths.resolve(path, record) == paths._resolve(path, record)
+
+    check()
+
+
 def test_path_that_meets_an_array_says_to_use_star():
     got = resolve(parse_path("links.url"), {"links": [{"url": "u"}]})
     assert got.values == [] and "use *" in got.missing

@@ -97,6 +97,38 @@ def resolve(path: JsonPath, record: Any) -> Reached:
     After it, a branch that finds nothing is simply not a value: a link object without the member is
     not a link, and its siblings still count.
     """
+    # The usual cases first, walked directly: members of objects all the way (a record's key and time),
+    # or members, one '*' over an array, and members of its elements (a post's links). Anything else — an
+    # index, a second '*', a member absent before the '*' — is followed from the start by _resolve.
+    node = record
+    segments = path.segments
+    for i, seg in enumerate(segments):
+        if seg is STAR:
+            if type(node) is not list:
+                return _resolve(path, record)
+            rest = segments[i + 1:]
+            values = []
+            dropped = 0
+            for element in node:
+                for name in rest:
+                    if isinstance(element, dict) and name in element:  # a second STAR is never a member
+                        element = element[name]
+                    elif name is STAR or (isinstance(element, list) and name.isdigit()):
+                        return _resolve(path, record)
+                    else:
+                        dropped += 1
+                        break
+                else:
+                    values.append(element)
+            return Reached(values, dropped=dropped)
+        if type(node) is dict and seg in node:
+            node = node[seg]
+        else:
+            return _resolve(path, record)
+    return Reached([node])
+
+
+def _resolve(path: JsonPath, record: Any) -> Reached:
     nodes = [record]
     spread = False
     dropped = 0
