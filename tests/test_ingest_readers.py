@@ -506,3 +506,48 @@ def test_a_file_of_ordinary_lines_comes_as_one_plain_run_per_piece():
     assert start == 0 and len(texts) == 100 and texts[-1] == "https://a.example/99,k99"  # CRLF ends are not content
     source.skip(100)
     assert source.number == 100 and next(source, None) is None
+
+
+def test_json_lines_blocks_give_what_reading_line_by_line_gives(monkeypatch):
+    # Behaviour test: the JSON-lines block lane (runs of records with one URL value) must never change
+    # what a row becomes. Random lines from objects with and without the path, one or several links,
+    # non-text values, arrays, bad JSON, blank and over-long lines, CRLF, invalid UTF-8; random pieces.
+    from hypothesis import given, settings
+    from hypothesis import strategies as st
+
+    from linkfold.ingest import readers
+
+    value = st.one_of(st.sampled_from(['"https://a.example/p"', '"k1"', '"2031-05-04T08:00:00Z"', "7", "null",
+                                       '""', '" "', "[]", "{}", '"\\u00e9"']))
+    links = st.lists(value.map(lambda v: '{"url": ' + v + "}"), max_size=3).map(lambda xs: "[" + ",".join(xs) + "]")
+    record = st.builds(lambda ls, k, t: '{"id": ' + k + ', "post": {"links": ' + ls + '}, "at": ' + t + "}",
+                       links, value, value)
+    line = st.one_of(record, record, st.sampled_from(["", " ", "{", "[1]", '{"other": 1}', "\u00a0", "x" * 45]))
+    ending = st.sampled_from(["\n", "\r\n"])
+
+    @settings(max_examples=400, deadline=None)
+    @given(st.lists(st.tuples(line, ending), max_size=10), st.integers(1, 300), st.booleans())
+    def check(lines, chunk, bad_byte):
+        data = "".join(text + end for text, end in lines).encode()
+        if bad_byte and data:
+            data = data[:len(data) // 2] + b"\xff" + data[len(data) // 2:]
+        # The reader's check holds the first lines and they are read line by line; with one line held
+        # (a record that has the path), everything after it can reach the block lane.
+        data = b'{"id": 0, "post": {"links": [{"url": "https://a.example/0"}]}}\n' + data
+        monkeypatch.setattr(readers, "JSONL_PEEK_LINES", 1)
+
+        def rows(fast: bool) -> list:
+            monkeypatch.setattr(readers._JsonLines, "fast_lane", fast)
+            options = ReadOptions(fmt=DumpFormat.JSONL, url_columns=("post.links.*.url",), key_column="id",
+                                  time_column="at", max_line_bytes=120)
+            reader = DumpReader(physical_lines(io.BytesIO(data), 120, chunk), options, name="dump")
+            try:
+                out = [(r.line_no, r.end_line, r.urls, r.key, r.time,
+                        None if r.reject is None else (r.reject.reason, r.reject.excerpt)) for r in reader]
+            except InputError as exc:  # no line has the path: refused before reading, on either lane
+                return [str(exc)]
+            return [*out, ("blank lines", reader.blank_lines)]
+
+        assert rows(True) == rows(False)
+
+    check()

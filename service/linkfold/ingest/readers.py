@@ -79,15 +79,16 @@ class DumpRow:
 
 @dataclass(slots=True)
 class RowBlock:
-    """Rows of consecutive single lines, one URL each, as columns: line ``first + i`` has ``urls[i]``,
-    ``keys[i]`` and ``times[i]`` (``None`` when the column is not read). The values are the fields as they
-    stand, checked no further than a :class:`DumpRow`'s would be: the loader applies the same rules to
-    both (``rows.Batch``). A block is how the CSV/TSV fast lane hands on a run of ordinary lines."""
+    """Rows of consecutive single lines, one URL value each, as columns: line ``first + i`` has ``urls[i]``,
+    ``keys[i]`` and ``times[i]`` (``None`` when the column is not read). The values are as they stand (CSV
+    and TSV fields; for JSON lines whatever the paths reached, ``MISSING`` included), checked no further
+    than a :class:`DumpRow`'s would be: the loader applies the same rules to both (``rows.Batch``). A block
+    is how the fast lanes hand on a run of ordinary lines."""
 
     first: int
-    urls: list[str]
-    keys: list[str] | None
-    times: list[str] | None
+    urls: list[Any]
+    keys: list[Any] | None
+    times: list[Any] | None
 
     def __len__(self) -> int:
         return len(self.urls)
@@ -502,12 +503,15 @@ def _list(names: list[str], limit: int = 30) -> str:
 class _JsonLines(_Format):
     """One JSON object a line (RFC 8259 text per line, as JSON Lines / NDJSON practise it)."""
 
+    fast_lane = True  # off only in tests, which compare the block lane with the line-by-line one
+
     def __init__(self, reader: DumpReader) -> None:
         super().__init__(reader)
         self.url_paths = [parse_path(p) for p in (self.opt.url_columns or ("url",))]
         self.key_path = self._scalar_path(self.opt.key_column, "--key-column")
         self.time_path = self._scalar_path(self.opt.time_column, "--time-column")
         self.peeked: list[PhysicalLine] = []
+        self._run_size = RUN_MIN
 
     def _scalar_path(self, text: str | None, option: str) -> JsonPath | None:
         if text is None:
@@ -561,8 +565,68 @@ class _JsonLines(_Format):
         self.peeked = []
         yield from self.r._lines
 
-    def rows(self) -> Iterator[DumpRow]:
-        for line, reject in self._screened(self._all_lines()):
+    def _block(self, texts: list[str], start: int, first: int) -> tuple[RowBlock | None, int]:
+        """The longest run of ``texts[start:]`` (plain: PhysicalLines.plain_run) whose lines are JSON objects
+        that the URL path takes to exactly one value, as a block, and its length. The first line that is
+        anything else (blank, not JSON, not an object, no URL or several) ends it and is read on its own."""
+        (url_path,) = self.url_paths
+        key_path, time_path, one = self.key_path, self.time_path, self._one
+        urls: list[Any] = []
+        keys: list[Any] | None = [] if key_path is not None else None
+        times: list[Any] | None = [] if time_path is not None else None
+        loads = json.loads
+        for text in texts[start:start + self._run_size]:
+            if not text or text.isspace():
+                break
+            try:
+                record = loads(text)
+            except ValueError:
+                break
+            if type(record) is not dict:
+                break
+            got = resolve(url_path, record)
+            if got.missing or len(got.values) != 1:
+                break
+            urls.append(got.values[0])
+            if keys is not None:
+                keys.append(one(key_path, record))
+            if times is not None:
+                times.append(one(time_path, record))
+        used = len(urls)
+        if used < len(texts) - start and used < self._run_size:
+            self._run_size = RUN_MIN
+        else:
+            self._run_size = min(2 * self._run_size, RUN_MAX)
+        return (RowBlock(first, urls, keys, times) if used else None), used
+
+    def rows(self) -> Iterator[DumpRow | RowBlock]:
+        lines = self.r._lines
+        # Runs of ordinary lines as blocks, where the line source can give them (one URL path).
+        source = lines if self.fast_lane and len(self.url_paths) == 1 and isinstance(lines, PhysicalLines) else None
+        if source is None or self.peeked:
+            yield from self._line_by_line(self._all_lines() if source is None else self._peeked_lines())
+        if source is None:
+            return
+        while True:
+            got = source.plain_run(None)
+            if got is not None:
+                texts, start = got
+                block, used = self._block(texts, start, source.number + 1)
+                if block is not None:
+                    source.skip(used)
+                    yield block
+                    continue
+            line = next(source, None)
+            if line is None:
+                return
+            yield from self._line_by_line((line,))
+
+    def _peeked_lines(self) -> Iterator[PhysicalLine]:
+        yield from self.peeked
+        self.peeked = []
+
+    def _line_by_line(self, lines: Iterable[PhysicalLine]) -> Iterator[DumpRow]:
+        for line, reject in self._screened(lines):
             if reject is not None:
                 yield reject
                 continue

@@ -259,14 +259,15 @@ class Batch:
             value = urls[i]
             key = keys[i] if keys is not None else MISSING
             t = times[i] if times is not None else MISSING
-            # The usual row, as in add(): a URL that is not blank, a plain ASCII key, an RFC 3339 time in UTC.
-            if not value or value.isspace() or (keys is not None and not (
-                    key.isascii() and key and not key.isspace() and "\x00" not in key)):
+            # The usual row, as in add(): a URL that is not blank, a plain ASCII key, an RFC 3339 time in UTC
+            # (JSON lines can give other types: those rows go through add()).
+            if type(value) is not str or not value or value.isspace() or (keys is not None and not (
+                    type(key) is str and key.isascii() and key and not key.isspace() and "\x00" not in key)):
                 self.add(DumpRow(n, n, [value], key, t))
                 continue
             seen_at = None
             if times is not None:
-                if len(t) > 10 and t[-1] == "Z" and t[4] == "-":
+                if type(t) is str and len(t) > 10 and t[-1] == "Z" and t[4] == "-":
                     try:
                         seen_at = _fromisoformat(t)
                     except ValueError:
