@@ -135,3 +135,30 @@ def test_a_load_leaves_the_same_registry_with_and_without_encoding_ahead(pg_serv
     sent_ready.clear()
     assert load(False) == with_encoding
     assert not sent_ready
+
+
+def test_sqlite_bulk_rows_are_stored_as_an_orm_insert_stores_them(tmp_path):
+    # insert_tuples on SQLite skips the per-row statement machinery but must store the same text for
+    # every column type (a time in SQLite's text form, not Python's isoformat), so reads agree.
+    from linkfold.store import make_engine, upgrade
+
+    engine = make_engine(f"sqlite:///{tmp_path / 'r.db'}")
+    upgrade(engine)
+    with engine.begin() as conn:
+        conn.exec_driver_sql("INSERT INTO datasets (id, name, created_at) VALUES (1, 'd', '2031-05-04 00:00:00')")
+        conn.exec_driver_sql("INSERT INTO dataset_files (id, dataset_id, file_name, sha256, size_bytes, format, "
+                             "status, started_at) VALUES (2, 1, 'f', 'x', 0, 'csv', 'loading', '2031-05-04 00:00:00')")
+        conn.exec_driver_sql("INSERT INTO raw_urls (id, raw_hash, raw, created_at) VALUES "
+                             "(7, 'a', 'u', '2031-05-04 00:00:00'), (1, 'b', 'v', '2031-05-04 00:00:00'), "
+                             "(2000000000, 'c', 'w', '2031-05-04 00:00:00')")
+        bulk.insert_tuples(conn, t.sightings, registry.SIGHTING_COLUMNS, ROWS[:2])
+        conn.execute(t.sightings.insert(), [dict(zip(registry.SIGHTING_COLUMNS, ROWS[2], strict=True))])
+        stored = conn.exec_driver_sql("SELECT seen_at, typeof(seen_at), typeof(line_no) FROM sightings "
+                                      "ORDER BY line_no").all()
+        assert stored[0][0] == "2031-05-04 08:00:00.000000" and stored[1][0] is None
+        assert stored[0][1:] == stored[2][1:] == ("text", "integer")
+        got = conn.execute(sa.select(*[t.sightings.c[c] for c in registry.SIGHTING_COLUMNS])
+                           .order_by(t.sightings.c.line_no)).all()
+        # SQLite keeps no zone: times read back naive, as for any row (registry.utc puts UTC back).
+        assert [(*r[:5], registry.utc(r[5]), r[6]) for r in got] == ROWS
+    engine.dispose()

@@ -148,9 +148,26 @@ def insert_tuples(conn: sa.Connection, table: sa.Table, columns: Sequence[str],
         types = _binary_types(table, columns) if binary else None
         _copy_rows(conn, f'"{table.name}"', columns, rows, types)
     else:
-        # Through SQLAlchemy, so column types (times on SQLite) are converted as everywhere else.
-        conn.execute(table.insert(), [dict(zip(columns, r, strict=True)) for r in rows])
+        # One executemany of plain tuples, each value converted by its column type's own bind processor
+        # (times become SQLite's text form, as everywhere else): what table.insert() with a dict per row
+        # does, without the statement machinery per row that cost more than SQLite's own work (measured:
+        # a 1M-row load spent about 10 s of its writer thread there).
+        dialect = conn.dialect
+        convert = [(i, p) for i, c in enumerate(columns)
+                   if (p := table.c[c].type.dialect_impl(dialect).bind_processor(dialect))]
+        if convert:
+            rows = [_converted(r, convert) for r in rows]
+        marks = ", ".join("?" * len(columns))
+        names = ", ".join(f'"{c}"' for c in columns)
+        conn.exec_driver_sql(f'INSERT INTO "{table.name}" ({names}) VALUES ({marks})', list(rows))
     return len(rows)
+
+
+def _converted(row: Sequence[Any], convert: list[tuple[int, Any]]) -> tuple[Any, ...]:
+    out = list(row)
+    for i, process in convert:
+        out[i] = process(out[i])
+    return tuple(out)
 
 
 def insert_new_rows(conn: sa.Connection, table: sa.Table, rows: Sequence[Mapping[str, Any]],
