@@ -345,18 +345,35 @@ class _Delimited(_Format):
         return hits[0]
 
     def _blocks(self, texts: list[str], start: int, first: int, width: int) -> tuple[RowBlock | None, int]:
-        """The longest run of ``texts[start:]`` that the fast lane would pass line by line, as a block, and
-        its length. ``texts`` are plain (PhysicalLines.plain_run): no quote, CR, NUL or bad UTF-8."""
-        delimiter = "\t" if self.opt.fmt is DumpFormat.TSV else ","
+        """The longest run of ``texts[start:]`` whose lines read as single records of the header's width, as a
+        block, and its length. ``texts`` are plain (PhysicalLines.plain_run): no CR, NUL or bad UTF-8.
+
+        A CSV line with quotes is taken when every quote stands at the two ends of a field and nowhere else
+        (``"a","b",c``): those fields lose their quotes, as RFC 4180 reads them. A field that holds a
+        delimiter, an escaped quote or a line end breaks that pattern, and the line goes to ``csv``."""
+        tsv = self.opt.fmt is DumpFormat.TSV
+        delimiter = "\t" if tsv else ","
         # Runs grow while every line passes and start small again after one that does not, so that a file
         # with many unusual lines does not split the same lines over and over.
         run = texts[start:start + self._run_size]
         split = [t.split(delimiter) for t in run]
         good = len(split)
-        if width == 1:
-            good = next((k for k, t in enumerate(run) if not t or t.isspace()), good)
+        if not tsv and any('"' in t for t in run):
+            for k, fields in enumerate(split):
+                if len(fields) != width:
+                    good = k
+                    break
+                if '"' in run[k]:
+                    unquoted = [_unquoted(f) for f in fields]
+                    if None in unquoted:
+                        good = k
+                        break
+                    split[k] = unquoted  # type: ignore[assignment]
         elif not all(len(f) == width for f in split):
             good = next(k for k, f in enumerate(split) if len(f) != width)
+        if width == 1:
+            # A blank record is no row (the csv lane counts it); a blank line is one, and so is "".
+            good = next((k for k, f in enumerate(split[:good]) if not f[0].strip()), good)
         if good < len(split):
             self._run_size = RUN_MIN
             if good == 0:
@@ -380,10 +397,9 @@ class _Delimited(_Format):
         fast = self.fast_lane
         # Whole runs of ordinary lines at once, where the line source can give them (one URL column).
         source = lines if fast and len(url_idx) == 1 and isinstance(lines, PhysicalLines) else None
-        quote = None if tsv else b'"'
         while True:
             if source is not None and not pending:
-                got = source.plain_run(quote)
+                got = source.plain_run(None)
                 if got is not None:
                     texts, start = got
                     block, used = self._blocks(texts, start, source.number + 1, width)
@@ -486,6 +502,15 @@ class _Delimited(_Format):
                      f"the lines after {record[0].number} are read again on their own)"
         yield self._reject_first(record, detail)
         self.feed.push_back(record[1:])
+
+
+def _unquoted(field: str) -> str | None:
+    """``field`` as RFC 4180 reads it when it has no quote or is quoted at its two ends only; else None."""
+    if '"' not in field:
+        return field
+    if len(field) >= 2 and field[0] == '"' and field[-1] == '"' and field.count('"') == 2:
+        return field[1:-1]
+    return None
 
 
 def _is_blank(fields: list[str]) -> bool:
