@@ -162,3 +162,12 @@ def test_sqlite_bulk_rows_are_stored_as_an_orm_insert_stores_them(tmp_path):
         # SQLite keeps no zone: times read back naive, as for any row (registry.utc puts UTC back).
         assert [(*r[:5], registry.utc(r[5]), r[6]) for r in got] == ROWS
     engine.dispose()
+
+
+def test_without_psycopgs_row_formatter_there_is_no_encoder(monkeypatch):
+    # The formatter lives in a module psycopg does not document; if a release moves it, the loader must
+    # fall back to formatting rows on the writer (the load test above runs that path end to end).
+    monkeypatch.setattr(bulk, "_format_row_binary", None)
+    assert registry.sighting_encoder() is None and registry.raw_encoder() is None
+    with pytest.raises(ValueError, match="no binary COPY encoding"):
+        bulk.BinaryRows(t.sightings, registry.SIGHTING_COLUMNS)
