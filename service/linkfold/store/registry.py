@@ -184,25 +184,22 @@ def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
     f = t.dataset_files
     # The resume point and the file's counts move first, in one statement that is also the guard; the
     # counts are known before anything is written, and a failure later rolls the whole batch back.
-    guard = sa.update(f).where(f.c.id == file_id, f.c.lines_done == lines_before).values(
-        lines_done=lines_after, rows=f.c.rows + counts.rows, sightings=f.c.sightings + counts.sightings,
-        rejects=f.c.rejects + counts.rejects)
     if conn.dialect.name == "postgresql":
         # One round trip for the guard and the staging table's set-up: the writer thread waits for the
-        # interpreter after every round trip while the reading thread works. Only integers are inlined.
-        if isinstance(lines_before, int):
-            # The same statement, written out: compiling it costs the writer thread about a millisecond a
-            # batch, while the database waits.
-            sql = (f"UPDATE {f.name} SET lines_done={int(lines_after)}, rows=({f.name}.rows + {int(counts.rows)}), "
-                   f"sightings=({f.name}.sightings + {int(counts.sightings)}), "
-                   f"rejects=({f.name}.rejects + {int(counts.rejects)}) "
-                   f"WHERE {f.name}.id = {int(file_id)} AND {f.name}.lines_done = {lines_before}")
-        else:
-            sql = str(guard.compile(dialect=conn.dialect, compile_kwargs={"literal_binds": True}))
+        # interpreter after every round trip while the reading thread works. The statement is written out
+        # (compiling it cost the writer about a millisecond a batch, while the database waited); only
+        # integers go into it.
+        sql = (f"UPDATE {f.name} SET lines_done={int(lines_after)}, rows=({f.name}.rows + {int(counts.rows)}), "
+               f"sightings=({f.name}.sightings + {int(counts.sightings)}), "
+               f"rejects=({f.name}.rejects + {int(counts.rejects)}) "
+               f"WHERE {f.name}.id = {int(file_id)} AND {f.name}.lines_done = {int(lines_before)}")
         if raws:
             sql = f"{sql}; {_STAGE_SETUP[conn.dialect.name]}"
         moved = conn.exec_driver_sql(sql).rowcount  # the first statement's
     else:
+        guard = sa.update(f).where(f.c.id == file_id, f.c.lines_done == lines_before).values(
+            lines_done=lines_after, rows=f.c.rows + counts.rows, sightings=f.c.sightings + counts.sightings,
+            rejects=f.c.rejects + counts.rejects)
         moved = conn.execute(guard).rowcount
         if raws:
             conn.exec_driver_sql(_STAGE_SETUP[conn.dialect.name])
