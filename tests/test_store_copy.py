@@ -171,3 +171,36 @@ def test_without_psycopgs_row_formatter_there_is_no_encoder(monkeypatch):
     assert registry.sighting_encoder() is None and registry.raw_encoder() is None
     with pytest.raises(ValueError, match="no binary COPY encoding"):
         bulk.BinaryRows(t.sightings, registry.SIGHTING_COLUMNS)
+
+
+@pytest.mark.postgres
+def test_a_client_encoding_other_than_utf8_gets_no_encoding_ahead(pg_url, tmp_path, monkeypatch):
+    # Text in a binary COPY is in the client encoding; the encoder writes UTF-8, so a connection set to
+    # another encoding must take the writer's own path, and non-ASCII text must still arrive intact.
+    from linkfold.ingest import ingest_dump
+    from linkfold.store import make_engine
+
+    sent_ready: list[int] = []
+    real = registry.insert_tuples
+
+    def spy(conn, table, columns, rows, **kw):
+        if kw.get("ready") is not None:
+            sent_ready.append(kw["ready"].count)
+        return real(conn, table, columns, rows, **kw)
+
+    monkeypatch.setattr(registry, "insert_tuples", spy)
+    dump = tmp_path / "panel.csv"
+    dump.write_text("id,url\n" + "".join(f"clé{i % 3},https://café.example/{i % 5}\n" for i in range(60)),
+                    encoding="utf-8")
+    engine = make_engine(pg_url, connect_args={"options": "-c client_encoding=LATIN1"})
+    try:
+        assert not registry.sends_utf8(engine)
+        ingest_dump(engine, [dump], dataset="d", key_column="id", batch_size=7)
+        with engine.connect() as conn:
+            keys = conn.execute(sa.text("SELECT DISTINCT row_key FROM sightings ORDER BY 1")).scalars().all()
+            raws = conn.execute(sa.text("SELECT count(*) FROM raw_urls WHERE raw LIKE 'https://café.example/%'")
+                                ).scalar_one()
+        assert keys == ["clé0", "clé1", "clé2"] and raws == 5
+        assert not sent_ready
+    finally:
+        engine.dispose()

@@ -301,7 +301,7 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
     # On PostgreSQL the reading thread also encodes the batch for COPY, so that the writer thread, whose
     # connection is the load's bottleneck, only sends bytes: what it did for a row in Python it did while
     # the database waited for it. Only the sightings still naming a raw URL by hash are left to it.
-    encode = engine.dialect.name == "postgresql"
+    encode = engine.dialect.name == "postgresql" and registry.sends_utf8(engine)
     sighting_encoder = registry.sighting_encoder() if encode else None
     raw_encoder = registry.raw_encoder() if encode else None
 

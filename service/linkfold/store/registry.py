@@ -20,7 +20,7 @@ from typing import Any
 
 import sqlalchemy as sa
 from sqlalchemy.dialects import postgresql, sqlite
-from sqlalchemy.engine import Connection
+from sqlalchemy.engine import Connection, Engine
 
 from ..errors import LockHeld, NotFound
 from . import tables as t
@@ -229,6 +229,13 @@ def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
     insert_tuples(conn, t.sightings, SIGHTING_COLUMNS, sightings, binary=True, ready=ready)
     insert_tuples(conn, t.rejects, REJECT_COLUMNS, rejects, binary=True)
     return counts
+
+
+def sends_utf8(engine: Engine) -> bool:
+    """Whether ``engine``'s connections send text to PostgreSQL as UTF-8, the form :class:`BinaryRows`
+    encodes it in (psycopg encodes in the client encoding, which a server or a URL may set otherwise)."""
+    with engine.connect() as conn:
+        return conn.connection.driver_connection.info.encoding == "utf-8"  # type: ignore[union-attr]
 
 
 def sighting_encoder() -> BinaryRows | None:
@@ -496,6 +503,7 @@ __all__ = [
     "raw_sighting_counts",
     "raws_by_hash",
     "reject_totals",
+    "sends_utf8",
     "sighting_counts",
     "sighting_encoder",
     "utc",
