@@ -9,7 +9,8 @@ as ``--repeat`` pairs, one right after the other, reporting the pair with the me
   (a) the baseline on N rows;
   (b) ``ingest_dump`` end to end on a generated N-row CSV panel export (visit id, URL, time and a
       column that is not stored): reading, canonicalising, staging, set-wise inserts, provenance;
-  (c) the same load on N/10 rows, for peak RSS (VmHWM) at two sizes: memory must not grow with N;
+  (c) the same load on N/10 rows, for peak RSS (VmHWM) at two sizes, and the peak so far at each quarter
+      of the N-row load: memory must not grow with N;
   (d) a second reference: COPY of N ready-made sighting rows (raw URL ids already resolved) into the
       migrated sightings table, i.e. the cost of that table's two indexes (its natural key and the raw
       URL id; migration 0011) on their own.
@@ -149,16 +150,33 @@ CHILD = r"""
 import json, sys, time
 from linkfold.store import make_engine
 from linkfold.ingest import ingest_dump
+
+def status(name):
+    return next(int(l.split()[1]) for l in open("/proc/self/status") if l.startswith(name + ":"))
+
+class Quarters:
+    # Peak RSS so far when the load passes each quarter of its lines: flat memory shows as flat quarters.
+    def __init__(self):
+        self.done, self.total, self.marks = 0, None, []
+    def start(self, label, total=None):
+        self.total = total
+    def advance(self, n=1):
+        self.done += n
+        while self.total and len(self.marks) < 4 and self.done >= self.total * (len(self.marks) + 1) / 4:
+            self.marks.append(status("VmHWM"))
+    def finish(self):
+        pass
+
 url, path, cache = sys.argv[1], sys.argv[2], int(sys.argv[3])
 engine = make_engine(url)
+quarters = Quarters()
 t0 = time.perf_counter()
 s = ingest_dump(engine, [path], dataset="bench", key_column="visit_id", time_column="visited",
-                cache_size=cache)
+                cache_size=cache, progress=quarters)
 elapsed = time.perf_counter() - t0
-hwm = next(int(l.split()[1]) for l in open("/proc/self/status") if l.startswith("VmHWM:"))
-print(json.dumps({"seconds": elapsed, "rss_kib": hwm, "rows": s.rows, "sightings": s.sightings,
-                  "new_raw_urls": s.new_raw_urls, "new_canonical_urls": s.new_canonical_urls,
-                  "rejects": sum(s.rejects.values())}))
+print(json.dumps({"seconds": elapsed, "rss_kib": status("VmHWM"), "quarters_kib": quarters.marks,
+                  "rows": s.rows, "sightings": s.sightings, "new_raw_urls": s.new_raw_urls,
+                  "new_canonical_urls": s.new_canonical_urls, "rejects": sum(s.rejects.values())}))
 """
 
 
@@ -230,6 +248,8 @@ def main() -> None:
     print(f"(c) peak RSS: {part['rss_kib'] / 1024:,.0f} MiB at {small:,} rows, "
           f"{full['rss_kib'] / 1024:,.0f} MiB at {n:,} rows (ratio {full['rss_kib'] / part['rss_kib']:.2f}); "
           f"canonicaliser cache {args.cache_size:,} entries, which fills with distinct URLs and then stays")
+    marks = " / ".join(f"{k / 1024:,.0f}" for k in full["quarters_kib"])
+    print(f"    peak RSS so far at each quarter of the {n:,}-row load: {marks} MiB")
 
 
 if __name__ == "__main__":
