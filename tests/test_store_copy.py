@@ -21,6 +21,20 @@ ROWS = [(1, 2, 3, 0, "v1", datetime(2031, 5, 4, 8, 0, tzinfo=UTC), 7),
         (1, 2, 9_000_000_000, 0, "", datetime(1999, 12, 31, 23, 59, 59, 999999, tzinfo=UTC), 1)]  # int8 line
 
 
+def _count_encoded_rows(monkeypatch) -> list[int]:
+    """Spy on the writer's inserts: the row counts of every batch sent as rows encoded ahead."""
+    sent: list[int] = []
+    real = registry.insert_tuples
+
+    def spy(conn, table, columns, rows, **kw):
+        if kw.get("ready") is not None:
+            sent.append(kw["ready"].count)
+        return real(conn, table, columns, rows, **kw)
+
+    monkeypatch.setattr(registry, "insert_tuples", spy)
+    return sent
+
+
 def test_header_and_trailer_are_the_documented_ones():
     # PostgreSQL documentation, COPY, "Binary Format": signature "PGCOPY\n\377\r\n\0" (11 bytes), a 32-bit
     # flags field (bit 16 says OIDs follow; 0 here), a 32-bit header extension length (0); the trailer is
@@ -120,15 +134,7 @@ def test_a_load_leaves_the_same_registry_with_and_without_encoding_ahead(pg_serv
             engine.dispose()
             pg_server.drop(name)
 
-    sent_ready: list[int] = []
-    real = registry.insert_tuples
-
-    def spy(conn, table, columns, rows, **kw):
-        if kw.get("ready") is not None:
-            sent_ready.append(kw["ready"].count)
-        return real(conn, table, columns, rows, **kw)
-
-    monkeypatch.setattr(registry, "insert_tuples", spy)
+    sent_ready = _count_encoded_rows(monkeypatch)
     with_encoding = load(True)
     assert with_encoding[0][0] == 700 and len(with_encoding) == 701
     assert sum(sent_ready) > 350  # most sightings and every staged raw URL went as encoded bytes
@@ -180,15 +186,7 @@ def test_a_client_encoding_other_than_utf8_gets_no_encoding_ahead(pg_url, tmp_pa
     from linkfold.ingest import ingest_dump
     from linkfold.store import make_engine
 
-    sent_ready: list[int] = []
-    real = registry.insert_tuples
-
-    def spy(conn, table, columns, rows, **kw):
-        if kw.get("ready") is not None:
-            sent_ready.append(kw["ready"].count)
-        return real(conn, table, columns, rows, **kw)
-
-    monkeypatch.setattr(registry, "insert_tuples", spy)
+    sent_ready = _count_encoded_rows(monkeypatch)
     dump = tmp_path / "panel.csv"
     dump.write_text("id,url\n" + "".join(f"clé{i % 3},https://café.example/{i % 5}\n" for i in range(60)),
                     encoding="utf-8")
