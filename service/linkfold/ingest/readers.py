@@ -26,8 +26,8 @@ from .paths import JsonPath, parse_path, resolve
 
 EXCERPT_CHARS = 200
 JSONL_PEEK_LINES = 1000
-JSONL_PEEK_BYTES = 8 << 20
-RUN_MIN, RUN_MAX = 16, 8192  # lines the CSV/TSV fast lane splits at once  # and at most this much of them: the peeked lines are held until replayed
+JSONL_PEEK_BYTES = 8 << 20  # and at most this much of them: the peeked lines are held until replayed
+RUN_MIN, RUN_MAX = 16, 8192  # lines a block lane reads at once
 
 
 class _Missing:
@@ -163,8 +163,9 @@ class DumpReader:
                 yield piece
 
     def pieces(self) -> Iterator[DumpRow | RowBlock]:
-        """The rows in line order, runs of ordinary CSV/TSV lines as :class:`RowBlock` columns (the loader's
-        way in: a row object costs more than the reading of most rows), the rest as :class:`DumpRow`."""
+        """The rows in line order, runs of ordinary CSV/TSV lines and JSON-lines records as :class:`RowBlock`
+        columns (the loader's way in: a row object costs more than the reading of most rows), the rest as
+        :class:`DumpRow`."""
         self.check()
         return self._impl.rows()
 
