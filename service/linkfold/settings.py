@@ -120,6 +120,10 @@ SETTINGS: tuple[Setting, ...] = (
     Setting("lsh_max_bucket", 1000, _positive_int,
             "Documents sharing one band key above which the bucket is skipped when matching (boilerplate "
             "shared by many pages); skipped buckets are counted in the dedupe summary."),
+    Setting("sink_fan_in", 50, _positive_int,
+            "Distinct URLs leading to one redirect or declared-canonical target above which the target is a "
+            "sink: its links are kept as evidence but join nothing (short links on shortener_hosts and "
+            "query-only variants of the target do not count). See docs/dedupe.md §10."),
     Setting("open_reads", False, _bool, "Let the HTTP API answer reads without a token."),
     Setting("api_max_batch", 10000, _positive_int,
             "Most URLs or keys in one batch lookup request; more is refused with 413 (split the batch)."),

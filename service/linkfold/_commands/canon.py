@@ -111,7 +111,8 @@ def rules_group() -> None:
 @common_options
 @pass_ctx
 def rules_check(obj: Context, file: Path) -> None:
-    """Validate a rules file: one OK line, or the file, line and reason of the first error (exit 5).
+    """Validate a rules file: an OK line (and the never-follow and never-article host lists), or the
+    file, line and reason of the first error (exit 5).
 
     \b
     Example:
@@ -120,6 +121,11 @@ def rules_check(obj: Context, file: Path) -> None:
     ruleset = load_rules(file)
     click.echo(f"{file}: OK ({len(ruleset.sites)} sites, {len(ruleset.shortener_hosts)} shortener hosts, "
                f"digest {ruleset.digest[:12]})")
+    # The host lists change what is followed and what may join, so they are shown, not just counted.
+    for key, hosts in (("never_follow_hosts", ruleset.never_follow_hosts),
+                       ("never_article_hosts", ruleset.never_article_hosts)):
+        if hosts:
+            click.echo(f"  {key} ({len(hosts)}, subdomains included): {', '.join(sorted(hosts))}")
 
 
 @rules_group.command("add")

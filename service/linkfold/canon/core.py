@@ -136,6 +136,8 @@ class _HostPlan:
     #: Whole queries already folded under these switches, for hosts without a site rule: query strings
     #: repeat far more than URLs do (the same campaign tags ride on every article of a mailing).
     queries: dict[str, tuple[str, tuple[str, ...]]]
+    #: Whether the ruleset lists the host in ``never_article_hosts`` (ad servers, trackers, CDNs).
+    never_article: bool = False
 
 
 def _query_markers(items: tuple[str, ...]) -> dict[str, frozenset[str] | None]:
@@ -271,7 +273,8 @@ class _Engine:
                     break
         outlet = site.outlet if site is not None and site.outlet else domain
         amp_cache_host = bool(self.amp_cache_suffixes) and stripped.endswith(self.amp_cache_suffixes)
-        return _HostPlan(host, domain, outlet, site, sw, tuple(steps), amp_cache_host, verdicts, queries)
+        return _HostPlan(host, domain, outlet, site, sw, tuple(steps), amp_cache_host, verdicts, queries,
+                         rules.never_article(host))
 
     def _fold_prefix(self, host: str, domain: str | None, sw: _Switches, steps: list[str]) -> str:
         if sw.host_prefixes and domain is not None:
@@ -385,7 +388,9 @@ class _Engine:
             url = f"{url}#{fragment}"
 
         is_article: bool | None = None
-        if site is not None and site.article:
+        if plan.never_article:
+            is_article = False  # listed in never_article_hosts: whatever the site's patterns say
+        elif site is not None and site.article:
             target = path if query is None else f"{path}?{query}"
             is_article = any(p.search(target) for p in site.article)
         return Canonical(url, url_key(url), host, plan.domain, plan.outlet, is_article, self.rules.digest,

@@ -59,7 +59,9 @@ _DATA_TABLES: dict[str, tuple[str, ...]] = {
     "index_documents": ("names",),
 }
 _SITE_KEYS = ("outlet", "aliases", "keep_params", "drop_params", "drop_unlisted_params", "article", "rewrite")
-_TOP_KEYS = ("name", "shortener_hosts", "steps", "redirect_wrapper", "site", *_DATA_TABLES)
+#: Top-level lists of hosts. A listed host covers its subdomains too (an ad server's ``a1.``, ``a2.`` …).
+HOST_LISTS = ("never_follow_hosts", "never_article_hosts")
+_TOP_KEYS = ("name", "shortener_hosts", *HOST_LISTS, "steps", "redirect_wrapper", "site", *_DATA_TABLES)
 
 _HOST_RE = re.compile(r"^(?=.{1,253}$)(?:[a-z0-9_](?:[a-z0-9_-]{0,61}[a-z0-9_])?\.)*"
                       r"[a-z0-9_](?:[a-z0-9_-]{0,61}[a-z0-9_])?$")
@@ -106,6 +108,10 @@ class Ruleset:
     source: str
     digest: str
     shortener_hosts: frozenset[str]
+    #: Hosts no request is ever sent to (follow stage); their subdomains too.
+    never_follow_hosts: frozenset[str]
+    #: Hosts whose URLs are never articles (ad servers, trackers, image and CDN hosts); their subdomains too.
+    never_article_hosts: frozenset[str]
     switches: Mapping[str, bool]
     tracking_names: frozenset[str]
     tracking_prefixes: tuple[str, ...]
@@ -135,12 +141,33 @@ class Ruleset:
     def __repr__(self) -> str:
         return f"Ruleset(name={self.name!r}, digest={self.digest[:12]}…, sites={len(self.sites)})"
 
+    def never_follows(self, host: str) -> bool:
+        """Whether ``host`` (a canonical host) is listed in ``never_follow_hosts``, itself or as a subdomain."""
+        return _listed(host, self.never_follow_hosts)
+
+    def never_article(self, host: str) -> bool:
+        """Whether ``host`` (a canonical host) is listed in ``never_article_hosts``, itself or as a subdomain."""
+        return _listed(host, self.never_article_hosts)
+
     def site_for(self, host: str, domain: str | None) -> SiteRule | None:
         """The site rule for a host: exact host first, then its registered domain."""
         key = self.site_hosts.get(host)
         if key is None and domain is not None:
             key = self.site_hosts.get(domain)
         return None if key is None else self.sites[key]
+
+
+def _listed(host: str, hosts: frozenset[str]) -> bool:
+    if not hosts:
+        return False
+    if host in hosts:
+        return True
+    dot = host.find(".")
+    while dot >= 0:
+        if host[dot + 1:] in hosts:
+            return True
+        dot = host.find(".", dot + 1)
+    return False
 
 
 class _Checker:
@@ -224,6 +251,9 @@ def _check_and_normalise(data: dict, chk: _Checker) -> dict[str, Any]:
     if "shortener_hosts" in data:
         out["shortener_hosts"] = [chk.host(h, ("shortener_hosts", i))
                                   for i, h in enumerate(chk.strs(data["shortener_hosts"], ("shortener_hosts",)))]
+    for key in HOST_LISTS:
+        if key in data:
+            out[key] = [chk.host(h, (key, i)) for i, h in enumerate(chk.strs(data[key], (key,)))]
     if "steps" in data:
         steps = chk.table(data["steps"], ("steps",), SWITCHES)
         out["steps"] = {k: chk.boolean(v, ("steps", k)) for k, v in steps.items()}
@@ -318,6 +348,11 @@ def _merge(base: dict[str, Any], lab: dict[str, Any]) -> dict[str, Any]:
         "shortener_hosts": _dedupe(base.get("shortener_hosts", []) + lab.get("shortener_hosts", [])),
         "steps": {s: True for s in SWITCHES} | base.get("steps", {}) | lab.get("steps", {}),
     }
+    for key in HOST_LISTS:
+        # Only when given: a ruleset without these lists keeps the digest it had before they existed.
+        hosts = _dedupe(base.get(key, []) + lab.get(key, []))
+        if hosts:
+            merged[key] = hosts
     for table, keys in _DATA_TABLES.items():
         merged[table] = {k: _dedupe(base.get(table, {}).get(k, []) + lab.get(table, {}).get(k, []))
                          for k in keys}
@@ -379,6 +414,8 @@ def _build(normalised: dict[str, Any], source: str, chk: _Checker) -> Ruleset:
         source=source,
         digest=_digest(normalised),
         shortener_hosts=frozenset(normalised["shortener_hosts"]),
+        never_follow_hosts=frozenset(normalised.get("never_follow_hosts", ())),
+        never_article_hosts=frozenset(normalised.get("never_article_hosts", ())),
         switches=MappingProxyType(dict(normalised["steps"])),
         tracking_names=frozenset(normalised["tracking"]["names"]),
         tracking_prefixes=tuple(normalised["tracking"]["prefixes"]),

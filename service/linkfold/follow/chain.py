@@ -33,11 +33,11 @@ class State(StrEnum):
 
     RESOLVED = "resolved"  # the chain ended in a 2xx answer
     FAILED = "failed"      # it ended anywhere else: see the failure class
-    REFUSED = "refused"    # we chose not to go on: request-forgery guard or robots.txt
+    REFUSED = "refused"    # we chose not to go on: request-forgery guard, robots.txt, never_follow_hosts
 
 
 #: The failure classes that are our refusals rather than the server's or the network's failures.
-REFUSALS = frozenset({Failure.REFUSED, Failure.ROBOTS})
+REFUSALS = frozenset({Failure.REFUSED, Failure.ROBOTS, Failure.NEVER_FOLLOW})
 
 
 @dataclass(frozen=True)
@@ -117,8 +117,13 @@ async def _ask(client: SafeClient, url: str) -> tuple[Reply, int]:
 
 
 async def follow_chain(client: SafeClient, start: str, *, max_hops: int,
-                       now: Callable[[], datetime] = lambda: datetime.now(UTC)) -> Chain:
-    """Follow ``start`` to where it leads; never raises for a single URL's failure."""
+                       now: Callable[[], datetime] = lambda: datetime.now(UTC),
+                       never_follow: Callable[[str], str | None] | None = None) -> Chain:
+    """Follow ``start`` to where it leads; never raises for a single URL's failure.
+
+    ``never_follow(url)`` names why a URL must not be asked (a host the rules file lists) or returns None;
+    such a URL, the start or any hop, ends the chain as refused before any request is sent to it.
+    """
     url = start
     visited = {_defragment(url)}
     hops: list[Hop] = []
@@ -131,6 +136,9 @@ async def follow_chain(client: SafeClient, start: str, *, max_hops: int,
                      detail=detail, status=status, retry_after=retry_after, requests=requests, at=began)
 
     while True:
+        why = never_follow(url) if never_follow is not None else None
+        if why is not None:
+            return stop(State.REFUSED, Failure.NEVER_FOLLOW, why, final=url)
         try:
             reply, made = await _ask(client, url)
         except FetchError as exc:

@@ -78,6 +78,7 @@ class Failure(StrEnum):
     TOO_LARGE = "too_large"          # the body is over http_max_bytes
     REFUSED = "refused"              # the request-forgery guard refused the address
     ROBOTS = "robots"                # robots.txt disallows the GET
+    NEVER_FOLLOW = "never_follow"    # the rules file lists the host in never_follow_hosts: not asked
     BAD_URL = "bad_url"              # not a fetchable http(s) URL
     HTTP_4XX = "http_4xx"            # the chain ended in a client error
     HTTP_5XX = "http_5xx"            # the chain ended in a server error (after retries)

@@ -22,15 +22,16 @@ from __future__ import annotations
 
 import logging
 from collections import Counter
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from typing import Any
+from urllib.parse import urlsplit
 
 import httpcore
 from sqlalchemy.engine import Engine
 
-from ..canon import Canonical, Canonicaliser
+from ..canon import Canonical, Canonicaliser, Ruleset
 from ..errors import ConfigError, InvalidURL
 from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
@@ -124,6 +125,30 @@ class FollowSummary:
 
 def _by_class(counts: Counter[str]) -> str:
     return (" (" + ", ".join(f"{k} {v:,}" for k, v in sorted(counts.items())) + ")") if counts else ""
+
+
+def never_follow_check(rules: Ruleset) -> Callable[[str], str | None] | None:
+    """A check for :func:`follow_chain`: why a URL's host must not be asked (the ruleset lists it, or a
+    parent domain of it, in ``never_follow_hosts``), else None. None when the list is empty.
+
+    The host is the one the request would go to, not the canonical URL's: a wrapper URL is asked at the
+    wrapper's host even though it canonicalises to its target.
+    """
+    if not rules.never_follow_hosts:
+        return None
+    from ..canon.rules import normalise_rule_host
+
+    def check(url: str) -> str | None:
+        try:
+            host = urlsplit(url).hostname
+        except ValueError:
+            return None
+        norm = normalise_rule_host(host) if host else None
+        if norm is not None and rules.never_follows(norm):
+            return f"{norm} is listed in never_follow_hosts (rules file); no request sent"
+        return None
+
+    return check
 
 
 def canonical_hosts(hosts: Iterable[str]) -> frozenset[str]:
@@ -291,6 +316,7 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
     if not items:
         return summary
     canon = Canonicaliser(rules, cache_size=settings.canon_cache_size)
+    refuse = never_follow_check(rules)
     batch_size = max(1, min(settings.batch_size, WRITE_BATCH))
     progress.start("follow", total=len(items))
     with recording_run(engine, "follow", parent_id=parent_id) as run:
@@ -303,7 +329,8 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
 
         async def follow_one(client: SafeClient, item: ev.Pending) -> Chain | None:
             url = request_url(item.raw, item.url)
-            return None if url is None else await follow_chain(client, url, max_hops=settings.max_hops)
+            return None if url is None else await follow_chain(client, url, max_hops=settings.max_hops,
+                                                                 never_follow=refuse)
 
         def skip(_item: ev.Pending) -> None:
             summary.skipped += 1
@@ -317,4 +344,4 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
     return summary
 
 
-__all__ = ["FollowSummary", "canonical_hosts", "follow_links", "next_attempt"]
+__all__ = ["FollowSummary", "canonical_hosts", "follow_links", "never_follow_check", "next_attempt"]

@@ -122,6 +122,75 @@ def links_of(conn: Connection, canonical_id: int, *, kind: str | None = None) ->
     return [dict(r) | {"created_at": utc(r["created_at"])} for r in conn.execute(q.order_by(lk.c.id)).mappings()]
 
 
+# --- what points at a URL (sink detection, docs/dedupe.md §10) --------------------------------------------
+#: Link kinds that say "this URL stands for that one": their targets can be sinks.
+POINTING_KINDS = ("redirect", "declared")
+
+
+@dataclass(frozen=True)
+class UrlFacts:
+    """What sink detection needs of one canonical URL."""
+
+    canonical_id: int
+    url: str
+    host: str
+    is_article: bool | None
+
+
+def url_facts(conn: Connection, ids: Iterable[int]) -> dict[int, UrlFacts]:
+    c = t.canonical_urls
+    out: dict[int, UrlFacts] = {}
+    for part in _chunks(sorted(set(ids))):
+        for r in conn.execute(sa.select(c.c.id, c.c.url, c.c.host, c.c.is_article).where(c.c.id.in_(part))):
+            out[int(r.id)] = UrlFacts(int(r.id), r.url, r.host, r.is_article)
+    return out
+
+
+def pointing_counts(conn: Connection, targets: Iterable[int]) -> dict[int, int]:
+    """Distinct sources of ``redirect``/``declared`` links into each target (itself excluded); an upper
+    bound of the fan-in, counted in the database."""
+    lk = t.links
+    out: dict[int, int] = {}
+    for part in _chunks(sorted(set(targets))):
+        q = (sa.select(lk.c.dst_id, sa.func.count(sa.distinct(lk.c.src_id)))
+             .where(lk.c.dst_id.in_(part), lk.c.kind.in_(POINTING_KINDS), lk.c.src_id != lk.c.dst_id)
+             .group_by(lk.c.dst_id))
+        out.update({int(d): int(n) for d, n in conn.execute(q)})
+    return out
+
+
+def pointing_sources(conn: Connection, targets: Iterable[int]) -> dict[int, list[UrlFacts]]:
+    """The distinct sources of ``redirect``/``declared`` links into each target (itself excluded)."""
+    lk, c = t.links, t.canonical_urls
+    out: dict[int, dict[int, UrlFacts]] = {}
+    for part in _chunks(sorted(set(targets))):
+        q = (sa.select(lk.c.dst_id, c.c.id, c.c.url, c.c.host, c.c.is_article)
+             .select_from(lk.join(c, c.c.id == lk.c.src_id))
+             .where(lk.c.dst_id.in_(part), lk.c.kind.in_(POINTING_KINDS), lk.c.src_id != lk.c.dst_id))
+        for r in conn.execute(q):
+            out.setdefault(int(r.dst_id), {})[int(r.id)] = UrlFacts(int(r.id), r.url, r.host, r.is_article)
+    return {dst: list(by_id.values()) for dst, by_id in out.items()}
+
+
+def pointed_targets(conn: Connection, *, min_sources: int, dataset_id: int | None = None) -> list[int]:
+    """Targets of ``redirect``/``declared`` links that could be sinks: more than ``min_sources`` distinct
+    sources, not an article by the site rules, or a site's root URL (``https://host/``). With
+    ``dataset_id``, only targets of links from URLs sighted in that dataset, or where their chains ended."""
+    lk, c, r = t.links, t.canonical_urls, t.raw_urls
+    q = (sa.select(lk.c.dst_id).select_from(lk.join(c, c.c.id == lk.c.dst_id))
+         .where(lk.c.kind.in_(POINTING_KINDS), lk.c.src_id != lk.c.dst_id))
+    if dataset_id is not None:
+        sighted = (sa.select(r.c.canonical_id).select_from(r.join(t.sightings, t.sightings.c.raw_url_id == r.c.id))
+                   .where(t.sightings_in_dataset(dataset_id), r.c.canonical_id.is_not(None)))
+        ended = sa.select(t.follow_results.c.final_id).where(t.follow_results.c.canonical_id.in_(sighted))
+        q = q.where(sa.or_(lk.c.src_id.in_(sighted), lk.c.dst_id.in_(ended)))
+    # A root URL ends with its first "/" after the host: "%/" but not "%://%/%/".
+    root = sa.and_(c.c.url.like("%/"), sa.not_(c.c.url.like("%://%/%/")))
+    q = q.group_by(lk.c.dst_id, c.c.is_article, c.c.url).having(sa.or_(
+        sa.func.count(sa.distinct(lk.c.src_id)) > min_sources, c.c.is_article.is_(False), root))
+    return sorted(int(i) for i in conn.execute(q).scalars())
+
+
 # --- follow state ----------------------------------------------------------------------------------------------
 @dataclass(frozen=True)
 class Outcome:
@@ -287,15 +356,21 @@ def follow_totals(conn: Connection, *, dataset_id: int | None = None) -> dict[st
 
 
 __all__ = [
+    "POINTING_KINDS",
     "Outcome",
     "Pending",
+    "UrlFacts",
     "UrlIds",
     "add_links",
     "follow_attempts_of",
     "follow_result",
     "follow_totals",
     "links_of",
+    "pointed_targets",
+    "pointing_counts",
+    "pointing_sources",
     "record_outcomes",
     "register_urls",
     "select_pending",
+    "url_facts",
 ]

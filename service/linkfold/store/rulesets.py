@@ -64,6 +64,12 @@ def latest_ruleset(conn: Connection) -> tuple[int, Ruleset]:
     return int(row["id"]), _from_row(row)
 
 
+def current_ruleset(conn: Connection) -> Ruleset:
+    """The newest stored ruleset, or the default one when none is stored; writes nothing (for readers)."""
+    row = conn.execute(sa.select(rulesets).order_by(rulesets.c.id.desc()).limit(1)).mappings().first()
+    return default_rules() if row is None else _from_row(row)
+
+
 def list_rulesets(conn: Connection) -> list[dict[str, Any]]:
     """Every stored ruleset, oldest first, without its source (``get_ruleset`` reads that)."""
     rows = conn.execute(sa.select(rulesets.c.id, rulesets.c.name, rulesets.c.digest, rulesets.c.canon_version,

@@ -71,6 +71,8 @@ class DedupeSummary:
                f"{a.split:,} split off, {a.moved:,} URLs moved",
                f"stories: {st.members:,} URLs in touched regions, {st.minted:,} new IDs, {st.merged:,} merged, "
                f"{st.split:,} split off, {st.moved:,} URLs moved",
+               f"links kept as evidence but not used (into a sink, or touching a never-article host): "
+               f"{a.sink_links + st.sink_links:,}",
                f"done in {self.seconds:.1f} s"]
         if m.oversize_buckets:
             out.append(f"  skipped {m.oversize_buckets:,} band-key bucket(s) larger than lsh_max_bucket "
@@ -124,9 +126,9 @@ def run_dedupe(engine: Engine, *, settings: Any, full: bool = False, parent_id: 
             else:
                 article_seeds, story_extra = seeds_of(conn, pending)
         summary.articles, region = cluster_seeds(engine, "article", article_seeds, thresholds, run_id=run.id,
-                                                 progress=progress)
+                                                 progress=progress, settings=settings)
         summary.stories, _ = cluster_seeds(engine, "story", region | story_extra, thresholds, run_id=run.id,
-                                           progress=progress)
+                                           progress=progress, settings=settings)
         with engine.begin() as conn:
             advance_marks(conn, pending, run_id=run.id)
         summary.seconds = time.monotonic() - started

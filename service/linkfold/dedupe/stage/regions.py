@@ -39,6 +39,8 @@ from ...store import clusters as cs
 from ...store import tables as t
 from ...store.registry import now
 from .. import Edge, EventKind, IdState, Reason, Thresholds, assign_ids, cluster, derive_id
+from ..sinks import POINTING_KINDS, End, link_joins
+from .sinks import SinkJudge
 
 log = logging.getLogger("linkfold")
 
@@ -59,12 +61,13 @@ class ClusterCounts:
     merged: int = 0
     moved: int = 0
     refused: int = 0
+    sink_links: int = 0  # links met but not used: into a sink, or touching a never-article host
     conflicts: list[str] = field(default_factory=list)
 
     def as_dict(self) -> dict[str, Any]:
         return {"seeds": self.seeds, "members": self.members, "components": self.components,
                 "minted": self.minted, "split": self.split, "merged": self.merged, "moved": self.moved,
-                "refused": self.refused, "conflicts": len(self.conflicts)}
+                "refused": self.refused, "sink_links": self.sink_links, "conflicts": len(self.conflicts)}
 
 
 def link_level(kind: str, src_outlet: str | None, dst_outlet: str | None) -> str | None:
@@ -105,7 +108,10 @@ def links_touching(conn: Connection, members: Sequence[int], *, after: int | Non
     lk = t.links
     src, dst = t.canonical_urls.alias("src"), t.canonical_urls.alias("dst")
     base = (sa.select(lk.c.id, lk.c.kind, lk.c.src_id, lk.c.dst_id, lk.c.detail,
-                      src.c.outlet.label("src_outlet"), dst.c.outlet.label("dst_outlet"))
+                      src.c.outlet.label("src_outlet"), dst.c.outlet.label("dst_outlet"),
+                      src.c.url.label("src_url"), src.c.host.label("src_host"),
+                      src.c.is_article.label("src_is_article"), dst.c.url.label("dst_url"),
+                      dst.c.host.label("dst_host"), dst.c.is_article.label("dst_is_article"))
             .select_from(lk.join(src, src.c.id == lk.c.src_id).join(dst, dst.c.id == lk.c.dst_id)))
     rows: dict[int, Any] = {}
     if after is not None:
@@ -124,13 +130,36 @@ class Region:
     members: set[int]
     edges: dict[tuple[int, int], tuple[float, str]]
     decisions: list[dict[str, Any]]
+    #: Links at this level left unused because they lead into a sink or touch a never-article host.
+    sink_links: int = 0
 
 
-def closure(conn: Connection, level: str, seeds: Iterable[int], thresholds: Thresholds) -> Region:
+def joining(conn: Connection, rows: Sequence[Any], judge: SinkJudge) -> set[int]:
+    """The ids of the links among ``rows`` that may join their ends (docs/dedupe.md §10, "Sinks")."""
+    ends: dict[int, tuple[End, End]] = {}
+    targets: dict[int, End] = {}
+    for r in rows:
+        src = End(r.src_url, r.src_host, r.src_is_article, judge.rules.never_article(r.src_host))
+        dst = End(r.dst_url, r.dst_host, r.dst_is_article, judge.rules.never_article(r.dst_host))
+        ends[r.id] = (src, dst)
+        if r.kind in POINTING_KINDS:
+            targets[r.dst_id] = dst
+    kinds = judge.kinds(conn, targets)
+    return {r.id for r in rows if link_joins(r.kind, ends[r.id][0], ends[r.id][1], kinds.get(r.dst_id))}
+
+
+def closure(conn: Connection, level: str, seeds: Iterable[int], thresholds: Thresholds,
+            judge: SinkJudge | None = None) -> Region:
+    """The region of ``seeds`` at ``level``. Links into a sink (or touching a never-article host) neither
+    join nor grow the region; the sink's current cluster still belongs to it, so a cluster that was joined
+    through a sink before is clustered again, and split, as soon as the sink is met."""
+    if judge is None:
+        judge = SinkJudge.load(conn)
     region: set[int] = set()
     frontier = set(seeds)
     edges: dict[tuple[int, int], tuple[float, str]] = {}
     decisions: dict[int, dict[str, Any]] = {}
+    unused: set[int] = set()
     while frontier:
         region |= frontier
         part = sorted(frontier)
@@ -140,8 +169,12 @@ def closure(conn: Connection, level: str, seeds: Iterable[int], thresholds: Thre
         if level == "story":
             articles = cs.assignments(conn, "article", part)
             grown.update(cs.members_of(conn, set(articles.values())))
-        for r in links_touching(conn, part):
-            if r.src_id == r.dst_id or link_level(r.kind, r.src_outlet, r.dst_outlet) != level:
+        rows = [r for r in links_touching(conn, part)
+                if r.src_id != r.dst_id and link_level(r.kind, r.src_outlet, r.dst_outlet) == level]
+        usable = joining(conn, rows, judge)
+        for r in rows:
+            if r.id not in usable:
+                unused.add(r.id)
                 continue
             strength = link_strength(r.kind, r.detail, thresholds)
             if strength is None:
@@ -155,7 +188,7 @@ def closure(conn: Connection, level: str, seeds: Iterable[int], thresholds: Thre
             if d["verdict"] == "same":
                 grown.update((d["a_member"], d["b_member"]))
         frontier = grown - region
-    return Region(region, edges, cs.latest_per_pair(decisions.values()))
+    return Region(region, edges, cs.latest_per_pair(decisions.values()), len(unused))
 
 
 def _url_keys(conn: Connection, ids: Iterable[int]) -> dict[int, str]:
@@ -256,19 +289,24 @@ def cluster_region(conn: Connection, level: str, region: Region, *, run_id: int 
 
 def cluster_seeds(engine: Engine, level: str, seeds: Iterable[int], thresholds: Thresholds, *,
                   run_id: int | None, progress: Progress = SILENT,
-                  per_transaction: int = SEEDS_PER_TRANSACTION) -> tuple[ClusterCounts, set[int]]:
+                  per_transaction: int = SEEDS_PER_TRANSACTION,
+                  settings: Mapping[str, Any] | None = None) -> tuple[ClusterCounts, set[int]]:
     """Cluster the regions of ``seeds`` at ``level``, one transaction per group of seeds; returns the
-    counts and every member of the regions (story seeds, after the article pass)."""
+    counts and every member of the regions (story seeds, after the article pass). ``settings`` gives the
+    ``sink_fan_in`` limit (default 50)."""
     ordered = sorted(set(seeds))
     counts = ClusterCounts(level, seeds=len(ordered))
     done: set[int] = set()
+    with engine.connect() as conn:
+        judge = SinkJudge.load(conn, settings)
     progress.start(f"clustering {level}s", len(ordered))
     for i in range(0, len(ordered), per_transaction):
         group = [s for s in ordered[i:i + per_transaction] if s not in done]
         if group:
             with engine.begin() as conn:
-                region = closure(conn, level, group, thresholds)
+                region = closure(conn, level, group, thresholds, judge)
                 cluster_region(conn, level, region, run_id=run_id, counts=counts)
+                counts.sink_links += region.sink_links
             done |= region.members
         progress.advance(len(ordered[i:i + per_transaction]))
     progress.finish()
@@ -349,4 +387,4 @@ def advance_marks(conn: Connection, pending: Pending, *, run_id: int | None) -> 
 
 __all__ = ["CANONICAL", "DECISIONS", "LINKS", "ClusterCounts", "Pending", "Region", "advance_marks",
            "all_canonical_ids", "closure", "cluster_region", "cluster_seeds", "count_pending_clustering",
-           "link_level", "link_strength", "links_touching", "pending_ranges", "seeds_of"]
+           "joining", "link_level", "link_strength", "links_touching", "pending_ranges", "seeds_of"]
