@@ -158,7 +158,10 @@ def decide_list(obj: Context, limit: int, fmt: str) -> None:
 @click.pass_context
 def clusters_group(ctx: click.Context, level: str, min_size: int, outlet: str | None, limit: int | None,
                    fmt: str) -> None:
-    """List clusters with their sizes and the range of similarity scores inside them.
+    """List clusters with their sizes, the range of similarity scores inside them, and the sinks near them.
+
+    A sink is a redirect or declared-canonical target that joins nothing (a home page, a subscribe page,
+    a target of more than sink_fan_in URLs); `linkfold follow-report` lists them all.
 
     \b
     Example:
@@ -170,14 +173,15 @@ def clusters_group(ctx: click.Context, level: str, min_size: int, outlet: str | 
         return
     obj: Context = ctx.ensure_object(Context)
     rows = [r.as_dict() for r in list_clusters(obj.engine(), level=level, min_size=min_size, outlet=outlet,
-                                               limit=limit)]
+                                               limit=limit, settings=obj.settings)]
     if fmt == "jsonl":
         write_jsonl(rows)
         return
     for r in rows:
         r["scores"] = ("" if r["min_score"] is None else f"{r['min_score']:.3f}–{r['max_score']:.3f}")
         r["evidence"] = ", ".join(f"{k} {v}" for k, v in r["evidence"].items())
-    write_table(_table(rows), ["id", "size", "outlets", "scores", "evidence", "founder_url"])
+        r["sinks"] = ", ".join(f"{s['url']} ({s['sink']}, fan-in {s['fan_in']})" for s in r["sinks"])
+    write_table(_table(rows), ["id", "size", "outlets", "scores", "evidence", "sinks", "founder_url"])
     obj.message(f"{len(rows):,} {level} cluster(s) with at least {min_size} URL(s)")
 
 
@@ -201,7 +205,7 @@ def clusters_show(obj: Context, cluster_id: str, fmt: str) -> None:
     Example:
       linkfold clusters show a2swtbc53jhcf
     """
-    d = show_cluster(obj.engine(), cluster_id)
+    d = show_cluster(obj.engine(), cluster_id, settings=obj.settings)
     if fmt == "json":
         click.echo(to_json(vars(d)))
         return
@@ -225,6 +229,11 @@ def clusters_show(obj: Context, cluster_id: str, fmt: str) -> None:
         scores = ", ".join(f"{k}={v:.3f}" if isinstance(v, float) else f"{k}={v}" for k, v in detail.items()
                            if k not in ("documents", "level"))
         click.echo(f"  {link['kind']:<12} {link['from']} → {link['to']}  {scores}")
+    if d.sinks:
+        click.echo(f"\nsinks ({len(d.sinks)}; their links are kept as evidence, never used to join):")
+        for s in d.sinks:
+            where = "this cluster's own URL" if s["member"] else f"led to by {s['members_leading_here']} member(s)"
+            click.echo(f"  {s['url']}  [{s['sink']}; fan-in {s['fan_in']} of {s['sources']} sources; {where}]")
     if d.decisions:
         click.echo(f"\ndecisions ({len(d.decisions)}):")
         for x in d.decisions:

@@ -8,6 +8,7 @@ from typing import Any
 
 import click
 
+from ..dedupe.stage.sinks import list_sinks
 from ..follow import follow_links, import_redirects
 from ..follow.imports import FORMATS
 from ..store import evidence, registry
@@ -102,22 +103,46 @@ def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_url
         obj.message(line)
 
 
+#: Sinks shown under the outcome table; --sinks lists them all.
+SHOWN_SINKS = 20
+
+
+def _sink_rows(sinks: list[Any]) -> list[Mapping[str, Any]]:
+    return [s.as_dict() for s in sinks]
+
+
 @click.command("follow-report")
 @click.option("--dataset", metavar="NAME", help="Only URLs sighted in this dataset.")
+@click.option("--sinks", "sinks_only", is_flag=True,
+              help="List every sink (a redirect or declared-canonical target that joins nothing) with its "
+                   "fan-in, instead of the outcomes.")
 @format_option()
 @common_options
 @pass_ctx
-def follow_report_command(obj: Context, dataset: str | None, fmt: str) -> None:
-    """How the links followed so far ended: resolved, failed by class, refused, and the dead share.
+def follow_report_command(obj: Context, dataset: str | None, sinks_only: bool, fmt: str) -> None:
+    """How the links followed so far ended: resolved, failed by class, refused, and the dead share; then
+    the sinks the links lead to.
 
     One row per state and failure class. The dead share is failed / (resolved + failed): refused URLs
-    were never asked, so nothing is known about them.
+    were never asked, so nothing is known about them. A sink is a target that is no article (a home page,
+    a page the site rules call no article, a never_article_hosts URL) or that more than sink_fan_in URLs
+    lead to (a subscribe page behind every ad click): its links are kept as evidence but join nothing.
+    The table shows the largest sinks by fan-in under the outcomes; --sinks lists them all.
 
     \b
     Example:
       linkfold follow-report --dataset posts-2031
       linkfold follow-report --format jsonl
+      linkfold follow-report --sinks --format jsonl
     """
+    sinks = list_sinks(obj.engine(), settings=obj.settings, dataset=dataset)
+    if sinks_only:
+        if fmt == "jsonl":
+            write_jsonl(_sink_rows(sinks))
+        else:
+            write_table(_sink_rows(sinks), ["url", "sink", "fan_in", "sources"])
+        obj.message(f"{len(sinks):,} sink(s): their links are kept as evidence, never used to join")
+        return
     with obj.engine().connect() as conn:
         dataset_id = registry.get_dataset(conn, dataset)["id"] if dataset else None
         totals = evidence.follow_totals(conn, dataset_id=dataset_id)
@@ -131,8 +156,15 @@ def follow_report_command(obj: Context, dataset: str | None, fmt: str) -> None:
         write_jsonl(rows)
     else:
         write_table(rows, ["state", "failure", "urls"])
+        if sinks:
+            click.echo(f"\nsinks, largest fan-in first ({min(len(sinks), SHOWN_SINKS)} of {len(sinks):,}; "
+                       "--sinks lists all):")
+            write_table(_sink_rows(sinks[:SHOWN_SINKS]), ["url", "sink", "fan_in", "sources"])
     obj.message(f"{answered + sum(totals.get('refused', {}).values()):,} URLs followed; dead share: "
                 + (f"{100 * share:.1f}%" if share is not None else "n/a (none followed)"))
+    if sinks:
+        obj.message(f"{len(sinks):,} sink(s) among their targets (kept as evidence, never used to join); "
+                    "linkfold follow-report --sinks lists them")
 
 
 def register(cli: click.Group) -> None:

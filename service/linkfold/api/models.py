@@ -120,6 +120,19 @@ class Health(BaseModel):
     open_reads: bool
 
 
+class SinkOut(_Open):
+    """A redirect or declared-canonical target whose links are kept as evidence but join nothing
+    (docs/dedupe.md §10): ``sink`` says why (``never_article_host``, ``not_article``, ``home_page``,
+    ``fan_in``), ``fan_in`` counts the distinct sources that count, ``sources`` all of them."""
+
+    url: str
+    sink: str
+    fan_in: int
+    sources: int
+    member: bool
+    members_leading_here: int
+
+
 class ClusterSummary(_Open):
     id: str
     level: str
@@ -129,6 +142,7 @@ class ClusterSummary(_Open):
     min_score: float | None = None
     max_score: float | None = None
     evidence: dict[str, int]
+    sinks: list[SinkOut] = []
 
 
 class ClusterList(BaseModel):
@@ -187,6 +201,7 @@ class ClusterDetailOut(IdHistory):
     links: list[ClusterLink]
     decisions: list[DecisionOut]
     differences: list[dict[str, Any]]
+    sinks: list[SinkOut] = []
 
 
 class DecisionRequest(BaseModel):

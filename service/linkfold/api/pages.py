@@ -114,7 +114,8 @@ def clusters_page(request: Request, level: Annotated[str, Query(pattern="^(artic
     read_access(request)
     engine = request.app.state.linkfold.engine
     rows = [row.as_dict() for row in list_clusters(engine, level=level, min_size=min_size,
-                                                    outlet=outlet.strip() or None, limit=limit)]
+                                                    outlet=outlet.strip() or None, limit=limit,
+                                                    settings=request.app.state.linkfold.settings)]
     return render(request, "clusters.html", {"rows": rows, "level": level, "min_size": min_size,
                                              "outlet": outlet, "limit": limit})
 
@@ -138,7 +139,7 @@ def cluster_page(request: Request, cluster_id: str,
                  decided: Annotated[int | None, Query(ge=1)] = None) -> HTMLResponse:
     read_access(request)
     engine = request.app.state.linkfold.engine
-    detail = show_cluster(engine, cluster_id)
+    detail = show_cluster(engine, cluster_id, settings=request.app.state.linkfold.settings)
     members = detail.members
     founder = next((m for m in members if m["founder"]), members[0] if members else None)
     docs = _texts(engine, [m["url_key"] for m in members])

@@ -48,9 +48,10 @@ def cluster_answer(request: Request, cluster_id: str, level: str) -> dict[str, A
         plural = "stories" if res.level == "story" else "articles"
         raise NotFound(f"{cluster_id} is not an {level} ID but a {res.level} ID",
                        hint=f"ask /v1/{plural}/{cluster_id}")
-    detail = show_cluster(engine, cluster_id)
+    detail = show_cluster(engine, cluster_id, settings=api_state(request).settings)
     return {**history(res), "members": detail.members, "links": detail.links, "decisions": detail.decisions,
-            "differences": [{**d, "passages": [list(p) for p in d["passages"]]} for d in detail.differences]}
+            "differences": [{**d, "passages": [list(p) for p in d["passages"]]} for d in detail.differences],
+            "sinks": detail.sinks}
 
 
 @router.get("/clusters", response_model=ClusterList, tags=["clusters"],
@@ -61,7 +62,9 @@ def clusters(request: Request, _access: ReadAccess,
              min_size: Annotated[int, Query(ge=1, le=1_000_000)] = 2,
              outlet: Annotated[str | None, Query(min_length=1, max_length=255)] = None,
              limit: Annotated[int, Query(ge=1, le=MAX_LIST)] = 100) -> dict[str, Any]:
-    rows = list_clusters(api_state(request).engine, level=level, min_size=min_size, outlet=outlet, limit=limit)
+    state = api_state(request)
+    rows = list_clusters(state.engine, level=level, min_size=min_size, outlet=outlet, limit=limit,
+                         settings=state.settings)
     return {"clusters": [row.as_dict() for row in rows]}
 
 

@@ -17,7 +17,9 @@ from ...store import tables as t
 from ...store.registry import utc
 from .. import SignatureParams, render_curve, render_histogram
 from ..curve import DEFAULT_POINTS
+from ..sinks import POINTING_KINDS
 from .regions import link_level, links_touching
+from .sinks import Sink, SinkJudge, describe_sinks
 
 PAGE = 500
 
@@ -32,11 +34,37 @@ class ClusterRow:
     min_score: float | None
     max_score: float | None
     evidence: dict[str, int] = field(default_factory=dict)
+    #: Sinks among the members or led to by their redirects and declared canonicals (links kept, not used).
+    sinks: list[dict[str, Any]] = field(default_factory=list)
 
     def as_dict(self) -> dict[str, Any]:
         return {"id": self.id, "level": self.level, "size": self.size, "outlets": self.outlets,
                 "founder_url": self.founder_url, "min_score": self.min_score, "max_score": self.max_score,
-                "evidence": self.evidence}
+                "evidence": self.evidence, "sinks": self.sinks}
+
+
+def _sinks_near(conn: Connection, judge: SinkJudge, links: Sequence[Any], members: set[int]) -> dict[int, Sink]:
+    """The sinks among ``members`` and the targets their redirect and declared links lead to."""
+    near = set(members) | {r.dst_id for r in links if r.src_id in members and r.kind in POINTING_KINDS}
+    return describe_sinks(conn, judge, near)
+
+
+def _led_by(found: Mapping[int, Sink], links: Sequence[Any]) -> dict[int, set[int]]:
+    """Sink id → the ids of the URLs whose redirect or declared links lead into it."""
+    out: dict[int, set[int]] = defaultdict(set)
+    for r in links:
+        if r.dst_id in found and r.src_id != r.dst_id and r.kind in POINTING_KINDS:
+            out[r.dst_id].add(r.src_id)
+    return out
+
+
+def _sink_rows(found: Mapping[int, Sink], led_by: Mapping[int, set[int]], members: set[int]) -> list[dict[str, Any]]:
+    rows = []
+    for cid, sink in sorted(found.items(), key=lambda kv: (-kv[1].fan_in, kv[1].url)):
+        led = len(led_by.get(cid, set()) & members)
+        if cid in members or led:
+            rows.append({**sink.as_dict(), "member": cid in members, "members_leading_here": led})
+    return rows
 
 
 def _scores(links: Sequence[Any], members: set[int]) -> tuple[float | None, float | None, dict[str, int]]:
@@ -51,9 +79,10 @@ def _scores(links: Sequence[Any], members: set[int]) -> tuple[float | None, floa
 
 
 def list_clusters(engine: Engine, *, level: str = "article", min_size: int = 2, outlet: str | None = None,
-                  limit: int | None = None) -> Iterator[ClusterRow]:
+                  limit: int | None = None, settings: Mapping[str, Any] | None = None) -> Iterator[ClusterRow]:
     """Clusters of ``level`` with at least ``min_size`` members (and, with ``outlet``, a member on that
-    outlet), largest first, with the range of similarity scores between their members."""
+    outlet), largest first, with the range of similarity scores between their members and the sinks near
+    them (``settings`` gives the ``sink_fan_in`` limit)."""
     if level not in cs.LEVELS:
         raise InputError(f"level must be article or story, not {level!r}")
     if min_size < 1:
@@ -69,6 +98,7 @@ def list_clusters(engine: Engine, *, level: str = "article", min_size: int = 2, 
     if limit:
         q = q.limit(limit)
     with engine.connect() as conn:
+        judge = SinkJudge.load(conn, settings)
         head = conn.execute(q).all()
         for i in range(0, len(head), PAGE):
             page = head[i:i + PAGE]
@@ -80,10 +110,12 @@ def list_clusters(engine: Engine, *, level: str = "article", min_size: int = 2, 
             links = links_touching(conn, sorted(members))
             founders = dict(conn.execute(sa.select(ci.c.id, c.c.url).select_from(ci.join(c, c.c.id == ci.c.founder_id))
                                          .where(ci.c.id.in_(ids))).all())
+            sinks = _sinks_near(conn, judge, links, set(members))
+            led_by = _led_by(sinks, links)
             for r in page:
                 lo, hi, kinds = _scores(links, by_id[r.cluster_id])
                 yield ClusterRow(r.cluster_id, level, int(r.size), int(r.outlets), founders[r.cluster_id], lo, hi,
-                                 kinds)
+                                 kinds, _sink_rows(sinks, led_by, by_id[r.cluster_id]) if sinks else [])
 
 
 @dataclass
@@ -97,6 +129,8 @@ class ClusterDetail:
     links: list[dict[str, Any]]
     decisions: list[dict[str, Any]]
     differences: list[dict[str, Any]]
+    #: Sinks among the members or led to by them: the links into them are kept as evidence, never used.
+    sinks: list[dict[str, Any]] = field(default_factory=list)
 
 
 def resolve_cluster_id(engine: Engine, cluster_id: str) -> cs.Resolution:
@@ -140,9 +174,11 @@ def differing_passages(a: str, b: str, *, context: int = 4, max_passages: int = 
     return out
 
 
-def show_cluster(engine: Engine, cluster_id: str, *, max_compared: int = 10) -> ClusterDetail:
-    """Members, the links between them with their evidence, the decisions on them, and, for up to
-    ``max_compared`` members, the passages where their text differs from the founder's."""
+def show_cluster(engine: Engine, cluster_id: str, *, max_compared: int = 10,
+                 settings: Mapping[str, Any] | None = None) -> ClusterDetail:
+    """Members, the links between them with their evidence, the decisions on them, the sinks near them
+    (with their fan-in), and, for up to ``max_compared`` members, the passages where their text differs
+    from the founder's."""
     res = resolve_cluster_id(engine, cluster_id)
     c = t.canonical_urls
     with engine.connect() as conn:
@@ -157,8 +193,11 @@ def show_cluster(engine: Engine, cluster_id: str, *, max_compared: int = 10) -> 
         other = cs.assignments(conn, other_level, ids)
         docs = _current_documents(conn, ids)
         member_set = set(ids)
-        links = [r for r in links_touching(conn, ids) if r.src_id in member_set and r.dst_id in member_set]
+        touching = links_touching(conn, ids)
+        links = [r for r in touching if r.src_id in member_set and r.dst_id in member_set]
         decisions = cs.decisions_touching(conn, res.level, ids)
+        near = _sinks_near(conn, SinkJudge.load(conn, settings), touching, member_set)
+        sinks = _sink_rows(near, _led_by(near, touching), member_set)
     founder = int(row["founder_id"])
     member_rows = []
     for m in sorted(ids, key=lambda x: (x != founder, urls[x].url)):
@@ -182,7 +221,7 @@ def show_cluster(engine: Engine, cluster_id: str, *, max_compared: int = 10) -> 
             differences.append({"url": urls[m].url, "against": urls[int(base.canonical_id)].url,
                                 "passages": differing_passages(base.text or "", docs[m].text or "")})
     return ClusterDetail(cluster_id, res.current, res.level, res.path, res.events, member_rows, link_rows,
-                         decision_rows, differences)
+                         decision_rows, differences, sinks)
 
 
 def similarity_values(engine: Engine) -> dict[str, list[float]]:
