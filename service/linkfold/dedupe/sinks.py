@@ -91,13 +91,14 @@ def fan_in(sources: Iterable[End], target: End, *, shortener_hosts: frozenset[st
 
 def sink_kind(target: End, fan_in_count: int, *, limit: int) -> SinkKind | None:
     """Why ``target`` is a sink, or None. ``limit`` is the ``sink_fan_in`` setting: a fan-in above it makes
-    a sink. The target's nature comes first, so a home page is reported as one whatever its fan-in."""
+    a sink. The target's nature comes first, most specific first, so a home page is reported as one whatever
+    its fan-in and whatever the site's article patterns say of it."""
     if target.never_article:
         return SinkKind.NEVER_ARTICLE
-    if target.is_article is False:
-        return SinkKind.NOT_ARTICLE
     if is_home_page(target.url):
         return SinkKind.HOME_PAGE
+    if target.is_article is False:
+        return SinkKind.NOT_ARTICLE
     if fan_in_count > limit:
         return SinkKind.FAN_IN
     return None
@@ -109,14 +110,15 @@ def link_joins(kind: str, source: End, target: End, target_sink: SinkKind | None
     * Nothing touching a never-article host joins.
     * A redirect or declared canonical joins unless its target is a sink. Its source may be a
       non-article by the site rules (an old URL form the patterns do not cover): it stands for its target.
-    * A text link (``same_text``, ``similar_text``) joins only pages the rules do not call non-articles:
-      two section pages with the same boilerplate are not one article.
+    * A text link (``same_text``, ``similar_text``) joins as before: its evidence is the text itself, and
+      verification already decided it (a variant with a query the article patterns do not allow is still
+      the same text).
     """
     if source.never_article or target.never_article:
         return False
     if kind in POINTING_KINDS:
         return target_sink is None
-    return source.is_article is not False and target.is_article is not False
+    return True
 
 
 __all__ = ["POINTING_KINDS", "End", "SinkKind", "counts_toward_fan_in", "fan_in", "is_home_page", "link_joins",
