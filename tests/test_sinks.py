@@ -346,3 +346,41 @@ def test_merges_through_a_target_that_becomes_a_sink_are_split_next_run(engine, 
     again = run_dedupe(engine, settings=limit)
     assert again.articles.split == again.articles.merged == again.articles.minted == 0
     assert _ids(engine, "article") == after
+
+
+# --- never_follow_hosts in the follow stage ---------------------------------------------------------------------
+def test_never_follow_hosts_are_not_asked(engine, db_url, tmp_path, server):
+    from httpserver import LoopbackOnlyBackend, load_url_list, loopback_settings
+    from linkfold.follow import follow_links
+    from linkfold.follow.guard import StaticResolver
+    from linkfold.follow.stage import never_follow_check
+
+    _store_rules(engine)
+    rules = parse_rules(RULES, source="messy.toml")
+    check = never_follow_check(rules)
+    assert check is not None and never_follow_check(default_rules()) is None
+    assert "never_follow_hosts" in (check("http://www.tracker.test:8080/x?y=1") or "")
+    assert check("https://short.test/x") is None and check("not a url") is None
+
+    into_tracker = server.url("/to?loc=" + server.url("/final/1", host="pix.tracker.test"), host="short.test")
+    fine = server.url("/final/2", host="short.test")
+    direct = server.url("/final/3", host="tracker.test")
+    load_url_list(engine, tmp_path, "posts", [into_tracker, fine, direct])
+    # Both names point at the loopback server: a request to either would be seen there.
+    names = {"short.test": ["127.0.0.1"], "tracker.test": ["127.0.0.1"], "pix.tracker.test": ["127.0.0.1"]}
+    summary = follow_links(engine, settings=loopback_settings(db_url), hosts=["short.test", "tracker.test"],
+                           resolver=StaticResolver(names), backend=LoopbackOnlyBackend())
+    assert summary.selected == 3 and summary.resolved == 1
+    assert dict(summary.refused) == {"never_follow": 2} and not summary.failed
+    assert not [s for s in server.seen if "tracker.test" in s.host]
+    assert "refused:  2 (never_follow 2)" in "\n".join(summary.lines())
+    with engine.connect() as conn:
+        states = {r.url.split("/")[2]: (r.state, r.failure) for r in conn.execute(
+            sa.select(t.canonical_urls.c.url, t.follow_results.c.state, t.follow_results.c.failure)
+            .join(t.follow_results, t.follow_results.c.canonical_id == t.canonical_urls.c.id)
+            .where(t.follow_results.c.via == "fetched"))}
+        # The redirect into the never-follow host is kept as evidence; the host itself was never asked.
+        hops = conn.execute(sa.select(sa.func.count()).select_from(t.links).where(t.links.c.kind == "redirect")
+                            ).scalar_one()
+    assert states[f"tracker.test:{server.port}"] == ("refused", "never_follow")
+    assert hops == 1
