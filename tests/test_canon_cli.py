@@ -77,7 +77,10 @@ def test_canonicalize_bad_rules_file_names_the_line(tmp_path, capsys) -> None:
 def test_rules_check(tmp_path, capsys) -> None:
     assert main(["rules", "check", str(DEMO_RULES)]) == 0
     out = capsys.readouterr().out
-    assert out.count("\n") == 1 and "OK (4 sites, 1 shortener hosts" in out
+    first, *lists = out.splitlines()
+    assert "OK (4 sites, 1 shortener hosts" in first
+    assert lists == ["  never_follow_hosts (1, subdomains included): pixel.tracker.test",
+                     "  never_article_hosts (2, subdomains included): adserve.example, img.cdn.test"]
     bad = tmp_path / "bad.toml"
     bad.write_text("[site.'daily.example']\narticle = ['^(']\n", encoding="utf-8")
     assert main(["rules", "check", str(bad)]) == 5
