@@ -384,3 +384,19 @@ def test_never_follow_hosts_are_not_asked(engine, db_url, tmp_path, server):
                             ).scalar_one()
     assert states[f"tracker.test:{server.port}"] == ("refused", "never_follow")
     assert hops == 1
+
+
+def test_never_follow_hosts_are_not_fetched_either(engine, db_url, tmp_path, server):
+    from httpserver import LoopbackOnlyBackend, load_url_list, loopback_settings
+    from linkfold.content.stage import fetch_pages
+    from linkfold.follow.guard import StaticResolver
+
+    _store_rules(engine)
+    load_url_list(engine, tmp_path, "panel", [server.url("/final/1", host="www.tracker.test"),
+                                              server.url("/to?loc=" + server.url("/final/2", host="tracker.test"),
+                                                         host="news.test")])
+    names = {"news.test": ["127.0.0.1"], "tracker.test": ["127.0.0.1"], "www.tracker.test": ["127.0.0.1"]}
+    summary = fetch_pages(engine, settings=loopback_settings(db_url), resolver=StaticResolver(names),
+                          backend=LoopbackOnlyBackend())
+    assert dict(summary.refused) == {"never_follow": 2}
+    assert not [s for s in server.seen if "tracker.test" in s.host]

@@ -37,7 +37,7 @@ from ..follow.chain import REFUSALS, Hop, decode_location, next_url
 from ..follow.client import REDIRECT_STATUSES, ClientConfig, Failure, FetchError, Reply, SafeClient, classify
 from ..follow.guard import AddressRefused, ResolveFailed, Resolver, literal_address
 from ..follow.runner import request_url, run_requests
-from ..follow.stage import next_attempt
+from ..follow.stage import never_follow_check, next_attempt
 from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
@@ -96,8 +96,10 @@ async def _guard_check(client: SafeClient, url: str) -> None:
 
 
 async def fetch_one(client: SafeClient, start: str, *, max_hops: int,
-                    now: Callable[[], datetime] = lambda: datetime.now(UTC)) -> Fetched:
-    """GET ``start``, following redirects, robots.txt checked before every hop; never raises for one URL."""
+                    now: Callable[[], datetime] = lambda: datetime.now(UTC),
+                    never_follow: Callable[[str], str | None] | None = None) -> Fetched:
+    """GET ``start``, following redirects, robots.txt checked before every hop; never raises for one URL.
+    ``never_follow(url)`` names why a URL must not be asked (its host is in ``never_follow_hosts``)."""
     url = start
     visited = {_defragment(url)}
     hops: list[Hop] = []
@@ -111,6 +113,9 @@ async def fetch_one(client: SafeClient, start: str, *, max_hops: int,
                        at=began)
 
     while True:
+        why = never_follow(url) if never_follow is not None else None
+        if why is not None:
+            return stop("refused", Failure.NEVER_FOLLOW, why, final=url)
         try:
             if not await client.robots_allows(url):
                 await _guard_check(client, url)  # a refused address is "refused", not a robots verdict
@@ -306,6 +311,7 @@ def fetch_pages(engine: Engine, *, settings: Any, dataset: str | None = None, on
     summary.selected = len(items)
     if not items:
         return summary
+    refuse = never_follow_check(rules)
     canon = Canonicaliser(rules, cache_size=settings.canon_cache_size)
     batch_size = max(1, min(settings.batch_size, WRITE_BATCH))
     progress.start("fetch", total=len(items))
@@ -319,7 +325,8 @@ def fetch_pages(engine: Engine, *, settings: Any, dataset: str | None = None, on
 
         async def fetch(client: SafeClient, item: sp.FetchPending) -> Fetched | None:
             url = request_url(item.raw, item.url)
-            return None if url is None else await fetch_one(client, url, max_hops=settings.max_hops)
+            return None if url is None else await fetch_one(client, url, max_hops=settings.max_hops,
+                                                            never_follow=refuse)
 
         def skip(_item: sp.FetchPending) -> None:
             summary.skipped += 1
