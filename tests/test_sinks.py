@@ -400,3 +400,42 @@ def test_never_follow_hosts_are_not_fetched_either(engine, db_url, tmp_path, ser
                           backend=LoopbackOnlyBackend())
     assert dict(summary.refused) == {"never_follow": 2}
     assert not [s for s in server.seen if "tracker.test" in s.host]
+
+
+def test_a_new_sink_policy_reclusters_what_it_touches(engine, tmp_path):
+    from linkfold.dedupe.stage import count_pending
+
+    _store_rules(engine)
+    offer = "https://courier.test/offer"
+    clicks = [f"https://promo.offers.example/c/{i}" for i in range(30)]
+    ad = "https://ads.partner.test/c?1"
+    load_urls(engine, [*clicks, offer, ad, STORIES[0]], tmp_path, dataset="week-1")
+    load_redirects(engine, [(u, offer) for u in clicks] + [(ad, STORIES[0])], tmp_path)
+    loose = settings(sink_fan_in=100)
+    run_dedupe(engine, settings=loose)
+    assert len({_ids(engine, "article")[u] for u in [*clicks, offer]}) == 1
+    assert count_pending(engine, settings=loose) == 0
+
+    # A lower limit, no new data: the next run finds the changed policy and splits, and nothing else.
+    strict = settings(sink_fan_in=20)
+    assert count_pending(engine, settings=strict) == 1
+    summary = run_dedupe(engine, settings=strict)
+    ids = _ids(engine, "article")
+    assert _apart(ids, [*clicks, offer]) and summary.articles.split == 30
+    assert ids[ad] == ids[STORIES[0]] and count_pending(engine, settings=strict) == 0
+
+    # Back to the loose limit: the evidence joins them again (merges, recorded), every ID still resolving.
+    summary = run_dedupe(engine, settings=loose)
+    assert len({_ids(engine, "article")[u] for u in [*clicks, offer]}) == 1 and summary.articles.merged == 30
+
+    # A ruleset that lists the ad host as a never-article host: its redirect stops joining.
+    with engine.begin() as conn:
+        more = RULES.replace('"cdn.test"]', '"cdn.test", "partner.test"]')
+        store_ruleset(conn, parse_rules(more, source="messy-2.toml"))
+    assert count_pending(engine, settings=loose) == 1
+    run_dedupe(engine, settings=loose)
+    ids = _ids(engine, "article")
+    assert ids[ad] != ids[STORIES[0]]
+    with engine.connect() as conn:
+        for (issued,) in conn.execute(sa.select(t.cluster_ids.c.id)):
+            assert cs.resolve(conn, issued) is not None

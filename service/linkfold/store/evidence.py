@@ -191,6 +191,18 @@ def pointed_targets(conn: Connection, *, min_sources: int, dataset_id: int | Non
     return sorted(int(i) for i in conn.execute(q).scalars())
 
 
+def link_ends_on_hosts(conn: Connection, hosts: Iterable[str]) -> set[int]:
+    """Canonical URLs on ``hosts`` (or their subdomains) that are an end of any link."""
+    c, lk = t.canonical_urls, t.links
+    names = sorted(set(hosts))
+    if not names:
+        return set()
+    on = sa.or_(*[sa.or_(c.c.host == h, c.c.host.like("%." + h)) for h in names])
+    ends = sa.union(sa.select(lk.c.src_id.label("cid")), sa.select(lk.c.dst_id.label("cid"))).subquery()
+    q = sa.select(c.c.id).where(on, c.c.id.in_(sa.select(ends.c.cid)))
+    return {int(i) for i in conn.execute(q).scalars()}
+
+
 # --- follow state ----------------------------------------------------------------------------------------------
 @dataclass(frozen=True)
 class Outcome:
@@ -365,6 +377,7 @@ __all__ = [
     "follow_attempts_of",
     "follow_result",
     "follow_totals",
+    "link_ends_on_hosts",
     "links_of",
     "pointed_targets",
     "pointing_counts",

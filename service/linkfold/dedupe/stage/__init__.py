@@ -42,6 +42,7 @@ from .regions import (
     seeds_of,
 )
 from .signing import MATCHED, SignCounts, count_unsigned, refresh_signatures, settings_changed, sign_pending
+from .sinks import policy_changed, policy_seeds, record_policy
 
 log = logging.getLogger("linkfold")
 
@@ -88,6 +89,8 @@ def count_pending(engine: Engine, *, settings: Any | None = None) -> int:
         n = count_unsigned(conn) + count_unmatched(conn) + count_pending_clustering(conn)
         if settings is not None and settings_changed(conn, SignatureParams.from_settings(settings)):
             n += 1
+        if settings is not None and policy_changed(conn, settings):
+            n += 1
         return n
 
 
@@ -125,12 +128,14 @@ def run_dedupe(engine: Engine, *, settings: Any, full: bool = False, parent_id: 
                 article_seeds, story_extra = all_canonical_ids(conn), set()
             else:
                 article_seeds, story_extra = seeds_of(conn, pending)
+                article_seeds |= policy_seeds(conn, settings)  # a new sink policy reclusters what it touches
         summary.articles, region = cluster_seeds(engine, "article", article_seeds, thresholds, run_id=run.id,
                                                  progress=progress, settings=settings)
         summary.stories, _ = cluster_seeds(engine, "story", region | story_extra, thresholds, run_id=run.id,
                                            progress=progress, settings=settings)
         with engine.begin() as conn:
             advance_marks(conn, pending, run_id=run.id)
+            record_policy(conn, settings, run_id=run.id)
         summary.seconds = time.monotonic() - started
         run.counts = summary.as_dict()
     log.info("dedupe: %s", summary.as_dict())

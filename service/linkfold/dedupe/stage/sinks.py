@@ -9,20 +9,33 @@ on the regions clustered next (on all of them with ``linkfold dedupe --full``).
 
 from __future__ import annotations
 
+import json
+import logging
+import zlib
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
+import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
 from ...canon import Ruleset
 from ...store import evidence as ev
-from ...store.registry import get_dataset
+from ...store import tables as t
+from ...store.clusters import get_mark, set_mark
+from ...store.registry import get_dataset, now
 from ...store.rulesets import current_ruleset
 from ..sinks import End, SinkKind, fan_in, sink_kind
 
+log = logging.getLogger("linkfold")
+
 #: The default of the ``sink_fan_in`` setting (kept here too for callers without settings).
 DEFAULT_FAN_IN = 50
+#: ``stage_marks`` rows that remember the sink policy the clusters were last made under.
+FAN_IN_MARK = "dedupe.sink_fan_in"
+RULES_MARK = "dedupe.sink_rules"
+#: Bump when the sink rule itself (linkfold.dedupe.sinks) changes what is a sink.
+SINK_RULE_VERSION = 1
 
 
 @dataclass(frozen=True)
@@ -83,6 +96,51 @@ class SinkJudge:
         return out
 
 
+def rules_mark(rules: Ruleset) -> int:
+    """The parts of a ruleset that decide sinks (and the rule's version) as a number for ``stage_marks``."""
+    text = json.dumps([SINK_RULE_VERSION, sorted(rules.shortener_hosts), sorted(rules.never_article_hosts)])
+    return zlib.crc32(text.encode("utf-8"))
+
+
+def policy_changed(conn: Connection, settings: Mapping[str, Any] | None = None) -> bool:
+    """Whether the sink policy differs from the one the registry's clusters were made under (False while
+    there are no clusters yet)."""
+    judge = SinkJudge.load(conn, settings)
+    if get_mark(conn, FAN_IN_MARK) == judge.limit and get_mark(conn, RULES_MARK) == rules_mark(judge.rules):
+        return False
+    return conn.execute(sa.select(t.cluster_members.c.canonical_id).limit(1)).first() is not None
+
+
+def policy_seeds(conn: Connection, settings: Mapping[str, Any] | None = None) -> set[int]:
+    """Canonical URLs to cluster again because the sink policy changed since the last run (empty when it
+    did not, and on a registry that has no clusters yet).
+
+    A new ``sink_fan_in``, new host lists or a new sink rule can make a sink of a target that joined its
+    sources before (or the reverse), so every target whose verdict could have changed is seeded: every
+    target with more distinct sources than the lower of the old and new limits, every non-article and
+    home-page target, and every link end on a never-article host. Their regions take in the clusters
+    joined through them, which are then split (or joined) like any other region.
+    """
+    if not policy_changed(conn, settings):
+        return set()
+    judge = SinkJudge.load(conn, settings)
+    old_limit, old_rules = get_mark(conn, FAN_IN_MARK), get_mark(conn, RULES_MARK)
+    lowest = judge.limit if old_limit is None else min(int(old_limit), judge.limit)
+    seeds = set(ev.pointed_targets(conn, min_sources=lowest))
+    seeds |= ev.link_ends_on_hosts(conn, judge.rules.never_article_hosts)
+    log.info("sink policy changed (sink_fan_in %s → %s, host lists %s): %d URLs to cluster again",
+             old_limit, judge.limit, "changed" if old_rules != rules_mark(judge.rules) else "unchanged",
+             len(seeds))
+    return seeds
+
+
+def record_policy(conn: Connection, settings: Mapping[str, Any] | None, *, run_id: int | None) -> None:
+    """Remember the sink policy the clusters are now made under (after a run's clustering)."""
+    judge = SinkJudge.load(conn, settings)
+    set_mark(conn, FAN_IN_MARK, judge.limit, run_id=run_id, now=now())
+    set_mark(conn, RULES_MARK, rules_mark(judge.rules), run_id=run_id, now=now())
+
+
 def describe_sinks(conn: Connection, judge: SinkJudge, ids: Iterable[int]) -> dict[int, Sink]:
     """The sinks among ``ids``, with their fan-in and number of sources (for reports)."""
     facts = ev.url_facts(conn, ids)
@@ -113,4 +171,5 @@ def list_sinks(engine: Engine, *, settings: Mapping[str, Any] | None = None, dat
     return rows[:limit] if limit else rows
 
 
-__all__ = ["DEFAULT_FAN_IN", "Sink", "SinkJudge", "describe_sinks", "end_of", "list_sinks"]
+__all__ = ["DEFAULT_FAN_IN", "FAN_IN_MARK", "RULES_MARK", "SINK_RULE_VERSION", "Sink", "SinkJudge", "describe_sinks",
+           "end_of", "list_sinks", "policy_changed", "policy_seeds", "record_policy", "rules_mark"]
