@@ -51,6 +51,7 @@ _LAZY = {
     "run_dedupe": "linkfold.dedupe.stage",
     "record_decision": "linkfold.dedupe.stage",
     "list_clusters": "linkfold.dedupe.stage",
+    "list_sinks": "linkfold.dedupe.stage",
     "recanonicalize": "linkfold.jobs.recanon",
     "run_nightly": "linkfold.jobs.nightly",
 }
@@ -94,6 +95,7 @@ __all__ = [
     "import_redirects",
     "ingest_dump",
     "list_clusters",
+    "list_sinks",
     "load_documents",
     "load_rules",
     "load_settings",

@@ -8,7 +8,7 @@ from typing import Any
 
 import click
 
-from ..dedupe.stage.sinks import list_sinks
+from ..dedupe.stage import list_sinks
 from ..follow import follow_links, import_redirects
 from ..follow.imports import FORMATS
 from ..store import evidence, registry

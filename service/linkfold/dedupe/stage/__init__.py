@@ -42,7 +42,7 @@ from .regions import (
     seeds_of,
 )
 from .signing import MATCHED, SignCounts, count_unsigned, refresh_signatures, settings_changed, sign_pending
-from .sinks import policy_changed, policy_seeds, record_policy
+from .sinks import Sink, list_sinks, policy_changed, policy_seeds, record_policy
 
 log = logging.getLogger("linkfold")
 
@@ -151,9 +151,11 @@ __all__ = [
     "DedupeSummary",
     "MatchCounts",
     "SignCounts",
+    "Sink",
     "count_pending",
     "list_clusters",
     "list_decisions",
+    "list_sinks",
     "record_decision",
     "resolve_cluster_id",
     "resolve_ref",
