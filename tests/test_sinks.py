@@ -282,11 +282,12 @@ def test_follow_report_and_clusters_commands_show_sinks(engine, db_url, messy, m
     out, err = capsys.readouterr()
     assert "sinks, largest fan-in first" in out
     line = next(x for x in out.splitlines() if x.startswith(SUBSCRIBE))
-    assert line.split()[1:] == ["fan_in", "200", "200"]
+    assert line.split()[1:] == ["fan_in", "200", "200", "click.offers.example"]
     assert "4 sink(s)" in err
     assert main(["follow-report", "--sinks", "--format", "jsonl"]) == 0
     rows = [json.loads(x) for x in capsys.readouterr().out.splitlines()]
-    assert rows[0] == {"url": SUBSCRIBE, "sink": "fan_in", "fan_in": 200, "sources": 200}
+    assert rows[0] == {"url": SUBSCRIBE, "sink": "fan_in", "fan_in": 200, "sources": 200,
+                       "top_source_host": "click.offers.example", "top_host_sources": 200}
     assert main(["clusters", "--min-size", "1", "--format", "jsonl"]) == 0
     listed = [json.loads(x) for x in capsys.readouterr().out.splitlines()]
     near = [r for r in listed if r["sinks"] and r["sinks"][0]["url"] == SUBSCRIBE]
@@ -305,6 +306,7 @@ def test_api_and_pages_show_sinks(engine, db_url, messy):
     art = _ids(engine, "article")
     answer = api.get(f"/v1/articles/{art[ADS[3]]}").json()
     assert answer["sinks"] == [{"url": SUBSCRIBE, "sink": "fan_in", "fan_in": 200, "sources": 200,
+                                "top_source_host": "click.offers.example", "top_host_sources": 200,
                                 "member": False, "members_leading_here": 1}]
     listed = api.get("/v1/clusters", params={"min_size": 1, "limit": 1000}).json()["clusters"]
     assert sum(1 for row in listed if [s["url"] for s in row["sinks"]] == [HERALD_HOME]) == 61

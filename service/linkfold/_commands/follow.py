@@ -140,7 +140,8 @@ def follow_report_command(obj: Context, dataset: str | None, sinks_only: bool, f
         if fmt == "jsonl":
             write_jsonl(_sink_rows(sinks))
         else:
-            write_table(_sink_rows(sinks), ["url", "sink", "fan_in", "sources"])
+            write_table(_sink_rows(sinks), ["url", "sink", "fan_in", "sources", "top_source_host",
+                                            "top_host_sources"])
         obj.message(f"{len(sinks):,} sink(s): their links are kept as evidence, never used to join")
         return
     with obj.engine().connect() as conn:
@@ -159,7 +160,7 @@ def follow_report_command(obj: Context, dataset: str | None, sinks_only: bool, f
         if sinks:
             click.echo(f"\nsinks, largest fan-in first ({min(len(sinks), SHOWN_SINKS)} of {len(sinks):,}; "
                        "--sinks lists all):")
-            write_table(_sink_rows(sinks[:SHOWN_SINKS]), ["url", "sink", "fan_in", "sources"])
+            write_table(_sink_rows(sinks[:SHOWN_SINKS]), ["url", "sink", "fan_in", "sources", "top_source_host"])
     obj.message(f"{answered + sum(totals.get('refused', {}).values()):,} URLs followed; dead share: "
                 + (f"{100 * share:.1f}%" if share is not None else "n/a (none followed)"))
     if sinks:

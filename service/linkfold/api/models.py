@@ -129,6 +129,8 @@ class SinkOut(_Open):
     sink: str
     fan_in: int
     sources: int
+    top_source_host: str | None = None
+    top_host_sources: int = 0
     member: bool
     members_leading_here: int
 

@@ -12,6 +12,7 @@ from __future__ import annotations
 import json
 import logging
 import zlib
+from collections import Counter
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
@@ -40,16 +41,21 @@ SINK_RULE_VERSION = 1
 
 @dataclass(frozen=True)
 class Sink:
-    """A sink: the target, why it is one, its fan-in (sources that count) and all its distinct sources."""
+    """A sink: the target, why it is one, its fan-in (sources that count), all its distinct sources, and
+    the host most of them are on (a real article made a ``fan_in`` sink by an unlisted per-post link
+    wrapper shows that wrapper here: list it in ``shortener_hosts``)."""
 
     canonical_id: int
     url: str
     kind: SinkKind
     fan_in: int
     sources: int
+    top_source_host: str | None = None
+    top_host_sources: int = 0
 
     def as_dict(self) -> dict[str, Any]:
-        return {"url": self.url, "sink": self.kind.value, "fan_in": self.fan_in, "sources": self.sources}
+        return {"url": self.url, "sink": self.kind.value, "fan_in": self.fan_in, "sources": self.sources,
+                "top_source_host": self.top_source_host, "top_host_sources": self.top_host_sources}
 
 
 def end_of(facts: ev.UrlFacts, rules: Ruleset) -> End:
@@ -154,7 +160,8 @@ def describe_sinks(conn: Connection, judge: SinkJudge, ids: Iterable[int]) -> di
         n = fan_in(srcs, ends[cid], shortener_hosts=judge.rules.shortener_hosts)
         kind = kinds[cid]
         assert kind is not None
-        out[cid] = Sink(cid, facts[cid].url, kind, n, len(srcs))
+        top = Counter(s.host for s in srcs).most_common(1)
+        out[cid] = Sink(cid, facts[cid].url, kind, n, len(srcs), top[0][0] if top else None, top[0][1] if top else 0)
     return out
 
 
