@@ -11,7 +11,9 @@ registry would give for those members: the cost follows the new evidence, and th
 data, not the batch boundaries.
 
 * Articles cluster canonical URLs. Evidence: ``redirect`` links (a short link and its target are one
-  article), same-outlet ``declared`` canonicals, and same-outlet ``same_text`` / ``similar_text``.
+  article), same-outlet ``declared`` canonicals, and same-outlet ``same_text`` / ``similar_text``. A
+  redirect or declared canonical into a *sink* (a home page, a non-article, a target of very many URLs)
+  and any link touching a never-article host are kept but never used (:mod:`linkfold.dedupe.sinks`).
 * Stories cluster whole articles (an article is never cut by story clustering) across outlets:
   ``same_text``, ``similar_text`` and ``declared`` links whose ends are on different outlets. Story IDs
   are held by canonical URLs too, so a story's founder is a URL that never goes away, whatever happens to
