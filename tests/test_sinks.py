@@ -441,3 +441,24 @@ def test_a_new_sink_policy_reclusters_what_it_touches(engine, tmp_path):
     with engine.connect() as conn:
         for (issued,) in conn.execute(sa.select(t.cluster_ids.c.id)):
             assert cs.resolve(conn, issued) is not None
+
+
+def test_a_registry_clustered_before_sinks_existed_is_split_by_the_next_run(engine, tmp_path):
+    # Such a registry has clusters but no remembered sink policy: the next run seeds every possible sink.
+    from linkfold.dedupe.stage import count_pending
+    from linkfold.dedupe.stage.sinks import FAN_IN_MARK, RULES_MARK
+
+    _store_rules(engine)
+    load_urls(engine, [*WITHDRAWN[:10], HERALD_HOME, *ADS[:60], SUBSCRIBE], tmp_path, dataset="old")
+    load_redirects(engine, [(w, HERALD_HOME) for w in WITHDRAWN[:10]] + [(a, SUBSCRIBE) for a in ADS[:60]], tmp_path)
+    # A limit no target reaches stands in for the code before sinks: the ad clicks join their target.
+    run_dedupe(engine, settings=settings(sink_fan_in=1000))
+    with engine.begin() as conn:
+        ids = _ids(engine, "article")
+        assert _apart(ids, [*WITHDRAWN[:10], HERALD_HOME])  # a home page is a sink whatever the limit
+        assert len({ids[a] for a in [*ADS[:60], SUBSCRIBE]}) == 1
+        conn.execute(t.stage_marks.delete().where(t.stage_marks.c.name.in_([FAN_IN_MARK, RULES_MARK])))
+    assert count_pending(engine, settings=settings()) == 1
+    summary = run_dedupe(engine, settings=settings())
+    assert _apart(_ids(engine, "article"), [*ADS[:60], SUBSCRIBE]) and summary.articles.split == 60
+    assert count_pending(engine, settings=settings()) == 0
