@@ -217,7 +217,9 @@ def _apart(ids, urls):
 
 def test_sinks_never_join_and_real_evidence_still_does(engine, messy):
     art, story = _ids(engine, "article"), _ids(engine, "story")
-    # Sinks: every source keeps its own article and story ID, and the sink its own.
+    # Sinks: every source keeps its own article and story ID, and the sink its own. For the site that
+    # declares its home page canonical on every page, RFC 6596 §3: the canonical target "MUST identify
+    # content that is either duplicative or a superset of the content at the context (referring) IRI".
     for sources, sink in ((ADS, SUBSCRIBE), (WITHDRAWN, HERALD_HOME), (GAZETTE, GAZETTE_HOME),
                           (CONSENT_FROM, CONSENT)):
         assert _apart(art, [*sources, sink]), sink
