@@ -60,7 +60,7 @@ def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_url
     Takes the canonical URLs not yet followed whose host is a shortener (the ruleset's shortener_hosts,
     or --hosts), or every one with --all. HEAD first, GET when a server refuses HEAD; up to max_hops
     redirects; robots.txt honoured for GETs; private and reserved addresses are refused (setting
-    allow_networks). Outcomes are stored per URL: resolved, failed (with a class such as dns, timeout,
+    allow_networks), and so are hosts the rules file lists in never_follow_hosts (nothing is sent). Outcomes are stored per URL: resolved, failed (with a class such as dns, timeout,
     http_4xx, loop) or refused. Needs the contact setting (LINKFOLD_CONTACT).
 
     \b
