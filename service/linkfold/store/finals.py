@@ -1,0 +1,232 @@
+"""What a link stands for: the *final URL* of each canonical URL, after short links and redirects.
+
+Wrappers need nothing here: the canonicaliser unwraps them, so a wrapper's canonical URL already is its
+target. Redirects and short links are resolved from ``follow_results``, the latest follow outcome per
+canonical URL (fetched, learned from another chain, or imported as a (short, expanded) pair): a URL
+whose outcome is ``resolved`` with a ``final_id`` other than itself leads there, and where that URL
+leads on again (a short link whose expanded form is another short link, followed later), so does the
+first. ``canonical_urls.final_id`` stores the end of that walk, resolved transitively, or NULL when no
+resolved chain leads elsewhere (never followed, failed, refused, or a cycle of imported pairs).
+
+The final columns are then read, never stored per sighting:
+
+* ``final_id`` NULL: the URL stands for itself;
+* else it stands for the URL ``final_id`` names (a redirect to a non-article page, a subscribe or home
+  page, is where the link leads: its ``is_article`` says what it is);
+* either way, when the URL it stands for is on a shortener host of the newest ruleset
+  (``ruleset_hosts``), nothing is known yet: every final column is NULL, not the shortener's own.
+
+:func:`refresh_finals` keeps ``final_id`` current for the URLs whose outcomes a batch wrote and for every
+URL whose stored end passes through them; the follow stage and the redirect import call it in the
+transaction of their results. :func:`refresh_all_finals` recomputes every row (``linkfold db
+refresh-finals``; migration 0012 did the same once).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Iterator, Sequence
+from typing import Any
+
+import sqlalchemy as sa
+from sqlalchemy.engine import Connection, Engine
+
+from . import tables as t
+
+SHORTENER = "shortener"
+#: The final columns, in the order the view, the export and lookup give them.
+FINAL_COLUMNS = ("final_url", "final_domain", "final_outlet", "final_is_article")
+_IN_CHUNK = 500
+#: Rounds of "where does that lead" before a walk gives up; far beyond any real chain of chains.
+MAX_DEPTH = 64
+
+
+def _chunks(items: Sequence[Any]) -> Iterator[Sequence[Any]]:
+    for i in range(0, len(items), _IN_CHUNK):
+        yield items[i:i + _IN_CHUNK]
+
+
+# --- the hosts a ruleset gives a role -------------------------------------------------------------------
+def store_ruleset_hosts(conn: Connection, ruleset_id: int, shortener_hosts: Iterable[str]) -> None:
+    """Record the shortener hosts of ruleset ``ruleset_id`` (idempotent)."""
+    rh = t.ruleset_hosts
+    have = set(conn.execute(sa.select(rh.c.host).where(rh.c.ruleset_id == ruleset_id,
+                                                        rh.c.role == SHORTENER)).scalars())
+    rows = [{"ruleset_id": ruleset_id, "role": SHORTENER, "host": h} for h in sorted(set(shortener_hosts) - have)]
+    if rows:
+        conn.execute(sa.insert(rh), rows)
+
+
+def shortener_hosts_now() -> sa.Select:
+    """The shortener hosts of the newest stored ruleset, as a subquery."""
+    rh, rs = t.ruleset_hosts, t.rulesets
+    newest = sa.select(sa.func.max(rs.c.id)).scalar_subquery()
+    return sa.select(rh.c.host).where(rh.c.role == SHORTENER, rh.c.ruleset_id == newest)
+
+
+# --- reading the final columns ---------------------------------------------------------------------------
+def final_columns(c: Any, f: Any) -> list[sa.ColumnElement[Any]]:
+    """The four final columns (labelled as :data:`FINAL_COLUMNS`) for canonical URL ``c`` and ``f``, the
+    canonical URLs table outer-joined on ``f.id = c.final_id`` (see :func:`final_join`)."""
+    host = sa.case((c.c.final_id.is_(None), c.c.host), else_=f.c.host)
+    unknown = host.in_(shortener_hosts_now())
+
+    def pick(column: str) -> sa.ColumnElement[Any]:
+        picked = sa.case((unknown, sa.null()), (c.c.final_id.is_(None), c.c[column]), else_=f.c[column])
+        return sa.type_coerce(picked, t.canonical_urls.c[column].type)  # SQLite hands truth values back as 0/1
+
+    return [pick(col).label(name) for col, name in zip(("url", "domain", "outlet", "is_article"), FINAL_COLUMNS,
+                                                        strict=True)]
+
+
+def final_outlet(c: Any, f: Any) -> sa.ColumnElement[Any]:
+    """Only the final outlet (per-outlet counts)."""
+    return final_columns(c, f)[2]
+
+
+def final_join(c: Any, f: Any) -> sa.ColumnElement[bool]:
+    return f.c.id == c.c.final_id
+
+
+def finals_of(conn: Connection, canonical_ids: Iterable[int]) -> dict[int, dict[str, Any]]:
+    """The final columns of canonical URLs by id."""
+    c = t.canonical_urls
+    f = c.alias("f")
+    out: dict[int, dict[str, Any]] = {}
+    for part in _chunks(sorted(set(canonical_ids))):
+        q = (sa.select(c.c.id, *final_columns(c, f)).select_from(c.outerjoin(f, final_join(c, f)))
+             .where(c.c.id.in_(part)))
+        for row in conn.execute(q).mappings():
+            out[int(row["id"])] = {name: row[name] for name in FINAL_COLUMNS}
+    return out
+
+
+def short_hosts(conn: Connection) -> frozenset[str]:
+    """The shortener hosts of the newest stored ruleset."""
+    return frozenset(conn.execute(shortener_hosts_now()).scalars())
+
+
+# --- keeping final_id current ------------------------------------------------------------------------------
+def _edges(conn: Connection, start: Iterable[int]) -> dict[int, int]:
+    """Resolved "leads to" edges reachable from ``start``: canonical id -> the final id of its outcome."""
+    fr = t.follow_results
+    edges: dict[int, int] = {}
+    seen: set[int] = set()
+    frontier = set(start)
+    for _ in range(MAX_DEPTH):
+        frontier -= seen
+        if not frontier:
+            break
+        seen |= frontier
+        found: set[int] = set()
+        for part in _chunks(sorted(frontier)):
+            q = sa.select(fr.c.canonical_id, fr.c.final_id).where(
+                fr.c.canonical_id.in_(part), fr.c.state == "resolved", fr.c.final_id.is_not(None),
+                fr.c.final_id != fr.c.canonical_id)
+            for src, dst in conn.execute(q):
+                edges[int(src)] = int(dst)
+                found.add(int(dst))
+        frontier = found
+    return edges
+
+
+def end_of(start: int, edges: dict[int, int]) -> int | None:
+    """Where ``start`` leads in the end; None when it leads nowhere else or into a cycle."""
+    if start not in edges:
+        return None
+    path = {start}
+    here = start
+    while here in edges:
+        here = edges[here]
+        if here in path or len(path) > MAX_DEPTH:
+            return None  # a cycle (possible only through imported pairs): no end is known
+        path.add(here)
+    return here
+
+
+def refresh_finals(conn: Connection, changed: Iterable[int]) -> int:
+    """Recompute ``final_id`` for the canonical URLs in ``changed`` (their follow outcomes were just
+    written) and for the URLs whose walk passed through one of them. Runs in the caller's transaction;
+    returns the number of rows changed.
+
+    A URL's stored end is a URL without an edge of its own, so the rows that name one of ``changed`` as
+    their end must move when it has an edge now; and the rows whose walk passed through one whose end
+    moved store its former end. Both are found through the (partial) index on ``final_id``. A URL that
+    leads nowhere, now as before (the subscribe page a thousand ad clicks end at), moves nothing. Only a
+    walk that was a cycle before is not found this way (it stores no end): ``refresh_all_finals``.
+    """
+    c = t.canonical_urls
+    changed = sorted(set(changed))
+    if not changed:
+        return 0
+    current = _current(conn, c.c.id, changed)
+    edges = _edges(conn, current)
+    moved = _write(conn, current, edges)
+    through = {cid for cid in current if cid in edges} | {old for old in moved.values() if old is not None}
+    upstream = {k: v for k, v in _current(conn, c.c.final_id, sorted(through)).items() if k not in current}
+    return len(moved) + len(_write(conn, upstream))
+
+
+def _current(conn: Connection, column: Any, values: Sequence[int]) -> dict[int, int | None]:
+    """Stored ``final_id`` by canonical id, for the rows whose ``column`` is one of ``values``."""
+    c = t.canonical_urls
+    out: dict[int, int | None] = {}
+    for part in _chunks(values):
+        out.update((int(i), fin) for i, fin in conn.execute(sa.select(c.c.id, c.c.final_id).where(column.in_(part))))
+    return out
+
+
+def _write(conn: Connection, current: dict[int, int | None],
+           edges: dict[int, int] | None = None) -> dict[int, int | None]:
+    """Store the ends of the URLs in ``current`` (id -> stored final_id); return the old value of each row
+    that changed. ``edges``: those reachable from ``current``, when the caller has them."""
+    if edges is None:
+        edges = _edges(conn, current)
+    moved: dict[int, int | None] = {}
+    updates = []
+    for cid, old in current.items():
+        new = end_of(cid, edges)
+        if new != old:
+            moved[cid] = old
+            updates.append({"b_id": cid, "final_id": new})
+    if updates:
+        c = t.canonical_urls
+        conn.execute(sa.update(c).where(c.c.id == sa.bindparam("b_id")).values(final_id=sa.bindparam("final_id")),
+                     updates)
+    return moved
+
+
+def refresh_all_finals(conn: Connection, *, batch: int = 20000) -> int:
+    """Recompute ``final_id`` for every canonical URL that has one or a resolved follow outcome; returns
+    the number of rows changed. For a registry whose evidence was changed by hand, or to check."""
+    c, fr = t.canonical_urls, t.follow_results
+    candidates = sa.union(
+        sa.select(fr.c.canonical_id.label("id")).where(fr.c.state == "resolved", fr.c.final_id.is_not(None)),
+        sa.select(c.c.id).where(c.c.final_id.is_not(None))).subquery()
+    ids = sorted(int(i) for i in conn.execute(sa.select(candidates.c.id)).scalars())
+    changed = 0
+    for i in range(0, len(ids), batch):
+        changed += len(_write(conn, _current(conn, c.c.id, ids[i:i + batch])))
+    return changed
+
+
+def recompute_finals(engine: Engine) -> int:
+    """:func:`refresh_all_finals` in a transaction of its own."""
+    with engine.begin() as conn:
+        return refresh_all_finals(conn)
+
+
+__all__ = [
+    "FINAL_COLUMNS",
+    "SHORTENER",
+    "end_of",
+    "final_columns",
+    "final_join",
+    "final_outlet",
+    "finals_of",
+    "recompute_finals",
+    "refresh_all_finals",
+    "refresh_finals",
+    "short_hosts",
+    "shortener_hosts_now",
+    "store_ruleset_hosts",
+]
