@@ -215,15 +215,15 @@ def test_api_and_client_give_the_same_final_fields(world, engine, db_url, tmp_pa
     assert tuple(one[k] for k in FINALS) == expected["followed"]
 
 
-def test_a_later_follow_moves_the_links_that_led_to_it(engine, db_url, tmp_path, server):
-    """Chains of chains in the other order: the first short link is followed (it ends at a second short
-    link that the chain did not pass through, an imported pair says where that one leads)."""
+def test_a_later_import_moves_the_links_that_led_to_it(engine, db_url, tmp_path, server):
+    """Chains of chains in the other order: a short link is followed and its chain stops at a second short
+    link that cannot be fetched; an imported pair later says where that one leads, and so both do."""
     with engine.begin() as conn:
         store_ruleset(conn, parse_rules(RULES))
     news = server.url("/final/story-5", host="news.test")
     first = server.url("/to?status=301&loc=http://tiny.test/s3cond", host="short.test")
     load(engine, tmp_path, "posts", [first])
-    # tiny.test does not resolve: the chain fails at the second short link; nothing is known.
+    # tiny.test does not resolve: the chain fails at the second short link; nothing is known yet.
     _follow(engine, db_url, hosts=["short.test"])
     canon = Canonicaliser(parse_rules(RULES))
     with engine.connect() as conn:
@@ -232,9 +232,9 @@ def test_a_later_follow_moves_the_links_that_led_to_it(engine, db_url, tmp_path,
     pairs.write_text(json.dumps({"short": "http://tiny.test/s3cond", "expanded": news}) + "\n", encoding="utf-8")
     import_redirects(engine, pairs)
     with engine.connect() as conn:
-        # The failed chain of the first link is not evidence of where it leads, so it is still unknown…
-        assert _finals_by_key(conn, canon(first).url_key)["final_url"] is None
         assert _finals_by_key(conn, canon("http://tiny.test/s3cond").url_key)["final_url"] == canon(news).url
+        assert _finals_by_key(conn, canon(first).url_key)["final_url"] == canon(news).url
+    assert _view_rows(engine, "posts")[first][:3] == (canon(news).url, "news.test", "Tidewater News")
 
 
 def test_imported_pairs_in_a_cycle_have_no_end(engine, tmp_path):
@@ -254,11 +254,23 @@ def test_imported_pairs_in_a_cycle_have_no_end(engine, tmp_path):
 
 
 def test_end_of_walks_and_stops_on_cycles():
-    # Pure: the walk that final_id stores.
-    edges = {1: 2, 2: 3, 4: 5, 5: 4, 6: 6}
+    # Pure: the walk that final_id stores. (target, resolved) per URL with an outcome leading elsewhere.
+    edges = {1: (2, True), 2: (3, True), 4: (5, True), 5: (4, True),
+             7: (8, False), 8: (9, True), 10: (11, False), 12: (13, True), 13: (14, False)}
     assert finals.end_of(1, edges) == 3 and finals.end_of(2, edges) == 3
     assert finals.end_of(3, edges) is None  # leads nowhere else: stands for itself
-    assert finals.end_of(4, edges) is None and finals.end_of(6, edges) is None
+    assert finals.end_of(4, edges) is None  # a cycle of imported pairs
+    assert finals.end_of(7, edges) == 9  # stopped at 8, which is resolved beyond
+    assert finals.end_of(10, edges) is None  # stopped, nothing known beyond
+    assert finals.end_of(12, edges) == 13  # resolved to 13, whose own later follow stopped
+
+
+def test_final_ids_name_stored_urls(world, engine):
+    from test_ingest_integrity import dangling
+
+    assert dangling(engine)["canonical final"] == 0
+    with engine.connect() as conn:
+        assert conn.execute(sa.select(sa.func.count()).where(t.canonical_urls.c.final_id.is_not(None))).scalar_one() >= 4
 
 
 def test_refresh_all_finals_agrees_with_what_the_stages_kept(world, engine):

@@ -1,9 +1,9 @@
 """What a link stands for: canonical_urls.final_id, ruleset_hosts, and the final columns of sighting_links
 
 ``canonical_urls.final_id`` names the canonical URL a URL leads to at the end of its followed chains,
-resolved transitively (NULL when none leads elsewhere); a partial index holds only the rows that have
-one, so a bulk load, which inserts NULLs, does not maintain it. It has no foreign key (store/tables.py
-says why). ``ruleset_hosts`` records each
+resolved transitively (NULL when none leads elsewhere). It has no foreign key and no index (store/tables.py
+says why), so a bulk load, which inserts NULLs, pays nothing for it; which links lead to a URL is found
+through a new index on ``follow_results.final_id``. ``ruleset_hosts`` records each
 ruleset's shortener hosts, so SQL can tell a short link that was never followed: its final columns are
 NULL. The view gains ``final_url``, ``final_domain``, ``final_outlet`` and ``final_is_article`` at its end.
 
@@ -116,20 +116,24 @@ def _backfill_hosts(conn: sa.Connection) -> None:
 
 
 def _backfill_finals(conn: sa.Connection) -> None:
-    edges = {int(a): int(b) for a, b in conn.execute(sa.text(
-        "SELECT canonical_id, final_id FROM follow_results WHERE state = 'resolved' AND final_id IS NOT NULL "
+    """final_id of every URL with a follow outcome leading elsewhere: the target of the last resolved
+    chain on its walk (store/finals.py, ``end_of``)."""
+    edges = {int(a): (int(b), state == "resolved") for a, b, state in conn.execute(sa.text(
+        "SELECT canonical_id, final_id, state FROM follow_results WHERE final_id IS NOT NULL "
         "AND final_id <> canonical_id"))}
     updates = []
     for start in edges:
-        path, here = {start}, start
+        end, path, here = None, {start}, start
         while here in edges:
-            here = edges[here]
+            here, resolved = edges[here]
             if here in path or len(path) > _MAX_DEPTH:
-                here = None
+                end = None
                 break
             path.add(here)
-        if here is not None:
-            updates.append({"i": start, "f": here})
+            if resolved:
+                end = here
+        if end is not None:
+            updates.append({"i": start, "f": end})
     for i in range(0, len(updates), 10000):
         conn.execute(sa.text("UPDATE canonical_urls SET final_id = :f WHERE id = :i"), updates[i:i + 10000])
 
@@ -147,8 +151,8 @@ def upgrade() -> None:
     # A plain ADD COLUMN on both backends (no table rebuild on SQLite, where canonical_urls is referenced
     # by most tables).
     op.execute("ALTER TABLE canonical_urls ADD COLUMN final_id INTEGER")
-    op.create_index("ix_canonical_urls_final_id", "canonical_urls", ["final_id"], unique=False,
-                    postgresql_where=sa.text("final_id IS NOT NULL"), sqlite_where=sa.text("final_id IS NOT NULL"))
+    with op.batch_alter_table("follow_results", schema=None) as batch_op:
+        batch_op.create_index("ix_follow_results_final_id", ["final_id"], unique=False)
     _backfill_hosts(conn)
     _backfill_finals(conn)
     op.execute("DROP VIEW sighting_links")
@@ -157,7 +161,8 @@ def upgrade() -> None:
 
 def downgrade() -> None:
     op.execute("DROP VIEW sighting_links")
-    op.drop_index("ix_canonical_urls_final_id", table_name="canonical_urls")
+    with op.batch_alter_table("follow_results", schema=None) as batch_op:
+        batch_op.drop_index("ix_follow_results_final_id")
     op.execute("ALTER TABLE canonical_urls DROP COLUMN final_id")  # SQLite 3.35 or newer
     op.drop_table("ruleset_hosts")
     op.execute(VIEW_0009)

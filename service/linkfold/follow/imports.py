@@ -33,7 +33,7 @@ from ..errors import DumpFormatError, InputError, InvalidURL, MissingColumnError
 from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
-from ..store.finals import refresh_finals
+from ..store import finals
 from ..store.rulesets import latest_ruleset
 
 FORMATS = ("csv", "tsv", "jsonl")
@@ -241,11 +241,12 @@ def _write(engine: Engine, batch: list[tuple[int, str, Canonical, str, Canonical
         written = ev.add_links(conn, rows)
         summary.links += written
         summary.already_linked += len({(r["src_id"], r["dst_id"]) for r in rows}) - written
+        before = finals.edges_of(conn, [ids[s].canonical_id for _n, s, _cs, _e, _ce in batch])
         outcomes = [ev.Outcome(canonical_id=ids[s].canonical_id, state="resolved", via="imported", at=stamp,
                                final_id=ids[e].canonical_id, hops=1, detail=source)
                     for _n, s, _cs, e, _ce in batch]
         summary.settled += ev.record_outcomes(conn, outcomes, run_id=run_id, replace="unresolved")
-        refresh_finals(conn, [o.canonical_id for o in outcomes])
+        finals.refresh_finals(conn, [o.canonical_id for o in outcomes], edges_before=before)
 
 
 __all__ = ["FORMATS", "ImportSummary", "Problem", "import_redirects"]

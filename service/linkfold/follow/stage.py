@@ -37,7 +37,7 @@ from ..errors import ConfigError, InvalidURL
 from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
-from ..store.finals import refresh_finals
+from ..store import finals
 from ..store.registry import get_dataset
 from ..store.rulesets import latest_ruleset
 from .chain import Chain, State, follow_chain
@@ -188,11 +188,13 @@ class _Writer:
                 links.extend(self._links(chain, ids))
                 outcomes.append(self._outcome(conn, item, chain, ids))
                 learned.extend(self._learned(chain, ids))
+            touched = [o.canonical_id for o in outcomes + learned]
+            before = finals.edges_of(conn, touched)
             self.summary.links += ev.add_links(conn, links)
             ev.record_outcomes(conn, outcomes, run_id=self.run_id)
             ev.record_outcomes(conn, learned, run_id=self.run_id, replace="learned")
             # Where each link now leads (store/finals.py), committed with the outcomes it is read from.
-            refresh_finals(conn, [o.canonical_id for o in outcomes + learned])
+            finals.refresh_finals(conn, touched, edges_before=before)
 
     def _links(self, chain: Chain, ids: dict[str, ev.UrlIds]) -> list[dict[str, Any]]:
         rows = []

@@ -2,11 +2,13 @@
 
 Wrappers need nothing here: the canonicaliser unwraps them, so a wrapper's canonical URL already is its
 target. Redirects and short links are resolved from ``follow_results``, the latest follow outcome per
-canonical URL (fetched, learned from another chain, or imported as a (short, expanded) pair): a URL
-whose outcome is ``resolved`` with a ``final_id`` other than itself leads there, and where that URL
-leads on again (a short link whose expanded form is another short link, followed later), so does the
-first. ``canonical_urls.final_id`` stores the end of that walk, resolved transitively, or NULL when no
-resolved chain leads elsewhere (never followed, failed, refused, or a cycle of imported pairs).
+canonical URL (fetched, learned from another chain, or imported as a (short, expanded) pair). Its
+``final_id``, when it names another URL, is an *edge* of a walk: a resolved chain leads there; a chain
+that stopped (failed or refused) is walked on only for what is resolved beyond the URL it stopped at.
+``canonical_urls.final_id`` stores where the walk ends, the target of the last resolved chain on it
+(so a short link whose expansion is another short link, followed or imported later, leads where that
+one leads), or NULL when no resolved chain leads elsewhere (never followed, failed, refused, or a cycle
+of imported pairs).
 
 The final columns are then read, never stored per sighting:
 
@@ -17,14 +19,14 @@ The final columns are then read, never stored per sighting:
   (``ruleset_hosts``), nothing is known yet: every final column is NULL, not the shortener's own.
 
 :func:`refresh_finals` keeps ``final_id`` current for the URLs whose outcomes a batch wrote and for every
-URL whose stored end passes through them; the follow stage and the redirect import call it in the
-transaction of their results. :func:`refresh_all_finals` recomputes every row (``linkfold db
-refresh-finals``; migration 0012 did the same once).
+URL whose walk passes through them (found through the index on ``follow_results.final_id``); the follow
+stage and the redirect import call it in the transaction of their results. :func:`refresh_all_finals`
+recomputes every row (``linkfold db refresh-finals``; migration 0012 did the same once).
 """
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Iterator, Sequence
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from typing import Any
 
 import sqlalchemy as sa
@@ -106,10 +108,27 @@ def short_hosts(conn: Connection) -> frozenset[str]:
 
 
 # --- keeping final_id current ------------------------------------------------------------------------------
-def _edges(conn: Connection, start: Iterable[int]) -> dict[int, int]:
-    """Resolved "leads to" edges reachable from ``start``: canonical id -> the final id of its outcome."""
+#: An edge of the walk: where a URL's latest follow outcome says it leads, and whether that chain resolved.
+Edge = tuple[int, bool]
+
+
+def edges_of(conn: Connection, canonical_ids: Iterable[int]) -> dict[int, Edge]:
+    """The outgoing edge of each of ``canonical_ids`` that has one: ``follow_results.final_id`` when it
+    names another URL, with whether the outcome is ``resolved`` (else the chain stopped there: failed or
+    refused)."""
     fr = t.follow_results
-    edges: dict[int, int] = {}
+    out: dict[int, Edge] = {}
+    for part in _chunks(sorted(set(canonical_ids))):
+        q = sa.select(fr.c.canonical_id, fr.c.final_id, fr.c.state).where(
+            fr.c.canonical_id.in_(part), fr.c.final_id.is_not(None), fr.c.final_id != fr.c.canonical_id)
+        for src, dst, state in conn.execute(q):
+            out[int(src)] = (int(dst), state == "resolved")
+    return out
+
+
+def _edges(conn: Connection, start: Iterable[int]) -> dict[int, Edge]:
+    """Every edge reachable from ``start``."""
+    edges: dict[int, Edge] = {}
     seen: set[int] = set()
     frontier = set(start)
     for _ in range(MAX_DEPTH):
@@ -117,42 +136,60 @@ def _edges(conn: Connection, start: Iterable[int]) -> dict[int, int]:
         if not frontier:
             break
         seen |= frontier
-        found: set[int] = set()
-        for part in _chunks(sorted(frontier)):
-            q = sa.select(fr.c.canonical_id, fr.c.final_id).where(
-                fr.c.canonical_id.in_(part), fr.c.state == "resolved", fr.c.final_id.is_not(None),
-                fr.c.final_id != fr.c.canonical_id)
-            for src, dst in conn.execute(q):
-                edges[int(src)] = int(dst)
-                found.add(int(dst))
-        frontier = found
+        found = edges_of(conn, frontier)
+        edges.update(found)
+        frontier = {dst for dst, _resolved in found.values()}
     return edges
 
 
-def end_of(start: int, edges: dict[int, int]) -> int | None:
-    """Where ``start`` leads in the end; None when it leads nowhere else or into a cycle."""
-    if start not in edges:
-        return None
+def _sources(conn: Connection, targets: Iterable[int]) -> set[int]:
+    """Every URL whose walk reaches one of ``targets`` (through the index on ``follow_results.final_id``)."""
+    fr = t.follow_results
+    out: set[int] = set()
+    frontier = set(targets)
+    for _ in range(MAX_DEPTH):
+        found: set[int] = set()
+        for part in _chunks(sorted(frontier)):
+            found.update(int(i) for i in conn.execute(sa.select(fr.c.canonical_id).where(
+                fr.c.final_id.in_(part), fr.c.final_id != fr.c.canonical_id)).scalars())
+        frontier = found - out
+        if not frontier:
+            break
+        out |= frontier
+    return out
+
+
+def end_of(start: int, edges: Mapping[int, Edge]) -> int | None:
+    """Where ``start`` leads in the end: the URL the last resolved chain on its walk ended at. None when
+    no resolved chain leads anywhere from it (it stands for itself) or the walk runs into a cycle.
+
+    A chain that stopped (a short link whose expansion is another short link that could not be fetched)
+    is walked on, so that when the URL it stopped at is resolved later (by an import), the first link
+    leads there too; a stop with nothing resolved after it leads nowhere.
+    """
+    end = None
     path = {start}
     here = start
     while here in edges:
-        here = edges[here]
+        here, resolved = edges[here]
         if here in path or len(path) > MAX_DEPTH:
             return None  # a cycle (possible only through imported pairs): no end is known
         path.add(here)
-    return here
+        if resolved:
+            end = here
+    return end
 
 
-def refresh_finals(conn: Connection, changed: Iterable[int]) -> int:
+def refresh_finals(conn: Connection, changed: Iterable[int], *,
+                   edges_before: Mapping[int, Edge] | None = None) -> int:
     """Recompute ``final_id`` for the canonical URLs in ``changed`` (their follow outcomes were just
-    written) and for the URLs whose walk passed through one of them. Runs in the caller's transaction;
-    returns the number of rows changed.
+    written) and for every URL whose walk passes through one whose edge or end moved. Runs in the
+    caller's transaction; returns the number of rows changed.
 
-    A URL's stored end is a URL without an edge of its own, so the rows that name one of ``changed`` as
-    their end must move when it has an edge now; and the rows whose walk passed through one whose end
-    moved store its former end. Both are found through the (partial) index on ``final_id``. A URL that
-    leads nowhere, now as before (the subscribe page a thousand ad clicks end at), moves nothing. Only a
-    walk that was a cycle before is not found this way (it stores no end): ``refresh_all_finals``.
+    ``edges_before`` is :func:`edges_of` ``changed`` taken before the outcomes were written: with it, a
+    URL whose edge is as it was and whose end did not move (the subscribe page a thousand ad clicks end
+    at, learned again from each new chain) moves nothing upstream; without it, every one with an edge
+    is taken to have a new one.
     """
     c = t.canonical_urls
     changed = sorted(set(changed))
@@ -161,9 +198,12 @@ def refresh_finals(conn: Connection, changed: Iterable[int]) -> int:
     current = _current(conn, c.c.id, changed)
     edges = _edges(conn, current)
     moved = _write(conn, current, edges)
-    through = {cid for cid in current if cid in edges} | {old for old in moved.values() if old is not None}
-    upstream = {k: v for k, v in _current(conn, c.c.final_id, sorted(through)).items() if k not in current}
-    return len(moved) + len(_write(conn, upstream))
+    if edges_before is None:
+        news = {cid for cid in current if cid in edges}
+    else:
+        news = {cid for cid in current if edges.get(cid) != edges_before.get(cid)}
+    upstream = sorted(_sources(conn, news | set(moved)) - set(current))
+    return len(moved) + len(_write(conn, _current(conn, c.c.id, upstream)))
 
 
 def _current(conn: Connection, column: Any, values: Sequence[int]) -> dict[int, int | None]:
@@ -176,9 +216,11 @@ def _current(conn: Connection, column: Any, values: Sequence[int]) -> dict[int, 
 
 
 def _write(conn: Connection, current: dict[int, int | None],
-           edges: dict[int, int] | None = None) -> dict[int, int | None]:
+           edges: Mapping[int, Edge] | None = None) -> dict[int, int | None]:
     """Store the ends of the URLs in ``current`` (id -> stored final_id); return the old value of each row
     that changed. ``edges``: those reachable from ``current``, when the caller has them."""
+    if not current:
+        return {}
     if edges is None:
         edges = _edges(conn, current)
     moved: dict[int, int | None] = {}
@@ -196,11 +238,13 @@ def _write(conn: Connection, current: dict[int, int | None],
 
 
 def refresh_all_finals(conn: Connection, *, batch: int = 20000) -> int:
-    """Recompute ``final_id`` for every canonical URL that has one or a resolved follow outcome; returns
-    the number of rows changed. For a registry whose evidence was changed by hand, or to check."""
+    """Recompute ``final_id`` for every canonical URL that has one or a follow outcome leading elsewhere;
+    returns the number of rows changed. For a registry whose evidence was changed by other means, or to
+    check (``linkfold db refresh-finals``)."""
     c, fr = t.canonical_urls, t.follow_results
     candidates = sa.union(
-        sa.select(fr.c.canonical_id.label("id")).where(fr.c.state == "resolved", fr.c.final_id.is_not(None)),
+        sa.select(fr.c.canonical_id.label("id")).where(fr.c.final_id.is_not(None),
+                                                       fr.c.final_id != fr.c.canonical_id),
         sa.select(c.c.id).where(c.c.final_id.is_not(None))).subquery()
     ids = sorted(int(i) for i in conn.execute(sa.select(candidates.c.id)).scalars())
     changed = 0
@@ -218,6 +262,8 @@ def recompute_finals(engine: Engine) -> int:
 __all__ = [
     "FINAL_COLUMNS",
     "SHORTENER",
+    "Edge",
+    "edges_of",
     "end_of",
     "final_columns",
     "final_join",

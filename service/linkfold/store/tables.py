@@ -111,12 +111,9 @@ canonical_urls = sa.Table(
     # transaction of their results, from ids read in it; nothing deletes canonical URLs, and
     # tests/test_ingest_integrity.py checks the reference. No foreign key: on SQLite adding one means
     # rebuilding the table every other table references, on PostgreSQL every bulk insert would pay for it.
-    # The index holds only the few rows that have one.
     sa.Column("final_id", sa.Integer, nullable=True),
     sa.Index("ix_canonical_urls_domain", "domain"),
     sa.Index("ix_canonical_urls_host", "host"),
-    sa.Index("ix_canonical_urls_final_id", "final_id", postgresql_where=sa.text("final_id IS NOT NULL"),
-             sqlite_where=sa.text("final_id IS NOT NULL")),
 )
 
 # Declared here, enforced by SQLite, not created on PostgreSQL (migration 0010): there a foreign key costs a
@@ -230,6 +227,7 @@ follow_results = sa.Table(
     sa.Column("next_attempt_at", UTC, nullable=True),  # when --retry-failed may try again
     sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
     sa.Index("ix_follow_results_state_next", "state", "next_attempt_at"),
+    sa.Index("ix_follow_results_final_id", "final_id"),  # which links lead to a URL (store/finals.py; 0012)
 )
 
 follow_attempts = sa.Table(
