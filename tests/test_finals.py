@@ -303,3 +303,23 @@ def test_cluster_outlets_count_final_outlets(world, engine):
     assert row.size == 2 and row.outlets == 1
     assert [r.id for r in list_clusters(engine, level="article", outlet="Tidewater News")] == [row.id]
     assert list(list_clusters(engine, level="article", outlet="short.test")) == []
+
+
+def test_lookup_page_says_what_a_link_stands_for(world, engine, db_url):
+    import html5lib
+
+    from linkfold.api import create_app
+    from linkfold.store.tokens import create_token
+    from test_api_support import AsgiClient
+    from test_api_support import settings_for as api_settings
+
+    token = create_token(engine, scope="read", note="finals pages").secret
+    web = AsgiClient(create_app(api_settings(db_url), engine=engine))
+    cookie = {"Cookie": f"linkfold_token={token}"}
+    r = web.get("/lookup", params={"q": world["urls"]["adclick"]}, headers=cookie)
+    page = html5lib.HTMLParser(strict=True, namespaceHTMLElements=False).parse(r.text)
+    cell = "".join(page.find(".//td[@id='final']").itertext())
+    assert _expected(world)["adclick"][0] in cell and "Tidewater News" in cell and "not an article" in cell
+    r = web.get("/lookup", params={"q": world["urls"]["never"]}, headers=cookie)
+    page = html5lib.HTMLParser(strict=True, namespaceHTMLElements=False).parse(r.text)
+    assert "not known yet" in "".join(page.find(".//td[@id='final']").itertext())
