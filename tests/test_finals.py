@@ -323,3 +323,33 @@ def test_lookup_page_says_what_a_link_stands_for(world, engine, db_url):
     r = web.get("/lookup", params={"q": world["urls"]["never"]}, headers=cookie)
     page = html5lib.HTMLParser(strict=True, namespaceHTMLElements=False).parse(r.text)
     assert "not known yet" in "".join(page.find(".//td[@id='final']").itertext())
+
+
+def test_ad_clicks_to_one_page_all_lead_there_without_walking_back_from_it(engine, db_url, tmp_path, server,
+                                                                            monkeypatch):
+    """Many sources, one target (a sink: docs/dedupe.md): each click stands for the subscribe page; a
+    later batch that learns the page again does not recompute every click that led there before."""
+    with engine.begin() as conn:
+        store_ruleset(conn, parse_rules(RULES))
+    page = server.url("/final/subscribe", host="news.test")
+    clicks = [server.url(f"/to?status=302&loc={page}&c={i}", host="ads.test") for i in range(5)]
+    load(engine, tmp_path, "posts", clicks[:3])
+    _follow(engine, db_url, hosts=["ads.test"])
+    walked_back: list[int] = []
+    real = finals._sources
+
+    def spy(conn, targets):
+        walked_back.extend(targets)
+        return real(conn, targets)
+
+    monkeypatch.setattr(finals, "_sources", spy)
+    load(engine, tmp_path, "more", clicks[3:])
+    _follow(engine, db_url, hosts=["ads.test"])
+    canon = Canonicaliser(parse_rules(RULES))
+    with engine.connect() as conn:
+        target = conn.execute(sa.select(t.canonical_urls.c.id)
+                              .where(t.canonical_urls.c.url_key == canon(page).url_key)).scalar_one()
+        for click in clicks:
+            got = _finals_by_key(conn, canon(click).url_key)
+            assert (got["final_url"], got["final_is_article"]) == (canon(page).url, False)
+    assert walked_back and target not in walked_back  # the new clicks are looked up from, the page never

@@ -86,6 +86,7 @@ def final_outlet(c: Any, f: Any) -> sa.ColumnElement[Any]:
 
 
 def final_join(c: Any, f: Any) -> sa.ColumnElement[bool]:
+    """The outer join of ``f`` (an alias of the canonical URLs) that :func:`final_columns` reads."""
     return f.c.id == c.c.final_id
 
 
@@ -100,11 +101,6 @@ def finals_of(conn: Connection, canonical_ids: Iterable[int]) -> dict[int, dict[
         for row in conn.execute(q).mappings():
             out[int(row["id"])] = {name: row[name] for name in FINAL_COLUMNS}
     return out
-
-
-def short_hosts(conn: Connection) -> frozenset[str]:
-    """The shortener hosts of the newest stored ruleset."""
-    return frozenset(conn.execute(shortener_hosts_now()).scalars())
 
 
 # --- keeping final_id current ------------------------------------------------------------------------------
@@ -272,7 +268,6 @@ __all__ = [
     "recompute_finals",
     "refresh_all_finals",
     "refresh_finals",
-    "short_hosts",
     "shortener_hosts_now",
     "store_ruleset_hosts",
 ]
