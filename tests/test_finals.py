@@ -353,3 +353,22 @@ def test_ad_clicks_to_one_page_all_lead_there_without_walking_back_from_it(engin
             got = _finals_by_key(conn, canon(click).url_key)
             assert (got["final_url"], got["final_is_article"]) == (canon(page).url, False)
     assert walked_back and target not in walked_back  # the new clicks are looked up from, the page never
+
+
+def test_cli_export_lookup_and_refresh(world, db_url, monkeypatch, capsys):
+    from linkfold.cli import main
+
+    monkeypatch.setenv("LINKFOLD_DATABASE_URL", db_url)
+    capsys.readouterr()
+    assert main(["export", "--dataset", "later", "--format", "jsonl"]) == 0
+    rows = {r["raw_url"]: r for r in map(json.loads, capsys.readouterr().out.splitlines())}
+    expected = _expected(world)
+    for name in ("never", "followed"):
+        assert tuple(rows[world["urls"][name]][k] for k in FINALS) == expected[name]
+    assert main(["lookup", world["urls"]["adclick"]]) == 0
+    answer = json.loads(capsys.readouterr().out)
+    assert tuple(answer[k] for k in FINALS) == expected["adclick"]
+    assert main(["db", "refresh-finals"]) == 0
+    assert "0 row(s) changed" in capsys.readouterr().err
+    assert main(["-q", "db", "refresh-finals"]) == 0
+    assert capsys.readouterr().err == ""
