@@ -372,3 +372,47 @@ def test_cli_export_lookup_and_refresh(world, db_url, monkeypatch, capsys):
     assert "0 row(s) changed" in capsys.readouterr().err
     assert main(["-q", "db", "refresh-finals"]) == 0
     assert capsys.readouterr().err == ""
+
+
+def test_migration_0012_fills_hosts_and_finals_from_what_is_stored(empty_db_url):
+    """A registry at 0011 with a ruleset naming shortener hosts and follow outcomes (a chain of two short
+    links, a failed one): the upgrade records the hosts and stores every end, as the stages would."""
+    from datetime import UTC, datetime
+
+    from linkfold.canon import CANON_VERSION, PSL_VERSION
+    from linkfold.store import downgrade, make_engine, upgrade
+
+    engine = make_engine(empty_db_url)
+    try:
+        upgrade(engine, "0011")
+        rules = parse_rules(RULES)
+        now = datetime.now(UTC)
+        with engine.begin() as conn:
+            rid = conn.execute(sa.insert(t.rulesets).values(
+                name="lab", digest=rules.digest, source=rules.source, canon_version=CANON_VERSION,
+                psl_version=PSL_VERSION, created_at=now).returning(t.rulesets.c.id)).scalar_one()
+            ids = {}
+            for name, url in {"a": "https://short.test/a", "b": "https://tiny.test/b",
+                              "art": "https://news.test/final/story-1", "dead": "https://short.test/d"}.items():
+                ids[name] = conn.execute(sa.insert(t.canonical_urls).values(
+                    url_key=name.ljust(24, "x"), url=url, host=url.split("/")[2], domain=None, outlet=None,
+                    is_article=None, ruleset_id=rid, created_at=now).returning(t.canonical_urls.c.id)).scalar_one()
+            common = {"via": "imported", "attempts": 1, "first_attempt_at": now, "last_attempt_at": now}
+            conn.execute(sa.insert(t.follow_results), [
+                {"canonical_id": ids["a"], "state": "resolved", "final_id": ids["b"], **common},
+                {"canonical_id": ids["b"], "state": "resolved", "final_id": ids["art"], **common},
+                {"canonical_id": ids["dead"], "state": "failed", "failure": "http_4xx", "final_id": ids["dead"],
+                 **common}])
+        upgrade(engine)
+        with engine.connect() as conn:
+            hosts = set(conn.execute(sa.select(t.ruleset_hosts.c.host)).scalars())
+            stored = dict(conn.execute(sa.select(t.canonical_urls.c.id, t.canonical_urls.c.final_id)).all())
+            final = finals.finals_of(conn, ids.values())
+        assert hosts == {"short.test", "tiny.test"}
+        assert stored == {ids["a"]: ids["art"], ids["b"]: ids["art"], ids["art"]: None, ids["dead"]: None}
+        assert final[ids["a"]]["final_url"] == "https://news.test/final/story-1"
+        assert final[ids["dead"]]["final_url"] is None  # a short link whose follow failed
+        downgrade(engine, "0011")
+        assert "final_id" not in {c["name"] for c in sa.inspect(engine).get_columns("canonical_urls")}
+    finally:
+        engine.dispose()
