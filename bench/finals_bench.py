@@ -131,7 +131,8 @@ def main() -> None:
             ratios = sorted(b / a for b, a in pairs)
             print(f"{name}: before {statistics.median(b for b, _ in pairs):.2f} s, with final columns "
                   f"{statistics.median(a for _, a in pairs):.2f} s; median ratio {statistics.median(ratios):.2f}x "
-                  f"(pairs {', '.join(f'{r:.2f}' for r in ratios)})")
+                  f"(pairs {', '.join(f'{r:.2f}' for r in ratios)}; fastest against fastest "
+                  f"{min(b for b, _ in pairs) / min(a for _, a in pairs):.2f}x)")
 
 
 if __name__ == "__main__":

@@ -53,14 +53,12 @@ LEFT JOIN cluster_members sm ON sm.canonical_id = c.id AND sm.level = 'story'
 """
 
 # A URL stands for itself (final_id NULL) or for the URL final_id names; nothing is known when that URL
-# is on a shortener host of the newest ruleset. The join on final_id finds a row only for the few URLs
-# that lead elsewhere.
-_SHORT = ("CASE WHEN c.final_id IS NULL THEN c.host ELSE fc.host END IN (SELECT rh.host FROM ruleset_hosts rh "
-          "WHERE rh.role = 'shortener' AND rh.ruleset_id = (SELECT max(rs.id) FROM rulesets rs))")
+# is on a shortener host of the newest ruleset. Both joins find at most one row (primary keys), the first
+# only for the few URLs that lead elsewhere.
 
 
 def _final(column: str) -> str:
-    return f"CASE WHEN {_SHORT} THEN NULL WHEN c.final_id IS NULL THEN c.{column} ELSE fc.{column} END"
+    return f"CASE WHEN sh.host IS NOT NULL THEN NULL WHEN c.final_id IS NULL THEN c.{column} ELSE fc.{column} END"
 
 
 VIEW_0012 = f"""
@@ -92,6 +90,8 @@ JOIN datasets d ON d.id = f.dataset_id
 JOIN raw_urls r ON r.id = s.raw_url_id
 LEFT JOIN canonical_urls c ON c.id = r.canonical_id
 LEFT JOIN canonical_urls fc ON fc.id = c.final_id
+LEFT JOIN ruleset_hosts sh ON sh.host = COALESCE(fc.host, c.host) AND sh.role = 'shortener'
+    AND sh.ruleset_id = (SELECT max(rs.id) FROM rulesets rs)
 LEFT JOIN cluster_members am ON am.canonical_id = c.id AND am.level = 'article'
 LEFT JOIN cluster_members sm ON sm.canonical_id = c.id AND sm.level = 'story'
 """

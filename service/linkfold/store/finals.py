@@ -27,6 +27,7 @@ recomputes every row (``linkfold db refresh-finals``; migration 0012 did the sam
 from __future__ import annotations
 
 from collections.abc import Iterable, Iterator, Mapping, Sequence
+from dataclasses import dataclass
 from typing import Any
 
 import sqlalchemy as sa
@@ -58,46 +59,49 @@ def store_ruleset_hosts(conn: Connection, ruleset_id: int, shortener_hosts: Iter
         conn.execute(sa.insert(rh), rows)
 
 
-def shortener_hosts_now() -> sa.Select:
-    """The shortener hosts of the newest stored ruleset, as a subquery."""
-    rh, rs = t.ruleset_hosts, t.rulesets
-    newest = sa.select(sa.func.max(rs.c.id)).scalar_subquery()
-    return sa.select(rh.c.host).where(rh.c.role == SHORTENER, rh.c.ruleset_id == newest)
-
-
 # --- reading the final columns ---------------------------------------------------------------------------
-def final_columns(c: Any, f: Any) -> list[sa.ColumnElement[Any]]:
-    """The four final columns (labelled as :data:`FINAL_COLUMNS`) for canonical URL ``c`` and ``f``, the
-    canonical URLs table outer-joined on ``f.id = c.final_id`` (see :func:`final_join`)."""
-    host = sa.case((c.c.final_id.is_(None), c.c.host), else_=f.c.host)
-    unknown = host.in_(shortener_hosts_now())
+@dataclass(frozen=True)
+class FinalsJoin:
+    """How a query reads the final columns of canonical URL ``c`` (the table or an alias): two outer joins,
+    ``f`` the URL that ``c.final_id`` names and ``sh`` the shortener host of the newest ruleset that URL
+    (or ``c`` itself) is on, at most one row each (primary keys), then a CASE per column."""
 
-    def pick(column: str) -> sa.ColumnElement[Any]:
-        picked = sa.case((unknown, sa.null()), (c.c.final_id.is_(None), c.c[column]), else_=f.c[column])
+    c: Any
+    f: Any
+    sh: Any
+
+    @classmethod
+    def of(cls, c: Any) -> FinalsJoin:
+        return cls(c, t.canonical_urls.alias("fc"), t.ruleset_hosts.alias("sh"))
+
+    def join(self, base: Any) -> Any:
+        """``base`` (a FROM clause holding ``c``) with the two outer joins."""
+        c, f, sh = self.c, self.f, self.sh
+        newest = sa.select(sa.func.max(t.rulesets.c.id)).scalar_subquery()
+        return (base.outerjoin(f, f.c.id == c.c.final_id)
+                .outerjoin(sh, sa.and_(sh.c.host == sa.func.coalesce(f.c.host, c.c.host), sh.c.role == SHORTENER,
+                                       sh.c.ruleset_id == newest)))
+
+    def column(self, column: str) -> sa.ColumnElement[Any]:
+        """One of url, domain, outlet, is_article of the URL that ``c`` stands for."""
+        c, f = self.c, self.f
+        picked = sa.case((self.sh.c.host.is_not(None), sa.null()), (c.c.final_id.is_(None), c.c[column]),
+                         else_=f.c[column])
         return sa.type_coerce(picked, t.canonical_urls.c[column].type)  # SQLite hands truth values back as 0/1
 
-    return [pick(col).label(name) for col, name in zip(("url", "domain", "outlet", "is_article"), FINAL_COLUMNS,
-                                                        strict=True)]
-
-
-def final_outlet(c: Any, f: Any) -> sa.ColumnElement[Any]:
-    """Only the final outlet (per-outlet counts)."""
-    return final_columns(c, f)[2]
-
-
-def final_join(c: Any, f: Any) -> sa.ColumnElement[bool]:
-    """The outer join of ``f`` (an alias of the canonical URLs) that :func:`final_columns` reads."""
-    return f.c.id == c.c.final_id
+    def columns(self) -> list[sa.ColumnElement[Any]]:
+        """The four final columns, labelled as :data:`FINAL_COLUMNS`."""
+        return [self.column(col).label(name)
+                for col, name in zip(("url", "domain", "outlet", "is_article"), FINAL_COLUMNS, strict=True)]
 
 
 def finals_of(conn: Connection, canonical_ids: Iterable[int]) -> dict[int, dict[str, Any]]:
     """The final columns of canonical URLs by id."""
     c = t.canonical_urls
-    f = c.alias("f")
+    fj = FinalsJoin.of(c)
     out: dict[int, dict[str, Any]] = {}
     for part in _chunks(sorted(set(canonical_ids))):
-        q = (sa.select(c.c.id, *final_columns(c, f)).select_from(c.outerjoin(f, final_join(c, f)))
-             .where(c.c.id.in_(part)))
+        q = sa.select(c.c.id, *fj.columns()).select_from(fj.join(c)).where(c.c.id.in_(part))
         for row in conn.execute(q).mappings():
             out[int(row["id"])] = {name: row[name] for name in FINAL_COLUMNS}
     return out
@@ -259,15 +263,12 @@ __all__ = [
     "FINAL_COLUMNS",
     "SHORTENER",
     "Edge",
+    "FinalsJoin",
     "edges_of",
     "end_of",
-    "final_columns",
-    "final_join",
-    "final_outlet",
     "finals_of",
     "recompute_finals",
     "refresh_all_finals",
     "refresh_finals",
-    "shortener_hosts_now",
     "store_ruleset_hosts",
 ]

@@ -25,7 +25,7 @@ from sqlalchemy.engine import Connection, Engine
 from ..errors import LockHeld, NotFound
 from . import tables as t
 from .bulk import BinaryRows, EncodedRows, insert_tuples
-from .finals import FINAL_COLUMNS, final_columns, final_join
+from .finals import FINAL_COLUMNS, FinalsJoin
 
 UTC_TYPE = sa.DateTime(timezone=True)
 _IN_CHUNK = 500  # ids per IN (…) list: well under SQLite's default limit of 999 bound parameters
@@ -397,14 +397,13 @@ def iter_links(conn: Connection, dataset: dict[str, Any], *, yield_per: int = 10
     """The linkage table of one dataset, one tuple per sighting in ``LINK_COLUMNS`` order, file by file
     and in line order (each file's rows come off the unique (file, line, position) index in order)."""
     s, r, c = t.sightings, t.raw_urls, t.canonical_urls
-    fc = c.alias("fc")
+    fj = FinalsJoin.of(c)
     am, sm = t.cluster_members.alias("am"), t.cluster_members.alias("sm")
     for file in dataset_files(conn, dataset["id"]):
         q = (sa.select(s.c.line_no, s.c.position, s.c.row_key, s.c.seen_at, r.c.raw, c.c.url, c.c.url_key,
                        c.c.domain, c.c.outlet, am.c.cluster_id, sm.c.cluster_id.label("story_id"),
-                       *final_columns(c, fc))
-             .select_from(s.join(r, r.c.id == s.c.raw_url_id).outerjoin(c, c.c.id == r.c.canonical_id)
-                          .outerjoin(fc, final_join(c, fc))
+                       *fj.columns())
+             .select_from(fj.join(s.join(r, r.c.id == s.c.raw_url_id).outerjoin(c, c.c.id == r.c.canonical_id))
                           .outerjoin(am, sa.and_(am.c.canonical_id == c.c.id, am.c.level == "article"))
                           .outerjoin(sm, sa.and_(sm.c.canonical_id == c.c.id, sm.c.level == "story")))
              .where(s.c.file_id == file["id"])

@@ -14,7 +14,7 @@ from sqlalchemy.engine import Connection, Engine
 from ...errors import InputError, NotFound
 from ...store import clusters as cs
 from ...store import tables as t
-from ...store.finals import final_join, final_outlet, finals_of
+from ...store.finals import FinalsJoin, finals_of
 from ...store.registry import utc
 from .. import SignatureParams, render_curve, render_histogram
 from ..curve import DEFAULT_POINTS
@@ -61,13 +61,13 @@ def list_clusters(engine: Engine, *, level: str = "article", min_size: int = 2, 
     if min_size < 1:
         raise InputError(f"--min-size must be at least 1 (got {min_size})")
     cm, c, ci = t.cluster_members, t.canonical_urls, t.cluster_ids
-    fc = c.alias("fc")
+    fj = FinalsJoin.of(c)
     # Outlets are counted and matched where each member leads (its final outlet): a short link in a
     # cluster is on its target's outlet, not on the shortener's.
-    member_outlet = final_outlet(c, fc)
+    member_outlet = fj.column("outlet")
     size = sa.func.count().label("size")
     q = (sa.select(cm.c.cluster_id, size, sa.func.count(sa.distinct(member_outlet)).label("outlets"))
-         .select_from(cm.join(c, c.c.id == cm.c.canonical_id).outerjoin(fc, final_join(c, fc)))
+         .select_from(fj.join(cm.join(c, c.c.id == cm.c.canonical_id)))
          .where(cm.c.level == level).group_by(cm.c.cluster_id).having(sa.func.count() >= min_size))
     if outlet is not None:
         q = q.having(sa.func.sum(sa.case((member_outlet == outlet, 1), else_=0)) > 0)
