@@ -90,11 +90,18 @@ def test_add_ids_to_a_dataframe(live):
                          index=[10, 11, 12, 13, 14])
     with Client(live["url"], token=live["read"], batch_size=2) as lf:
         out = add_ids(frame, "link", client=lf)
-    assert list(out.columns) == ["respondent", "link", "article_id", "story_id"]
+        only = add_ids(frame, "link", client=lf, fields=("article_id", "story_id"))
+    assert list(out.columns) == ["respondent", "link", "article_id", "story_id", "final_url", "final_domain",
+                                 "final_outlet", "final_is_article"]
+    # Never followed or redirected: each URL stands for its own canonical URL.
+    assert out.loc[10, "final_url"] == out.loc[14, "final_url"] == urls["original"]
+    assert out.loc[11, "final_url"] == urls["print"]  # tracking dropped; a URL of its own
+    assert out.loc[12, "final_url"] is None
     assert list(out.index) == [10, 11, 12, 13, 14] and "article_id" not in frame.columns  # a copy
     assert out.loc[10, "article_id"] == out.loc[11, "article_id"] == out.loc[14, "article_id"]
     assert out.loc[13, "article_id"] != out.loc[10, "article_id"]
     assert out.loc[13, "story_id"] == out.loc[10, "story_id"]  # the syndicated copy: one story
     assert out.loc[12, "article_id"] is None and out.loc[12, "story_id"] is None
+    assert list(only.columns) == ["respondent", "link", "article_id", "story_id"]
     with pytest.raises(KeyError):
         add_ids(frame, "url", client=lf)

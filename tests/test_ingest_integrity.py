@@ -31,6 +31,7 @@ def dangling(engine) -> dict[str, int]:
             "raw canonical": orphans(r, r.c.canonical_id, c),
             "raw ruleset": orphans(r, r.c.ruleset_id, rs),
             "canonical ruleset": orphans(c, c.c.ruleset_id, rs),
+            "canonical final": orphans(c, c.c.final_id, c.alias("fc")),  # migration 0012: no foreign key
             "file": count(sa.select(sa.func.count()).select_from(s.outerjoin(f, f.c.id == s.c.file_id))
                           .where(f.c.id.is_(None))),
             "dataset": count(sa.select(sa.func.count()).select_from(s.join(f, f.c.id == s.c.file_id))

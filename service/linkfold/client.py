@@ -5,8 +5,9 @@
     lf.lookup("https://harbour-gazette.example/2031/05/tide-barrier-vote?utm_source=feed")["article_id"]
 
 ``lookup_many`` sends any number of URLs in batches of at most the server's limit and yields the answers
-in input order as they stream back; ``add_ids`` adds ``article_id`` / ``story_id`` columns to a pandas
-DataFrame of URLs. Errors from the server raise :class:`ApiError` with the envelope's code and message.
+in input order as they stream back; ``add_ids`` adds ``article_id`` / ``story_id`` and the final columns
+(``final_url``, ``final_domain``, ``final_outlet``, ``final_is_article``: what each link stands for after
+short links and redirects) to a pandas DataFrame of URLs. Errors from the server raise :class:`ApiError` with the envelope's code and message.
 """
 
 from __future__ import annotations
@@ -21,6 +22,10 @@ from .errors import LinkfoldError, NetworkError
 from .settings import load_settings
 
 DEFAULT_BATCH = 10000  # the server's default api_max_batch
+#: What a link stands for (the names of ``linkfold lookup``, the export and the ``sighting_links`` view).
+FINAL_FIELDS = ("final_url", "final_domain", "final_outlet", "final_is_article")
+#: The columns ``add_ids`` adds unless told otherwise.
+ID_FIELDS = ("article_id", "story_id", *FINAL_FIELDS)
 
 
 class ApiError(LinkfoldError):
@@ -157,11 +162,14 @@ def _path_part(text: str) -> str:
     return quote(text.strip(), safe="")
 
 
-def add_ids(frame: Any, column: str = "url", *, client: Client, prefix: str = "") -> Any:
-    """A copy of a pandas DataFrame with ``article_id`` and ``story_id`` columns for the URLs in ``column``.
+def add_ids(frame: Any, column: str = "url", *, client: Client, prefix: str = "",
+            fields: Iterable[str] = ID_FIELDS) -> Any:
+    """A copy of a pandas DataFrame with a column per lookup field in ``fields`` (by default ``article_id``,
+    ``story_id`` and the final columns, :data:`ID_FIELDS`) for the URLs in ``column``.
 
-    Each distinct URL is looked up once. Rows whose URL is missing (NaN/None) get missing IDs. pandas is
-    imported only here, so the rest of the client works without it.
+    Each distinct URL is looked up once. Rows whose URL is missing (NaN/None) get missing values, and so
+    do the final columns of a short link not yet followed. pandas is imported only here, so the rest of
+    the client works without it.
     """
     try:
         import pandas as pd
@@ -169,15 +177,17 @@ def add_ids(frame: Any, column: str = "url", *, client: Client, prefix: str = ""
         raise ImportError("add_ids needs pandas: pip install pandas") from exc
     if column not in frame.columns:
         raise KeyError(f"no column {column!r} in the DataFrame (columns: {', '.join(map(str, frame.columns))})")
+    fields = tuple(fields)
     values = frame[column]
     present = values.notna()
     distinct = list(dict.fromkeys(str(v) for v in values[present]))
     answers = dict(zip(distinct, client.lookup_many(distinct), strict=True))
     out = frame.copy()
-    for field in ("article_id", "story_id"):
-        mapped = values[present].map(lambda v, f=field: answers[str(v)][f])
-        out[prefix + field] = pd.Series(mapped, index=frame.index).astype("object").where(present, None)
+    for field in fields:
+        mapped = pd.Series(values[present].map(lambda v, f=field: answers[str(v)].get(f)),
+                           index=frame.index).astype("object")
+        out[prefix + field] = mapped.where(present & mapped.notna(), None)  # None, not NaN, for no value
     return out
 
 
-__all__ = ["ApiError", "Client", "add_ids"]
+__all__ = ["FINAL_FIELDS", "ID_FIELDS", "ApiError", "Client", "add_ids"]

@@ -77,13 +77,15 @@ class DemoReport:
             out.append(f"{level} clusters with more than one member: {len(rows)}")
             for c in rows[:8]:
                 evidence = ", ".join(f"{k} {v}" for k, v in sorted(c["evidence"].items()))
-                out.append(f"  {c['id']}  {c['size']} URLs on {c['outlets']} host(s), founded by "
+                out.append(f"  {c['id']}  {c['size']} URLs on {c['outlets']} outlet(s), founded by "
                            f"{c['founder_url']}  [{evidence}]")
             if len(rows) > 8:
                 out.append(f"  … and {len(rows) - 8} more (linkfold clusters --level {level})")
         for ex in self.examples:
             out.append(f"lookup {ex['input']}\n    -> {ex['canonical']} (url key {ex['url_key']}, "
-                       f"article {ex.get('article_id')}, story {ex.get('story_id')}, seen {ex['seen']})")
+                       f"article {ex.get('article_id')}, story {ex.get('story_id')}, seen {ex['seen']})"
+                       + (f"\n    stands for {ex['final_url']}" if ex.get("final_url") not in (None, ex["canonical"])
+                          else ""))
         return out
 
 

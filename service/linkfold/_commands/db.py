@@ -71,6 +71,26 @@ def db_current(obj: Context) -> None:
     click.echo(f"{current or '-'} ({state})")
 
 
+@db_group.command("refresh-finals")
+@common_options
+@pass_ctx
+def db_refresh_finals(obj: Context) -> None:
+    """Recompute what every followed link stands for (its final URL) from the stored follow outcomes.
+
+    The follow stage and redirect imports keep this current as they write; this command is for a
+    registry whose follow outcomes were changed by other means, or to check (it reports how many rows
+    it changed, normally none).
+
+    \b
+    Example:
+      linkfold db refresh-finals
+    """
+    from ..store.finals import recompute_finals
+
+    changed = recompute_finals(obj.engine())
+    obj.message(f"final URLs recomputed: {changed:,} row(s) changed")
+
+
 @click.command("settings")
 @format_option()
 @common_options

@@ -151,7 +151,8 @@ def decide_list(obj: Context, limit: int, fmt: str) -> None:
 @click.option("--level", type=click.Choice(["article", "story"]), default="article", show_default=True)
 @click.option("--min-size", type=click.IntRange(min=1), default=2, show_default=True, metavar="N",
               help="Only clusters with at least N URLs.")
-@click.option("--outlet", metavar="D", help="Only clusters with a URL on this outlet.")
+@click.option("--outlet", metavar="D", help="Only clusters with a URL leading to this outlet (its final outlet, "
+                                             "after short links and redirects).")
 @click.option("--limit", type=click.IntRange(min=1), metavar="N", help="At most N clusters (largest first).")
 @format_option()
 @common_options
@@ -222,7 +223,9 @@ def clusters_show(obj: Context, cluster_id: str, fmt: str) -> None:
     for m in d.members:
         star = "*" if m["founder"] else " "
         words = f"{m['words']} words" if m["words"] is not None else "no text"
-        click.echo(f" {star} {m['url']}  [{m['outlet']}; {other_key} {m[other_key]}; {words}]")
+        leads = f" -> {m['final_url']}" if m.get("final_url") not in (None, m["url"]) else ""
+        click.echo(f" {star} {m['url']}{leads}  [{m.get('final_outlet') or m['outlet']}; {other_key} {m[other_key]}; "
+                   f"{words}]")
     click.echo(f"\nlinks ({len(d.links)}):")
     for link in d.links:
         detail = link["detail"] or {}

@@ -115,8 +115,10 @@ def lookup_command(obj: Context, items: tuple[str, ...]) -> None:
     """What the registry knows about URLs or url keys; one JSON object a line on stdout.
 
     Reads stdin, one a line, when no argument (or '-') is given. Each object has input, canonical,
-    url_key, domain, outlet, seen, sightings, datasets, matched_by, article_id, story_id and error. A URL
-    never loaded is canonicalised on the fly (seen: false). Nothing is stored.
+    url_key, domain, outlet, seen, sightings, datasets, matched_by, article_id, story_id, error,
+    id_history, and what the URL stands for after short links and redirects: final_url, final_domain,
+    final_outlet, final_is_article (null for a short link not yet followed). A URL never loaded is
+    canonicalised on the fly (seen: false). Nothing is stored.
 
     \b
     Example:
@@ -139,7 +141,9 @@ def export_command(obj: Context, dataset: str, fmt: str, out: Path | None) -> No
     """Write a dataset's linkage table: one row per sighting, the table to join datasets on.
 
     Columns: dataset, file, line_no, position, row_key, seen_at, raw_url, canonical_url, url_key,
-    domain, outlet, article_id, story_id (the last two are empty until IDs are assigned).
+    domain, outlet, article_id, story_id (empty until IDs are assigned), then what the URL stands for
+    after short links and redirects: final_url, final_domain, final_outlet, final_is_article (empty for
+    a short link not yet followed, or whose follow failed).
 
     \b
     Example:

@@ -33,6 +33,14 @@ class LookupAnswer(_Open):
     error: str | None = None
     id_history: list[dict[str, Any]] | None = Field(
         default=None, description="For an ID given as input: the events from it to the live ID")
+    final_url: str | None = Field(
+        default=None, description="The canonical URL this one stands for after short links, redirects and "
+                                  "wrappers (itself when nothing leads elsewhere); null for a short link not "
+                                  "yet followed")
+    final_domain: str | None = Field(default=None, description="The final URL's registered domain")
+    final_outlet: str | None = Field(default=None, description="The final URL's outlet")
+    final_is_article: bool | None = Field(default=None, description="Whether the final URL is an article by "
+                                                                    "the site rules (null when unknown)")
 
 
 class BatchRequest(BaseModel):
@@ -176,6 +184,8 @@ class ClusterMember(_Open):
     url: str
     url_key: str
     outlet: str | None = None
+    final_url: str | None = Field(default=None, description="Where the member leads (docs/ingest.md)")
+    final_outlet: str | None = Field(default=None, description="The final URL's outlet: the one counted")
     founder: bool
     title: str | None = None
     words: int | None = None

@@ -4,7 +4,8 @@ Input: CSV or TSV with a header row, or JSON lines (one object a line); the two 
 ``short`` and ``expanded`` unless told otherwise; gzip-compressed files are read as they are. Each good
 line becomes a ``redirect`` link from the short URL's canonical form to the expanded one's, with source
 ``import:<file name>``, and the short URL is marked ``resolved`` (``via`` ``imported``) unless it already
-was. Both URLs are stored as raw and canonical URLs.
+was. Both URLs are stored as raw and canonical URLs. The short URL then stands for the expanded one, or for
+wherever that leads in turn (``store/finals.py``), from the same transaction on.
 
 A bad line (not UTF-8, a CSV quote left open, not a JSON object, a missing value, a URL the
 canonicaliser refuses) is skipped and reported with its line number and reason in the summary; it never
@@ -32,6 +33,7 @@ from ..errors import DumpFormatError, InputError, InvalidURL, MissingColumnError
 from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
+from ..store import finals
 from ..store.rulesets import latest_ruleset
 
 FORMATS = ("csv", "tsv", "jsonl")
@@ -239,10 +241,12 @@ def _write(engine: Engine, batch: list[tuple[int, str, Canonical, str, Canonical
         written = ev.add_links(conn, rows)
         summary.links += written
         summary.already_linked += len({(r["src_id"], r["dst_id"]) for r in rows}) - written
+        before = finals.edges_of(conn, [ids[s].canonical_id for _n, s, _cs, _e, _ce in batch])
         outcomes = [ev.Outcome(canonical_id=ids[s].canonical_id, state="resolved", via="imported", at=stamp,
                                final_id=ids[e].canonical_id, hops=1, detail=source)
                     for _n, s, _cs, e, _ce in batch]
         summary.settled += ev.record_outcomes(conn, outcomes, run_id=run_id, replace="unresolved")
+        finals.refresh_finals(conn, [o.canonical_id for o in outcomes], edges_before=before)
 
 
 __all__ = ["FORMATS", "ImportSummary", "Problem", "import_redirects"]

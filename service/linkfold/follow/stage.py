@@ -15,7 +15,9 @@ For each chain:
   attempt for ``--retry-failed`` when it failed;
 * the later hops and the final URL get the same outcome (``via`` ``chain``, without a next attempt:
   they are settled again when the start URL is retried) unless they have an outcome of their own, so
-  ``--all`` does not fetch them again.
+  ``--all`` does not fetch them again;
+* ``canonical_urls.final_id`` (what each link stands for, ``store/finals.py``) is brought up to date for
+  those URLs and every URL that led to them, in the same transaction.
 """
 
 from __future__ import annotations
@@ -36,6 +38,7 @@ from ..errors import ConfigError, InvalidURL
 from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
+from ..store import finals
 from ..store.registry import get_dataset
 from ..store.rulesets import latest_ruleset
 from .chain import Chain, State, follow_chain
@@ -210,9 +213,13 @@ class _Writer:
                 links.extend(self._links(chain, ids))
                 outcomes.append(self._outcome(conn, item, chain, ids))
                 learned.extend(self._learned(chain, ids))
+            touched = [o.canonical_id for o in outcomes + learned]
+            before = finals.edges_of(conn, touched)
             self.summary.links += ev.add_links(conn, links)
             ev.record_outcomes(conn, outcomes, run_id=self.run_id)
             ev.record_outcomes(conn, learned, run_id=self.run_id, replace="learned")
+            # Where each link now leads (store/finals.py), committed with the outcomes it is read from.
+            finals.refresh_finals(conn, touched, edges_before=before)
 
     def _links(self, chain: Chain, ids: dict[str, ev.UrlIds]) -> list[dict[str, Any]]:
         rows = []

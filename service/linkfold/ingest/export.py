@@ -47,6 +47,14 @@ def _iso(value: datetime | None) -> str | None:
     return value.isoformat() if value is not None else None
 
 
+def _cell(value: Any) -> Any:
+    if value is None:
+        return ""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    return _iso(value) if isinstance(value, datetime) else value
+
+
 def _parquet_schema():
     import pyarrow as pa
 
@@ -55,6 +63,8 @@ def _parquet_schema():
         ("row_key", pa.string()), ("seen_at", pa.timestamp("us", tz="UTC")), ("raw_url", pa.string()),
         ("canonical_url", pa.string()), ("url_key", pa.string()), ("domain", pa.string()),
         ("outlet", pa.string()), ("article_id", pa.string()), ("story_id", pa.string()),
+        ("final_url", pa.string()), ("final_domain", pa.string()), ("final_outlet", pa.string()),
+        ("final_is_article", pa.bool_()),
     ])
 
 
@@ -81,8 +91,9 @@ def _write_text(rows: Iterator[tuple], fmt: str, stream: IO[str], progress: Prog
         writer.writerow(LINK_COLUMNS)
         for row in rows:
             # An empty cell is "no value": CSV cannot tell null from the empty text, and no stored value
-            # is the empty text (row keys fall back to line numbers, URLs are never blank).
-            writer.writerow(["" if v is None else (_iso(v) if isinstance(v, datetime) else v) for v in row])
+            # is the empty text (row keys fall back to line numbers, URLs are never blank). Truth values
+            # are written as JSON writes them.
+            writer.writerow([_cell(v) for v in row])
             n += 1
             if n % 10000 == 0:
                 progress.advance(10000)

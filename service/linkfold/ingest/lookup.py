@@ -14,6 +14,12 @@ sightings      sightings of the canonical URL across all datasets (through every
 datasets       how many datasets hold those sightings
 matched_by     ``url_key`` (the input was a key), ``raw_url`` (this exact text was loaded before; its
                stored canonical URL is the answer), ``canonical_url`` (canonicalised now, then found or not)
+final_url      the canonical URL this one stands for after short links, redirects and wrappers: itself
+               when nothing leads elsewhere; null for a short link not yet followed (or whose follow
+               failed), never the shortener's own URL (docs/ingest.md, "What a link stands for")
+final_domain   the final URL's registered domain, likewise
+final_outlet   the final URL's outlet, likewise
+final_is_article  whether the final URL is an article by the site rules (null when unknown)
 article_id     the article ID, once the dedupe stage assigns them (null until then); for an ID given as
                input, the live ID it stands for today
 story_id       the story ID, likewise
@@ -35,8 +41,9 @@ from sqlalchemy.engine import Connection, Engine
 
 from ..canon import Canonicaliser, Ruleset, default_rules
 from ..errors import InvalidURL
-from ..store import clusters, registry
+from ..store import clusters, finals, registry
 from ..store import tables as t
+from ..store.finals import FINAL_COLUMNS
 from ..store.rulesets import latest_ruleset
 from .rows import raw_hash, storable
 
@@ -44,7 +51,7 @@ from .rows import raw_hash, storable
 URL_KEY_RE = re.compile(r"[a-z2-7]{24}")
 _CHUNK = 500
 LOOKUP_FIELDS = ("input", "canonical", "url_key", "domain", "outlet", "seen", "sightings", "datasets",
-                 "matched_by", "article_id", "story_id", "error", "id_history")
+                 "matched_by", "article_id", "story_id", "error", "id_history", *FINAL_COLUMNS)
 
 
 def is_url_key(text: str) -> bool:
@@ -93,6 +100,7 @@ def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> l
         wanted_keys[i] = items[i].strip().lower()
         answers[i]["matched_by"] = "url_key"
     raw_only: dict[int, str] = {}
+    shorteners = canon.rules.shortener_hosts
     for i in urls:
         stored = known_raw.get(hashes[i])
         if stored is not None and stored["url_key"] is not None:
@@ -111,10 +119,16 @@ def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> l
         wanted_keys[i] = c.url_key
         answers[i].update(canonical=c.url, url_key=c.url_key, domain=c.domain, outlet=c.outlet,
                           matched_by="canonical_url")
+        # Not in the registry (the answers of those that are come below): a URL nobody followed stands for
+        # itself, unless it is a short link.
+        if c.host not in shorteners:
+            answers[i].update(final_url=c.url, final_domain=c.domain, final_outlet=c.outlet,
+                              final_is_article=c.is_article)
 
     found = registry.canonicals_by_key(conn, list(wanted_keys.values()))
     counts = registry.sighting_counts(conn, [row["id"] for row in found.values()])
     assigned = clusters.current_ids(conn, [row["id"] for row in found.values()])
+    final = finals.finals_of(conn, [row["id"] for row in found.values()])
     for i, key in wanted_keys.items():
         row = found.get(key)
         if row is None:
@@ -122,7 +136,8 @@ def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> l
         n, nd = counts.get(row["id"], (0, 0))
         article_id, story_id = assigned.get(row["id"], (None, None))
         answers[i].update(canonical=row["url"], url_key=key, domain=row["domain"], outlet=row["outlet"],
-                          seen=True, sightings=n, datasets=nd, article_id=article_id, story_id=story_id)
+                          seen=True, sightings=n, datasets=nd, article_id=article_id, story_id=story_id,
+                          **final[row["id"]])
     for i in id_inputs:
         _answer_id(conn, answers[i], items[i].strip())
     if raw_only:

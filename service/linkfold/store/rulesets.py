@@ -17,6 +17,7 @@ from sqlalchemy.engine import Connection
 
 from ..canon import CANON_VERSION, PSL_VERSION, Ruleset, default_rules, parse_rules
 from ..errors import NotFound, RulesError
+from .finals import store_ruleset_hosts
 from .tables import rulesets
 
 log = logging.getLogger("linkfold")
@@ -40,6 +41,7 @@ def store_ruleset(conn: Connection, ruleset: Ruleset, *, name: str | None = None
         # transaction usable (PostgreSQL aborts the whole transaction on a failed statement otherwise).
         with conn.begin_nested():
             new_id = conn.execute(sa.insert(rulesets).values(**row).returning(rulesets.c.id)).scalar_one()
+            store_ruleset_hosts(conn, int(new_id), ruleset.shortener_hosts)
     except sa.exc.IntegrityError:
         new_id = conn.execute(sa.select(rulesets.c.id).where(rulesets.c.digest == ruleset.digest)).scalar_one()
     else:

@@ -52,6 +52,16 @@ rulesets = sa.Table(
     sa.Column("created_at", UTC, nullable=False),
 )
 
+# The hosts a ruleset gives a role (migration 0012): ``shortener`` for its ``shortener_hosts``, whose URLs
+# stand for nothing known until they are followed. Written when the ruleset is stored, so SQL (the
+# ``sighting_links`` view) can tell a short link by its host under the newest ruleset.
+ruleset_hosts = sa.Table(
+    "ruleset_hosts", metadata,
+    sa.Column("ruleset_id", sa.Integer, sa.ForeignKey("rulesets.id"), primary_key=True),
+    sa.Column("role", sa.String(20), primary_key=True),
+    sa.Column("host", sa.String(255), primary_key=True),
+)
+
 # --- datasets and their files -------------------------------------------------------------------------
 datasets = sa.Table(
     "datasets", metadata,
@@ -96,6 +106,12 @@ canonical_urls = sa.Table(
     sa.Column("is_article", sa.Boolean, nullable=True),
     sa.Column("ruleset_id", sa.Integer, sa.ForeignKey("rulesets.id"), nullable=True),  # first producer
     sa.Column("created_at", UTC, nullable=False),
+    # The canonical URL this one leads to at the end of its followed chains (migration 0012; store/finals.py):
+    # NULL when no resolved chain leads elsewhere. Kept by the follow stage and redirect imports in the
+    # transaction of their results, from ids read in it; nothing deletes canonical URLs, and
+    # tests/test_ingest_integrity.py checks the reference. No foreign key: on SQLite adding one means
+    # rebuilding the table every other table references, on PostgreSQL every bulk insert would pay for it.
+    sa.Column("final_id", sa.Integer, nullable=True),
     sa.Index("ix_canonical_urls_domain", "domain"),
     sa.Index("ix_canonical_urls_host", "host"),
 )
@@ -211,6 +227,7 @@ follow_results = sa.Table(
     sa.Column("next_attempt_at", UTC, nullable=True),  # when --retry-failed may try again
     sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
     sa.Index("ix_follow_results_state_next", "state", "next_attempt_at"),
+    sa.Index("ix_follow_results_final_id", "final_id"),  # which links lead to a URL (store/finals.py; 0012)
 )
 
 follow_attempts = sa.Table(

@@ -14,6 +14,7 @@ from sqlalchemy.engine import Connection, Engine
 from ...errors import InputError, NotFound
 from ...store import clusters as cs
 from ...store import tables as t
+from ...store.finals import FinalsJoin, finals_of
 from ...store.registry import utc
 from .. import SignatureParams, render_curve, render_histogram
 from ..curve import DEFAULT_POINTS
@@ -80,20 +81,24 @@ def _scores(links: Sequence[Any], members: set[int]) -> tuple[float | None, floa
 
 def list_clusters(engine: Engine, *, level: str = "article", min_size: int = 2, outlet: str | None = None,
                   limit: int | None = None, settings: Mapping[str, Any] | None = None) -> Iterator[ClusterRow]:
-    """Clusters of ``level`` with at least ``min_size`` members (and, with ``outlet``, a member on that
-    outlet), largest first, with the range of similarity scores between their members and the sinks near
-    them (``settings`` gives the ``sink_fan_in`` limit)."""
+    """Clusters of ``level`` with at least ``min_size`` members (and, with ``outlet``, a member whose final
+    outlet is that one), largest first, with the number of final outlets, the range of similarity scores
+    between their members and the sinks near them (``settings`` gives the ``sink_fan_in`` limit)."""
     if level not in cs.LEVELS:
         raise InputError(f"level must be article or story, not {level!r}")
     if min_size < 1:
         raise InputError(f"--min-size must be at least 1 (got {min_size})")
     cm, c, ci = t.cluster_members, t.canonical_urls, t.cluster_ids
+    fj = FinalsJoin.of(c)
+    # Outlets are counted and matched where each member leads (its final outlet): a short link in a
+    # cluster is on its target's outlet, not on the shortener's.
+    member_outlet = fj.column("outlet")
     size = sa.func.count().label("size")
-    q = (sa.select(cm.c.cluster_id, size, sa.func.count(sa.distinct(c.c.outlet)).label("outlets"))
-         .select_from(cm.join(c, c.c.id == cm.c.canonical_id))
+    q = (sa.select(cm.c.cluster_id, size, sa.func.count(sa.distinct(member_outlet)).label("outlets"))
+         .select_from(fj.join(cm.join(c, c.c.id == cm.c.canonical_id)))
          .where(cm.c.level == level).group_by(cm.c.cluster_id).having(sa.func.count() >= min_size))
     if outlet is not None:
-        q = q.having(sa.func.sum(sa.case((c.c.outlet == outlet, 1), else_=0)) > 0)
+        q = q.having(sa.func.sum(sa.case((member_outlet == outlet, 1), else_=0)) > 0)
     q = q.order_by(size.desc(), cm.c.cluster_id)
     if limit:
         q = q.limit(limit)
@@ -189,6 +194,7 @@ def show_cluster(engine: Engine, cluster_id: str, *, max_compared: int = 10,
         for part in cs.chunks(ids):
             urls.update({int(r.id): r for r in conn.execute(
                 sa.select(c.c.id, c.c.url, c.c.url_key, c.c.outlet).where(c.c.id.in_(part)))})
+        finals = finals_of(conn, ids)
         other_level = "article" if res.level == "story" else "story"
         other = cs.assignments(conn, other_level, ids)
         docs = _current_documents(conn, ids)
@@ -203,6 +209,7 @@ def show_cluster(engine: Engine, cluster_id: str, *, max_compared: int = 10,
     for m in sorted(ids, key=lambda x: (x != founder, urls[x].url)):
         doc = docs.get(m)
         member_rows.append({"url": urls[m].url, "url_key": urls[m].url_key, "outlet": urls[m].outlet,
+                            "final_url": finals[m]["final_url"], "final_outlet": finals[m]["final_outlet"],
                             "founder": m == founder, f"{other_level}_id": other.get(m),
                             "title": doc.title if doc else None, "words": doc.word_count if doc else None})
     link_rows = [{"kind": r.kind, "from": urls[r.src_id].url, "to": urls[r.dst_id].url,
