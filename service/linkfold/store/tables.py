@@ -169,6 +169,9 @@ sightings = sa.Table(
     sa.Column("row_key", sa.Text, nullable=False),
     sa.Column("seen_at", UTC, nullable=True),
     sa.Column("raw_url_id", sa.Integer, nullable=False),      # raw_urls.id
+    # The person or account the row belongs to, only ever as a keyed pseudonym (HMAC under the lab's
+    # pseudonym_key; migration 0017); NULL when the load named no unit column.
+    sa.Column("unit", sa.Text, nullable=True),
     sa.UniqueConstraint("file_id", "line_no", "position"),
     sa.Index("ix_sightings_raw_url_id", "raw_url_id"),
 )
@@ -432,6 +435,32 @@ stage_marks = sa.Table(
     sa.Column("value", sa.BigInteger, nullable=False),
     sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
     sa.Column("updated_at", UTC, nullable=False),
+)
+
+# --- outlet lists (migration 0017) -------------------------------------------------------------------
+# A lab's coded list of outlets, versioned like rulesets: each load of a list file is a new version
+# (``id``, in order of loading); the newest is in force. ``columns`` names the lab-defined attribute columns
+# in file order; each entry maps a registered domain or a host (``match``, lower case, as canonical URLs
+# store them) to an outlet name and its attributes.
+outlet_lists = sa.Table(
+    "outlet_lists", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("name", sa.String(200), nullable=False),
+    sa.Column("sha256", sa.String(64), nullable=False, unique=True),  # of the file's bytes
+    sa.Column("columns", sa.JSON, nullable=False),
+    sa.Column("created_at", UTC, nullable=False),
+)
+
+outlet_entries = sa.Table(
+    "outlet_entries", metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("list_id", sa.Integer, sa.ForeignKey("outlet_lists.id"), nullable=False),
+    sa.Column("match", sa.String(255), nullable=False),   # a registered domain or a host
+    sa.Column("outlet", sa.String(255), nullable=False),
+    sa.Column("attributes", sa.JSON, nullable=False),
+    sa.Column("line_no", sa.Integer, nullable=False),     # where the entry stands in the loaded file
+    sa.UniqueConstraint("list_id", "match"),
+    sa.Index("ix_outlet_entries_list_outlet", "list_id", "outlet"),
 )
 
 # --- API tokens (migration 0008) --------------------------------------------------------------------------
