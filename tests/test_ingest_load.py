@@ -121,17 +121,20 @@ def test_a_reject_for_every_class_of_bad_input_and_no_row_lost(engine, tmp_path)
                           "{broken\n")
     summary = ingest_dump(engine, [csv_path], dataset="bad", key_column="id", time_column="t",
                           max_line_bytes=200)
-    ingest_dump(engine, [jsonl_path], dataset="bad-posts", url_column="links.*.url", key_column="id")
+    posts = ingest_dump(engine, [jsonl_path], dataset="bad-posts", url_column="links.*.url", key_column="id")
     found = rejects(engine)
     expected_csv = {(2, -1, "malformed_csv"), (3, -1, "invalid_utf8"), (4, -1, "line_too_long"),
                     (5, -1, "missing_column"), (6, 0, "not_http"), (7, -2, "bad_time"), (8, -1, "missing_key"),
-                    (9, -1, "no_url"), (10, 0, "control_chars"), (11, -1, "field_count")}
-    expected_jsonl = {(1, 1, "not_text"), (2, -1, "missing_column"), (3, -1, "bad_json")}
+                    (10, 0, "control_chars"), (11, -1, "field_count")}
+    expected_jsonl = {(1, 1, "not_text"), (3, -1, "bad_json")}
     assert set(found) == expected_csv | expected_jsonl
     assert Counter(summary.rejects) == Counter(r for _l, _p, r in expected_csv)
-    # Every data line of the CSV left a sighting or a reject: nothing vanished.
+    # A row without a URL (line 9; the post without links) is counted, not rejected.
+    assert (summary.rows_without_url, posts.rows_without_url) == (1, 1)
+    assert summary.as_dict()["rows_without_url"] == 1 and "1 row without a URL" in "\n".join(summary.lines())
+    # Every other data line of the CSV left a sighting or a reject: nothing vanished.
     traced = {line for line, *_ in sightings(engine)} | {line for line, _p, _r in found}
-    assert set(range(2, 13)) <= traced
+    assert set(range(2, 13)) - traced == {9}
     by_line = {r[0]: r for r in sightings(engine)}
     assert by_line[6][3] == "javascript:alert(1)" and by_line[6][4] is None  # kept, not canonical
     assert by_line[7][4] == "https://a.example/t"  # bad time: sighting kept

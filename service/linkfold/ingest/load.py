@@ -226,6 +226,7 @@ class _Job:
     row_count: int
     lines_after: int
     reasons: Counter[str]
+    no_url: int = 0
     final: bool = False
     ready: EncodedRows | None = None  # complete sightings, encoded for COPY (PostgreSQL)
     raws_ready: EncodedRows | None = None  # ``raws``, encoded for COPY (PostgreSQL)
@@ -290,6 +291,7 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
         summary.new_raw_urls += counts.new_raw_urls
         summary.new_canonical_urls += counts.new_canonical_urls
         summary.rejects.update(job.reasons)
+        summary.rows_without_url += job.no_url
         done = plan.facts.lines if job.final else job.lines_after
         progress.advance(max(done - state["reported"], 0))
         state["reported"] = max(done, state["reported"])
@@ -316,8 +318,8 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
             pending = list(range(len(sightings)))
         if raw_encoder is not None and fresh:
             raws_ready = raw_encoder.encode(fresh)
-        out = _Job(sightings, batch.rejects, pending, fresh, known, batch.count, last_line, batch.reasons(), final,
-                   ready, raws_ready)
+        out = _Job(sightings, batch.rejects, pending, fresh, known, batch.count, last_line, batch.reasons(),
+                   batch.no_url, final, ready, raws_ready)
         batch.clear()
         return out
 

@@ -7,7 +7,9 @@ named column that is not there) raises, and it does so before the first row is y
 
 The readers hand on only the values of the URL, key and time columns; every other column is dropped
 as soon as a row is parsed (data minimisation: a browsing-panel export is personal data, and the
-registry needs nothing else from it).
+registry needs nothing else from it). For the same reason a reject carries an excerpt of its line only
+when the line could not be parsed at all (broken CSV quoting, text that is not JSON, bytes that are not
+UTF-8, a line over the length limit): a record that was parsed is found again by its line number.
 """
 
 from __future__ import annotations
@@ -481,7 +483,8 @@ class _Delimited(_Format):
                 else:
                     reason, detail = Reason.FIELD_COUNT, (
                         f"{len(fields)} fields where the header has {width}")
-                yield DumpRow(first, last, reject=RowReject(reason, detail, _record_excerpt(record)))
+                # Valid CSV of the wrong width: its fields were read, so no excerpt (module doc).
+                yield DumpRow(first, last, reject=RowReject(reason, detail))
                 continue
             yield DumpRow(
                 first, last,
@@ -664,21 +667,15 @@ class _JsonLines(_Format):
                                                      excerpt(line.data)))
                 continue
             if not isinstance(record, dict):
+                # Parsed, so no excerpt (module doc): its type is all the lab needs to find it.
                 yield DumpRow(n, n, reject=RowReject(
-                    Reason.BAD_JSON, f"the line is a JSON {type(record).__name__}, not an object",
-                    excerpt(line.data)))
+                    Reason.BAD_JSON, f"the line is a JSON {type(record).__name__}, not an object"))
                 continue
             urls: list[Any] = []
-            missing = []
             for path in self.url_paths:
-                got = resolve(path, record)
-                if got.missing:
-                    missing.append(f"{path.text}: {got.missing}")
-                urls.extend(got.values)
-            if missing and len(missing) == len(self.url_paths):
-                yield DumpRow(n, n, reject=RowReject(Reason.MISSING_COLUMN, "; ".join(missing),
-                                                     excerpt(line.data)))
-                continue
+                # A record without the URL path is a post without links, not a defect: members are
+                # optional in JSON (a path no record has is refused before loading, see check()).
+                urls.extend(resolve(path, record).values)
             yield DumpRow(n, n, urls=urls, key=self._one(self.key_path, record),
                           time=self._one(self.time_path, record))
 

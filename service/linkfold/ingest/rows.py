@@ -2,7 +2,8 @@
 
 The rules, in one place for every format:
 
-* null and blank values are not URLs; a row with no URL at all is one ``no_url`` reject;
+* null and blank values are not URLs; a row with no URL at all (a post without links, an empty URL
+  field) is counted (``no_url``), not rejected: it is not an error, and it leaves nothing behind;
 * each remaining value gets a position (0, 1, …) in row order; text is canonicalised, and a value the
   canonicaliser refuses is still stored as a raw URL (with the canonicaliser's reason) and sighted;
   a non-text value (a JSON number or object where a URL should be) is a ``not_text`` reject;
@@ -10,6 +11,10 @@ The rules, in one place for every format:
   the line number and records ``missing_key`` / ``bad_key`` at position -1;
 * a missing or unreadable time leaves the time empty and records ``missing_time`` / ``bad_time`` at
   position -2: the sightings are kept either way.
+
+A reject of a row that was parsed keeps its reason, line and position but never an excerpt: the other
+fields of a parsed record (a bad time, a key that is an object, a JSON value where a URL should be) can
+be personal data. Only a line that could not be parsed at all brings an excerpt (``readers``).
 """
 
 from __future__ import annotations
@@ -24,7 +29,7 @@ from typing import Any
 
 from ..canon import Canonical
 from ..errors import InvalidURL
-from .readers import MISSING, DumpRow, Reason, RowBlock, excerpt
+from .readers import MISSING, DumpRow, Reason, RowBlock
 from .times import BadTime, parse_time
 
 ROW_POSITION = -1  # the row itself: a row that could not be read, or a problem with its key
@@ -54,30 +59,28 @@ def raw_hash(text: str) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
-def _key(value: Any, line_no: int) -> tuple[str, tuple[str, str, str | None] | None]:
+def _key(value: Any, line_no: int) -> tuple[str, tuple[str, str] | None]:
     fallback = str(line_no)
     if value is MISSING or value is None or (isinstance(value, str) and not value.strip()):
-        return fallback, (Reason.MISSING_KEY, f"no key value; the line number {line_no} is the key", None)
+        return fallback, (Reason.MISSING_KEY, f"no key value; the line number {line_no} is the key")
     if isinstance(value, str):
-        clean = storable(value)
-        if clean != value:
+        if storable(value) != value:
             return fallback, (Reason.BAD_KEY, "the key holds NUL or broken Unicode; the line number "
-                                              f"{line_no} is the key", clean)
+                                              f"{line_no} is the key")
         return value, None
     if isinstance(value, bool | int | float):
         return json.dumps(value), None
     return fallback, (Reason.BAD_KEY, f"the key is a JSON {type(value).__name__}, not a text or number; "
-                                      f"the line number {line_no} is the key", json.dumps(value)[:400])
+                                      f"the line number {line_no} is the key")
 
 
-def _time(value: Any) -> tuple[datetime | None, tuple[str, str, str | None] | None]:
+def _time(value: Any) -> tuple[datetime | None, tuple[str, str] | None]:
     if value is MISSING or value is None or (isinstance(value, str) and not value.strip()):
-        return None, (Reason.MISSING_TIME, "no time value; the sightings have no time", None)
+        return None, (Reason.MISSING_TIME, "no time value; the sightings have no time")
     try:
         return parse_time(value), None
     except BadTime as exc:
-        shown = value if isinstance(value, str) else json.dumps(value)
-        return None, (Reason.BAD_TIME, f"{exc}; the sightings have no time", storable(shown))
+        return None, (Reason.BAD_TIME, f"{exc}; the sightings have no time")
 
 
 def drop_older_half(cache: dict) -> None:
@@ -182,6 +185,7 @@ class Batch:
         # text -> ((hash, reason, detail), RAW_FIELDS tuple)
         self._memo: dict[str, tuple[tuple[str, str | None, str | None], tuple[Any, ...]]] = {}
         self.count = 0  # dump rows added
+        self.no_url = 0  # rows without any URL: counted, not rejected
 
     def clear(self) -> None:
         """Start the next batch (the memo and the ids stay); take in the ids committed meanwhile."""
@@ -190,6 +194,7 @@ class Batch:
         self.pending = []
         self.raws = {}
         self.count = 0
+        self.no_url = 0
         self.learn()
 
     def learn(self) -> None:
@@ -207,9 +212,9 @@ class Batch:
     def reasons(self) -> Counter[str]:
         return Counter(r[_REASON] for r in self.rejects)
 
-    def _reject(self, line_no: int, position: int, reason: str, detail: str | None,
-                text: str | None = None) -> None:
-        self.rejects.append((self.dataset_id, self.file_id, line_no, position, reason, detail, excerpt(text), None))
+    def _reject(self, line_no: int, position: int, reason: str, detail: str | None) -> None:
+        # No excerpt: the row was parsed, and its fields are not ours to keep (module doc).
+        self.rejects.append((self.dataset_id, self.file_id, line_no, position, reason, detail, None, None))
 
     def _url(self, value: str) -> tuple[str, str | None, str | None]:
         known = self._memo.get(value)
@@ -308,8 +313,7 @@ class Batch:
         else:
             values = [v for v in urls if v is not None and not (isinstance(v, str) and not v.strip())]
         if not values:
-            detail = "the URL column is empty" if urls else "the URL path reaches no value"
-            self._reject(n, ROW_POSITION, Reason.NO_URL, detail)
+            self.no_url += 1
             return
         if self.keyed:
             key = row.key
@@ -341,8 +345,7 @@ class Batch:
         ids = self.ids
         for pos, value in enumerate(values):
             if not isinstance(value, str):
-                self._reject(n, pos, Reason.NOT_TEXT, f"a JSON {type(value).__name__} where a URL was expected",
-                             json.dumps(value)[:400])
+                self._reject(n, pos, Reason.NOT_TEXT, f"a JSON {type(value).__name__} where a URL was expected")
                 continue
             rid = ids.get(value)
             if rid is not None:

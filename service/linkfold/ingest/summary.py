@@ -26,6 +26,7 @@ class FileSummary:
     new_raw_urls: int = 0
     new_canonical_urls: int = 0
     rejects: Counter[str] = field(default_factory=Counter)
+    rows_without_url: int = 0  # a post without links, an empty URL field: counted, not rejected
     blank_lines: int = 0
     resumed_after_line: int = 0
     loaded_at: datetime | None = None
@@ -39,7 +40,8 @@ class FileSummary:
         return {"file": self.file, "sha256": self.sha256, "outcome": self.outcome.value, "rows": self.rows,
                 "sightings": self.sightings, "new_raw_urls": self.new_raw_urls,
                 "new_canonical_urls": self.new_canonical_urls, "rejects": self.reject_count,
-                "rejects_by_reason": dict(sorted(self.rejects.items())), "blank_lines": self.blank_lines,
+                "rejects_by_reason": dict(sorted(self.rejects.items())),
+                "rows_without_url": self.rows_without_url, "blank_lines": self.blank_lines,
                 "resumed_after_line": self.resumed_after_line,
                 "loaded_at": self.loaded_at.isoformat() if self.loaded_at else None,
                 "seconds": round(self.seconds, 3)}
@@ -47,6 +49,10 @@ class FileSummary:
 
 def _reasons(counter: Counter[str]) -> str:
     return ", ".join(f"{reason} {n:,}" for reason, n in sorted(counter.items(), key=lambda kv: (-kv[1], kv[0])))
+
+
+def _without_url(n: int) -> str:
+    return f"{n:,} row{'' if n == 1 else 's'} without a URL (counted, not rejected)"
 
 
 @dataclass
@@ -76,6 +82,10 @@ class IngestSummary:
         return self._total("new_canonical_urls")
 
     @property
+    def rows_without_url(self) -> int:
+        return self._total("rows_without_url")
+
+    @property
     def rejects(self) -> Counter[str]:
         total: Counter[str] = Counter()
         for f in self.files:
@@ -91,7 +101,8 @@ class IngestSummary:
         return {"dataset": self.dataset, "run_id": self.run_id, "ruleset_version": self.ruleset_version,
                 "files": [f.as_dict() for f in self.files], "rows": self.rows, "sightings": self.sightings,
                 "new_raw_urls": self.new_raw_urls, "new_canonical_urls": self.new_canonical_urls,
-                "rejects": sum(rejects.values()), "rejects_by_reason": dict(sorted(rejects.items()))}
+                "rejects": sum(rejects.values()), "rejects_by_reason": dict(sorted(rejects.items())),
+                "rows_without_url": self.rows_without_url}
 
     def lines(self) -> list[str]:
         """The summary for a person: one line per file, then the totals."""
@@ -109,6 +120,8 @@ class IngestSummary:
                     f"{f.reject_count:,} rejects")
             if f.rejects:
                 text += f" ({_reasons(f.rejects)})"
+            if f.rows_without_url:
+                text += f", {_without_url(f.rows_without_url)}"
             if f.blank_lines:
                 text += f", {f.blank_lines:,} blank lines skipped"
             out.append(text + f" in {f.seconds:.1f} s")
@@ -119,7 +132,11 @@ class IngestSummary:
         total = (f"total: {self.rows:,} rows, {self.sightings:,} sightings, {self.new_raw_urls:,} new raw URLs, "
                  f"{self.new_canonical_urls:,} new canonical URLs, {sum(rejects.values()):,} rejects")
         if rejects:
-            total += f" ({_reasons(rejects)}); list them with: linkfold rejects --dataset {shlex.quote(self.dataset)}"
+            total += f" ({_reasons(rejects)})"
+        if self.rows_without_url:
+            total += f", {_without_url(self.rows_without_url)}"
+        if rejects:
+            total += f"; list the rejects with: linkfold rejects --dataset {shlex.quote(self.dataset)}"
         out.append(total)
         return out
 

@@ -18,33 +18,41 @@ _ZERO = timedelta(0)
 
 
 class BadTime(ValueError):
-    """The value is not a time we can read; the message says why, for the reject's detail."""
+    """The value is not a time we can read; the message says why, for the reject's detail.
+
+    The message never repeats the value: it is stored in a reject, and a value that is not a time can be
+    any other text of the row (docs/ingest.md, "What is stored").
+    """
 
 
 def _from_epoch(number: float) -> datetime:
     if not math.isfinite(number):
-        raise BadTime(f"{number!r} is not a finite number")
+        raise BadTime("a number that is not finite")
     seconds = number / 1000.0 if abs(number) >= _MS_THRESHOLD else number
     try:
         return _EPOCH + timedelta(seconds=seconds)
     except OverflowError:
-        raise BadTime(f"epoch value {number!r} is out of range") from None
+        raise BadTime("an epoch number out of range") from None
+
+
+def _not_iso(text: str) -> str:
+    return f"a text of {len(text)} characters that is not an ISO 8601 time"
 
 
 def _from_text(text: str) -> datetime:
     try:
         parsed = datetime.fromisoformat(text)
-    except ValueError as exc:
+    except ValueError:
         # RFC 3339 §5.7 allows second 60 for a leap second; datetime does not. POSIX time has no leap
         # seconds either, so 23:59:60 is read as the instant after 23:59:59, the next 00:00:00.
         leap = _LEAP_RE.search(text)
         if not leap:
-            raise BadTime(f"{text!r} is not an ISO 8601 time ({exc})") from None
+            raise BadTime(_not_iso(text)) from None
         fixed = text[:leap.start()] + leap.group(0)[:-2] + "59" + text[leap.end():]
         try:
             parsed = datetime.fromisoformat(fixed) + timedelta(seconds=1)
         except (ValueError, OverflowError):
-            raise BadTime(f"{text!r} is not an ISO 8601 time ({exc})") from None
+            raise BadTime(_not_iso(text)) from None
     if parsed.tzinfo is None:
         # A time without a zone is taken as UTC (documented): guessing a local zone would make the
         # stored value depend on the machine that loaded it.
@@ -52,7 +60,7 @@ def _from_text(text: str) -> datetime:
     try:
         return parsed.astimezone(UTC)
     except OverflowError:
-        raise BadTime(f"{text!r} is out of range once moved to UTC") from None
+        raise BadTime("a time out of range once moved to UTC") from None
 
 
 def parse_time(value: Any) -> datetime:
@@ -61,7 +69,7 @@ def parse_time(value: Any) -> datetime:
     Raises :class:`BadTime` with a reason when the value is none of those.
     """
     if isinstance(value, bool):
-        raise BadTime(f"{value!r} is a boolean, not a time")
+        raise BadTime("a boolean, not a time")
     if isinstance(value, int | float):
         return _from_epoch(float(value))
     if not isinstance(value, str):
