@@ -51,7 +51,7 @@ class Reason:
     INVALID_UTF8 = "invalid_utf8"
     LINE_TOO_LONG = "line_too_long"
     BAD_JSON = "bad_json"
-    NO_URL = "no_url"
+    NO_URL = "no_url"  # no longer written (a row without a URL is counted); older loads hold it
     NOT_TEXT = "not_text"
     CONTROL_CHARS = "control_chars"
     MISSING_KEY = "missing_key"
