@@ -77,12 +77,34 @@ def cli(ctx: click.Context, verbose: int) -> None:
       linkfold --db postgresql+psycopg://lab@dbhost/linkfold db upgrade
     """
     obj = ctx.ensure_object(Context)
-    level = logging.WARNING - 10 * verbose
-    logging.basicConfig(level=max(level, logging.DEBUG), stream=sys.stderr,
-                        format="%(levelname)s %(name)s: %(message)s")
-    if obj.quiet:
-        logging.getLogger("linkfold").setLevel(logging.ERROR)
+    setup_logging(verbose=verbose, quiet=obj.quiet)
     ctx.call_on_close(obj.close)
+
+
+class _StderrHandler(logging.StreamHandler):
+    """The command's one log handler: its own class, so a second invocation in one process (tests, a
+    script calling :func:`main`) replaces it instead of adding another."""
+
+
+def setup_logging(*, verbose: int = 0, quiet: bool = False) -> None:
+    """Log records of every library on stderr: warnings and worse by default, ``-v`` info, ``-vv`` debug.
+
+    ``-q`` (without ``-v``) lets only errors through, whichever library logs them, and Python warnings
+    (``warnings.warn`` in a dependency) go through logging too, so a cron job's mail stays empty unless
+    something is wrong. The level is set on the handler, not on the loggers, so that what other code
+    attached to them (pytest's log capture, a lab's own handler) still sees every record.
+    """
+    level = logging.ERROR if quiet and not verbose else max(logging.WARNING - 10 * verbose, logging.DEBUG)
+    root = logging.getLogger()
+    for old in [h for h in root.handlers if isinstance(h, _StderrHandler)]:
+        root.removeHandler(old)
+    handler = _StderrHandler(sys.stderr)
+    handler.setLevel(level)
+    handler.setFormatter(logging.Formatter("%(levelname)s %(name)s: %(message)s"))
+    root.addHandler(handler)
+    if verbose:
+        root.setLevel(min(root.getEffectiveLevel(), level))
+    logging.captureWarnings(True)
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -278,7 +278,7 @@ def nightly_command(obj: Context, summary_format: str) -> None:
 
     recanonicalize → follow (shortener hosts) → fetch → extract → dedupe. Follow and fetch are skipped
     when no contact is set. A second nightly job started while one runs says who holds the lock and
-    exits with status 8. A killed job is resumed by the next one. Exit status 1 when a stage failed.
+    exits with status 8. A killed job is resumed by the next one. Exit status 10 when a stage failed.
 
     \b
     Example:
@@ -291,8 +291,10 @@ def nightly_command(obj: Context, summary_format: str) -> None:
     for line in summary.lines():
         obj.message(line)
     if not summary.ok:
-        raise StageFailed(f"nightly run {summary.run_id} {summary.status}; see linkfold runs show "
-                           f"{summary.run_id}")
+        # Said even under -q: a cron job's mail must say which stage failed and why.
+        failed = "; ".join(f"{s.name}: {s.reason}" for s in summary.stages if s.status == "failed")
+        raise StageFailed(f"nightly run {summary.run_id} {summary.status}" + (f" ({failed})" if failed else "")
+                          + f"; see linkfold runs show {summary.run_id}")
 
 
 def _run_row(r: dict[str, Any]) -> dict[str, Any]:

@@ -222,9 +222,41 @@ def extract_document(page: Page, *, fetched_at: datetime | None = None, min_word
     )
 
 
+#: The loggers of the extractor and the libraries it calls.
+EXTRACTOR_LOGGERS = ("trafilatura", "htmldate", "courlan", "justext")
+
+
+class _AsDebug(logging.Handler):
+    """Passes the extractor's records on to ``linkfold.extractor`` at debug level.
+
+    trafilatura reports every page it finds no article in ("discarding data", "empty HTML tree") at warning
+    or error level. For us that is an outcome, not a problem: the page gets its ``no_text`` reason, counted
+    in the stage summary, so its messages belong at debug level (``-vv``), never in a cron job's mail.
+    """
+
+    def emit(self, record: logging.LogRecord) -> None:
+        if _EXTRACTOR_LOG.isEnabledFor(logging.DEBUG):
+            _EXTRACTOR_LOG.debug("%s: %s", record.name, record.getMessage())
+
+
+_EXTRACTOR_LOG = logging.getLogger("linkfold.extractor")
+_AS_DEBUG = _AsDebug()
+
+
+def quiet_extractor_logs() -> None:
+    """Route the extractor's log records through :class:`_AsDebug` (idempotent; done at first use)."""
+    for name in EXTRACTOR_LOGGERS:
+        logger = logging.getLogger(name)
+        if _AS_DEBUG not in logger.handlers:
+            logger.addHandler(_AS_DEBUG)
+        logger.propagate = False
+
+
 def _run_trafilatura(tree: Any, url: str, notes: list[str]) -> tuple[Any, bool]:
     """(trafilatura's document or None, whether it failed with an exception)."""
     import trafilatura
+
+    quiet_extractor_logs()
 
     # No max_date: given one, the date search turns a date after it into the first day of its month
     # (2026-09-10 becomes 2026-09-01), a guess that passes any later check. Its default upper bound is

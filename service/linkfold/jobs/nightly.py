@@ -80,9 +80,19 @@ class NightlySummary:
         return out
 
 
+#: Counts by reason that a stage's line shows in full: pages without usable text (extract), URLs that
+#: failed or were refused (follow, fetch), so that a nightly summary says why, not only how many.
+BY_REASON = ("no_text", "failed", "refused")
+
+
 def _brief(counts: dict[str, Any]) -> str:
     flat = [f"{k} {v:,}" for k, v in counts.items() if isinstance(v, int) and not isinstance(v, bool) and v]
-    return ", ".join(flat[:6])
+    parts = [", ".join(flat[:6])] if flat else []
+    for name in BY_REASON:
+        by = counts.get(name)
+        if isinstance(by, dict) and any(by.values()):
+            parts.append(f"{name}: " + ", ".join(f"{k} {v:,}" for k, v in sorted(by.items()) if v))
+    return "; ".join(parts)
 
 
 # --- the stages -----------------------------------------------------------------------------------------------
