@@ -24,6 +24,8 @@ class Setting:
     default: Any
     type: Callable[[str], Any]
     help: str
+    #: Standard environment variables read, in order, when ``LINKFOLD_<NAME>`` is not set.
+    fallback_env: tuple[str, ...] = ()
 
     @property
     def env(self) -> str:
@@ -85,6 +87,11 @@ SETTINGS: tuple[Setting, ...] = (
     Setting("allow_networks", (), _csv,
             "Comma-separated CIDR networks the HTTP client may connect to although they are private, "
             "loopback or reserved (default: none; request-forgery guard)."),
+    Setting("ca_bundle", "", str,
+            "CA certificates (a PEM file, or a directory of them) that HTTPS servers' certificates are "
+            "checked against. Unset: SSL_CERT_FILE or SSL_CERT_DIR from the environment, else the bundled "
+            "Mozilla list (certifi). A server whose certificate fails the check is a tls_certificate failure.",
+            fallback_env=("SSL_CERT_FILE", "SSL_CERT_DIR")),
     Setting("http_timeout", 15.0, _nonneg_float, "Seconds before a single HTTP request is given up."),
     Setting("http_max_bytes", 5_000_000, _positive_int, "Largest response body read, in bytes."),
     Setting("http_concurrency", 16, _positive_int, "Requests in flight at once, all hosts together."),
@@ -171,6 +178,9 @@ def load_settings(overrides: Mapping[str, Any] | None = None,
     values: dict[str, Any] = {}
     for setting in SETTINGS:
         raw = env.get(setting.env)
+        for name in setting.fallback_env:
+            if raw is None and env.get(name):
+                raw = env[name]
         if raw is None:
             values[setting.name] = setting.default
             continue

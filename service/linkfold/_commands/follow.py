@@ -9,9 +9,8 @@ from typing import Any
 import click
 
 from ..dedupe.stage import list_sinks
-from ..follow import follow_links, import_redirects
+from ..follow import follow_links, follow_report, import_redirects
 from ..follow.imports import FORMATS
-from ..store import evidence, registry
 from ._common import Context, common_options, format_option, pass_ctx, to_json, write_jsonl, write_table
 
 #: Problems printed one by one after an import; the rest are counted in the summary.
@@ -35,6 +34,9 @@ def _hosts(value: str | None) -> list[str] | None:
 @click.option("--limit", type=click.IntRange(min=1), metavar="N", help="At most N URLs in this run.")
 @click.option("--retry-failed", is_flag=True,
               help="Follow again the URLs that failed and are due (backoff per failure class).")
+@click.option("--retry-failed-now", is_flag=True,
+              help="Follow again every URL that failed, now, whether it is due or not (after fixing a "
+                   "cause: a CA bundle, a network outage).")
 @click.option("--retry-refused", is_flag=True,
               help="Follow again the URLs that were refused (after changing allow_networks, or when a "
                    "site's robots.txt changed).")
@@ -53,28 +55,32 @@ def _hosts(value: str | None) -> list[str] | None:
 @common_options
 @pass_ctx
 def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_urls: bool, limit: int | None,
-                   retry_failed: bool, retry_refused: bool, import_file: Path | None, import_format: str | None,
-                   short_column: str, expanded_column: str, summary_format: str) -> None:
+                   retry_failed: bool, retry_failed_now: bool, retry_refused: bool, import_file: Path | None,
+                   import_format: str | None, short_column: str, expanded_column: str,
+                   summary_format: str) -> None:
     """Resolve short links and redirect chains; store each hop as a redirect link.
 
     Takes the canonical URLs not yet followed whose host is a shortener (the ruleset's shortener_hosts,
     or --hosts), or every one with --all. HEAD first, GET when a server refuses HEAD; up to max_hops
     redirects; robots.txt honoured for GETs; private and reserved addresses are refused (setting
-    allow_networks), and so are hosts the rules file lists in never_follow_hosts (nothing is sent). Outcomes are stored per URL: resolved, failed (with a class such as dns, timeout,
-    http_4xx, loop) or refused. Needs the contact setting (LINKFOLD_CONTACT).
+    allow_networks), and so are hosts the rules file lists in never_follow_hosts (nothing is sent).
+    Outcomes are stored per URL: resolved, failed (with a class such as dns, timeout, http_4xx, loop) or
+    refused, and the summary says why URLs were refused and which setting would allow them. Needs the
+    contact setting (LINKFOLD_CONTACT).
 
     \b
     Example:
       LINKFOLD_CONTACT=mailto:lab@university.example linkfold follow --dataset posts-2031
       linkfold follow --hosts short.test,go.news.example --limit 500
       linkfold follow --retry-failed
+      LINKFOLD_CA_BUNDLE=/etc/lab/ca.pem linkfold follow --retry-failed-now
       LINKFOLD_ALLOW_NETWORKS=10.20.0.0/16 linkfold follow --retry-refused
       linkfold follow --import expanded-links.csv --short-column link --expanded-column target
     """
     if import_file is not None:
-        if dataset or hosts or all_urls or limit or retry_failed or retry_refused:
+        if dataset or hosts or all_urls or limit or retry_failed or retry_failed_now or retry_refused:
             raise click.UsageError("--import reads pairs from a file; it takes none of --dataset, --hosts, "
-                                   "--all, --limit, --retry-failed, --retry-refused")
+                                   "--all, --limit, --retry-failed, --retry-failed-now, --retry-refused")
         summary = import_redirects(obj.engine(), import_file, fmt=import_format, short_column=short_column,
                                    expanded_column=expanded_column, batch_size=obj.settings.batch_size,
                                    progress=obj.progress())
@@ -92,11 +98,11 @@ def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_url
         raise click.UsageError("--format applies to --import only")
     if all_urls and hosts:
         raise click.UsageError("give --all or --hosts, not both")
-    if retry_failed and retry_refused:
-        raise click.UsageError("give --retry-failed or --retry-refused, not both")
+    if sum([retry_failed, retry_failed_now, retry_refused]) > 1:
+        raise click.UsageError("give one of --retry-failed, --retry-failed-now, --retry-refused")
     result = follow_links(obj.engine(), settings=obj.settings, dataset=dataset, hosts=_hosts(hosts),
-                          all_urls=all_urls, limit=limit, retry_failed=retry_failed,
-                          retry_refused=retry_refused, progress=obj.progress())
+                          all_urls=all_urls, limit=limit, retry_failed=retry_failed or retry_failed_now,
+                          due_only=not retry_failed_now, retry_refused=retry_refused, progress=obj.progress())
     if summary_format == "json":
         click.echo(to_json(result.as_dict()))
     for line in result.lines():
@@ -120,14 +126,17 @@ def _sink_rows(sinks: list[Any]) -> list[Mapping[str, Any]]:
 @common_options
 @pass_ctx
 def follow_report_command(obj: Context, dataset: str | None, sinks_only: bool, fmt: str) -> None:
-    """How the links followed so far ended: resolved, failed by class, refused, and the dead share; then
-    the sinks the links lead to.
+    """How following went for the links a dataset holds: resolved, failed by class, refused by reason, and
+    the dead share; then the sinks the links lead to.
 
-    One row per state and failure class. The dead share is failed / (resolved + failed): refused URLs
-    were never asked, so nothing is known about them. A sink is a target that is no article (a home page,
-    a page the site rules call no article, a never_article_hosts URL) or that more than sink_fan_in URLs
-    lead to (a subscribe page behind every ad click): its links are kept as evidence but join nothing.
-    The table shows the largest sinks by fan-in under the outcomes; --sinks lists them all.
+    Counts the distinct canonical URLs the dataset sighted (every dataset's without --dataset), not the
+    URLs that redirect chains passed through. One row per state, failure class and refusal reason, and
+    one for the links not followed yet; the rows add up to the links held. The dead share is failed /
+    (resolved + failed): refused URLs were never asked. Each refusal reason is explained on stderr with
+    the setting that would allow it. A sink is a target that is no article (a home page, a page the site
+    rules call no article, a never_article_hosts URL) or that more than sink_fan_in URLs lead to (a
+    subscribe page behind every ad click): its links are kept as evidence but join nothing. The table
+    shows the largest sinks by fan-in under the outcomes; --sinks lists them all.
 
     \b
     Example:
@@ -144,25 +153,17 @@ def follow_report_command(obj: Context, dataset: str | None, sinks_only: bool, f
                                             "top_host_sources"])
         obj.message(f"{len(sinks):,} sink(s): their links are kept as evidence, never used to join")
         return
-    with obj.engine().connect() as conn:
-        dataset_id = registry.get_dataset(conn, dataset)["id"] if dataset else None
-        totals = evidence.follow_totals(conn, dataset_id=dataset_id)
-    rows: list[Mapping[str, Any]] = [{"state": "resolved", "failure": None, "urls": totals["resolved"]}]
-    for state in ("failed", "refused"):
-        rows += [{"state": state, "failure": k, "urls": v} for k, v in sorted(totals.get(state, {}).items())]
-    failed = sum(totals.get("failed", {}).values())
-    answered = totals["resolved"] + failed
-    share = failed / answered if answered else None
+    report = follow_report(obj.engine(), dataset=dataset)
     if fmt == "jsonl":
-        write_jsonl(rows)
+        write_jsonl(report.rows())
     else:
-        write_table(rows, ["state", "failure", "urls"])
+        write_table(report.rows(), ["state", "failure", "reason", "urls"])
         if sinks:
             click.echo(f"\nsinks, largest fan-in first ({min(len(sinks), SHOWN_SINKS)} of {len(sinks):,}; "
                        "--sinks lists all):")
             write_table(_sink_rows(sinks[:SHOWN_SINKS]), ["url", "sink", "fan_in", "sources", "top_source_host"])
-    obj.message(f"{answered + sum(totals.get('refused', {}).values()):,} URLs followed; dead share: "
-                + (f"{100 * share:.1f}%" if share is not None else "n/a (none followed)"))
+    for line in report.lines():
+        obj.message(line)
     if sinks:
         obj.message(f"{len(sinks):,} sink(s) among their targets (kept as evidence, never used to join); "
                     "linkfold follow-report --sinks lists them")

@@ -3,6 +3,7 @@
 * :func:`follow_links` — the ``linkfold follow`` stage: follow pending canonical URLs, store each
   redirect hop as a ``redirect`` link and each URL's outcome (resolved / failed / refused).
 * :func:`import_redirects` — ``linkfold follow --import``: (short, expanded) pairs from a file.
+* :func:`follow_report` — ``linkfold follow-report``: outcomes of the links a dataset holds, dead share.
 * :class:`SafeClient` — the HTTP client shared with page fetching: request-forgery guard, caps,
   per-host politeness, robots.txt, retries. See docs/following.md.
 """
@@ -13,6 +14,7 @@ from .chain import Chain, Hop, State, follow_chain
 from .client import ClientConfig, Failure, FetchError, Reply, SafeClient
 from .guard import AddressGuard, AddressRefused, ResolveFailed, StaticResolver, system_resolver
 from .imports import ImportSummary, import_redirects
+from .report import FollowReport, explain_refusal, follow_report
 from .stage import FollowSummary, follow_links, next_attempt
 
 __all__ = [
@@ -22,6 +24,7 @@ __all__ = [
     "ClientConfig",
     "Failure",
     "FetchError",
+    "FollowReport",
     "FollowSummary",
     "Hop",
     "ImportSummary",
@@ -30,8 +33,10 @@ __all__ = [
     "SafeClient",
     "State",
     "StaticResolver",
+    "explain_refusal",
     "follow_chain",
     "follow_links",
+    "follow_report",
     "import_redirects",
     "next_attempt",
     "system_resolver",

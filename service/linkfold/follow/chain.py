@@ -64,6 +64,7 @@ class Chain:
     detail: str | None = None
     status: int | None = None  # HTTP status of the last answer, when there was one
     retry_after: float | None = None  # seconds the server asked us to wait (429/503)
+    reason: str | None = None  # a refusal's stable key (FetchError.reason)
     requests: int = 0
     at: datetime = field(default_factory=lambda: datetime.now(UTC))
 
@@ -131,9 +132,10 @@ async def follow_chain(client: SafeClient, start: str, *, max_hops: int,
     began = now()
 
     def stop(state: State, failure: Failure | None, detail: str | None, *, final: str,
-             status: int | None = None, retry_after: float | None = None) -> Chain:
+             status: int | None = None, retry_after: float | None = None, reason: str | None = None) -> Chain:
         return Chain(start=start, state=state, final_url=final, hops=tuple(hops), failure=failure,
-                     detail=detail, status=status, retry_after=retry_after, requests=requests, at=began)
+                     detail=detail, status=status, retry_after=retry_after, reason=reason, requests=requests,
+                     at=began)
 
     while True:
         why = never_follow(url) if never_follow is not None else None
@@ -143,7 +145,7 @@ async def follow_chain(client: SafeClient, start: str, *, max_hops: int,
             reply, made = await _ask(client, url)
         except FetchError as exc:
             state = State.REFUSED if exc.failure in REFUSALS else State.FAILED
-            return stop(state, exc.failure, exc.detail, final=url)
+            return stop(state, exc.failure, exc.detail, final=url, reason=exc.reason)
         requests += made
         status = reply.status
         if status in REDIRECT_STATUSES:

@@ -24,6 +24,7 @@ import asyncio
 import contextlib
 import email.utils
 import logging
+import os
 import random
 import ssl
 import time
@@ -73,7 +74,8 @@ class Failure(StrEnum):
     DNS = "dns"                      # the name does not resolve
     CONNECT = "connect"              # connection refused, reset, or broken mid-response
     TIMEOUT = "timeout"              # no complete answer within http_timeout
-    TLS = "tls"                      # certificate or TLS handshake failure
+    TLS = "tls"                      # TLS handshake failure (protocol, cipher, a connection cut in it)
+    TLS_CERTIFICATE = "tls_certificate"  # the server's certificate failed the check (issuer, name, dates)
     PROTOCOL = "protocol"            # the server did not speak valid HTTP/1.1
     TOO_LARGE = "too_large"          # the body is over http_max_bytes
     REFUSED = "refused"              # the request-forgery guard refused the address
@@ -93,13 +95,17 @@ TRANSIENT = frozenset({Failure.CONNECT, Failure.TIMEOUT})
 
 
 class FetchError(Exception):
-    """One request failed; ``failure`` is the stored class, ``detail`` a short text for people."""
+    """One request failed; ``failure`` is the stored class, ``detail`` a short text for people, and
+    ``reason`` a stable key for a refusal (``private``, ``loopback`` … from the guard, ``robots_file``,
+    ``robots_unavailable``), so refusals can be counted and explained (:func:`explain_refusal`)."""
 
-    def __init__(self, failure: Failure, detail: str, *, url: str | None = None) -> None:
+    def __init__(self, failure: Failure, detail: str, *, url: str | None = None,
+                 reason: str | None = None) -> None:
         super().__init__(f"{failure.value}: {detail}")
         self.failure = failure
         self.detail = detail
         self.url = url
+        self.reason = reason
 
 
 @dataclass(frozen=True)
@@ -115,6 +121,7 @@ class ClientConfig:
     retries: int = 3
     max_wait: float = 60.0
     allow_networks: tuple[str, ...] = ()
+    ca_bundle: str = ""
 
     @classmethod
     def from_settings(cls, settings: Any) -> ClientConfig:
@@ -122,7 +129,7 @@ class ClientConfig:
                    max_bytes=settings.http_max_bytes, concurrency=settings.http_concurrency,
                    host_concurrency=settings.http_host_concurrency, host_delay=settings.http_host_delay,
                    retries=max(0, settings.http_retries), max_wait=settings.http_max_wait,
-                   allow_networks=tuple(settings.allow_networks))
+                   allow_networks=tuple(settings.allow_networks), ca_bundle=settings.ca_bundle or "")
 
     def check(self) -> None:
         """Refuse to make requests without a way for site operators to reach the lab."""
@@ -131,6 +138,25 @@ class ClientConfig:
                               "so site operators can reach the lab",
                               hint="set LINKFOLD_CONTACT=mailto:lab@university.example (or a web page)")
         parse_networks(self.allow_networks)
+        self.ssl_context()  # a CA bundle that cannot be read is a configuration error, before any request
+
+    def ssl_context(self) -> ssl.SSLContext:
+        """The context every HTTPS connection verifies with: the ``ca_bundle`` setting (which defaults to
+        the standard ``SSL_CERT_FILE`` / ``SSL_CERT_DIR``), else the bundled Mozilla list (certifi)."""
+        path = self.ca_bundle.strip()
+        if not path:
+            # trust_env=False: the environment is read once, by the settings, not again behind their back.
+            return httpx.create_ssl_context(trust_env=False)
+        hint = "set ca_bundle (LINKFOLD_CA_BUNDLE) or SSL_CERT_FILE to a PEM file of CA certificates"
+        if not os.path.exists(path):
+            raise ConfigError(f"ca_bundle: {path} does not exist", hint=hint)
+        try:
+            if os.path.isdir(path):
+                return ssl.create_default_context(capath=path)
+            return ssl.create_default_context(cafile=path)
+        except (ssl.SSLError, OSError) as exc:
+            raise ConfigError(f"ca_bundle: {path} holds no CA certificate that can be read ({exc})",
+                              hint=hint) from None
 
     @property
     def user_agent(self) -> str:
@@ -248,9 +274,10 @@ class _ResponseStream(httpx.AsyncByteStream):
 class GuardedTransport(httpx.AsyncBaseTransport):
     """An httpx transport over an httpcore pool whose every connection passes :class:`GuardedBackend`."""
 
-    def __init__(self, backend: GuardedBackend, *, max_connections: int) -> None:
+    def __init__(self, backend: GuardedBackend, *, max_connections: int,
+                 ssl_context: ssl.SSLContext | None = None) -> None:
         self._pool = httpcore.AsyncConnectionPool(
-            ssl_context=httpx.create_ssl_context(trust_env=False),
+            ssl_context=ssl_context or httpx.create_ssl_context(trust_env=False),
             max_connections=max_connections,
             max_keepalive_connections=max_connections,
             keepalive_expiry=5.0,
@@ -310,15 +337,20 @@ def backoff_delay(attempt: int, *, base: float = BACKOFF_BASE, cap: float = 60.0
     return step / 2 + rand() * step / 2
 
 
-def _is_tls(exc: BaseException) -> bool:
+def _tls_failure(exc: BaseException) -> Failure | None:
+    """``TLS_CERTIFICATE`` when a certificate check failed anywhere in the exception's chain, ``TLS`` for
+    any other TLS error, else None."""
     seen: set[int] = set()
     cur: BaseException | None = exc
+    found = None
     while cur is not None and id(cur) not in seen:
-        if isinstance(cur, ssl.SSLError | ssl.CertificateError):
-            return True
+        if isinstance(cur, ssl.SSLCertVerificationError | ssl.CertificateError):
+            return Failure.TLS_CERTIFICATE
+        if isinstance(cur, ssl.SSLError):
+            found = Failure.TLS
         seen.add(id(cur))
         cur = cur.__cause__ or cur.__context__
-    return False
+    return found
 
 
 def classify(exc: BaseException, url: str) -> FetchError:
@@ -326,13 +358,17 @@ def classify(exc: BaseException, url: str) -> FetchError:
     if isinstance(exc, FetchError):
         return exc
     if isinstance(exc, AddressRefused):
-        return FetchError(Failure.REFUSED, str(exc), url=url)
+        return FetchError(Failure.REFUSED, str(exc), url=url, reason=exc.kind)
     if isinstance(exc, ResolveFailed):
         return FetchError(Failure.DNS, str(exc), url=url)
     if isinstance(exc, TimeoutError | httpx.TimeoutException):
         return FetchError(Failure.TIMEOUT, f"no complete answer in time ({type(exc).__name__})", url=url)
-    if _is_tls(exc):
-        return FetchError(Failure.TLS, str(exc) or type(exc).__name__, url=url)
+    tls = _tls_failure(exc)
+    if tls is Failure.TLS_CERTIFICATE:
+        return FetchError(tls, f"{exc or type(exc).__name__} (a private or lab CA: set ca_bundle, "
+                               "LINKFOLD_CA_BUNDLE, or SSL_CERT_FILE)", url=url)
+    if tls is not None:
+        return FetchError(tls, str(exc) or type(exc).__name__, url=url)
     if isinstance(exc, httpx.ProtocolError):
         return FetchError(Failure.PROTOCOL, str(exc) or type(exc).__name__, url=url)
     if isinstance(exc, httpx.UnsupportedProtocol | httpx.InvalidURL):
@@ -372,7 +408,8 @@ class SafeClient:
         # (state we must not keep from untrusted sites, and personal data besides) and, even with
         # redirects off, parses every Location eagerly, so a Location it cannot parse (``mailto:x@y``)
         # raises after the response arrived and leaves it unclosed (httpx 0.28).
-        self._transport = GuardedTransport(self.backend, max_connections=config.concurrency)
+        self._transport = GuardedTransport(self.backend, max_connections=config.concurrency,
+                                           ssl_context=config.ssl_context())
         self._headers = {"User-Agent": config.user_agent, "Accept": "*/*",
                          "Accept-Encoding": "gzip, deflate"}
         self._timeouts = httpx.Timeout(config.timeout).as_dict()
@@ -529,7 +566,8 @@ class SafeClient:
         rules = await self.robots_rules(url)
         if not rules.allows(httpx.URL(url).raw_path.decode("ascii")):
             why = "disallows this URL for linkfold" if rules.basis == "file" else rules.basis
-            raise FetchError(Failure.ROBOTS, f"{context}robots.txt {why}", url=url)
+            raise FetchError(Failure.ROBOTS, f"{context}robots.txt {why}", url=url,
+                             reason="robots_file" if rules.basis == "file" else "robots_unavailable")
 
     async def _fetch_robots(self, origin: str) -> RobotRules:
         """RFC 9309 §2.3.1: 2xx parse, 4xx allow all, 5xx or unreachable disallow all."""

@@ -51,13 +51,20 @@ _NAT64 = ipaddress.ip_network("64:ff9b::/96")  # RFC 6052 well-known prefix
 
 
 class AddressRefused(Exception):
-    """The guard refused to connect; raised before any socket is opened."""
+    """The guard refused to connect; raised before any socket is opened.
+
+    ``reason`` is for people (``private (embedded in ::ffff:10.0.0.5)``); ``kind`` is its stable key
+    (``private``, ``loopback``, ``link-local`` …, ``not_an_address``), stored with the outcome.
+    """
 
     def __init__(self, host: str, address: str, reason: str) -> None:
-        super().__init__(f"{host} -> {address} is {reason}; refused by the request-forgery guard")
+        super().__init__(f"{host} -> {address} is {reason}; refused by the request-forgery guard "
+                         "(setting allow_networks)")
         self.host = host
         self.address = address
         self.reason = reason
+        kind = reason.split(" (", 1)[0]
+        self.kind = kind if " " not in kind else "not_an_address"
 
 
 class ResolveFailed(Exception):

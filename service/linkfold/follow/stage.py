@@ -44,13 +44,14 @@ from ..store.rulesets import latest_ruleset
 from .chain import Chain, State, follow_chain
 from .client import ClientConfig, Failure, SafeClient
 from .guard import Resolver
+from .report import explain_refusal
 from .runner import request_url, run_requests
 
 log = logging.getLogger("linkfold")
 
 #: Failure classes that usually pass by themselves; retried sooner (see :func:`next_attempt`).
 PASSING = frozenset({Failure.DNS, Failure.CONNECT, Failure.TIMEOUT, Failure.TLS, Failure.PROTOCOL,
-                     Failure.HTTP_5XX})
+                     Failure.HTTP_5XX})  # tls_certificate is not: a certificate is fixed by a person
 RETRY_FIRST_PASSING = timedelta(hours=1)
 RETRY_FIRST_LASTING = timedelta(days=1)
 RETRY_CAP_PASSING = timedelta(days=30)
@@ -83,6 +84,7 @@ class FollowSummary:
     resolved: int = 0
     failed: Counter[str] = field(default_factory=Counter)
     refused: Counter[str] = field(default_factory=Counter)
+    refusals: Counter[str] = field(default_factory=Counter)  # refused URLs by reason (private, robots_file …)
     skipped: int = 0  # URLs that could not be fetched at all (no http(s) form to request)
     links: int = 0
     same_url_hops: int = 0
@@ -103,7 +105,8 @@ class FollowSummary:
 
     def as_dict(self) -> dict[str, Any]:
         return {"selected": self.selected, "resolved": self.resolved, "failed": dict(sorted(self.failed.items())),
-                "refused": dict(sorted(self.refused.items())), "skipped": self.skipped, "links": self.links,
+                "refused": dict(sorted(self.refused.items())), "refusals": dict(sorted(self.refusals.items())),
+                "skipped": self.skipped, "links": self.links,
                 "same_url_hops": self.same_url_hops, "hop_errors": self.hop_errors, "requests": self.requests,
                 "dead_share": self.dead_share, "run_id": self.run_id}
 
@@ -116,6 +119,8 @@ class FollowSummary:
         out.append(f"  resolved: {self.resolved:,}")
         out.append(f"  failed:   {sum(self.failed.values()):,}" + _by_class(self.failed))
         out.append(f"  refused:  {sum(self.refused.values()):,}" + _by_class(self.refused))
+        for reason, n in sorted(self.refusals.items(), key=lambda kv: -kv[1]):
+            out.append(f"    {n:,}  {explain_refusal(reason)}")
         if self.skipped:
             out.append(f"  skipped:  {self.skipped:,} (no fetchable http(s) URL)")
         out.append(f"  redirect links written: {self.links:,}"
@@ -244,6 +249,7 @@ class _Writer:
             s.resolved += 1
         elif chain.state is State.REFUSED:
             s.refused[chain.failure.value if chain.failure else "unknown"] += 1
+            s.refusals[chain.reason or "unknown"] += 1
         else:
             s.failed[chain.failure.value if chain.failure else "unknown"] += 1
         due = None
@@ -254,7 +260,7 @@ class _Writer:
         return ev.Outcome(canonical_id=item.canonical_id, state=chain.state.value, via="fetched", at=chain.at,
                           failure=chain.failure.value if chain.failure else None, http_status=chain.status,
                           final_id=final.canonical_id if final else None, hops=len(chain.hops),
-                          next_attempt_at=due, detail=chain.detail)
+                          next_attempt_at=due, detail=chain.detail, reason=chain.reason)
 
     def _learned(self, chain: Chain, ids: dict[str, ev.UrlIds]) -> list[ev.Outcome]:
         """Outcomes for the other URLs a chain requested: where the start led, they lead too.
@@ -276,14 +282,14 @@ class _Writer:
                 out.append(ev.Outcome(canonical_id=got.canonical_id, state=chain.state.value, via="chain",
                                       at=chain.at, failure=chain.failure.value if chain.failure else None,
                                       http_status=chain.status, final_id=final.canonical_id if final else None,
-                                      hops=left, detail=chain.detail))
+                                      hops=left, detail=chain.detail, reason=chain.reason))
         return out
 
 
 def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
                  hosts: Iterable[str] | None = None, all_urls: bool = False, limit: int | None = None,
-                 retry_failed: bool = False, retry_refused: bool = False, resolver: Resolver | None = None,
-                 progress: Progress = SILENT,
+                 retry_failed: bool = False, retry_refused: bool = False, due_only: bool = True,
+                 resolver: Resolver | None = None, progress: Progress = SILENT,
                  now: datetime | None = None,
                  backend: httpcore.AsyncNetworkBackend | None = None,
                  parent_id: int | None = None) -> FollowSummary:
@@ -291,14 +297,17 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
 
     Which URLs: without ``all_urls``, those on ``hosts`` or, when ``hosts`` is not given, on the
     ruleset's shortener hosts; with ``all_urls``, every URL. Then only those never followed, or with
-    ``retry_failed`` only the failed ones that are due (``now`` overrides the clock for that choice), or
-    with ``retry_refused`` only the refused ones.
+    ``retry_failed`` only the failed ones that are due (``now`` overrides the clock for that choice; with
+    ``due_only=False`` every failed one, now, whatever its schedule), or with ``retry_refused`` only the
+    refused ones.
     ``resolver`` and ``backend`` replace DNS and the socket layer (tests, lab pinning).
     """
     if all_urls and hosts:
         raise ConfigError("give either --all or --hosts, not both")
     if retry_failed and retry_refused:
         raise ConfigError("give either --retry-failed or --retry-refused, not both")
+    if not due_only and not retry_failed:
+        raise ConfigError("retrying now applies to failed URLs only (--retry-failed-now)")
     if limit is not None and limit <= 0:
         raise ConfigError(f"--limit must be a positive number (got {limit})")
     config = ClientConfig.from_settings(settings)
@@ -318,7 +327,7 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
                 summary.note = ("the ruleset lists no shortener hosts: add them to shortener_hosts in the "
                                 "rules file, or pass --hosts, or --all")
         items = ev.select_pending(conn, hosts=chosen, dataset_id=dataset_id, retry_failed=retry_failed,
-                                  retry_refused=retry_refused, now=now, limit=limit)
+                                  retry_refused=retry_refused, now=now, limit=limit, due_only=due_only)
     summary.selected = len(items)
     if not items:
         return summary

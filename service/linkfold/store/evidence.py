@@ -218,6 +218,7 @@ class Outcome:
     hops: int | None = None
     next_attempt_at: datetime | None = None
     detail: str | None = None
+    reason: str | None = None  # a refusal's stable key (private, loopback …, robots_file)
 
 
 def record_outcomes(conn: Connection, outcomes: Sequence[Outcome], *, run_id: int | None,
@@ -246,7 +247,7 @@ def record_outcomes(conn: Connection, outcomes: Sequence[Outcome], *, run_id: in
     for cid, o in latest.items():
         values = {"state": o.state, "failure": o.failure, "http_status": o.http_status, "final_id": o.final_id,
                   "hops": o.hops, "via": o.via, "last_attempt_at": o.at, "next_attempt_at": o.next_attempt_at,
-                  "run_id": run_id}
+                  "run_id": run_id, "reason": o.reason}
         if cid not in existing:
             inserts.append({"canonical_id": cid, "attempts": 0 if replace == "learned" else 1,
                             "first_attempt_at": o.at, **values})
@@ -292,14 +293,15 @@ class Pending:
 
 
 def _pending_where(q: sa.Select, *, hosts: Iterable[str] | None, dataset_id: int | None, retry_failed: bool,
-                   retry_refused: bool, now: datetime | None) -> sa.Select | None:
+                   retry_refused: bool, now: datetime | None, due_only: bool = True) -> sa.Select | None:
     """``q`` (over canonical_urls outer-joined to follow_results) narrowed to the pending URLs; None when
     ``hosts`` is empty, so nothing can be pending."""
     c, fr, r = t.canonical_urls, t.follow_results, t.raw_urls
     if retry_failed:
-        due = now or datetime.now(UTC)
         # URLs that only inherited a failure from another URL's chain are settled when that URL is retried.
-        q = q.where(fr.c.state == "failed", fr.c.via != "chain", fr.c.next_attempt_at <= due)
+        q = q.where(fr.c.state == "failed", fr.c.via != "chain")
+        if due_only:
+            q = q.where(fr.c.next_attempt_at <= (now or datetime.now(UTC)))
     elif retry_refused:
         q = q.where(fr.c.state == "refused", fr.c.via != "chain")
     else:
@@ -318,12 +320,12 @@ def _pending_where(q: sa.Select, *, hosts: Iterable[str] | None, dataset_id: int
 
 def select_pending(conn: Connection, *, hosts: Iterable[str] | None, dataset_id: int | None = None,
                    retry_failed: bool = False, retry_refused: bool = False, now: datetime | None = None,
-                   limit: int | None = None) -> list[Pending]:
+                   limit: int | None = None, due_only: bool = True) -> list[Pending]:
     """Canonical URLs to follow, oldest first.
 
     Without ``retry_failed``: those never followed. With it: those whose own last outcome is ``failed``
-    and whose ``next_attempt_at`` has passed. ``hosts`` (canonical host names) restricts the choice; ``None``
-    means every host. ``dataset_id`` keeps URLs sighted in that dataset.
+    and, unless ``due_only`` is false, whose ``next_attempt_at`` has passed. ``hosts`` (canonical host
+    names) restricts the choice; ``None`` means every host. ``dataset_id`` keeps URLs sighted in that dataset.
     """
     c, fr, r = t.canonical_urls, t.follow_results, t.raw_urls
     first_raw = (sa.select(r.c.raw).where(r.c.canonical_id == c.c.id).order_by(r.c.id).limit(1)
@@ -331,7 +333,7 @@ def select_pending(conn: Connection, *, hosts: Iterable[str] | None, dataset_id:
     base = sa.select(c.c.id, c.c.url, first_raw.label("raw")).select_from(
         c.outerjoin(fr, fr.c.canonical_id == c.c.id))
     q = _pending_where(base, hosts=hosts, dataset_id=dataset_id, retry_failed=retry_failed,
-                       retry_refused=retry_refused, now=now)
+                       retry_refused=retry_refused, now=now, due_only=due_only)
     if q is None:
         return []
     q = q.order_by(c.c.id)
@@ -351,19 +353,35 @@ def count_pending(conn: Connection, *, hosts: Iterable[str] | None, dataset_id: 
 
 
 def follow_totals(conn: Connection, *, dataset_id: int | None = None) -> dict[str, Any]:
-    """Counts of follow outcomes by state and failure class (optionally for one dataset's URLs)."""
-    fr, r = t.follow_results, t.raw_urls
-    q = sa.select(fr.c.state, fr.c.failure, sa.func.count()).group_by(fr.c.state, fr.c.failure)
+    """Follow outcomes of the canonical URLs that datasets hold (one dataset's, or any dataset's).
+
+    Counts the URLs sighted, not every URL with an outcome: the URLs that chains passed through or ended
+    at are outcomes too (``via = chain``), but no dataset held them unless one sighted them as well.
+    Returns ``held`` (distinct canonical URLs sighted), ``resolved``, ``failed`` and ``refused`` by class,
+    and ``refusals`` by reason (``None`` for a refusal stored before reasons were).
+    """
+    fr, r, s = t.follow_results, t.raw_urls, t.sightings
     if dataset_id is not None:
-        sighted = (sa.select(r.c.canonical_id).select_from(r.join(t.sightings, t.sightings.c.raw_url_id == r.c.id))
-                   .where(t.sightings_in_dataset(dataset_id)))
-        q = q.where(fr.c.canonical_id.in_(sighted))
-    out: dict[str, Any] = {"resolved": 0, "failed": {}, "refused": {}}
-    for state, failure, n in conn.execute(q):
+        sighted = (sa.select(r.c.canonical_id).select_from(r.join(s, s.c.raw_url_id == r.c.id))
+                   .where(r.c.canonical_id.is_not(None), t.sightings_in_dataset(dataset_id)))
+    else:
+        # Every raw URL once, with an index probe into the sightings, rather than every sighting.
+        sighted = sa.select(r.c.canonical_id).where(
+            r.c.canonical_id.is_not(None), sa.exists().where(s.c.raw_url_id == r.c.id))
+    held_ids = sighted.distinct().subquery()
+    held = int(conn.execute(sa.select(sa.func.count()).select_from(held_ids)).scalar_one())
+    q = (sa.select(fr.c.state, fr.c.failure, fr.c.reason, sa.func.count())
+         .select_from(fr.join(held_ids, held_ids.c.canonical_id == fr.c.canonical_id))
+         .group_by(fr.c.state, fr.c.failure, fr.c.reason))
+    out: dict[str, Any] = {"held": held, "resolved": 0, "failed": {}, "refused": {}, "refusals": {}}
+    for state, failure, reason, n in conn.execute(q):
         if state == "resolved":
             out["resolved"] += int(n)
-        else:
-            out.setdefault(state, {})[failure or "unknown"] = int(n)
+            continue
+        by_class = out.setdefault(state, {})
+        by_class[failure or "unknown"] = by_class.get(failure or "unknown", 0) + int(n)
+        if state == "refused":
+            out["refusals"][reason] = out["refusals"].get(reason, 0) + int(n)
     return out
 
 

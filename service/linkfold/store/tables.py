@@ -229,6 +229,8 @@ follow_results = sa.Table(
     sa.Column("last_attempt_at", UTC, nullable=False),
     sa.Column("next_attempt_at", UTC, nullable=True),  # when --retry-failed may try again
     sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
+    # Why a URL was refused, as a stable key (private, loopback …, robots_file; migration 0016).
+    sa.Column("reason", sa.String(40), nullable=True),
     sa.Index("ix_follow_results_state_next", "state", "next_attempt_at"),
     sa.Index("ix_follow_results_final_id", "final_id"),  # which links lead to a URL (store/finals.py; 0012)
 )
