@@ -201,4 +201,5 @@ def load_settings(overrides: Mapping[str, Any] | None = None,
 
 def describe_settings() -> list[dict[str, Any]]:
     """The table as plain rows, for ``linkfold settings`` and the docs."""
-    return [{"name": s.name, "env": s.env, "default": s.default, "help": s.help} for s in SETTINGS]
+    return [{"name": s.name, "env": s.env, "default": s.default, "help": s.help,
+             "fallback_env": list(s.fallback_env)} for s in SETTINGS]

@@ -82,7 +82,7 @@ class NightlySummary:
 
 #: Counts by reason that a stage's line shows in full: pages without usable text (extract), URLs that
 #: failed or were refused (follow, fetch), so that a nightly summary says why, not only how many.
-BY_REASON = ("no_text", "failed", "refused")
+BY_REASON = ("no_text", "failed", "refused", "refusals")
 
 
 def _brief(counts: dict[str, Any]) -> str:
