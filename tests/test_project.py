@@ -44,9 +44,10 @@ def test_demo_runs_in_a_fresh_folder(tmp_path):
     assert proc.returncode == 0, proc.stderr
     assert "registry:" in proc.stdout
     assert (tmp_path / "d" / "demo.db").is_file()
-    # The two invented dumps are loaded; the three bad rows the panel carries are rejects, not losses.
+    # The two invented dumps are loaded; the two bad URLs the panel carries are rejects, not losses, and
+    # its row without a URL is counted, not rejected.
     assert "dataset 'northvale-panel'" in proc.stdout and "dataset 'northvale-posts'" in proc.stdout
-    assert "rejects 3" in proc.stdout
+    assert "rejects 2" in proc.stdout and "1 row without a URL" in proc.stdout
     # Variants of one article fold onto one canonical URL.
     canon = [ln.split("-> ", 1)[1].split(" (", 1)[0] for ln in proc.stdout.splitlines() if "-> " in ln]
     assert len(canon) == 3 and canon[0] == canon[1]
