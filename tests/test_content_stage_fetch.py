@@ -153,7 +153,8 @@ def test_robots_disallow_is_a_refusal(engine, db_url, server, panel):
     server.robots_status = 200
     server.robots_text = "User-agent: *\nAllow: /final\nDisallow: /final/story\n"
     summary = run(engine, db_url, only_articles=True)
-    assert dict(summary.refused) == {"robots": 1}
+    assert dict(summary.refused) == {"robots": 1} and dict(summary.refusals) == {"robots_file": 1}
+    assert "no setting overrides a site's robots.txt" in "\n".join(summary.lines())
     assert "/final/story-1" not in server.paths("GET")
     with engine.connect() as conn:
         r = sp.fetch_result(conn, cid(conn, panel["story"]))

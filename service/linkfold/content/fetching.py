@@ -36,6 +36,7 @@ from ..errors import ConfigError, InvalidURL
 from ..follow.chain import REFUSALS, Hop, decode_location, next_url
 from ..follow.client import REDIRECT_STATUSES, ClientConfig, Failure, FetchError, Reply, SafeClient, classify
 from ..follow.guard import AddressRefused, ResolveFailed, Resolver, literal_address
+from ..follow.report import explain_refusal
 from ..follow.runner import request_url, run_requests
 from ..follow.stage import never_follow_check, next_attempt
 from ..jobs.runlog import recording_run
@@ -71,6 +72,7 @@ class Fetched:
     reply: Reply | None = None
     requests: int = 0
     at: datetime = field(default_factory=lambda: datetime.now(UTC))
+    reason: str | None = None  # a refusal's stable key (FetchError.reason)
 
 
 def _defragment(url: str) -> str:
@@ -107,10 +109,10 @@ async def fetch_one(client: SafeClient, start: str, *, max_hops: int,
     began = now()
 
     def stop(state: str, failure: Failure | None, detail: str | None, *, final: str, status: int | None = None,
-             retry_after: float | None = None, reply: Reply | None = None) -> Fetched:
+             retry_after: float | None = None, reply: Reply | None = None, reason: str | None = None) -> Fetched:
         return Fetched(start=start, state=state, final_url=final, hops=tuple(hops), failure=failure,
                        detail=detail, status=status, retry_after=retry_after, reply=reply, requests=requests,
-                       at=began)
+                       at=began, reason=reason)
 
     while True:
         why = never_follow(url) if never_follow is not None else None
@@ -119,10 +121,11 @@ async def fetch_one(client: SafeClient, start: str, *, max_hops: int,
         try:
             if not await client.robots_allows(url):
                 await _guard_check(client, url)  # a refused address is "refused", not a robots verdict
-                raise FetchError(Failure.ROBOTS, "robots.txt disallows this URL for linkfold", url=url)
+                await client.require_robots(url)  # raises, saying whether the file or its absence said no
             reply = await client.request("GET", url, truncate=True)
         except FetchError as exc:
-            return stop("refused" if exc.failure in REFUSALS else "failed", exc.failure, exc.detail, final=url)
+            return stop("refused" if exc.failure in REFUSALS else "failed", exc.failure, exc.detail, final=url,
+                        reason=exc.reason)
         except httpx.InvalidURL as exc:
             return stop("failed", Failure.BAD_URL, str(exc), final=url)
         requests += reply.attempts
@@ -169,6 +172,7 @@ class FetchSummary:
     truncated: int = 0
     failed: Counter[str] = field(default_factory=Counter)
     refused: Counter[str] = field(default_factory=Counter)
+    refusals: Counter[str] = field(default_factory=Counter)  # refused URLs by reason (private, robots_file …)
     skipped: int = 0  # URLs with no http(s) form to request
     redirect_links: int = 0
     requests: int = 0
@@ -178,7 +182,7 @@ class FetchSummary:
         return {"selected": self.selected, "fetched": self.fetched, "pages_stored": self.pages_stored,
                 "not_html": self.not_html, "truncated": self.truncated,
                 "failed": dict(sorted(self.failed.items())), "refused": dict(sorted(self.refused.items())),
-                "skipped": self.skipped, "redirect_links": self.redirect_links, "requests": self.requests,
+                "refusals": dict(sorted(self.refusals.items())), "skipped": self.skipped, "redirect_links": self.redirect_links, "requests": self.requests,
                 "run_id": self.run_id}
 
     def lines(self) -> list[str]:
@@ -191,6 +195,8 @@ class FetchSummary:
                + (f" ({self.truncated:,} cut at the size cap)" if self.truncated else ""),
                f"  failed:       {sum(self.failed.values()):,}" + _by_class(self.failed),
                f"  refused:      {sum(self.refused.values()):,}" + _by_class(self.refused)]
+        out += [f"    {n:,}  {explain_refusal(reason)}"
+                for reason, n in sorted(self.refusals.items(), key=lambda kv: -kv[1])]
         if self.skipped:
             out.append(f"  skipped:      {self.skipped:,} (no fetchable http(s) URL)")
         out.append(f"  redirect links written: {self.redirect_links:,}")
@@ -245,6 +251,7 @@ class _Writer:
                     page_id = page_ids.get((item.canonical_id, rows[item.canonical_id]["body_sha256"]))
                 elif got.state == "refused":
                     s.refused[got.failure.value if got.failure else "unknown"] += 1
+                    s.refusals[got.reason or "unknown"] += 1
                 else:
                     s.failed[got.failure.value if got.failure else "unknown"] += 1
                 due = None
