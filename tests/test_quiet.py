@@ -173,3 +173,19 @@ def test_nightly_summary_gives_discarded_pages_and_failures_by_reason():
     lines = summary.lines()
     assert "selected 9, usable 5; no_text: empty 1, paywall 3" in lines[1]
     assert "failed: dns 2; refused: refused 1" in lines[2]
+
+
+def test_quiet_nightly_names_a_failed_stage(sqlite_url, monkeypatch, capsys):
+    # A stage that breaks (here dedupe, made to raise): the other stages ran, the job exits 10, and even
+    # under -q stderr says which stage failed and why, so a cron mail is sent and says something useful.
+    import linkfold.dedupe.stage as dedupe_stage
+
+    def broken(*_a, **_k):
+        raise RuntimeError("disk full while writing clusters")
+
+    monkeypatch.setattr(dedupe_stage, "count_pending", lambda *_a, **_k: 1)
+    monkeypatch.setattr(dedupe_stage, "run_dedupe", broken)
+    assert main(["-q", "--db", sqlite_url, "nightly"]) == 10
+    out, err = capsys.readouterr()
+    assert out == ""
+    assert "dedupe: RuntimeError: disk full while writing clusters" in err and "linkfold runs show" in err
