@@ -365,8 +365,9 @@ def classify(exc: BaseException, url: str) -> FetchError:
         return FetchError(Failure.TIMEOUT, f"no complete answer in time ({type(exc).__name__})", url=url)
     tls = _tls_failure(exc)
     if tls is Failure.TLS_CERTIFICATE:
-        return FetchError(tls, f"{exc or type(exc).__name__} (a private or lab CA: set ca_bundle, "
-                               "LINKFOLD_CA_BUNDLE, or SSL_CERT_FILE)", url=url)
+        return FetchError(tls, f"{exc or type(exc).__name__} (when the issuer is a CA you trust, a lab's "
+                               "own for instance, name it in ca_bundle: LINKFOLD_CA_BUNDLE or SSL_CERT_FILE)",
+                          url=url)
     if tls is not None:
         return FetchError(tls, str(exc) or type(exc).__name__, url=url)
     if isinstance(exc, httpx.ProtocolError):
