@@ -3,7 +3,7 @@
 The rules, in one place for every format:
 
 * null and blank values are not URLs; a row with no URL at all (a post without links, an empty URL
-  field) is counted (``no_url``), not rejected: it is not an error, and it leaves nothing behind;
+  field) is counted (``rows_without_url``), not rejected: it is not an error, and leaves nothing behind;
 * each remaining value gets a position (0, 1, …) in row order; text is canonicalised, and a value the
   canonicaliser refuses is still stored as a raw URL (with the canonicaliser's reason) and sighted;
   a non-text value (a JSON number or object where a URL should be) is a ``not_text`` reject;
