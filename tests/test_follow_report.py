@@ -145,3 +145,17 @@ def test_cli_says_why_without_reading_tables(cli_env, tmp_path, server, capsys):
     rows = {(r["state"], r["failure"]): r["urls"] for r in map(json.loads, out.splitlines())}
     assert rows[("resolved", None)] == 1 and rows[("failed", "http_4xx")] == 1
     assert "dead share: 50.0%" in err
+
+
+def test_never_follow_hosts_is_a_reason_of_its_own(engine, db_url, tmp_path, server):
+    from linkfold.canon import parse_rules
+    from linkfold.store.rulesets import store_ruleset
+
+    with engine.begin() as conn:
+        store_ruleset(conn, parse_rules('name = "lab"\nnever_follow_hosts = ["tracker.test"]\n', source="lab.toml"))
+    load(engine, tmp_path, "t", [server.url("/final/x", host="pixel.tracker.test")])
+    summary = run(engine, db_url, hosts=["pixel.tracker.test"])
+    assert dict(summary.refused) == {"never_follow": 1} and dict(summary.refusals) == {"never_follow_hosts": 1}
+    assert "never_follow_hosts" in "\n".join(summary.lines()) and server.seen == []
+    report = follow_report(engine, dataset="t")
+    assert {"state": "refused", "failure": "never_follow", "reason": "never_follow_hosts", "urls": 1} in report.rows()

@@ -1,7 +1,7 @@
 """follow_results.reason: why a URL was refused; rejects of parsed records lose their excerpts
 
 ``follow_results.reason`` holds a refusal's stable key (``private``, ``loopback`` … from the
-request-forgery guard; ``robots_file``, ``robots_unavailable``), so that ``linkfold follow-report`` can
+request-forgery guard; ``robots_file``, ``robots_unavailable``; ``never_follow_hosts``), so that ``linkfold follow-report`` can
 count refusals by reason and name the setting that would allow them. Refused URLs stored before are
 given theirs from the text of their latest attempt, which has said it since migration 0004.
 
@@ -11,7 +11,7 @@ rejects are removed here, and so is the value an earlier ``bad_time`` detail rep
 cannot bring them back, and must not.
 
 Revision ID: 0016
-Revises: 0011
+Revises: 0017
 """
 
 from __future__ import annotations
@@ -22,7 +22,7 @@ import sqlalchemy as sa
 from alembic import op
 
 revision = "0016"
-down_revision = "0011"
+down_revision = "0017"
 branch_labels = None
 depends_on = None
 
@@ -37,6 +37,8 @@ _GUARD = re.compile(r" is ([a-z-]+)(?: \(embedded in [^)]*\))?; refused by the r
 
 def _reason(failure: str | None, detail: str | None) -> str | None:
     text = detail or ""
+    if failure == "never_follow":
+        return "never_follow_hosts"
     if failure == "robots":
         return "robots_file" if "disallows this URL" in text else "robots_unavailable"
     found = _GUARD.search(text)

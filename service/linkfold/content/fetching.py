@@ -34,7 +34,16 @@ from sqlalchemy.engine import Engine
 from ..canon import Canonical, Canonicaliser
 from ..errors import ConfigError, InvalidURL
 from ..follow.chain import REFUSALS, Hop, decode_location, next_url
-from ..follow.client import REDIRECT_STATUSES, ClientConfig, Failure, FetchError, Reply, SafeClient, classify
+from ..follow.client import (
+    NEVER_FOLLOW_REASON,
+    REDIRECT_STATUSES,
+    ClientConfig,
+    Failure,
+    FetchError,
+    Reply,
+    SafeClient,
+    classify,
+)
 from ..follow.guard import AddressRefused, ResolveFailed, Resolver, literal_address
 from ..follow.report import explain_refusal
 from ..follow.runner import request_url, run_requests
@@ -117,7 +126,7 @@ async def fetch_one(client: SafeClient, start: str, *, max_hops: int,
     while True:
         why = never_follow(url) if never_follow is not None else None
         if why is not None:
-            return stop("refused", Failure.NEVER_FOLLOW, why, final=url)
+            return stop("refused", Failure.NEVER_FOLLOW, why, final=url, reason=NEVER_FOLLOW_REASON)
         try:
             if not await client.robots_allows(url):
                 await _guard_check(client, url)  # a refused address is "refused", not a robots verdict

@@ -25,7 +25,7 @@ from enum import StrEnum
 import httpx
 
 from ..errors import InvalidURL
-from .client import REDIRECT_STATUSES, Failure, FetchError, Reply, SafeClient
+from .client import NEVER_FOLLOW_REASON, REDIRECT_STATUSES, Failure, FetchError, Reply, SafeClient
 
 
 class State(StrEnum):
@@ -140,7 +140,7 @@ async def follow_chain(client: SafeClient, start: str, *, max_hops: int,
     while True:
         why = never_follow(url) if never_follow is not None else None
         if why is not None:
-            return stop(State.REFUSED, Failure.NEVER_FOLLOW, why, final=url)
+            return stop(State.REFUSED, Failure.NEVER_FOLLOW, why, final=url, reason=NEVER_FOLLOW_REASON)
         try:
             reply, made = await _ask(client, url)
         except FetchError as exc:

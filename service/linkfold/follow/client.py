@@ -90,6 +90,9 @@ class Failure(StrEnum):
     BAD_LOCATION = "bad_location"    # a redirect without a usable Location header
 
 
+#: The refusal reason (``FetchError.reason``) of a URL on a host the rules file lists in never_follow_hosts.
+NEVER_FOLLOW_REASON = "never_follow_hosts"
+
 #: Failures that a retry in the same run may cure (a later --retry-failed may cure any of them).
 TRANSIENT = frozenset({Failure.CONNECT, Failure.TIMEOUT})
 
@@ -606,6 +609,7 @@ def _with_attempts(reply: Reply, attempts: int, retry_after: float | None = None
 
 
 __all__ = [
+    "NEVER_FOLLOW_REASON",
     "PRODUCT_TOKEN",
     "REDIRECT_STATUSES",
     "ClientConfig",

@@ -16,6 +16,7 @@ from sqlalchemy.engine import Engine
 
 from ..store import evidence as ev
 from ..store.registry import get_dataset
+from .client import NEVER_FOLLOW_REASON
 
 #: Kinds of address the request-forgery guard refuses (``guard.blocked_reason``), for people.
 _GUARD_KINDS = {
@@ -38,6 +39,9 @@ def explain_refusal(reason: str | None) -> str:
     """One line for people: why URLs with this refusal reason were not asked, and what would change it."""
     if reason in _GUARD_KINDS:
         return f"{_GUARD_KINDS[reason]}: {ALLOW_HINT}"
+    if reason == NEVER_FOLLOW_REASON:
+        return ("the rules file lists the host in never_follow_hosts, so nothing was sent: take it off the "
+                "list (linkfold rules add), then linkfold follow --retry-refused")
     if reason == "robots_file":
         return ("robots.txt disallows linkfold there: no setting overrides a site's robots.txt; ask the "
                 "site, or import expanded links (linkfold follow --import)")
@@ -47,6 +51,13 @@ def explain_refusal(reason: str | None) -> str:
     if reason is None:
         return "refused before reasons were recorded: linkfold follow --retry-refused records one"
     return f"refused ({reason}): linkfold follow --retry-refused after the cause is fixed"
+
+
+def refusal_class(reason: str | None) -> str:
+    """The failure class a refusal reason belongs to (``robots``, ``never_follow`` or ``refused``)."""
+    if reason is not None and reason.startswith("robots"):
+        return "robots"
+    return "never_follow" if reason == NEVER_FOLLOW_REASON else "refused"
 
 
 @dataclass
@@ -86,8 +97,8 @@ class FollowReport:
         """One row per state, failure class and refusal reason; their ``urls`` add up to ``held``."""
         out: list[dict[str, Any]] = [{"state": "resolved", "failure": None, "reason": None, "urls": self.resolved}]
         out += [{"state": "failed", "failure": k, "reason": None, "urls": v} for k, v in sorted(self.failed.items())]
-        out += [{"state": "refused", "failure": "robots" if (k or "").startswith("robots") else "refused",
-                 "reason": k, "urls": v} for k, v in sorted(self.refusals.items(), key=lambda kv: kv[0] or "")]
+        out += [{"state": "refused", "failure": refusal_class(k), "reason": k, "urls": v}
+                for k, v in sorted(self.refusals.items(), key=lambda kv: kv[0] or "")]
         out.append({"state": "not_followed", "failure": None, "reason": None, "urls": self.not_followed})
         return out
 
@@ -125,4 +136,4 @@ def follow_report(engine: Engine, *, dataset: str | None = None) -> FollowReport
                         refusals=totals.get("refusals", {}))
 
 
-__all__ = ["ALLOW_HINT", "FollowReport", "explain_refusal", "follow_report"]
+__all__ = ["ALLOW_HINT", "NEVER_FOLLOW_REASON", "FollowReport", "explain_refusal", "follow_report", "refusal_class"]
