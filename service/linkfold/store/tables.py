@@ -386,7 +386,8 @@ decisions = sa.Table(
 )
 
 # Every article and story ID ever issued. ``stem`` is the ID without its counter suffix (what
-# ``derive_id`` gives for the founder), so a new mint checks clashes with an indexed lookup.
+# ``derive_id`` gave for the first founder), so a new mint checks clashes with an indexed lookup.
+# ``founder_id`` is the current founder: a person moving the founder out hands it to a remaining member.
 cluster_ids = sa.Table(
     "cluster_ids", metadata,
     sa.Column("id", sa.String(24), primary_key=True),
@@ -415,7 +416,7 @@ cluster_members = sa.Table(
 )
 
 # What happened to each ID: minted (reason new_cluster | split), merged_into other_id, split_from
-# other_id; with the run and time. Append-only.
+# other_id, founder_moved (member_id the new founder; reason moved_out); with the run and time. Append-only.
 id_events = sa.Table(
     "id_events", metadata,
     sa.Column("id", sa.Integer, primary_key=True),
