@@ -363,6 +363,16 @@ band_keys = sa.Table(
     sa.Index("ix_band_keys_band_key", "band", "key"),
 )
 
+# Title keys (``linkfold.dedupe.titles``) of the current document of each canonical URL that has a
+# publication date, so short texts whose titles decide meet as candidates (migration 0015); removed with
+# the band keys when a document is superseded.
+title_keys = sa.Table(
+    "title_keys", metadata,
+    sa.Column("document_id", sa.Integer, sa.ForeignKey("signatures.document_id"), primary_key=True),
+    sa.Column("key", sa.BigInteger, primary_key=True),
+    sa.Index("ix_title_keys_key", "key"),
+)
+
 # A person's verdicts, append-only: the latest decision on a pair (level, a_member, b_member with
 # a_member < b_member) is in force; earlier ones are kept. ``*_ref`` is what the person typed,
 # ``*_member`` the canonical URL it anchors to (the URL itself, or the founder of the ID named),

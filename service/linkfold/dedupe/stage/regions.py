@@ -100,8 +100,10 @@ def link_strength(kind: str, detail: Mapping[str, Any] | None, thresholds: Thres
         return None
     if reason == Reason.SIMILAR_TEXT and strength < thresholds.story:
         return None
-    if reason == Reason.TITLE_AND_DATE and strength * 100.0 < thresholds.title:
-        return None
+    if reason == Reason.TITLE_AND_DATE:
+        # The title ratio decided; links stored before strength said so carry the short texts' Jaccard.
+        ratio = float(detail.get("title_ratio") or 0.0)
+        return None if ratio < thresholds.title else ratio / 100.0
     return strength
 
 
