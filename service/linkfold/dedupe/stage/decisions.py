@@ -132,6 +132,10 @@ def _url_keys(conn: Connection, ids: set[int]) -> dict[int, str]:
     return out
 
 
+def _names_level(cluster_id: str | None, level: str) -> bool:
+    return bool(cluster_id) and cs.level_of_id(cluster_id or "") == level
+
+
 def _anchor_cluster_side(conn: Connection, level: str, mover: Anchor, side: Anchor, verdict: str) -> Anchor:
     """Anchor the ID side of a decision between a URL (``mover``) and a cluster of ``level``.
 
@@ -150,8 +154,11 @@ def _anchor_cluster_side(conn: Connection, level: str, mover: Anchor, side: Anch
             moving |= set(cs.members_of(conn, [art]))
     rest = [m for m in members if m not in moving]
     for d in cs.decisions_touching(conn, level, [mover.member]):
-        partner = d["b_member"] if d["a_member"] == mover.member else d["a_member"]
-        if partner in rest and (d["a_cluster"] or d["b_cluster"]):
+        mine, theirs = ("a", "b") if d["a_member"] == mover.member else ("b", "a")
+        partner = d[f"{theirs}_member"]
+        # only a decision of the same shape: the mover on the URL side, a cluster of this level opposite
+        if partner in rest and _names_level(d[f"{theirs}_cluster"], level) \
+                and not _names_level(d[f"{mine}_cluster"], level):
             row = _url_row(conn, partner)
             return Anchor(side.ref, partner, row.url, side.cluster, side.level, row.outlet)
     if side.member not in moving:
