@@ -115,9 +115,11 @@ def decision_level(a: Anchor, b: Anchor, *, same_article: bool, level: str | Non
         return "article", "an article ID is named"
     if same_article:
         return "article", "both URLs are in one article now"
-    if a.outlet is None or b.outlet is None or a.outlet == b.outlet:
-        return "article", f"two URLs on one outlet ({a.outlet or b.outlet or 'unknown'})"
-    return "story", f"two URLs on different outlets ({a.outlet}, {b.outlet})"
+    if a.outlet is None or b.outlet is None:
+        return "article", "the outlet of a URL is not known"
+    if a.outlet == b.outlet:
+        return "article", f"two URLs on one outlet: {a.outlet}"
+    return "story", f"two URLs on different outlets: {a.outlet}, {b.outlet}"
 
 
 def _held(conn: Connection, level: str, members: list[int]) -> dict[int, str]:
