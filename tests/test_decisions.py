@@ -32,12 +32,13 @@ C = "https://gazette.example/fire"
 D = "https://ledger.test/city/harbour-blaze"
 SHORT = "https://short.test/h7"
 LONE = "https://ledger.test/weather/rain-notes"
+HERALD_OTHER = "https://herald.example/news/tide-tables"
 
 
 @pytest.fixture
 def world(engine, tmp_path):
     texts = Texts(seed=11)
-    load_urls(engine, [A, A_PRINT, B, C, D, SHORT, LONE], tmp_path)
+    load_urls(engine, [A, A_PRINT, B, C, D, SHORT, LONE, HERALD_OTHER], tmp_path)
     fire = texts.article(300)
     add_document(engine, "herald.example/news/harbour-fire", " ".join(fire))
     add_document(engine, "herald.example/print/harbour-fire", " ".join(texts.copy(fire, 0.003)))
@@ -82,6 +83,8 @@ def test_the_level_follows_from_what_is_named(engine, world):
         ((D, LONE), None, "article", "one outlet"),
         # a short link and its target are one article although their hosts differ
         ((SHORT, A), None, "article", "one article now"),
+        # the outlet that counts is the one a URL stands for: the short link's is its target's
+        ((SHORT, HERALD_OTHER), None, "article", "one outlet: herald.example"),
         # --level article is how to say "these are different articles", across outlets too
         ((B, C), "article", "article", "--level article"),
         # an ID says its level; a URL beside it is moved out of (or into) that cluster

@@ -8,14 +8,15 @@ an ID to a member of the cluster it names (its founder, unless the founder is th
 The level follows from what is named (docs/dedupe.md §10.6): a story ID → story level; an article ID →
 article level; two URLs or keys on one outlet → article level; on different outlets → story level (a
 story-level fact), unless they share an article now (a short link and its target), or ``level`` says
-otherwise. "different URL ID" at the ID's level is a *move-out*: the URL (at story level, its article)
-leaves the cluster and the ID stays with the rest, founder or not. Decisions are append-only; the latest
+otherwise; the outlet is the one a URL stands for after short links and redirects (its final outlet).
+"different URL ID" at the ID's level is a *move-out*: the URL (at story level, its article) leaves the
+cluster and the ID stays with the rest, founder or not. Decisions are append-only; the latest
 on a pair is in force, and the earlier ones stay in the log.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import sqlalchemy as sa
@@ -25,6 +26,7 @@ from ...errors import InputError, NotFound
 from ...ingest.lookup import lookup
 from ...store import clusters as cs
 from ...store import tables as t
+from ...store.finals import finals_of
 from ...store.registry import now, utc
 
 VERDICTS = ("same", "different")
@@ -41,7 +43,7 @@ class Anchor:
     url: str
     cluster: str | None  # the live ID an ID reference resolved to
     level: str | None    # the level of an ID reference; None for a URL or key
-    outlet: str | None = None
+    outlet: str | None = None   # the outlet of what the URL stands for (its final outlet); None: not known
 
 
 @dataclass(frozen=True)
@@ -116,7 +118,7 @@ def decision_level(a: Anchor, b: Anchor, *, same_article: bool, level: str | Non
     if same_article:
         return "article", "both URLs are in one article now"
     if a.outlet is None or b.outlet is None:
-        return "article", "the outlet of a URL is not known"
+        return "article", "the outlet a URL stands for is not known yet (a short link not followed)"
     if a.outlet == b.outlet:
         return "article", f"two URLs on one outlet: {a.outlet}"
     return "story", f"two URLs on different outlets: {a.outlet}, {b.outlet}"
@@ -194,6 +196,10 @@ def record_decision(engine: Engine, verdict: str, a_ref: str, b_ref: str, *, dec
         a, b = resolve_ref(engine, conn, a_ref), resolve_ref(engine, conn, b_ref)
         if a.cluster is not None and a.cluster == b.cluster:
             raise InputError(f"{a_ref} and {b_ref} name one {a.level} ({a.cluster}); name a URL to move out of it")
+        # The outlet that counts is the one a URL stands for: a short link's is its target's.
+        finals = finals_of(conn, [a.member, b.member])
+        a = replace(a, outlet=finals.get(a.member, {}).get("final_outlet"))
+        b = replace(b, outlet=finals.get(b.member, {}).get("final_outlet"))
         arts = _held(conn, "article", [a.member, b.member])
         same_article = a.member != b.member and arts.get(a.member) is not None \
             and arts.get(a.member) == arts.get(b.member)
