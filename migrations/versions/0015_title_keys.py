@@ -8,7 +8,7 @@ indexed on ``key`` so the matching step joins them as it joins band keys. The de
 for documents signed before this revision on its next run (a ``stage_marks`` entry records that it did).
 
 Revision ID: 0015
-Revises: 0017
+Revises: 0016
 """
 
 from __future__ import annotations
@@ -17,7 +17,7 @@ import sqlalchemy as sa
 from alembic import op
 
 revision = "0015"
-down_revision = "0017"
+down_revision = "0016"
 branch_labels = None
 depends_on = None
 
