@@ -11,9 +11,12 @@ one run, on one database:
   second baseline that does not include first-time signing.
 
 The ratio incremental / full is the figure of merit (target ≤ 0.05); the absolute times depend on the
-machine and are printed for context only.
+machine and are printed for context only. With ``--titles`` every document has a title and a publication
+date (a copy keeps its original's), and a tenth of the new texts are briefs of 20–45 words (stored as
+the content stage stores a text under 50 words; a copy of a brief is a rewrite with the same title), so
+title keys and the title-and-date rule are exercised as well.
 
-Run:  python bench/nightly_bench.py [--docs 20000] [--db URL]
+Run:  python bench/nightly_bench.py [--docs 20000] [--db URL] [--titles]
 """
 
 from __future__ import annotations
@@ -22,7 +25,7 @@ import argparse
 import sys
 import tempfile
 import time
-from datetime import UTC, datetime
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import numpy as np
@@ -42,17 +45,28 @@ OUTLETS = ("herald.example", "courier.test", "gazette.example", "ledger.test")
 STAMP = datetime(2031, 1, 1, tzinfo=UTC)
 
 
-def _add(engine, tmp: Path, rng, vocab, start: int, n: int, stored: list[list[str]], tag: str) -> None:
-    urls, bodies = [], []
+def _add(engine, tmp: Path, rng, vocab, start: int, n: int, stored: list[list[str]], tag: str, *,
+         titles: bool = False, heads: dict[int, tuple[str, int]] | None = None) -> None:
+    # heads: id(original words) -> (title, day) of each stored original, for --titles
+    heads = {} if heads is None else heads
+    urls, bodies, meta = [], [], []
     for i in range(start, start + n):
         if stored and rng.random() < 0.5:
             base = stored[int(rng.integers(len(stored)))]
-            words = edited_copy(rng, base, 0.03, vocab)
+            brief = len(base) < 50
+            # a copy of a brief is the other outlet's own wording; of an article, an edited copy
+            words = random_words(rng, vocab, len(base)) if brief else edited_copy(rng, base, 0.03, vocab)
+            title, day = heads.get(id(base), ("", 0))
         else:
-            words = random_words(rng, vocab, int(rng.integers(200, 400)))
+            brief = titles and rng.random() < 0.1
+            words = random_words(rng, vocab, int(rng.integers(20, 46) if brief else rng.integers(200, 400)))
             stored.append(words)
+            title, day = " ".join(random_words(rng, vocab, int(rng.integers(6, 11)))), int(rng.integers(0, 30))
+            heads[id(words)] = (title, day)
         urls.append(f"https://{OUTLETS[i % 4]}/n/{i}")
         bodies.append(" ".join(words))
+        meta.append((title, datetime(2030, 6, 1, tzinfo=UTC) + timedelta(days=day, hours=int(rng.integers(0, 6))))
+                    if titles else (None, None))
     path = tmp / f"{tag}.txt"
     path.write_text("\n".join(urls) + "\n", encoding="utf-8")
     ingest_dump(engine, [path], dataset=tag)
@@ -60,11 +74,14 @@ def _add(engine, tmp: Path, rng, vocab, start: int, n: int, stored: list[list[st
         c = t.canonical_urls
         ids = dict(conn.execute(sa.select(c.c.url, c.c.id)).all())
         rows = []
-        for url, body in zip(urls, bodies, strict=True):
+        for url, body, (title, published) in zip(urls, bodies, meta, strict=True):
             norm = normalise_text(body)
-            rows.append({"canonical_id": ids[url], "page_id": None, "title": None, "text": norm,
-                         "text_hash": text_hash(norm), "word_count": count_words(norm), "published": None,
-                         "status": "usable", "unusable_reason": None, "extractor_version": "bench",
+            words = count_words(norm)
+            short = words < 50
+            rows.append({"canonical_id": ids[url], "page_id": None, "title": title, "text": norm,
+                         "text_hash": None if short else text_hash(norm), "word_count": words,
+                         "published": published, "status": "no_text" if short else "usable",
+                         "unusable_reason": "too_short" if short else None, "extractor_version": "bench",
                          "source": "bench", "record_sha256": None, "created_at": STAMP})
         for i in range(0, len(rows), 5000):
             conn.execute(t.documents.insert(), rows[i:i + 5000])
@@ -75,6 +92,8 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--docs", type=int, default=20_000)
     ap.add_argument("--new-share", type=float, default=0.01)
     ap.add_argument("--db", help="database URL (default: a fresh SQLite file in a temporary folder)")
+    ap.add_argument("--titles", action="store_true",
+                    help="titles and dates on every document, and a tenth of new texts briefs")
     args = ap.parse_args(argv)
     with tempfile.TemporaryDirectory() as tmpdir:
         tmp = Path(tmpdir)
@@ -85,7 +104,8 @@ def main(argv: list[str] | None = None) -> int:
         rng = np.random.default_rng(1)
         vocab = invented_vocabulary(20000, rng)
         stored: list[list[str]] = []
-        _add(engine, tmp, rng, vocab, 0, args.docs, stored, "base")
+        heads: dict[int, tuple[str, int]] = {}
+        _add(engine, tmp, rng, vocab, 0, args.docs, stored, "base", titles=args.titles, heads=heads)
 
         t0 = time.perf_counter()
         first = run_nightly(engine, settings=settings)
@@ -93,7 +113,7 @@ def main(argv: list[str] | None = None) -> int:
         assert first.ok, first.lines()
 
         n_new = max(1, int(args.docs * args.new_share))
-        _add(engine, tmp, rng, vocab, args.docs, n_new, stored, "night-2")
+        _add(engine, tmp, rng, vocab, args.docs, n_new, stored, "night-2", titles=args.titles, heads=heads)
         t0 = time.perf_counter()
         second = run_nightly(engine, settings=settings)
         incremental = time.perf_counter() - t0
@@ -105,7 +125,8 @@ def main(argv: list[str] | None = None) -> int:
         engine.dispose()
 
     ratio, ratio_again = incremental / full, incremental / full_again
-    print(f"documents: {args.docs:,} then {n_new:,} new ({100 * args.new_share:g}%) on {url.split(':')[0]}")
+    print(f"documents: {args.docs:,} then {n_new:,} new ({100 * args.new_share:g}%) on {url.split(':')[0]}"
+          f"{' with titles and briefs' if args.titles else ''}")
     print(f"full nightly run:        {full:8.2f} s")
     print(f"incremental nightly run: {incremental:8.2f} s   ratio {ratio:.4f} (target ≤ {TARGET})")
     print(f"dedupe --full afterwards:{full_again:8.2f} s   ratio {ratio_again:.4f}")

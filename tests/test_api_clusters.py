@@ -107,7 +107,7 @@ def test_different_splits_the_article_after_the_next_dedupe_run(world):
     assert len(api.get(f"/v1/articles/{article_id}").json()["members"]) == 2
     run_dedupe(world["engine"], settings=world["settings"])
     after = api.get(f"/v1/articles/{article_id}").json()
-    # DESIGN.md, stable IDs: the part with the founder keeps the ID, the rest gets a new one.
+    # DESIGN.md, stable IDs: the named URL moves out; the ID stays with the rest, founder or not.
     assert [m["url"] for m in after["members"]] == [urls["print"]]
     assert api.get("/v1/clusters", params={"level": "article", "min_size": 2}).json()["clusters"] == []
     listed = api.get("/v1/decisions").json()["decisions"]
@@ -119,9 +119,12 @@ def test_same_merges_and_the_retired_id_says_where_it_moved(world):
     article_id = _article_cluster(api)["id"]
     other_id = api.get("/v1/lookup", params={"q": urls["other"]}).json()["article_id"]
     assert other_id and other_id != article_id
+    # Two URLs on different outlets state a story-level fact unless the level is given.
     r = api.post("/v1/decisions", token=write, json={
-        "verdict": "same", "a": urls["other"], "b": urls["original"], "decided_by": "coder 2"})
+        "verdict": "same", "a": urls["other"], "b": urls["original"], "decided_by": "coder 2", "level": "article"})
     assert r.status_code == 201
+    assert r.json()["level"] == "article" and r.json()["level_reason"] == "--level article"
+    assert r.json()["effect"] == "changes"
     run_dedupe(world["engine"], settings=world["settings"])
     ids = {article_id, other_id}
     survivor = api.get("/v1/lookup", params={"q": urls["other"]}).json()["article_id"]

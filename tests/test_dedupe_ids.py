@@ -72,6 +72,27 @@ def test_founder_key_orders_founders() -> None:
     assert u.state.founders[u.state.assigned["k1"]] == "k9"
 
 
+def test_founder_moved_out_hands_the_id_to_the_rest() -> None:
+    u1 = assign_ids(IdState(), [("k1", "k2", "k3")], prefix="a")
+    a1 = u1.state.assigned["k1"]
+    assert u1.state.founders[a1] == "k1"
+    # a person: "k1 is not in a1" — k1 leaves, a1 stays with k2 and k3, whose smallest member takes over
+    u2 = assign_ids(u1.state, [("k1",), ("k2", "k3")], prefix="a", handoff={a1: "k2"})
+    assert u2.state.assigned["k2"] == u2.state.assigned["k3"] == a1
+    assert u2.state.founders[a1] == "k2"
+    new = u2.state.assigned["k1"]
+    assert new == derive_id("a", "k1") + "-2"   # k1's own derived ID is a1's: never reused
+    assert _kinds(u2) == [("founder_moved", a1, None), ("minted", new, None), ("split_from", new, a1)]
+    assert u2.events[0].member == "k2" and u2.events[0].reason == "moved_out"
+    assert [(c.member, c.old, c.new) for c in u2.changes] == [("k1", a1, new)]
+    assert check_state(u2.state) == []
+    # the same hand-off on the next run changes nothing; without the move it would not apply either
+    again = assign_ids(u2.state, [("k1",), ("k2", "k3")], prefix="a", handoff={a1: "k2"})
+    assert again.events == [] and again.changes == []
+    same = assign_ids(u1.state, [("k1", "k2", "k3")], prefix="a", handoff={a1: "k2"})
+    assert same.events == [] and same.state.founders[a1] == "k1"
+
+
 def test_invalid_inputs() -> None:
     u = assign_ids(IdState(), [("k1", "k2")], prefix="a")
     with pytest.raises(ValueError, match="in no component"):
@@ -95,6 +116,10 @@ class IdLifecycle(RuleBasedStateMachine):
         self.must: set[tuple[str, str]] = set()
         self.cannot: set[tuple[str, str]] = set()
         self.state = IdState()
+        # (mover, heir): a person said "mover is not in the cluster that heir is in" (heir: the smallest
+        # other member, the one that takes over when the mover is the founder)
+        self.moves: list[tuple[str, str]] = []
+        self.handoff: dict[str, str] = {}
         self.ever_issued: set[str] = set()
         self.last_update = None
         self.last_clustering = None
@@ -105,11 +130,22 @@ class IdLifecycle(RuleBasedStateMachine):
         b = data.draw(st.sampled_from([m for m in self.members if m != a]))
         return (a, b) if a < b else (b, a)
 
+    def _handoff(self) -> dict[str, str]:
+        # What the stage does on every run: an in-force move-out whose mover founds the heir's ID now
+        # hands that ID to the heir (docs/dedupe.md §8, "founder moved").
+        out: dict[str, str] = {}
+        for mover, heir in self.moves:
+            id_ = self.state.assigned.get(heir)
+            if id_ is not None and self.state.founders.get(id_) == mover:
+                out[id_] = heir
+        return out
+
     def _run(self) -> None:
         self.last_clustering = cluster(self.members, [Edge(a, b, s) for (a, b), s in self.edges.items()],
                                        must_link=self.must, cannot_link=self.cannot)
         previous = set(self.state.order)
-        update = assign_ids(self.state, self.last_clustering.components, prefix="a")
+        self.handoff = self._handoff()
+        update = assign_ids(self.state, self.last_clustering.components, prefix="a", handoff=self.handoff)
         minted = {e.id for e in update.events if e.kind is EventKind.MINTED}
         assert not minted & self.ever_issued, "an ID was issued twice"
         assert set(update.state.order) == previous | minted
@@ -144,6 +180,7 @@ class IdLifecycle(RuleBasedStateMachine):
         pair = self._pair(data)
         self.cannot.discard(pair)
         self.must.add(pair)
+        self.moves = [mv for mv in self.moves if tuple(sorted(mv)) != pair]
         self._run()
 
     @precondition(lambda self: len(self.members) >= 2)
@@ -153,6 +190,33 @@ class IdLifecycle(RuleBasedStateMachine):
         self.must.discard(pair)
         self.cannot.add(pair)
         self._run()
+
+    @precondition(lambda self: len(self.members) >= 2)
+    @rule(data=st.data())
+    def person_moves_out(self, data: st.DataObject) -> None:
+        # "this member is not in that cluster": it leaves, the ID stays with the rest — founder or not
+        shared = [m for m in self.members
+                  if sum(1 for x in self.members if self.state.assigned[x] == self.state.assigned[m]) > 1]
+        if not shared:
+            return
+        mover = data.draw(st.sampled_from(shared))
+        held = self.state.assigned[mover]
+        rest = sorted(m for m in self.members if m != mover and self.state.assigned[m] == held)
+        heir = rest[0] if self.state.founders[held] == mover else self.state.founders[held]
+        for m in rest:
+            pair = (mover, m) if mover < m else (m, mover)
+            self.must.discard(pair)
+            self.cannot.add(pair)
+        self.moves.append((mover, heir))
+        was_founder = self.state.founders[held] == mover
+        self._run()
+        # the mover left; the ID stays with the rest (it may have merged on, and still resolves)
+        assert self.state.assigned[mover] != self.state.resolve(held)
+        assert self.state.assigned[heir] == self.state.resolve(held)
+        moved = [e for e in self.last_update.events if e.kind is EventKind.FOUNDER_MOVED and e.id == held]
+        assert bool(moved) == was_founder
+        if moved:
+            assert moved[0].member == heir and moved[0].reason == "moved_out"
 
     @invariant()
     def every_id_ever_issued_resolves_to_a_live_id(self) -> None:
@@ -178,7 +242,7 @@ class IdLifecycle(RuleBasedStateMachine):
     def rerun_without_change_changes_nothing(self) -> None:
         again = assign_ids(self.state, cluster(
             self.members, [Edge(a, b, s) for (a, b), s in self.edges.items()],
-            must_link=self.must, cannot_link=self.cannot).components, prefix="a")
+            must_link=self.must, cannot_link=self.cannot).components, prefix="a", handoff=self._handoff())
         assert again.events == [] and again.changes == []
         assert again.state == self.state
 

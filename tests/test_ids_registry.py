@@ -18,7 +18,7 @@ import sqlalchemy as sa
 
 from dedupe_world import Texts, add_document, ids_of, load_redirects, load_urls, settings
 from linkfold.cli import main
-from linkfold.dedupe.stage import record_decision, run_dedupe
+from linkfold.dedupe.stage import list_decisions, record_decision, run_dedupe
 from linkfold.errors import InputError, NotFound
 from linkfold.ingest import export_dataset, lookup
 from linkfold.store import tables as t
@@ -85,7 +85,8 @@ def test_decide_same_joins_and_a_later_decision_supersedes(engine, world, tmp_pa
     lone = ids_of(engine, "story")["https://ledger.test/weather/storm-notes"]
     big = ids_of(engine, "story")[A]
     assert lone != big
-    record_decision(engine, "same", lone, A, decided_by="tester", note="same event, rewritten")
+    first = record_decision(engine, "same", lone, A, decided_by="tester", note="same event, rewritten")
+    assert first.effect == "changes" and first.decision.level == "story"
     run_dedupe(engine, settings=settings())
     joined = ids_of(engine, "story")
     assert joined["https://ledger.test/weather/storm-notes"] == joined[A]
@@ -94,15 +95,16 @@ def test_decide_same_joins_and_a_later_decision_supersedes(engine, world, tmp_pa
     [answer] = lookup(engine, [retired])
     assert answer["story_id"] == survivor and answer["matched_by"] == "story_id"
     assert [e["event"] for e in answer["id_history"]][-1] == "merged_into"
-    # A later "different" on the same pair supersedes the "same"; both stay on record.
+    # A later "different" on the same pair supersedes the "same"; both stay on record. Two URLs on
+    # different outlets state a story-level fact, so it is the same pair at the same level.
     second = record_decision(engine, "different", "https://ledger.test/weather/storm-notes", A, decided_by="tester")
-    assert second.decision.level == "article"   # two URLs: article level, a different pair of constraints
-    record_decision(engine, "different", survivor, "https://ledger.test/weather/storm-notes", decided_by="tester")
+    assert second.decision.level == "story" and "different outlets" in second.level_reason
+    assert second.supersedes == [first.decision.id] and second.effect == "changes"
     run_dedupe(engine, settings=settings())
     final = ids_of(engine, "story")
     assert final["https://ledger.test/weather/storm-notes"] != final[A]
-    with engine.connect() as conn:
-        assert conn.execute(sa.select(sa.func.count()).select_from(t.decisions)).scalar_one() == 3
+    in_force = {d["id"]: d["in_force"] for d in list_decisions(engine)}
+    assert in_force == {first.decision.id: False, second.decision.id: True}
 
 
 def test_new_redirect_evidence_merges_articles_and_the_older_id_survives(engine, world, tmp_path):

@@ -125,9 +125,11 @@ class Client:
                  limit: int = 100) -> list[dict[str, Any]]:
         return self._get("/clusters", level=level, min_size=min_size, outlet=outlet, limit=limit)["clusters"]
 
-    def decide(self, verdict: str, a: str, b: str, *, decided_by: str, note: str | None = None) -> dict[str, Any]:
-        """Record a manual decision (needs a write token); it takes effect at the next dedupe run."""
-        body = {"verdict": verdict, "a": a, "b": b, "decided_by": decided_by, "note": note}
+    def decide(self, verdict: str, a: str, b: str, *, decided_by: str, note: str | None = None,
+               level: str | None = None) -> dict[str, Any]:
+        """Record a manual decision (needs a write token); it takes effect at the next dedupe run. The
+        answer's ``level``, ``level_reason`` and ``effect`` say what was recorded and what it changes."""
+        body = {"verdict": verdict, "a": a, "b": b, "decided_by": decided_by, "note": note, "level": level}
         try:
             response = self._http.post("/decisions", json=body)
         except httpx.TransportError as exc:

@@ -62,34 +62,37 @@ def dedupe_command(obj: Context, full: bool, summary_format: str) -> None:
 def decide_group() -> None:
     """Record a person's decision: two things are the same, or are not. Every later run obeys it.
 
-    A and B are URLs, url keys or article/story IDs. Two URLs or keys (or article IDs) decide at the
-    article level; a story ID on either side decides at the story level. The latest decision on a pair
-    is in force; earlier ones are kept. It takes effect at the next `linkfold dedupe` or nightly run.
+    A and B are URLs, url keys or article/story IDs. The level follows from what is named: a story ID
+    decides at the story level, an article ID at the article level; two URLs on one outlet at the
+    article level, on different outlets at the story level (unless they are one article now, such as a
+    short link and its target); --level overrides. "different URL ID" moves the URL out of that cluster
+    and the ID stays with the rest, even when the URL is the founder. The latest decision on a pair is
+    in force; earlier ones are kept. The answer says which level was recorded, and when the decision
+    changes nothing as the clusters stand. It takes effect at the next `linkfold dedupe` or nightly run.
 
     \b
     Example:
       linkfold decide same https://herald.example/a/1 https://herald.example/print/1 --note "print view"
-      linkfold decide different s2k7q4m3v5bxa s7hw2ndq4ceuy --by rkim --note "two reports, one topic"
+      linkfold decide different https://herald.example/a/1 s2k7q4m3v5bxa --by rkim --note "local report"
       linkfold decide list
     """
 
 
-def _decide(obj: Context, verdict: str, a: str, b: str, note: str | None, by: str | None) -> None:
+def _decide(obj: Context, verdict: str, a: str, b: str, note: str | None, by: str | None,
+            level: str | None) -> None:
     who = by or getpass.getuser()
-    result = record_decision(obj.engine(), verdict, a, b, decided_by=who, note=note)
-    d = result.decision
-    click.echo(to_json({"decision": d.id, "verdict": d.verdict, "level": d.level,
-                        "a": {"ref": d.a.ref, "url": d.a.url, "id": d.a.cluster},
-                        "b": {"ref": d.b.ref, "url": d.b.url, "id": d.b.cluster},
-                        "note": d.note, "decided_by": d.decided_by, "supersedes": result.supersedes}))
-    obj.message(f"decision {d.id} recorded ({d.level} level: {d.verdict}); it takes effect at the next "
-                "`linkfold dedupe` or nightly run")
+    result = record_decision(obj.engine(), verdict, a, b, decided_by=who, note=note, level=level)
+    click.echo(to_json(result.as_dict()))
+    obj.message(result.message)
 
 
 _ref_options = [
     click.argument("a"), click.argument("b"),
     click.option("--note", metavar="TEXT", help="Why; kept with the decision."),
     click.option("--by", metavar="NAME", help="Who decided (default: the login name)."),
+    click.option("--level", type=click.Choice(["article", "story"]), default=None,
+                 help="Record at this level instead of the one that follows from A and B (e.g. two URLs "
+                      "on different outlets that are different articles: --level article)."),
 ]
 
 
@@ -103,28 +106,34 @@ def _with_refs(func):
 @_with_refs
 @common_options
 @pass_ctx
-def decide_same(obj: Context, a: str, b: str, note: str | None, by: str | None) -> None:
+def decide_same(obj: Context, a: str, b: str, note: str | None, by: str | None, level: str | None) -> None:
     """A and B are the same article (or story): every run joins them.
 
     \b
     Example:
       linkfold decide same https://herald.example/a/1 https://m.herald.example/a/1 --note "mobile mirror"
+      linkfold decide same https://courier.example/r/9 s2k7q4m3v5bxa --note "rewritten wire copy"
     """
-    _decide(obj, "same", a, b, note, by)
+    _decide(obj, "same", a, b, note, by, level)
 
 
 @decide_group.command("different")
 @_with_refs
 @common_options
 @pass_ctx
-def decide_different(obj: Context, a: str, b: str, note: str | None, by: str | None) -> None:
+def decide_different(obj: Context, a: str, b: str, note: str | None, by: str | None,
+                     level: str | None) -> None:
     """A and B are not the same: no run puts them into one cluster.
+
+    With a URL and an ID, the URL (at the story level, its article) moves out of that cluster and the
+    ID stays with the rest, founder or not.
 
     \b
     Example:
-      linkfold decide different a3xk2m4q7wbnc a5tq9v2lhe4rd --note "live page and the report"
+      linkfold decide different https://herald.example/live/4 a3xk2m4q7wbnc --note "live page, not the report"
+      linkfold decide different https://herald.example/a/1 https://courier.example/r/9 --level article
     """
-    _decide(obj, "different", a, b, note, by)
+    _decide(obj, "different", a, b, note, by, level)
 
 
 @decide_group.command("list")

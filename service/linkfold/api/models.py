@@ -224,12 +224,17 @@ class DecisionRequest(BaseModel):
     b: str = Field(min_length=1, max_length=8192, description="A URL, url key, or article or story ID")
     decided_by: str = Field(min_length=1, max_length=200, description="Who decided")
     note: str | None = Field(default=None, max_length=2000)
+    level: str | None = Field(default=None, pattern="^(article|story)$",
+                              description="article | story; default: what follows from a and b")
 
 
 class DecisionCreated(_Open):
     id: int
     verdict: str
     level: str
+    level_reason: str = Field(description="why this level: what was named, or the level asked for")
+    effect: str = Field(description="changes | already_separate | already_together, as the clusters stand")
+    message: str
     a: dict[str, Any]
     b: dict[str, Any]
     decided_by: str

@@ -102,9 +102,10 @@ def decisions(request: Request, _access: ReadAccess,
              responses=error_responses(400, 401, 403, 404, 413, 422, 503))
 def decide(request: Request, body: DecisionRequest, access: WriteAccess) -> JSONResponse:
     result = record_decision(api_state(request).engine, body.verdict, body.a, body.b,
-                             decided_by=body.decided_by, note=body.note)
+                             decided_by=body.decided_by, note=body.note, level=body.level)
     d = result.decision
-    answer = {"id": d.id, "verdict": d.verdict, "level": d.level, "a": asdict(d.a), "b": asdict(d.b),
+    answer = {"id": d.id, "verdict": d.verdict, "level": d.level, "level_reason": result.level_reason,
+              "effect": result.effect, "message": result.message, "a": asdict(d.a), "b": asdict(d.b),
               "decided_by": d.decided_by, "note": d.note, "supersedes": result.supersedes,
               "token_id": access.token_id, "takes_effect": "at the next dedupe run (linkfold dedupe or "
               "the nightly job)"}

@@ -42,6 +42,7 @@ from .shingle import (
     shingles_from_bytes,
     shingles_to_bytes,
 )
+from .titles import MIN_TITLE_WORDS, TITLE_KEY_NAME, title_keys, title_word_count
 from .verify import (
     DocFeatures,
     Level,
@@ -56,7 +57,9 @@ from .verify import (
 
 __all__ = [
     "HASH_NAME",
+    "MIN_TITLE_WORDS",
     "SCHEMES",
+    "TITLE_KEY_NAME",
     "BandingOption",
     "Candidates",
     "Clustering",
@@ -101,7 +104,9 @@ __all__ = [
     "signature_to_bytes",
     "signatures_from_texts",
     "threshold_point",
+    "title_keys",
     "title_ratio",
+    "title_word_count",
     "verify_pair",
     "verify_pairs",
 ]

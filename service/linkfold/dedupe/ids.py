@@ -10,6 +10,10 @@ the events that explain every change (docs/dedupe.md, "Stable IDs"). The rules, 
   mint order, then the ID itself); each other one is retired and maps forward to it.
 * Split: the part of an old cluster that holds the founder keeps the ID; a part without any founder
   gets a new ID, minted from its own founding member, and an event says which ID(s) it split from.
+* Founder moved: when a person moves a member out of an ID ("this URL is not in that cluster") and the
+  member is the ID's founder, the caller names the remaining member that takes over (``handoff``); if
+  the old founder and that member end up apart, the founder is handed over (event ``founder_moved``)
+  and the ID stays with the rest, so the part the person left alone keeps its ID.
 
 Invariant kept by these rules and checked by :func:`check_state`: every live ID's founder is assigned
 to it. So each live ID is claimed by exactly one new cluster (the one with its founder) and either
@@ -34,12 +38,14 @@ class EventKind(enum.StrEnum):
     MINTED = "minted"
     MERGED_INTO = "merged_into"
     SPLIT_FROM = "split_from"
+    FOUNDER_MOVED = "founder_moved"
 
 
 @dataclass(frozen=True)
 class IdEvent:
     """``minted``: ``id`` is new, founded by ``member``. ``merged_into``: ``id`` retired, maps to ``other``.
-    ``split_from``: the new ``id`` took members that held ``other``, whose founder stayed behind."""
+    ``split_from``: the new ``id`` took members that held ``other``, whose founder stayed behind.
+    ``founder_moved``: ``id`` is now founded by ``member`` (its old founder was moved out by a person)."""
 
     kind: EventKind
     id: str
@@ -112,11 +118,16 @@ def mint_id(prefix: str, founder: Any, issued: set[str] | Mapping[str, Any]) -> 
 
 
 def assign_ids(state: IdState, components: Iterable[Iterable[Any]], *, prefix: str,
-               founder_key: Callable[[Any], Any] | None = None) -> IdUpdate:
+               founder_key: Callable[[Any], Any] | None = None,
+               handoff: Mapping[str, Any] | None = None) -> IdUpdate:
     """New assignment and events for ``components``, which must cover every member ``state`` assigns.
 
     Components are taken in sorted order, so events, mint order and counter suffixes are a function of
     the data alone.
+
+    ``handoff`` maps a live ID to a member that holds it now and takes over as its founder when the old
+    founder and that member land in different components (a person moved the founder out); otherwise
+    the entry changes nothing, so a caller may pass it again on every run.
     """
     comps = sorted(tuple(sorted(c)) for c in components)
     seen: set[Any] = set()
@@ -140,6 +151,18 @@ def assign_ids(state: IdState, components: Iterable[Iterable[Any]], *, prefix: s
 
     def rank(m: Any) -> tuple[Any, Any]:
         return (founder_key(m), m) if founder_key else (m, m)
+
+    if handoff:
+        comp_of = {m: i for i, comp in enumerate(comps) for m in comp}
+        live = state.live()
+        for id_, heir in sorted(handoff.items()):
+            old = founders.get(id_)
+            if id_ not in live or state.assigned.get(heir) != id_ or old == heir:
+                continue
+            if comp_of.get(old) == comp_of[heir]:
+                continue   # the founder did not leave: nothing to hand over
+            founders[id_] = heir
+            events.append(IdEvent(EventKind.FOUNDER_MOVED, id_, None, heir, "moved_out"))
 
     for comp in comps:
         members = set(comp)

@@ -9,8 +9,9 @@ LSH candidates include false positives by design, so every candidate is checked 
   story. Below that, nothing else can rescue the pair: a title match between two long, different
   texts is two articles on one topic.
 * Otherwise (a short or missing text on either side): titles decide, with dates as the check.
-  Titles at least ``title`` similar (rapidfuzz ratio on normalised titles) and both publication
-  dates known and at most ``max_date_gap_days`` apart → one story, across outlets only. Same-outlet
+  Titles of at least ``MIN_TITLE_WORDS`` words, at least ``title`` similar (rapidfuzz ratio on
+  normalised titles), and both publication dates known and at most ``max_date_gap_days`` apart → one
+  story, across outlets only. Same-outlet
   pairs are never joined on titles: outlets reuse titles (daily columns, live pages), and articles
   within an outlet are joined by URL evidence (redirects, declared canonicals) instead.
 """
@@ -30,6 +31,7 @@ from ..errors import ConfigError
 from ..progress import SILENT, Progress
 from .minhash import estimate_jaccard
 from .shingle import exact_jaccard, normalise_words
+from .titles import MIN_TITLE_WORDS, title_word_count
 
 
 class Level(enum.StrEnum):
@@ -95,12 +97,13 @@ class Verdict:
 
     @property
     def strength(self) -> float:
-        """The score that orders edges for clustering: the deciding similarity on a 0–1 scale."""
+        """The score that orders edges for clustering: the deciding similarity on a 0–1 scale (for the
+        title rule the title ratio, although a short text's Jaccard is known too)."""
+        if self.reason is Reason.TITLE_AND_DATE:
+            return (self.title_ratio or 0.0) / 100.0
         if self.exact_jaccard is not None:
             return self.exact_jaccard
-        if self.est_jaccard is not None and self.reason is not Reason.TITLE_AND_DATE:
-            return self.est_jaccard
-        return (self.title_ratio or 0.0) / 100.0
+        return self.est_jaccard if self.est_jaccard is not None else 0.0
 
 
 @dataclass(frozen=True)
@@ -146,6 +149,9 @@ def verify_pair(a: DocFeatures, b: DocFeatures, *, thresholds: Thresholds) -> Ve
         return None
     ratio = title_ratio(a.title, b.title)
     if ratio is None or ratio < thresholds.title or gap is None or gap > thresholds.max_date_gap_days:
+        return None
+    # A title of a few words is not evidence: "Weather" repeats on every outlet every day.
+    if min(title_word_count(a.title), title_word_count(b.title)) < MIN_TITLE_WORDS:
         return None
     return Verdict(Level.STORY, Reason.TITLE_AND_DATE, est, exact, ratio, gap, same_outlet)
 

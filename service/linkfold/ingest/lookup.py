@@ -26,7 +26,7 @@ story_id       the story ID, likewise
 error          null, or the canonicaliser's reason code when the input cannot be canonicalised
                (``unknown_id`` for an input shaped like an article or story ID that was never issued)
 id_history     for an ID given as input (``matched_by`` ``article_id`` / ``story_id``): the events from
-               that ID to the live one (minted, merged_into, split_from, with run and reason); else null
+               that ID to the live one (minted, merged_into, split_from, founder_moved, with run and reason); else null
 =============  ======================================================================================
 """
 

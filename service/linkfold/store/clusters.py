@@ -126,9 +126,14 @@ class EventRow:
 
 
 def write_ids(conn: Connection, level: str, *, minted: Sequence[NewId], retired: Mapping[str, str],
-              moves: Mapping[int, str], events: Sequence[EventRow], run_id: int | None, now: datetime) -> None:
-    """Apply one clustering result: new IDs, retired IDs (→ successor), member moves, and their events."""
+              moves: Mapping[int, str], events: Sequence[EventRow], run_id: int | None, now: datetime,
+              founders: Mapping[str, int] | None = None) -> None:
+    """Apply one clustering result: new IDs, retired IDs (→ successor), member moves, new founders of
+    live IDs (a founder moved out by a person), and their events."""
     ci, cm = t.cluster_ids, t.cluster_members
+    if founders:
+        conn.execute(ci.update().where(ci.c.id == sa.bindparam("b_id")).values(founder_id=sa.bindparam("b_f")),
+                     [{"b_id": i, "b_f": f} for i, f in sorted(founders.items())])
     if minted:
         conn.execute(ci.insert(), [
             {"id": n.id, "level": level, "stem": stem_of(n.id), "founder_id": n.founder_id,

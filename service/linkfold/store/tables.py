@@ -363,6 +363,16 @@ band_keys = sa.Table(
     sa.Index("ix_band_keys_band_key", "band", "key"),
 )
 
+# Title keys (``linkfold.dedupe.titles``) of the current document of each canonical URL that has a
+# publication date, so short texts whose titles decide meet as candidates (migration 0015); removed with
+# the band keys when a document is superseded.
+title_keys = sa.Table(
+    "title_keys", metadata,
+    sa.Column("document_id", sa.Integer, sa.ForeignKey("signatures.document_id"), primary_key=True),
+    sa.Column("key", sa.BigInteger, primary_key=True),
+    sa.Index("ix_title_keys_key", "key"),
+)
+
 # A person's verdicts, append-only: the latest decision on a pair (level, a_member, b_member with
 # a_member < b_member) is in force; earlier ones are kept. ``*_ref`` is what the person typed,
 # ``*_member`` the canonical URL it anchors to (the URL itself, or the founder of the ID named),
@@ -386,7 +396,8 @@ decisions = sa.Table(
 )
 
 # Every article and story ID ever issued. ``stem`` is the ID without its counter suffix (what
-# ``derive_id`` gives for the founder), so a new mint checks clashes with an indexed lookup.
+# ``derive_id`` gave for the first founder), so a new mint checks clashes with an indexed lookup.
+# ``founder_id`` is the current founder: a person moving the founder out hands it to a remaining member.
 cluster_ids = sa.Table(
     "cluster_ids", metadata,
     sa.Column("id", sa.String(24), primary_key=True),
@@ -415,7 +426,7 @@ cluster_members = sa.Table(
 )
 
 # What happened to each ID: minted (reason new_cluster | split), merged_into other_id, split_from
-# other_id; with the run and time. Append-only.
+# other_id, founder_moved (member_id the new founder; reason moved_out); with the run and time. Append-only.
 id_events = sa.Table(
     "id_events", metadata,
     sa.Column("id", sa.Integer, primary_key=True),

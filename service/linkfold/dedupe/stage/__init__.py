@@ -117,6 +117,7 @@ def run_dedupe(engine: Engine, *, settings: Any, full: bool = False, parent_id: 
         summary.signing.signed += signed.signed
         summary.signing.empty += signed.empty
         summary.signing.superseded += signed.superseded
+        summary.signing.titled += signed.titled
         run.counts = summary.as_dict()
         summary.matching = match_pending(engine, params, thresholds, max_bucket=settings.lsh_max_bucket,
                                          run_id=run.id, progress=progress)

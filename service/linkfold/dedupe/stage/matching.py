@@ -6,8 +6,10 @@ is matched — the join asks for partners with a *smaller* document id — so ev
 once however the documents were split into runs, and the cost of a window is its own documents' band
 keys joined on the (band, key) index: it grows with the new documents, not with the registry.
 
-Candidates come from two set-based queries: equal band keys (LSH, docs/dedupe.md §4) and equal
-``text_hash`` (an exact copy, found even when a text is too short for shingles to decide). Every
+Candidates come from three set-based queries: equal band keys (LSH, docs/dedupe.md §4), equal
+``text_hash`` (an exact copy, found even when a text is too short for shingles to decide), and equal title
+keys across outlets where at least one text is short (§4a: a rewritten brief shares no shingles, and for
+short texts the title decides). Every
 candidate is verified by the pure rule (§6); accepted pairs become ``links`` rows between the two
 documents' canonical URLs:
 
@@ -54,6 +56,16 @@ class MatchCounts:
     oversize_buckets: int = 0
     largest_bucket: int = 0
     links_written: int = 0
+    title_candidates: int = 0
+
+
+def _keyed(lo: int, hi: int) -> sa.Subquery:
+    """Ids of documents in ``(lo, hi]`` that have band keys or title keys: the current documents that
+    can meet a candidate (a short text without shingles may still have a title that decides)."""
+    bk, tk = t.band_keys, t.title_keys
+    return sa.union(sa.select(bk.c.document_id.label("id")).where(bk.c.document_id > lo, bk.c.document_id <= hi),
+                    sa.select(tk.c.document_id.label("id")).where(tk.c.document_id > lo, tk.c.document_id <= hi)
+                    ).subquery()
 
 
 def count_unmatched(conn: Connection) -> int:
@@ -61,9 +73,7 @@ def count_unmatched(conn: Connection) -> int:
     hi = get_mark(conn, SIGNED) or 0
     if hi <= lo:
         return 0
-    bk = t.band_keys
-    return int(conn.execute(sa.select(sa.func.count(sa.distinct(bk.c.document_id)))
-                            .where(bk.c.document_id > lo, bk.c.document_id <= hi)).scalar_one())
+    return int(conn.execute(sa.select(sa.func.count()).select_from(_keyed(lo, hi))).scalar_one())
 
 
 def _oversize(conn: Connection, lo: int, hi: int, max_bucket: int) -> tuple[list[tuple[int, int]], int]:
@@ -91,6 +101,39 @@ def _band_pairs(conn: Connection, lo: int, hi: int, skip: Sequence[tuple[int, in
          .where(n.c.document_id > lo, n.c.document_id <= hi))
     if skip:
         q = q.where(sa.tuple_(n.c.band, n.c.key).not_in(list(skip)))
+    return {(int(a), int(b)) for a, b in conn.execute(q)}
+
+
+def _title_oversize(conn: Connection, lo: int, hi: int, max_bucket: int) -> tuple[list[int], int]:
+    """Title keys met by the window's documents that more than ``max_bucket`` documents share (a title
+    every outlet uses), and the largest such bucket met."""
+    tk = t.title_keys
+    mine = sa.select(tk.c.key).where(tk.c.document_id > lo, tk.c.document_id <= hi).subquery()
+    q = (sa.select(tk.c.key, sa.func.count().label("n")).where(tk.c.key.in_(sa.select(mine.c.key)))
+         .group_by(tk.c.key).having(sa.func.count() > 1))
+    big: list[int] = []
+    largest = 0
+    for key, n in conn.execute(q):
+        largest = max(largest, int(n))
+        if n > max_bucket:
+            big.append(int(key))
+    return big, largest
+
+
+def _title_pairs(conn: Connection, lo: int, hi: int, skip: Sequence[int], min_words: int) -> set[tuple[int, int]]:
+    """Pairs sharing a title key, on different outlets, at least one of them short: the only pairs the
+    title-and-date rule can join (docs/dedupe.md §6). Partners have a smaller id, as for band keys."""
+    n, o = t.title_keys.alias("tn"), t.title_keys.alias("to")
+    dn, do = t.documents.alias("dn"), t.documents.alias("do")
+    cn, co = t.canonical_urls.alias("cn"), t.canonical_urls.alias("co")
+    q = (sa.select(o.c.document_id, n.c.document_id).distinct()
+         .select_from(n.join(o, sa.and_(o.c.key == n.c.key, o.c.document_id < n.c.document_id))
+                      .join(dn, dn.c.id == n.c.document_id).join(do, do.c.id == o.c.document_id)
+                      .join(cn, cn.c.id == dn.c.canonical_id).join(co, co.c.id == do.c.canonical_id))
+         .where(n.c.document_id > lo, n.c.document_id <= hi, cn.c.outlet != co.c.outlet,
+                sa.or_(dn.c.word_count < min_words, do.c.word_count < min_words)))
+    if skip:
+        q = q.where(n.c.key.not_in(list(skip)))
     return {(int(a), int(b)) for a, b in conn.execute(q)}
 
 
@@ -151,7 +194,12 @@ def match_window(conn: Connection, lo: int, hi: int, params: SignatureParams, th
     counts.largest_bucket = max(counts.largest_bucket, largest)
     band = _band_pairs(conn, lo, hi, skip)
     exact = _hash_pairs(conn, lo, hi)
-    pairs = sorted(band | exact)
+    skip_titles, largest_titles = _title_oversize(conn, lo, hi, max_bucket)
+    counts.oversize_buckets += len(skip_titles)
+    counts.largest_bucket = max(counts.largest_bucket, largest_titles)
+    titles = _title_pairs(conn, lo, hi, skip_titles, thresholds.min_words) - band - exact
+    counts.title_candidates += len(titles)
+    pairs = sorted(band | exact | titles)
     counts.candidates += len(pairs)
     docs = _load_docs(conn, [x for p in pairs for x in p], params)
     stamp = now()
@@ -184,16 +232,12 @@ def match_window(conn: Connection, lo: int, hi: int, params: SignatureParams, th
     counts.similar_text += len(verified)
     counts.rejected += len(rest) - len(verified)
     counts.links_written += add_links(conn, rows)
-    bk = t.band_keys
-    matched = int(conn.execute(sa.select(sa.func.count(sa.distinct(bk.c.document_id)))
-                               .where(bk.c.document_id > lo, bk.c.document_id <= hi)).scalar_one())
-    return matched
+    return int(conn.execute(sa.select(sa.func.count()).select_from(_keyed(lo, hi))).scalar_one())
 
 
 def match_pending(engine: Engine, params: SignatureParams, thresholds: Thresholds, *, max_bucket: int,
                   run_id: int | None, progress: Progress = SILENT, window: int = WINDOW) -> MatchCounts:
     counts = MatchCounts()
-    bk = t.band_keys
     with engine.connect() as conn:
         total = count_unmatched(conn)
     progress.start("matching and verifying", total)
@@ -201,9 +245,8 @@ def match_pending(engine: Engine, params: SignatureParams, thresholds: Threshold
         with engine.begin() as conn:
             lo = get_mark(conn, MATCHED) or 0
             top = get_mark(conn, SIGNED) or 0
-            ids = conn.execute(sa.select(bk.c.document_id).distinct()
-                               .where(bk.c.document_id > lo, bk.c.document_id <= top)
-                               .order_by(bk.c.document_id).limit(window)).scalars().all()
+            keyed = _keyed(lo, top)
+            ids = conn.execute(sa.select(keyed.c.id).order_by(keyed.c.id).limit(window)).scalars().all()
             if not ids:
                 if top > lo:
                     set_mark(conn, MATCHED, top, run_id=run_id, now=now())

@@ -64,12 +64,14 @@ class ClusterCounts:
     moved: int = 0
     refused: int = 0
     sink_links: int = 0  # links met but not used: into a sink, or touching a never-article host
+    founders_moved: int = 0
     conflicts: list[str] = field(default_factory=list)
 
     def as_dict(self) -> dict[str, Any]:
         return {"seeds": self.seeds, "members": self.members, "components": self.components,
                 "minted": self.minted, "split": self.split, "merged": self.merged, "moved": self.moved,
-                "refused": self.refused, "sink_links": self.sink_links, "conflicts": len(self.conflicts)}
+                "refused": self.refused, "sink_links": self.sink_links, "founders_moved": self.founders_moved,
+                "conflicts": len(self.conflicts)}
 
 
 def link_level(kind: str, src_outlet: str | None, dst_outlet: str | None) -> str | None:
@@ -98,8 +100,10 @@ def link_strength(kind: str, detail: Mapping[str, Any] | None, thresholds: Thres
         return None
     if reason == Reason.SIMILAR_TEXT and strength < thresholds.story:
         return None
-    if reason == Reason.TITLE_AND_DATE and strength * 100.0 < thresholds.title:
-        return None
+    if reason == Reason.TITLE_AND_DATE:
+        # The title ratio decided; links stored before strength said so carry the short texts' Jaccard.
+        ratio = float(detail.get("title_ratio") or 0.0)
+        return None if ratio < thresholds.title else ratio / 100.0
     return strength
 
 
@@ -201,11 +205,63 @@ def _url_keys(conn: Connection, ids: Iterable[int]) -> dict[int, str]:
     return out
 
 
+def move_out(decision: Mapping[str, Any], level: str) -> tuple[int, int] | None:
+    """(mover, heir) of a decision "URL is not in ID": a "different" that names a cluster of its own level
+    on exactly one side. The other side (a URL, key or lower-level ID) leaves that cluster; the heir is
+    the member the ID side is anchored to, which stays (docs/dedupe.md §8, "founder moved")."""
+    if decision["verdict"] != "different":
+        return None
+    a_id = bool(decision["a_cluster"]) and cs.level_of_id(decision["a_cluster"]) == level
+    b_id = bool(decision["b_cluster"]) and cs.level_of_id(decision["b_cluster"]) == level
+    if a_id == b_id:
+        return None
+    return (decision["b_member"], decision["a_member"]) if a_id else (decision["a_member"], decision["b_member"])
+
+
 def _components(conn: Connection, level: str, region: Region, ukey: Mapping[int, str],
-                counts: ClusterCounts) -> list[tuple[str, ...]]:
+                current: Mapping[int, str], founder_of: Mapping[str, int],
+                counts: ClusterCounts) -> tuple[list[tuple[str, ...]], dict[str, str]]:
+    """The region's components under evidence and decisions, and the founder hand-offs of move-outs."""
     must = [(d["a_member"], d["b_member"]) for d in region.decisions if d["verdict"] == "same"]
-    apart = [(d["a_member"], d["b_member"]) for d in region.decisions
-             if d["verdict"] == "different" and d["a_member"] in region.members and d["b_member"] in region.members]
+    apart: list[tuple[int, int]] = []
+    moves: list[tuple[int, int]] = []
+    for d in region.decisions:
+        if d["verdict"] != "different" or d["a_member"] not in region.members or d["b_member"] not in region.members:
+            continue
+        mv = move_out(d, level)
+        if mv is None:
+            apart.append((d["a_member"], d["b_member"]))
+        else:
+            moves.append(mv)
+    unit: dict[int, str] = {}
+    if level == "story":
+        unit = cs.assignments(conn, "article", region.members)
+        missing = region.members - set(unit)
+        if missing:
+            raise DatabaseError(f"{len(missing)} canonical URL(s) have no article ID while clustering stories "
+                                f"(e.g. id {min(missing)}); run linkfold dedupe --full")
+    # A move-out keeps the mover (at story level, its whole article) apart from every member of the
+    # heir's cluster as it stands, so the mover leaves and the rest stays together whatever links it.
+    leaving: dict[str, set[int]] = defaultdict(set)
+    heirs: dict[str, list[int]] = defaultdict(list)
+    for mover, heir in moves:
+        movers = {m for m in region.members if unit[m] == unit[mover]} if level == "story" else {mover}
+        held = current.get(heir)
+        rest = {m for m in region.members if held is not None and current.get(m) == held} or {heir}
+        apart.extend((mover, r) for r in sorted(rest - movers))
+        if held is not None:
+            leaving[held] |= movers
+            heirs[held].append(heir)
+    handoff: dict[str, str] = {}
+    for held, gone in leaving.items():
+        if founder_of.get(held) not in gone:
+            continue
+        staying = sorted((m for m in heirs[held] if m not in gone), key=lambda m: ukey[m])
+        if not staying:
+            staying = sorted((m for m in region.members if current.get(m) == held and m not in gone),
+                             key=lambda m: ukey[m])
+        if staying:
+            handoff[held] = ukey[staying[0]]
     if level == "article":
         found = cluster([ukey[m] for m in region.members],
                         [Edge(ukey[a], ukey[b], s, k) for (a, b), (s, k) in region.edges.items()],
@@ -213,11 +269,6 @@ def _components(conn: Connection, level: str, region: Region, ukey: Mapping[int,
                         cannot_link=[(ukey[a], ukey[b]) for a, b in apart])
         comps = list(found.components)
     else:
-        unit = cs.assignments(conn, "article", region.members)
-        missing = region.members - set(unit)
-        if missing:
-            raise DatabaseError(f"{len(missing)} canonical URL(s) have no article ID while clustering stories "
-                                f"(e.g. id {min(missing)}); run linkfold dedupe --full")
         usable_apart = []
         for a, b in apart:
             if unit[a] == unit[b]:
@@ -239,7 +290,7 @@ def _components(conn: Connection, level: str, region: Region, ukey: Mapping[int,
         if r.manual:
             counts.conflicts.append(f"{level}-level 'same' on {r.edge.a} and {r.edge.b} conflicts with the "
                                     f"'different' on {r.separated[0]} and {r.separated[1]}; the separation is kept")
-    return comps
+    return comps, handoff
 
 
 def cluster_region(conn: Connection, level: str, region: Region, *, run_id: int | None,
@@ -250,7 +301,8 @@ def cluster_region(conn: Connection, level: str, region: Region, *, run_id: int 
     held = cs.id_rows(conn, set(current.values()))
     founder_ids = {row["founder_id"] for row in held.values()}
     ukey = _url_keys(conn, region.members | founder_ids)
-    comps = _components(conn, level, region, ukey, counts)
+    comps, handoff = _components(conn, level, region, ukey, current,
+                                 {i: int(row["founder_id"]) for i, row in held.items()}, counts)
     counts.members += len(region.members)
     counts.components += len(comps)
     cid_of = {k: c for c, k in ukey.items()}
@@ -262,11 +314,11 @@ def cluster_region(conn: Connection, level: str, region: Region, *, run_id: int 
     issued = cs.issued_with_stems(conn, {derive_id(prefix, k) for k in ukey.values()})
     order = issued | {i: int(row["mint_order"]) for i, row in held.items()}
     state = IdState(assigned={ukey[c]: i for c, i in current.items()}, founders=founders, order=order)
-    update = assign_ids(state, comps, prefix=prefix)
+    update = assign_ids(state, comps, prefix=prefix, handoff=handoff)
     if not update.events and not update.changes:
         return
     next_order = cs.max_mint_order(conn, level)
-    minted, retired, events = [], {}, []
+    minted, retired, events, refounded = [], {}, [], {}
     for e in update.events:
         if e.kind is EventKind.MINTED:
             next_order += 1
@@ -281,12 +333,16 @@ def cluster_region(conn: Connection, level: str, region: Region, *, run_id: int 
             retired[e.id] = e.other
             events.append(cs.EventRow(e.id, e.kind.value, e.other, None, e.reason))
             counts.merged += 1
+        elif e.kind is EventKind.FOUNDER_MOVED:
+            refounded[e.id] = cid_of[e.member]
+            events.append(cs.EventRow(e.id, e.kind.value, None, cid_of[e.member], e.reason))
+            counts.founders_moved += 1
         else:
             events.append(cs.EventRow(e.id, e.kind.value, e.other, None, e.reason))
     moves = {cid_of[ch.member]: ch.new for ch in update.changes}
     counts.moved += sum(1 for ch in update.changes if ch.old is not None)
     cs.write_ids(conn, level, minted=minted, retired=retired, moves=moves, events=events, run_id=run_id,
-                 now=now())
+                 now=now(), founders=refounded)
 
 
 def cluster_seeds(engine: Engine, level: str, seeds: Iterable[int], thresholds: Thresholds, *,
@@ -389,4 +445,5 @@ def advance_marks(conn: Connection, pending: Pending, *, run_id: int | None) -> 
 
 __all__ = ["CANONICAL", "DECISIONS", "LINKS", "ClusterCounts", "Pending", "Region", "advance_marks",
            "all_canonical_ids", "closure", "cluster_region", "cluster_seeds", "count_pending_clustering",
-           "joining", "link_level", "link_strength", "links_touching", "pending_ranges", "seeds_of"]
+           "joining", "link_level", "link_strength", "links_touching", "move_out", "pending_ranges",
+           "seeds_of"]

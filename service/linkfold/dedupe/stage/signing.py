@@ -1,10 +1,17 @@
 """Signing: MinHash signatures and LSH band keys for documents not yet signed, stored in the database.
 
-Pending documents are the usable documents past the ``dedupe.signed`` mark, in id order, one transaction
-per batch; the mark moves in the same transaction, so a killed run resumes at the first unsigned batch.
-Only the newest usable document of a canonical URL is its current one (docs/content.md): when a newer
-one is signed, the band keys of the older ones are removed (they are derived data; the signatures stay),
-so candidate joins only ever meet current documents.
+Pending documents are the documents past the ``dedupe.signed`` mark that take part in finding copies, in
+id order, one transaction per batch; the mark moves in the same transaction, so a killed run resumes at
+the first unsigned batch. They are the usable documents and, for a canonical URL that has no usable
+document, the short or empty ones (content reasons ``too_short`` and ``empty``: briefs, teasers, pages
+with a headline only), for which the title decides (docs/dedupe.md §6). Only the newest usable document
+of a canonical URL is its current one (docs/content.md), else its newest short one: when a newer one is
+signed, the band and title keys of the older ones are removed (they are derived data; the signatures
+stay), so candidate joins only ever meet current documents.
+
+Title keys (:mod:`linkfold.dedupe.titles`) are written beside the band keys for current documents with a
+publication date, and removed with them; documents signed before title keys existed get theirs on the
+first run that finds the ``dedupe.titles`` mark missing, and are then matched again.
 
 The parameter record of every signature is stored beside it. When the settings change, the stored
 signatures that disagree are brought up to date: band keys are rebuilt from the stored signature when
@@ -28,12 +35,14 @@ from ...store.bulk import insert_rows
 from ...store.clusters import chunks, get_mark, set_mark
 from ...store.registry import now
 from .. import (
+    TITLE_KEY_NAME,
     SignatureParams,
     band_keys,
     empty_rows,
     signature_from_bytes,
     signature_to_bytes,
     signatures_from_texts,
+    title_keys,
 )
 
 log = logging.getLogger("linkfold")
@@ -41,6 +50,12 @@ log = logging.getLogger("linkfold")
 SIGNED = "dedupe.signed"
 MATCHED = "dedupe.matched"
 PARAMS = "dedupe.params"
+TITLES = "dedupe.titles"
+
+
+def titles_mark() -> int:
+    """The title-key scheme as a number: a change of scheme rebuilds every title key."""
+    return zlib.crc32(TITLE_KEY_NAME.encode("ascii"))
 
 
 def params_mark(params: SignatureParams) -> int:
@@ -55,16 +70,40 @@ class SignCounts:
     superseded: int = 0
     rebanded: int = 0
     resigned: int = 0
+    titled: int = 0
+
+
+#: Content reasons of documents whose short or missing text still takes part, through their title.
+SHORT_REASONS = ("too_short", "empty")
+
+
+def _takes_part():
+    d = t.documents
+    return sa.or_(d.c.status == "usable", sa.and_(d.c.status == "no_text", d.c.unusable_reason.in_(SHORT_REASONS)))
 
 
 def _usable(after: int):
+    return sa.and_(_takes_part(), t.documents.c.id > after)
+
+
+def _with_usable(conn: Connection, canonical_ids: list[int]) -> set[int]:
+    """The canonical URLs among ``canonical_ids`` that have a usable document (a short one never
+    replaces it)."""
     d = t.documents
-    return sa.and_(d.c.status == "usable", d.c.id > after)
+    out: set[int] = set()
+    for part in chunks(canonical_ids):
+        out.update(int(c) for c in conn.execute(sa.select(d.c.canonical_id).distinct()
+                                                .where(d.c.canonical_id.in_(part), d.c.status == "usable")).scalars())
+    return out
 
 
 def count_unsigned(conn: Connection) -> int:
     after = get_mark(conn, SIGNED) or 0
-    return int(conn.execute(sa.select(sa.func.count()).select_from(t.documents).where(_usable(after))).scalar_one())
+    n = int(conn.execute(sa.select(sa.func.count()).select_from(t.documents).where(_usable(after))).scalar_one())
+    if get_mark(conn, TITLES) != titles_mark() and conn.execute(sa.select(t.signatures.c.document_id)
+                                                                 .limit(1)).first() is not None:
+        n += 1   # signed documents without title keys: the next run gives them theirs
+    return n
 
 
 def settings_changed(conn: Connection, params: SignatureParams) -> bool:
@@ -83,22 +122,60 @@ def _band_rows(doc_ids: list[int], sigs: np.ndarray, params: SignatureParams) ->
     return rows
 
 
+def _title_rows(docs: list[tuple[int, str | None, object]]) -> list[dict[str, int]]:
+    """Title-key rows of (document id, title, published); the title rule needs both dates, so an
+    undated document gets none."""
+    return [{"document_id": doc, "key": key} for doc, title, published in docs if published is not None
+            for key in title_keys(title)]
+
+
 def _supersede(conn: Connection, canonical_ids: list[int], keep: dict[int, int]) -> int:
-    """Remove band keys of documents older than the current one of each canonical URL."""
-    d, bk = t.documents, t.band_keys
+    """Remove band and title keys of documents older than the current one of each canonical URL."""
+    d, bk, tk = t.documents, t.band_keys, t.title_keys
     removed = 0
     for part in chunks(canonical_ids):
         older = [int(i) for i, c in conn.execute(sa.select(d.c.id, d.c.canonical_id)
                                                  .where(d.c.canonical_id.in_(part))) if i < keep[int(c)]]
         for sub in chunks(older):
             removed += conn.execute(bk.delete().where(bk.c.document_id.in_(sub))).rowcount or 0
+            conn.execute(tk.delete().where(tk.c.document_id.in_(sub)))
     return removed
+
+
+def backfill_title_keys(engine: Engine, *, run_id: int | None, batch_size: int) -> int:
+    """Give the current signed documents their title keys when the ``dedupe.titles`` mark is missing or
+    names another scheme (a registry signed before title keys existed); then every current document is
+    matched again, once, so short texts signed earlier meet. Returns the number of keys written."""
+    d, sg, tk = t.documents, t.signatures, t.title_keys
+    with engine.begin() as conn:
+        if get_mark(conn, TITLES) == titles_mark():
+            return 0
+        conn.execute(tk.delete())
+        current = sorted(int(i) for i in conn.execute(
+            sa.select(sa.func.max(sg.c.document_id)).select_from(sg.join(d, d.c.id == sg.c.document_id))
+            .where(_takes_part()).group_by(d.c.canonical_id)).scalars())
+        written = 0
+        for part in chunks(current, max(1, min(batch_size, 500))):
+            docs = [(int(i), title, published) for i, title, published in conn.execute(
+                sa.select(d.c.id, d.c.title, d.c.published).where(d.c.id.in_(part)))]
+            rows = _title_rows(docs)
+            insert_rows(conn, tk, rows)
+            written += len(rows)
+        stamp = now()
+        set_mark(conn, TITLES, titles_mark(), run_id=run_id, now=stamp)
+        if written:
+            set_mark(conn, MATCHED, 0, run_id=run_id, now=stamp)
+    if written:
+        log.info("wrote %d title keys for documents signed before title keys existed; matching them again",
+                 written)
+    return written
 
 
 def sign_pending(engine: Engine, params: SignatureParams, *, run_id: int | None, batch_size: int,
                  progress: Progress = SILENT) -> SignCounts:
     counts = SignCounts()
     d, sg = t.documents, t.signatures
+    counts.titled = backfill_title_keys(engine, run_id=run_id, batch_size=batch_size)
     with engine.connect() as conn:
         total = count_unsigned(conn)
     progress.start("signing documents", total)
@@ -106,16 +183,20 @@ def sign_pending(engine: Engine, params: SignatureParams, *, run_id: int | None,
     while True:
         with engine.begin() as conn:
             after = get_mark(conn, SIGNED) or 0
-            batch = conn.execute(sa.select(d.c.id, d.c.canonical_id, d.c.text).where(_usable(after))
-                                 .order_by(d.c.id).limit(batch_size)).all()
+            batch = conn.execute(sa.select(d.c.id, d.c.canonical_id, d.c.text, d.c.title, d.c.published,
+                                           d.c.status)
+                                 .where(_usable(after)).order_by(d.c.id).limit(batch_size)).all()
             if not batch:
                 break
-            # The newest document of a canonical URL in the batch is the one to sign; any older one is
-            # already superseded (its id stays below the mark, so it is not pending again).
+            # The newest document of a canonical URL in the batch is the one to sign (a short one only
+            # where the URL has no usable document); any older one is already superseded (its id stays
+            # below the mark, so it is not pending again).
+            full = _with_usable(conn, sorted({int(r.canonical_id) for r in batch}))
             newest: dict[int, int] = {}
-            for doc_id, cid, _text in batch:
-                newest[int(cid)] = max(newest.get(int(cid), 0), int(doc_id))
-            chosen = [(int(i), txt or "") for i, c, txt in batch if newest[int(c)] == int(i)]
+            for r in batch:
+                if r.status == "usable" or int(r.canonical_id) not in full:
+                    newest[int(r.canonical_id)] = max(newest.get(int(r.canonical_id), 0), int(r.id))
+            chosen = [(int(r.id), r.text or "") for r in batch if newest.get(int(r.canonical_id)) == int(r.id)]
             already: set[int] = set()
             for part in chunks([i for i, _ in chosen]):
                 already.update(int(x) for x in conn.execute(sa.select(sg.c.document_id)
@@ -130,6 +211,10 @@ def sign_pending(engine: Engine, params: SignatureParams, *, run_id: int | None,
                                             "created_at": stamp, "run_id": run_id} for r, i in enumerate(ids)])
                 rows = _band_rows(ids, sigs, params)
                 insert_rows(conn, t.band_keys, rows)
+                signed_now = set(ids)
+                titled = _title_rows([(int(r.id), r.title, r.published) for r in batch if int(r.id) in signed_now])
+                insert_rows(conn, t.title_keys, titled)
+                counts.titled += len(titled)
                 counts.empty += len(ids) - len({r["document_id"] for r in rows})
                 counts.signed += len(ids)
             counts.superseded += _supersede(conn, sorted(newest), newest)
@@ -197,5 +282,5 @@ def refresh_signatures(engine: Engine, params: SignatureParams, *, run_id: int |
     return counts
 
 
-__all__ = ["MATCHED", "PARAMS", "SIGNED", "SignCounts", "count_unsigned", "params_mark", "refresh_signatures",
-           "settings_changed", "sign_pending"]
+__all__ = ["MATCHED", "PARAMS", "SHORT_REASONS", "SIGNED", "TITLES", "SignCounts", "backfill_title_keys", "count_unsigned",
+           "params_mark", "refresh_signatures", "settings_changed", "sign_pending", "titles_mark"]
