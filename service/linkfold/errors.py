@@ -94,6 +94,22 @@ class MissingColumnError(InputError):
     code = "missing_column"
 
 
+class OutletListError(InputError):
+    """An outlet list file is invalid, or disagrees with the ruleset in force. ``line`` is 1-based when known;
+    ``problems`` holds every (line, reason) found, the first of which is the message."""
+
+    code = "outlet_list"
+
+    def __init__(self, message: str, *, source: str | None = None, line: int | None = None,
+                 problems: tuple[tuple[int | None, str], ...] = (), hint: str | None = None) -> None:
+        where = ":".join(str(p) for p in (source, line) if p is not None)
+        super().__init__(f"{where}: {message}" if where else message, hint=hint)
+        self.source = source
+        self.line = line
+        self.reason = message
+        self.problems = problems or ((line, message),)
+
+
 class InvalidURL(LinkfoldError):
     """A raw URL is not an http(s) URL that can be canonicalised.
 
@@ -155,6 +171,7 @@ __all__ = [
     "MissingColumnError",
     "NetworkError",
     "NotFound",
+    "OutletListError",
     "RulesError",
     "SchemaError",
     "SignatureError",
