@@ -128,7 +128,7 @@ aliases = ["herald-archive.test"]
     found = {(c.line_no, c.rules, c.under) for c in rule_conflicts(parsed.entries, rules)}
     assert found == {(2, "Big", False), (2, "Big Sport", True), (3, "Northvale Herald", False)}
     # A line for the alias and one for its site are one host twice.
-    with pytest.raises(OutletListError, match="3: duplicate domain 'northvale-herald.example'"):
+    with pytest.raises(OutletListError, match=r"3: duplicate domain 'northvale-herald\.example'"):
         parse_outlet_list(b"domain,outlet\nnorthvale-herald.example,N\nherald-archive.test,N\n", source="o.csv",
                           rules=rules)
 

@@ -258,6 +258,7 @@ __all__ = [
     "PREFER_CHOICES",
     "LoadResult",
     "OutletJoin",
+    "current_conflicts",
     "list_in_force",
     "list_outlet_lists",
     "load_outlet_list",
@@ -265,5 +266,4 @@ __all__ = [
     "outlet_columns",
     "outlet_for_hosts",
     "outlet_matches",
-    "current_conflicts",
 ]
