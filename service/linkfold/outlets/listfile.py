@@ -16,7 +16,7 @@ import re
 from dataclasses import dataclass, field
 from typing import Any
 
-from ..canon import Ruleset, canonicalize, registered_domain
+from ..canon import Ruleset, SiteRule, canonicalize, registered_domain
 from ..errors import InvalidURL, OutletListError
 
 #: The header names of the two required columns (any case); ``host`` may stand for ``domain``.
@@ -219,11 +219,11 @@ def rule_conflicts(entries: tuple[OutletEntry, ...], rules: Ruleset) -> list[Rul
     section, or its registered domain's), and, for an entry that names a registered domain, every site
     under that domain not listed on a line of its own (the list's domain entry would otherwise rename it)."""
     listed = {e.match for e in entries}
-    site_hosts = {}
-    for site in rules.sites.values():
-        if site.outlet:
+    site_hosts: dict[str, SiteRule] = {}
+    for rule in rules.sites.values():
+        if rule.outlet:
             try:
-                site_hosts[canonicalize(f"http://{site.host}/", rules).host] = site
+                site_hosts[canonicalize(f"http://{rule.host}/", rules).host] = rule
             except InvalidURL:
                 continue
     out: list[RuleConflict] = []

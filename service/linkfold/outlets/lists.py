@@ -16,7 +16,7 @@ from __future__ import annotations
 import hashlib
 import logging
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, Literal
@@ -106,19 +106,20 @@ def load_outlet_list(engine: Engine, path: Path | str, *, prefer: Prefer | None 
             # The same bytes read with the other choice are another list.
             digest = hashlib.sha256(data + b"\x00prefer=" + prefer.encode()).hexdigest()
         outlets = len({e.outlet for e in entries})
-        common = dict(name=(name or path.name)[:200], entries=len(entries), outlets=outlets, columns=parsed.columns,
-                      conflicts=tuple(conflicts), prefer=prefer if conflicts else None)
+        base = LoadResult(version=0, created=False, in_force=0, name=(name or path.name)[:200], entries=len(entries),
+                          outlets=outlets, columns=parsed.columns, conflicts=tuple(conflicts),
+                          prefer=prefer if conflicts else None)
         ol = t.outlet_lists
         found = conn.execute(sa.select(ol.c.id).where(ol.c.sha256 == digest)).scalar()
         in_force = list_in_force(conn)
         if found is not None:
-            return LoadResult(version=int(found), created=False, in_force=int(in_force or found), **common)
+            return replace(base, version=int(found), in_force=int(in_force or found))
         if check_only:
-            return LoadResult(version=0, created=False, in_force=in_force or 0, checked_only=True, **common)
+            return replace(base, in_force=in_force or 0, checked_only=True)
         try:
             with conn.begin_nested():
                 version = int(conn.execute(sa.insert(ol).values(
-                    name=common["name"], sha256=digest, columns=list(parsed.columns),
+                    name=base.name, sha256=digest, columns=list(parsed.columns),
                     created_at=datetime.now(UTC)).returning(ol.c.id)).scalar_one())
                 conn.execute(sa.insert(t.outlet_entries), [
                     {"list_id": version, "match": e.match, "outlet": e.outlet, "attributes": e.attributes,
@@ -126,9 +127,9 @@ def load_outlet_list(engine: Engine, path: Path | str, *, prefer: Prefer | None 
         except sa.exc.IntegrityError:
             # Another writer stored the same content a moment ago: that version is this one.
             version = int(conn.execute(sa.select(ol.c.id).where(ol.c.sha256 == digest)).scalar_one())
-            return LoadResult(version=version, created=False, in_force=list_in_force(conn) or version, **common)
-        log.info("stored outlet list %s as version %d (%d entries)", common["name"], version, len(entries))
-        return LoadResult(version=version, created=True, in_force=version, **common)
+            return replace(base, version=version, in_force=list_in_force(conn) or version)
+        log.info("stored outlet list %s as version %d (%d entries)", base.name, version, len(entries))
+        return replace(base, version=version, created=True, in_force=version)
 
 
 def outlet_attributes(conn: Connection, version: int | None = None) -> dict[str, dict[str, Any]]:
