@@ -15,6 +15,7 @@ docs/outlets.md describes the file format, the precedence rule and every column.
 
 from __future__ import annotations
 
+from .counts import COUNT_COLUMNS, OutletTable, outlet_table
 from .listfile import OutletEntry, OutletList, RuleConflict, parse_outlet_list, rule_conflicts
 from .lists import (
     PREFER_CHOICES,
@@ -29,13 +30,19 @@ from .lists import (
     outlet_for_hosts,
     outlet_matches,
 )
+from .report import REPORT_COLUMNS, OutletReport, outlet_report
+from .shapes import path_shape, segment_shape
 
 __all__ = [
+    "COUNT_COLUMNS",
     "PREFER_CHOICES",
+    "REPORT_COLUMNS",
     "LoadResult",
     "OutletEntry",
     "OutletJoin",
     "OutletList",
+    "OutletReport",
+    "OutletTable",
     "RuleConflict",
     "current_conflicts",
     "list_in_force",
@@ -45,6 +52,10 @@ __all__ = [
     "outlet_columns",
     "outlet_for_hosts",
     "outlet_matches",
+    "outlet_report",
+    "outlet_table",
     "parse_outlet_list",
+    "path_shape",
     "rule_conflicts",
+    "segment_shape",
 ]
