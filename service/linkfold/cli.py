@@ -30,6 +30,7 @@ COMMANDS: dict[str, str] = {
     "fetch": "content", "import-pages": "content", "documents": "content", "extract": "content",
     "dedupe": "dedupe", "decide": "dedupe", "clusters": "dedupe", "thresholds": "dedupe",
     "nightly": "dedupe", "runs": "dedupe",
+    "outlets": "outlets",
     "serve": "api", "tokens": "api",
     "demo": "demo",
 }
