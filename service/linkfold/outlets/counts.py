@@ -45,7 +45,7 @@ def dataset_ids(conn: Connection, names: Sequence[str] | None) -> list[int] | No
     if not names:
         return None
     d = t.datasets
-    found = dict(conn.execute(sa.select(d.c.name, d.c.id).where(d.c.name.in_(list(names)))).tuples().all())
+    found = {n: i for n, i in conn.execute(sa.select(d.c.name, d.c.id).where(d.c.name.in_(list(names))))}
     missing = [n for n in names if n not in found]
     if missing:
         raise NotFound(f"no dataset {missing[0]!r}", hint="linkfold datasets lists them")

@@ -250,8 +250,8 @@ def outlet_for_hosts(conn: Connection, hosts: Mapping[str, tuple[str | None, str
     found: dict[str, str] = {}
     keys_sorted = sorted(keys)
     for i in range(0, len(keys_sorted), 500):
-        found.update(conn.execute(sa.select(oe.c.match, oe.c.outlet).where(
-            oe.c.list_id == version, oe.c.match.in_(keys_sorted[i:i + 500]))).tuples().all())
+        found.update((m, o) for m, o in conn.execute(sa.select(oe.c.match, oe.c.outlet).where(
+            oe.c.list_id == version, oe.c.match.in_(keys_sorted[i:i + 500]))))
     return {h: found.get(h) or (found.get(d) if d else None) or o for h, (d, o) in hosts.items()}
 
 
