@@ -125,6 +125,21 @@ class Client:
                  limit: int = 100) -> list[dict[str, Any]]:
         return self._get("/clusters", level=level, min_size=min_size, outlet=outlet, limit=limit)["clusters"]
 
+    def outlets(self, *, datasets: Iterable[str] | None = None, listed: bool = False) -> Any:
+        """The outlet table (``GET /v1/outlets``) as a pandas DataFrame: one row per outlet, its attribute
+        columns and counts; ``frame.attrs`` holds ``list_version``, ``attributes`` and ``summary``."""
+        body = self._get("/outlets", dataset=list(datasets) if datasets else None, listed=listed or None)
+        return _frame(body, "outlets", ["outlet", *body["attributes"], "datasets", "sightings", "units", "urls",
+                                        "articles", "stories", "listed"])
+
+    def outlet_report(self, *, datasets: Iterable[str] | None = None, outlets: Iterable[str] | None = None,
+                      shapes: int = 5) -> Any:
+        """The coverage report (``GET /v1/outlets/report``) as a DataFrame, one row per outlet; ``shapes`` is
+        a list of {shape, sightings, urls} per row; ``frame.attrs["summary"]`` has the short-link counts."""
+        body = self._get("/outlets/report", dataset=list(datasets) if datasets else None,
+                         outlet=list(outlets) if outlets else None, shapes=shapes)
+        return _frame(body, "outlets", None)
+
     def decide(self, verdict: str, a: str, b: str, *, decided_by: str, note: str | None = None,
                level: str | None = None) -> dict[str, Any]:
         """Record a manual decision (needs a write token); it takes effect at the next dedupe run. The
@@ -156,6 +171,16 @@ class Client:
                                f"{len(batch):,} answers: {exc}") from exc
         if n != len(batch):
             raise NetworkError(f"the batch lookup from {self.base_url} ended after {n:,} of {len(batch):,} answers")
+
+
+def _frame(body: dict[str, Any], key: str, columns: list[str] | None) -> Any:
+    try:
+        import pandas as pd
+    except ImportError as exc:  # pragma: no cover - exercised only where pandas is absent
+        raise ImportError("this call returns a DataFrame and needs pandas: pip install pandas") from exc
+    frame = pd.DataFrame(body[key], columns=columns) if columns else pd.DataFrame(body[key])
+    frame.attrs.update({k: v for k, v in body.items() if k != key})
+    return frame
 
 
 def _path_part(text: str) -> str:

@@ -139,7 +139,8 @@ def outlets_load(obj: Context, file: Path, prefer: str | None, name: str | None,
             click.echo(f"linkfold: error: {file}:{line}: {reason}", err=True)
         raise OutletListError(f"{len(exc.problems)} problems in {file}; nothing was stored") from None
     for c in result.conflicts:
-        obj.message(f"{file}:{c.line_no}: {c.reason()}; the {result.prefer}'s name is used")
+        winner = "the rules file's" if result.prefer == "rules" else "the list's"
+        obj.message(f"{file}:{c.line_no}: {c.reason()}; {winner} name is used (--prefer {result.prefer})")
     if check_only:
         obj.message(f"{file}: OK, {result.entries:,} entries, {result.outlets:,} outlets, attributes: "
                     f"{', '.join(result.columns) or 'none'} (checked only, nothing stored)")
