@@ -22,6 +22,7 @@ from .dedupe.stage import list_clusters
 from .follow import import_redirects
 from .ingest import ingest_dump, lookup
 from .jobs.nightly import run_nightly
+from .outlets import load_outlet_list, outlet_table
 from .progress import SILENT, Progress
 from .settings import Settings, load_settings
 from .store import ensure_schema, make_engine
@@ -67,6 +68,7 @@ class DemoReport:
     notes: list[str] = field(default_factory=list)
     examples: list[dict] = field(default_factory=list)
     clusters: dict[str, list[dict]] = field(default_factory=dict)
+    outlets: list[str] = field(default_factory=list)
 
     def lines(self) -> list[str]:
         out = [f"registry: {self.database}", *self.notes]
@@ -81,12 +83,27 @@ class DemoReport:
                            f"{c['founder_url']}  [{evidence}]")
             if len(rows) > 8:
                 out.append(f"  … and {len(rows) - 8} more (linkfold clusters --level {level})")
+        out.extend(self.outlets)
         for ex in self.examples:
             out.append(f"lookup {ex['input']}\n    -> {ex['canonical']} (url key {ex['url_key']}, "
                        f"article {ex.get('article_id')}, story {ex.get('story_id')}, seen {ex['seen']})"
                        + (f"\n    stands for {ex['final_url']}" if ex.get("final_url") not in (None, ex["canonical"])
                           else ""))
         return out
+
+
+def demo_outlets(engine: sa.Engine, path: Path) -> list[str]:
+    """Load the demo's outlet list and render the outlets table (``linkfold outlets``) as lines."""
+    loaded = load_outlet_list(engine, path)
+    with engine.connect() as conn:
+        table = outlet_table(conn)
+    cells = [[("" if r.get(c) is None else str(r[c])) for c in table.columns] for r in table.rows]
+    widths = [max(len(c), *(len(row[i]) for row in cells)) for i, c in enumerate(table.columns)]
+    lines = [f"outlet list: fixtures/{path.name} stored as version {loaded.version} "
+             f"({loaded.entries} entries, {loaded.outlets} outlets); by the outlet each sighting stands for:"]
+    for row in [list(table.columns), *cells]:
+        lines.append("  " + "  ".join(v.ljust(w) for v, w in zip(row, widths, strict=True)).rstrip())
+    return lines
 
 
 def table_counts(engine: sa.Engine) -> dict[str, int]:
@@ -125,6 +142,7 @@ def run_demo(workdir: Path, *, settings: Settings | None = None, progress: Progr
         nightly = run_nightly(engine, settings=settings.replace(contact=""), progress=progress)
         report.notes.extend(nightly.lines())
         report.steps.append(("registry", table_counts(engine)))
+        report.outlets = demo_outlets(engine, fx / "outlets.csv")
         for level in ("article", "story"):
             report.clusters[level] = [c.as_dict() for c in list_clusters(engine, level=level, min_size=2)]
         report.examples = list(lookup(engine, demo_lookups(fx)))
