@@ -215,3 +215,27 @@ def test_path_shapes() -> None:
     assert path_shape("https://a.example") == "/"
     assert path_shape("https://a.example/article.php?id=4411&ref=x") == "/article.php?id={n4}&ref=x"
     assert path_shape("https://a.example/tag/storm/") == "/tag/storm/"
+
+
+# --- the final outlet everywhere a link's final columns are read ---------------------------------------------
+def test_view_export_and_lookup_give_the_listed_final_outlet(engine: sa.Engine, world: dict) -> None:
+    from linkfold.ingest import export_dataset, lookup
+
+    with engine.connect() as conn:
+        view = pd.read_sql(sa.text("SELECT canonical_url, outlet, final_url, final_domain, final_outlet "
+                                   "FROM sighting_links WHERE final_domain IN ('delta.example', 'gamma.example')"),
+                           conn)
+    assert len(view) and set(view.final_outlet) == {"Gamma Group"}
+    # The outlet of the URL as seen stays the canonicaliser's (docs/outlets.md).
+    assert set(view[view.canonical_url == view.final_url].outlet) <= {"delta.example", "gamma.example"}
+    short_to_delta = view[view.canonical_url.str.startswith("https://short.test/")]
+    assert len(short_to_delta), "the generated world leads a short link to the group"
+    answers = list(lookup(engine, ["https://delta.example/never/loaded", "https://www.gamma.example/x",
+                                   "https://beta.test/never", *short_to_delta.canonical_url[:1]]))
+    assert [a["final_outlet"] for a in answers[:3]] == ["Gamma Group", "Gamma Group", "Beta Post"]
+    assert all(a["final_outlet"] == "Gamma Group" for a in answers[3:])
+    out = world["files"]["a"].parent / "export.csv"
+    export_dataset(engine, "gen-a", fmt="csv", out=out)
+    exported = pd.read_csv(out, keep_default_na=False)
+    on_delta = exported[exported.final_domain.isin(["delta.example", "gamma.example"])]
+    assert len(on_delta) and set(on_delta.final_outlet) == {"Gamma Group"}

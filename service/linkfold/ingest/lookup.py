@@ -101,6 +101,7 @@ def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> l
         answers[i]["matched_by"] = "url_key"
     raw_only: dict[int, str] = {}
     shorteners = canon.rules.shortener_hosts
+    unseen: dict[int, tuple[str, str | None]] = {}
     for i in urls:
         stored = known_raw.get(hashes[i])
         if stored is not None and stored["url_key"] is not None:
@@ -124,6 +125,13 @@ def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> l
         if c.host not in shorteners:
             answers[i].update(final_url=c.url, final_domain=c.domain, final_outlet=c.outlet,
                               final_is_article=c.is_article)
+            unseen[i] = (c.host, c.domain)
+    # The outlet list in force names outlets by host, then registered domain (docs/outlets.md).
+    listed = finals.listed_outlets(conn, [k for pair in unseen.values() for k in pair if k]) if unseen else {}
+    for i, (host, domain) in unseen.items():
+        named = listed.get(host) or (listed.get(domain) if domain else None)
+        if named:
+            answers[i]["final_outlet"] = named
 
     found = registry.canonicals_by_key(conn, list(wanted_keys.values()))
     counts = registry.sighting_counts(conn, [row["id"] for row in found.values()])

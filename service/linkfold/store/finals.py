@@ -60,39 +60,70 @@ def store_ruleset_hosts(conn: Connection, ruleset_id: int, shortener_hosts: Iter
 
 
 # --- reading the final columns ---------------------------------------------------------------------------
+def list_in_force() -> sa.ScalarSelect[Any]:
+    """The version of the outlet list in force (the newest ``outlet_lists`` row; NULL without one)."""
+    return sa.select(sa.func.max(t.outlet_lists.c.id)).scalar_subquery()
+
+
 @dataclass(frozen=True)
 class FinalsJoin:
-    """How a query reads the final columns of canonical URL ``c`` (the table or an alias): two outer joins,
-    ``f`` the URL that ``c.final_id`` names and ``sh`` the shortener host of the newest ruleset that URL
-    (or ``c`` itself) is on, at most one row each (primary keys), then a CASE per column."""
+    """How a query reads the final columns of canonical URL ``c`` (the table or an alias): outer joins,
+    ``f`` the URL that ``c.final_id`` names, ``sh`` the shortener host of the newest ruleset that URL
+    (or ``c`` itself) is on, and ``oh`` / ``od`` the entries of the outlet list in force for that URL's
+    host and registered domain (docs/outlets.md), at most one row each (unique keys), then a CASE per
+    column. The final outlet is the list's when it names the final URL's host or domain, else the
+    canonicaliser's."""
 
     c: Any
     f: Any
     sh: Any
+    oh: Any = None
+    od: Any = None
 
     @classmethod
     def of(cls, c: Any) -> FinalsJoin:
-        return cls(c, t.canonical_urls.alias("fc"), t.ruleset_hosts.alias("sh"))
+        return cls(c, t.canonical_urls.alias("fc"), t.ruleset_hosts.alias("sh"),
+                   t.outlet_entries.alias("foh"), t.outlet_entries.alias("fod"))
 
     def join(self, base: Any) -> Any:
-        """``base`` (a FROM clause holding ``c``) with the two outer joins."""
-        c, f, sh = self.c, self.f, self.sh
+        """``base`` (a FROM clause holding ``c``) with the outer joins."""
+        c, f, sh, oh, od = self.c, self.f, self.sh, self.oh, self.od
         newest = sa.select(sa.func.max(t.rulesets.c.id)).scalar_subquery()
+        in_force = list_in_force()
         return (base.outerjoin(f, f.c.id == c.c.final_id)
                 .outerjoin(sh, sa.and_(sh.c.host == sa.func.coalesce(f.c.host, c.c.host), sh.c.role == SHORTENER,
-                                       sh.c.ruleset_id == newest)))
+                                       sh.c.ruleset_id == newest))
+                .outerjoin(oh, sa.and_(oh.c.list_id == in_force, oh.c.match == sa.func.coalesce(f.c.host, c.c.host)))
+                .outerjoin(od, sa.and_(od.c.list_id == in_force,
+                                       od.c.match == sa.func.coalesce(f.c.domain, c.c.domain))))
 
     def column(self, column: str) -> sa.ColumnElement[Any]:
         """One of url, domain, outlet, is_article of the URL that ``c`` stands for."""
         c, f = self.c, self.f
-        picked = sa.case((self.sh.c.host.is_not(None), sa.null()), (c.c.final_id.is_(None), c.c[column]),
-                         else_=f.c[column])
+        own: sa.ColumnElement[Any] = sa.case((c.c.final_id.is_(None), c.c[column]), else_=f.c[column])
+        if column == "outlet":
+            own = sa.func.coalesce(self.oh.c.outlet, self.od.c.outlet, own)
+        picked = sa.case((self.sh.c.host.is_not(None), sa.null()), else_=own)
         return sa.type_coerce(picked, t.canonical_urls.c[column].type)  # SQLite hands truth values back as 0/1
 
     def columns(self) -> list[sa.ColumnElement[Any]]:
         """The four final columns, labelled as :data:`FINAL_COLUMNS`."""
         return [self.column(col).label(name)
                 for col, name in zip(("url", "domain", "outlet", "is_article"), FINAL_COLUMNS, strict=True)]
+
+
+def listed_outlets(conn: Connection, keys: Iterable[str]) -> dict[str, str]:
+    """Hosts and registered domains among ``keys`` that the outlet list in force names -> their outlet
+    (for outlets computed in memory, such as a URL never loaded: host first, then domain)."""
+    oe = t.outlet_entries
+    version = conn.execute(sa.select(list_in_force())).scalar()
+    out: dict[str, str] = {}
+    if version is None:
+        return out
+    for part in _chunks(sorted(set(keys))):
+        out.update((m, o) for m, o in conn.execute(sa.select(oe.c.match, oe.c.outlet).where(
+            oe.c.list_id == version, oe.c.match.in_(part))))
+    return out
 
 
 def finals_of(conn: Connection, canonical_ids: Iterable[int]) -> dict[int, dict[str, Any]]:
@@ -267,6 +298,8 @@ __all__ = [
     "edges_of",
     "end_of",
     "finals_of",
+    "list_in_force",
+    "listed_outlets",
     "recompute_finals",
     "refresh_all_finals",
     "refresh_finals",
