@@ -115,3 +115,32 @@ def test_client_returns_dataframes(db_url: str, engine: sa.Engine, world: dict, 
     assert frame.set_index("outlet")["sightings"].to_dict() == {r["outlet"]: r["sightings"] for r in table.rows}
     assert frame.attrs["list_version"] == 1 and frame.attrs["summary"] == table.summary
     assert "Alpha Times" in set(report.outlet) and all(len(s) <= 1 for s in report.shapes)
+
+
+def test_a_newer_ruleset_that_renames_a_listed_site_is_warned_about(capsys, db_url: str, engine: sa.Engine,
+                                                                     world: dict, tmp_path: Path) -> None:
+    from linkfold.canon import parse_rules
+    from linkfold.store.rulesets import store_ruleset
+
+    renamed = (tmp_path / "rules.toml").read_text(encoding="utf-8").replace('"Alpha Times"', '"Alpha Daily"')
+    with engine.begin() as conn:
+        store_ruleset(conn, parse_rules(renamed, source="renamed.toml"))
+    code, out, err = run(capsys, db_url, "outlets", "--format", "jsonl")
+    assert code == 0
+    assert ("warning: outlet list line 2: 'alpha.example' is outlet 'Alpha Daily' in the ruleset in force, "
+            "'Alpha Times' in this list; the list's name is used") in err
+    assert "Alpha Times" in {json.loads(line)["outlet"] for line in out.splitlines()}
+    code, _, err = run(capsys, db_url, "-q", "outlets")
+    assert code == 0 and err == ""
+
+
+def test_demo_loads_its_outlet_list(tmp_path: Path) -> None:
+    from linkfold.demo import run_demo
+
+    report = run_demo(tmp_path / "demo")
+    text = "\n".join(report.lines())
+    assert "outlet list: fixtures/outlets.csv stored as version 1 (6 entries, 5 outlets)" in text
+    header = report.outlets[1]
+    assert header.split() == ["outlet", "type", "reach", "coding", "founded", "datasets", "sightings", "units",
+                              "urls", "articles", "stories", "listed"]
+    assert any(line.strip().startswith("Eastbrook Gazette") for line in report.outlets)
