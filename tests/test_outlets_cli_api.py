@@ -102,13 +102,14 @@ def test_http_routes_under_the_read_token(db_url: str, engine: sa.Engine, world:
     missing = api.get("/v1/outlets", params={"dataset": "nope"})
     assert missing.status_code == 404 and missing.json()["error"]["code"] == "not_found"
     assert api.get("/v1/outlets/report", params={"shapes": -1}).status_code == 422
+    assert api.get("/v1/outlets", params={"dataset": ""}).status_code == 422
 
 
 def test_client_returns_dataframes(db_url: str, engine: sa.Engine, world: dict, tmp_path: Path) -> None:
     token = create_token(engine, scope="read", note="client").secret
     with LiveServer(db_url, cwd=tmp_path) as server, Client(server.url, token=token) as lf:
         frame = lf.outlets()
-        report = lf.outlet_report(datasets=["gen-b"], shapes=1)
+        report = lf.outlet_report(dataset="gen-b", shapes=1)
     with engine.connect() as conn:
         table = outlet_table(conn)
     assert list(frame.columns) == table.columns

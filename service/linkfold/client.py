@@ -125,19 +125,17 @@ class Client:
                  limit: int = 100) -> list[dict[str, Any]]:
         return self._get("/clusters", level=level, min_size=min_size, outlet=outlet, limit=limit)["clusters"]
 
-    def outlets(self, *, datasets: Iterable[str] | None = None, listed: bool = False) -> Any:
+    def outlets(self, *, dataset: str | None = None, listed: bool = False) -> Any:
         """The outlet table (``GET /v1/outlets``) as a pandas DataFrame: one row per outlet, its attribute
         columns and counts; ``frame.attrs`` holds ``list_version``, ``attributes`` and ``summary``."""
-        body = self._get("/outlets", dataset=list(datasets) if datasets else None, listed=listed or None)
+        body = self._get("/outlets", dataset=dataset, listed=listed or None)
         return _frame(body, "outlets", ["outlet", *body["attributes"], "datasets", "sightings", "units", "urls",
                                         "articles", "stories", "listed"])
 
-    def outlet_report(self, *, datasets: Iterable[str] | None = None, outlets: Iterable[str] | None = None,
-                      shapes: int = 5) -> Any:
+    def outlet_report(self, *, dataset: str | None = None, outlet: str | None = None, shapes: int = 5) -> Any:
         """The coverage report (``GET /v1/outlets/report``) as a DataFrame, one row per outlet; ``shapes`` is
         a list of {shape, sightings, urls} per row; ``frame.attrs["summary"]`` has the short-link counts."""
-        body = self._get("/outlets/report", dataset=list(datasets) if datasets else None,
-                         outlet=list(outlets) if outlets else None, shapes=shapes)
+        body = self._get("/outlets/report", dataset=dataset, outlet=outlet, shapes=shapes)
         return _frame(body, "outlets", None)
 
     def decide(self, verdict: str, a: str, b: str, *, decided_by: str, note: str | None = None,

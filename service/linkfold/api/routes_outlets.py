@@ -78,7 +78,11 @@ class OutletReportOut(BaseModel):
     summary: dict[str, Any]
 
 
-DatasetParam = Annotated[list[str] | None, Query(description="Only these datasets (repeat; default: all)")]
+# One value each (the CLI takes several): a query parameter that repeats is an array in the OpenAPI
+# document, and any text is a valid item of it, so no request could be refused as the document promises.
+DatasetParam = Annotated[str | None, Query(min_length=1, max_length=200, description="Only this dataset "
+                                                                                       "(default: all)")]
+OutletParam = Annotated[str | None, Query(min_length=1, max_length=255, description="Only this outlet")]
 
 
 @router.get("/outlets", response_model=OutletList, tags=["outlets"],
@@ -88,7 +92,7 @@ def outlets(request: Request, _access: ReadAccess, dataset: DatasetParam = None,
             listed: Annotated[bool, Query(description="Only the outlets the list in force names")] = False
             ) -> dict[str, Any]:
     with api_state(request).engine.connect() as conn:
-        table = outlet_table(conn, datasets=dataset or None, listed_only=listed)
+        table = outlet_table(conn, datasets=[dataset] if dataset else None, listed_only=listed)
     return {"list_version": table.list_version, "attributes": table.attributes, "outlets": table.rows,
             "summary": table.summary}
 
@@ -97,8 +101,9 @@ def outlets(request: Request, _access: ReadAccess, dataset: DatasetParam = None,
             summary="Per-outlet coverage: article share, short links, pages, usable text, non-article shapes",
             responses={**READ_ERRORS, **error_responses(404)})
 def outlets_report(request: Request, _access: ReadAccess, dataset: DatasetParam = None,
-                   outlet: Annotated[list[str] | None, Query(description="Only these outlets (repeat)")] = None,
+                   outlet: OutletParam = None,
                    shapes: Annotated[int, Query(ge=0, le=MAX_SHAPES)] = DEFAULT_SHAPES) -> dict[str, Any]:
     with api_state(request).engine.connect() as conn:
-        report = outlet_report(conn, datasets=dataset or None, outlets=outlet or None, shapes=shapes)
+        report = outlet_report(conn, datasets=[dataset] if dataset else None, outlets=[outlet] if outlet else None,
+                               shapes=shapes)
     return {"list_version": report.list_version, "outlets": report.rows, "summary": report.summary}
