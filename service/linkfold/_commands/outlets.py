@@ -20,6 +20,7 @@ from ..outlets import (
     outlet_report,
     outlet_table,
 )
+from ..outlets.listfile import MAX_PROBLEMS
 from ..outlets.report import DEFAULT_SHAPES, REPORT_COLUMNS
 from ._common import Context, common_options, pass_ctx, write_jsonl, write_table
 
@@ -137,7 +138,9 @@ def outlets_load(obj: Context, file: Path, prefer: str | None, name: str | None,
         # Every problem on its own line, so a lab fixes the file in one pass.
         for line, reason in exc.problems:
             click.echo(f"linkfold: error: {file}:{line}: {reason}", err=True)
-        raise OutletListError(f"{len(exc.problems)} problems in {file}; nothing was stored") from None
+        shown = len(exc.problems)
+        total = f"{shown} or more" if shown >= MAX_PROBLEMS else str(shown)
+        raise OutletListError(f"{total} problems in {file}; nothing was stored") from None
     for c in result.conflicts:
         winner = "the rules file's" if result.prefer == "rules" else "the list's"
         obj.message(f"{file}:{c.line_no}: {c.reason()}; {winner} name is used (--prefer {result.prefer})")
