@@ -7,7 +7,7 @@ joins on ``outlet_entries``' unique key (list_id, match); without a list they ma
 gives what it gave. No table changes.
 
 Revision ID: 0021
-Revises: 0016
+Revises: 0015
 """
 
 from __future__ import annotations
@@ -15,7 +15,7 @@ from __future__ import annotations
 from alembic import op
 
 revision = "0021"
-down_revision = "0016"
+down_revision = "0015"
 branch_labels = None
 depends_on = None
 
