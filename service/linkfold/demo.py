@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import csv
 import logging
-import shutil
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -19,6 +18,7 @@ import sqlalchemy as sa
 from .canon import load_rules
 from .content.stage import import_pages
 from .dedupe.stage import list_clusters
+from .errors import InputError
 from .follow import import_redirects
 from .ingest import ingest_dump, lookup
 from .jobs.nightly import run_nightly
@@ -113,13 +113,52 @@ def table_counts(engine: sa.Engine) -> dict[str, int]:
                 for n in names}
 
 
+#: The file that marks a folder as the demo's own: written when the demo first uses a folder, and the only
+#: proof that a later run may replace what is in it.
+DEMO_MARKER = ".linkfold-demo"
+#: Everything the demo writes into its folder: the registry and SQLite's side files. Nothing else in the
+#: folder is ever touched, so a file a user put there survives every run.
+DEMO_FILES = ("demo.db", "demo.db-wal", "demo.db-shm", "demo.db-journal")
+
+
+def prepare_workdir(workdir: Path) -> Path:
+    """Make ``workdir`` ready for a fresh demo registry and return the database path.
+
+    A new or empty folder is taken and marked; a folder marked by an earlier demo has only the demo's own
+    files (:data:`DEMO_FILES`) removed; any other folder is refused, since its files are not the demo's to
+    delete (a home folder given by mistake must come out of this untouched).
+    """
+    if workdir.exists() and not workdir.is_dir():
+        raise InputError(f"{workdir}: not a folder", hint="give --workdir a new or empty folder")
+    marker = workdir / DEMO_MARKER
+    if workdir.is_dir() and not marker.is_file():
+        present = sorted(p.name for p in workdir.iterdir())
+        if present:
+            shown = ", ".join(present[:5]) + (f" and {len(present) - 5} more" if len(present) > 5 else "")
+            raise InputError(f"{workdir}: the folder is not empty and is not a demo folder ({shown}); "
+                             "the demo only replaces what it wrote itself",
+                             hint="give --workdir a new or empty folder")
+    workdir.mkdir(parents=True, exist_ok=True)
+    for name in DEMO_FILES:
+        path = workdir / name
+        if path.is_symlink() or path.is_file():
+            path.unlink()
+        elif path.exists():
+            raise InputError(f"{path}: expected the demo's own file, found a folder",
+                             hint="give --workdir a new or empty folder")
+    marker.write_text("This folder holds the linkfold demo's registry. `linkfold demo` replaces only "
+                      + ", ".join(DEMO_FILES) + " here and leaves every other file alone.\n", encoding="utf-8")
+    return workdir / "demo.db"
+
+
 def run_demo(workdir: Path, *, settings: Settings | None = None, progress: Progress = SILENT,
              say: Callable[[str], None] = lambda _m: None) -> DemoReport:
-    """Run the demo into ``workdir/demo.db`` (the folder is emptied first) and report counts."""
-    if workdir.exists():
-        shutil.rmtree(workdir)
-    workdir.mkdir(parents=True)
-    db_path = workdir / "demo.db"
+    """Run the demo into a fresh ``workdir/demo.db`` and report counts.
+
+    The folder must be new, empty, or one an earlier demo marked (see :func:`prepare_workdir`); only the
+    demo's own files are ever replaced.
+    """
+    db_path = prepare_workdir(workdir)
     engine = make_engine(f"sqlite:///{db_path}")
     fx = fixtures_dir()
     settings = settings or load_settings()

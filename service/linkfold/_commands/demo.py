@@ -12,7 +12,8 @@ from ._common import Context, common_options, pass_ctx
 
 @click.command("demo")
 @click.option("--workdir", type=click.Path(file_okay=False, path_type=Path), default=Path("linkfold-demo"),
-              show_default=True, help="Folder for the demo's fresh SQLite registry (replaced each run).")
+              show_default=True, help="Folder for the demo's fresh SQLite registry: a new or empty folder, or one an earlier demo "
+                   "made (only the demo's own files in it are replaced; any other folder is refused).")
 @common_options
 @pass_ctx
 def demo_command(obj: Context, workdir: Path) -> None:
