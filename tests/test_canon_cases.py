@@ -46,7 +46,8 @@ def _rows(name: str) -> list:
     return [pytest.param(row, id=f"{name}:{i + 2}") for i, row in enumerate(rows)]
 
 
-@pytest.mark.parametrize("row", _rows("canon.tsv"))
+# shapes.tsv: link forms recognised by their shape alone (AMP caches, redirect wrappers, share pages).
+@pytest.mark.parametrize("row", _rows("canon.tsv") + _rows("shapes.tsv"))
 def test_canon_case(row: dict) -> None:
     assert row["source"].strip(), "every case names its source"
     raw, expected, rules = _unescape(row["input"]), row["expected"], RULES[row["rules"]]

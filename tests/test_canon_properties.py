@@ -25,13 +25,13 @@ schemes = st.sampled_from(["http", "https", "HTTP", "hTTps"])
 prefixes = st.sampled_from(["", "www.", "m.", "amp.", "mobile.", "sub.", "WWW.", "m.sub."])
 domains = st.sampled_from(["daily.example", "northvale-herald.example", "riverton-daily.test",
                            "harbourview-news.example", "herald-archive.test", "bücher.example",
-                           "news.co.uk", "daily-news.ampcache.test", "out.socialpost.example", "127.0.0.1",
+                           "news.co.uk", "daily-news.ampcache.test", "daily-example.ampcache.test", "out.socialpost.example", "127.0.0.1",
                            "[::1]"])
 ports = st.sampled_from(["", ":80", ":443", ":8080", ":0", ":"])
 segments = st.one_of(
     st.sampled_from(["amp", "print", "index.html", "INDEX.html", ".", "..", "%2F", "%2f", "%7e", "%41", "",
                      "a;jsessionid=1", "x;v=2", "é", "a b", "story.amp.html", "c", "s", "story", "news",
-                     "2026", "l", "redirect", "out", "article.php", "%2e", "~", "%zz", "%"]),
+                     "2026", "l", "redirect", "out", "daily.example", "i", "v", "article.php", "%2e", "~", "%zz", "%"]),
     st.text(alphabet="abcXYZ019-._~!$&'()*+,;=:@%", min_size=1, max_size=8),
 )
 names = st.sampled_from(["utm_source", "id", "a", "b", "B", "amp", "output", "outputType", "PHPSESSID", "url",

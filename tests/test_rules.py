@@ -89,7 +89,7 @@ def test_default_rules_content_is_pinned_to_the_canon_version() -> None:
     digest = hashlib.sha256(json.dumps(content, sort_keys=True, ensure_ascii=False,
                                        separators=(",", ":")).encode()).hexdigest()
     assert {CANON_VERSION: digest} == {
-        "1": "80afa75ebfad999376bd028b41bb030dd4c963208e7b77944665b0e7c266cc61"}
+        "2": "1126eb606f90e8ac713c620dcd7403ff0e455e5f702e88809f23d86fbf12aa8d"}
 
 
 def test_overlay_switches_win_and_lists_extend() -> None:

@@ -27,6 +27,7 @@ from urllib.parse import unquote
 
 from ..errors import InvalidURL
 from . import _parse
+from ._idna import punycode_decode
 from .hosts import host_problem, registered_domain
 from .keys import url_key
 from .rules import SWITCHES, Ruleset, SiteRule, default_rules
@@ -129,8 +130,9 @@ class _HostPlan:
     site: SiteRule | None
     sw: _Switches
     steps: tuple[str, ...]
-    #: Whether the host is an AMP cache's (its URLs stand for the publisher's URL).
-    amp_cache_host: bool
+    #: The host's first label when it could be an AMP cache's encoding of a publisher host (it has a dash
+    #: and more labels follow), else None; the path says whether it is (see _amp_cache_target).
+    amp_label: str | None
     #: Query-parameter verdicts for this host's switches (shared by every host with the same switches).
     verdicts: dict[str, str | tuple[tuple[str, frozenset[str] | None], ...] | None]
     #: Whole queries already folded under these switches, for hosts without a site rule: query strings
@@ -179,7 +181,6 @@ class _Engine:
         self.fold_last = rules.amp_last_segments | rules.print_last_segments | rules.index_names | {""}
         self.fold_first = rules.amp_first_segments
         self.amp_suffixes = rules.amp_name_suffixes
-        self.amp_cache_suffixes = tuple("." + suffix for suffix in rules.amp_cache_suffixes)
 
     # --- host -----------------------------------------------------------------------------------------
     def plan(self, host: str, host_type: int) -> _HostPlan:
@@ -245,11 +246,12 @@ class _Engine:
         steps: list[str] = []
         if host_type != _parse.HOST_NAME:
             sw, verdicts, queries = self._switches(None)
-            return _HostPlan(host, None, None, None, sw, (), False, verdicts, queries)
+            return _HostPlan(host, None, None, None, sw, (), None, verdicts, queries)
         # Sites are written without the root dot, so the dot goes before the site is looked up; the site
         # may still keep it (host_trailing_dot = false) below.
-        stripped = host.rstrip(".") if host.endswith(".") else host
-        problem = host_problem(stripped.rstrip("."))
+        # Only one dot is the root: "a.example.." has an empty label before it (RFC 1034 §3.1).
+        stripped = host[:-1] if host.endswith(".") else host
+        problem = host_problem(stripped)
         if problem:
             return problem
         domain = registered_domain(stripped)
@@ -272,8 +274,9 @@ class _Engine:
                     host = self._fold_prefix(host, domain, sw, steps)
                     break
         outlet = site.outlet if site is not None and site.outlet else domain
-        amp_cache_host = bool(self.amp_cache_suffixes) and stripped.endswith(self.amp_cache_suffixes)
-        return _HostPlan(host, domain, outlet, site, sw, tuple(steps), amp_cache_host, verdicts, queries,
+        first, dot, _rest = stripped.partition(".")
+        amp_label = first if dot and "-" in first else None
+        return _HostPlan(host, domain, outlet, site, sw, tuple(steps), amp_label, verdicts, queries,
                          rules.never_article(host))
 
     def _fold_prefix(self, host: str, domain: str | None, sw: _Switches, steps: list[str]) -> str:
@@ -316,7 +319,8 @@ class _Engine:
 
         # A wrapper's target is an absolute http(s) URL in a parameter value, written plainly or encoded:
         # without "=http" in the query there is nothing to unwrap (most URLs), so skip the patterns.
-        if (query and sw.redirect_wrappers and "=http" in query.lower()) or (plan.amp_cache_host and sw.amp_cache):
+        if (query and sw.redirect_wrappers and "=http" in query.lower()) or (
+                plan.amp_label is not None and sw.amp_cache and path.startswith(_AMP_CACHE_PREFIXES)):
             if parts is None:
                 parts = _parse.Parts(raw, scheme, False, host, port, path, query, fragment,  # type: ignore[arg-type]
                                      _parse.HOST_NAME)
@@ -461,6 +465,8 @@ class _Engine:
                     continue
                 if not wrapper.path.search(parts.path):
                     continue
+                if not wrapper.hosts and _share_page(parts.path):
+                    continue  # a share page names an article but is not it (see _share_page)
                 for piece in parts.query.split("&"):
                     name, _, value = piece.partition("=")
                     if name.lower() in wrapper.params and value:
@@ -468,12 +474,10 @@ class _Engine:
                         if (target[:7].lower() == "http://" or target[:8].lower() == "https://") \
                                 and self._usable(target):
                             return "redirect_wrappers", target
-        if sw.amp_cache and rules.amp_cache_suffixes:
-            for suffix in rules.amp_cache_suffixes:
-                if parts.host.endswith("." + suffix):
-                    cached = _amp_cache_target(parts)
-                    if cached is not None and self._usable(cached):
-                        return "amp_cache", cached
+        if sw.amp_cache and plan.amp_label is not None:
+            cached = _amp_cache_target(parts, plan.amp_label)
+            if cached is not None and self._usable(cached):
+                return "amp_cache", cached
         return None
 
     def _usable(self, target: str) -> bool:
@@ -637,19 +641,67 @@ def _reparse_path(path: str, host: str, sw: _Switches) -> str:
     return _percent(parts.path, sw.percent_unreserved, sw.percent_case)
 
 
-def _amp_cache_target(parts: _parse.Parts) -> str | None:
-    """The publisher URL inside an AMP-cache URL: /c/s/<host>/<path> (https) or /c/<host>/<path> (http)."""
+#: AMP-cache path prefixes: content (/c/), viewer (/v/) and images (/i/); "s/" after one marks https.
+_AMP_CACHE_PREFIXES = ("/c/", "/v/", "/i/")
+_AMP_CACHE_FORMS = tuple((f"{p}s/", "https") for p in _AMP_CACHE_PREFIXES) + tuple(
+    (p, "http") for p in _AMP_CACHE_PREFIXES)
+
+
+@lru_cache(maxsize=4096)
+def amp_cache_labels(origin: str) -> frozenset[str]:
+    """The first host labels under which an AMP cache serves ``origin`` (a host name, ASCII).
+
+    The cache form (common practice): every "-" of the origin host doubled, then every "." made "-", so
+    that ``news.daily-example.test`` is served as ``news-daily--example-test.<cache host>``. For a host with
+    IDNA labels the cache works on the Unicode form and encodes the resulting label again (from memory of
+    the cache's published URL format), so both spellings are accepted. Labels that would pass 63
+    characters are hashed by the caches instead; that form cannot be recognised by shape and stays as it is.
+    """
+    host = origin.lower()
+    if host.endswith("."):
+        host = host[:-1]
+    forms = {host.replace("-", "--").replace(".", "-")}
+    if "xn--" in host:
+        labels = [punycode_decode(label[4:]) if label.startswith("xn--") else label for label in host.split(".")]
+        if all(labels):
+            ascii_label = _parse.ascii_host(".".join(labels).replace("-", "--").replace(".", "-"))  # type: ignore[arg-type]
+            if ascii_label:
+                forms.add(ascii_label)
+    return frozenset(forms)
+
+
+def _amp_cache_target(parts: _parse.Parts, label: str) -> str | None:
+    """The publisher URL inside an AMP-cache URL, recognised by its shape alone: the path is
+    ``/c/s/<origin host>/<path>`` (https; ``/c/<origin host>/…`` for http; ``/v/`` and ``/i/`` likewise)
+    and the first label of the URL's own host is the dashed encoding of that origin host. No list of cache
+    hosts is needed, and a path that merely looks like the form on an ordinary site is left alone."""
     path = parts.path
-    for prefix, scheme in (("/c/s/", "https"), ("/v/s/", "https"), ("/c/", "http"), ("/v/", "http")):
+    for prefix, scheme in _AMP_CACHE_FORMS:
         if path.startswith(prefix):
             rest = path[len(prefix):]
-            if not rest or rest.startswith("/"):
-                return None
+            origin = rest.partition("/")[0]
+            if "%" in origin:  # a Unicode host, percent-encoded by the parser in the path
+                origin = _parse.ascii_host(unquote(origin)) or ""
+            if not origin or label not in amp_cache_labels(origin):
+                continue
             target = f"{scheme}://{rest}"
             if parts.query is not None:
                 target += "?" + parts.query
             return target
     return None
+
+
+#: Path segments (without an extension) that name a page for sharing or posting a link: such a page takes
+#: the article's URL as a parameter, like a redirect wrapper, but it is a page of its own (a form), not the
+#: article, so a generic wrapper never unwraps it. Common practice; see docs/canonical-form.md.
+SHARE_SEGMENTS = frozenset({"share", "sharer", "sharing", "sharearticle", "shareurl", "intent", "submit",
+                            "compose", "post", "bookmark", "bookmarks", "addtoany", "send", "pin", "tweet",
+                            "mail", "email", "messaging"})
+
+
+def _share_page(path: str) -> bool:
+    """Whether a path names a share page (any segment, extension aside, in :data:`SHARE_SEGMENTS`)."""
+    return any(segment.partition(".")[0] in SHARE_SEGMENTS for segment in path.lower().split("/") if segment)
 
 
 def _diagnose(text: str) -> InvalidURL:

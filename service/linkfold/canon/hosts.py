@@ -7,6 +7,8 @@ from functools import lru_cache
 
 from publicsuffixlist import PublicSuffixList
 
+from ._idna import xn_label_problem
+
 # The list ships inside the package (offline); its version is PSL_VERSION. Private-section suffixes count:
 # on a shared hosting suffix each customer's subdomain is its own registered domain, which is what an
 # outlet is.
@@ -41,7 +43,11 @@ def registered_domain(host: str) -> str | None:
 
 
 def host_problem(host: str) -> str | None:
-    """Why a (parsed, ASCII) host name cannot be an internet host, or None when it can."""
+    """Why a (parsed, ASCII) host name cannot be an internet host, or None when it can.
+
+    The host is given without the root label's dot (one trailing dot is the root; a second is an empty
+    label, RFC 1034 §3.1).
+    """
     if len(host) > MAX_HOST_LENGTH:
         return f"host is longer than {MAX_HOST_LENGTH} characters"
     labels = host.split(".")
@@ -49,4 +55,11 @@ def host_problem(host: str) -> str | None:
         return "host has an empty label"
     if any(len(label) > MAX_LABEL_LENGTH for label in labels):
         return f"host has a label longer than {MAX_LABEL_LENGTH} characters"
+    if "xn--" in host:
+        # UTS #46 §4 step 4: the parser passes ASCII labels through, so it never checks these.
+        for label in labels:
+            if label.startswith("xn--"):
+                problem = xn_label_problem(label)
+                if problem:
+                    return problem
     return None
