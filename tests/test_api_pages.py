@@ -188,3 +188,28 @@ def test_side_by_side_marks_only_the_differing_words():
     assert left == ["passed.\n\n"] and right == ["failed.\n\n", "Protest followed."]
     assert "".join(s.text for s in view.left) == "The tide barrier vote passed.\n\nCouncil met late."
     assert (view.left_only, view.right_only) == (1, 3)
+
+
+def test_pages_under_open_reads_log_no_refusal(db_url, engine, tmp_path, caplog):
+    # Issue 15, item 9: a cluster page asked whether it may show its decision form, and every view under
+    # open reads logged "access refused" for a write nobody attempted.
+    import logging
+
+    settings = settings_for(db_url, open_reads=True)
+    build_world(engine, tmp_path, settings)
+    web = AsgiClient(create_app(settings, engine=engine))
+    caplog.set_level(logging.WARNING, logger="linkfold")
+    listing = web.get("/clusters?level=article", token=False)
+    assert listing.status_code == 200
+    [cluster] = re.findall(r'href="/clusters/(a[a-z2-7]{12})"', listing.text)
+    for path in ("/", f"/clusters/{cluster}", "/clusters?level=story", f"/ids/{cluster}", "/charts",
+                 "/lookup?q=https%3A%2F%2Fdaily.example%2Fa"):
+        assert web.get(path, token=False).status_code == 200, path
+    page = _html(web.get(f"/clusters/{cluster}", token=False))
+    assert page.find(".//form[@id='decide']") is None  # no write token: no decision form
+    assert not [r.getMessage() for r in caplog.records if "refused" in r.getMessage()]
+    # A write attempted without a token is still refused, and logged.
+    r = web.post(f"/clusters/{cluster}/decide", token=False,
+                 data={"verdict": "same", "member": "x", "by": "someone"})
+    assert r.status_code == 401
+    assert any("access refused" in r.getMessage() for r in caplog.records)

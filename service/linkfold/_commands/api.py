@@ -35,9 +35,11 @@ def _is_loopback(host: str) -> bool:
 @common_options
 @pass_ctx
 def serve_command(obj: Context, host: str, port: int, access_log: bool) -> None:
-    """Serve the HTTP API under /v1 and the inspection pages, until stopped with Ctrl-C.
+    """Serve the HTTP API (paths under /v1/) and the inspection pages, until stopped with Ctrl-C.
 
-    The OpenAPI document is at /v1/openapi.json, its pages at /v1/docs; the inspection pages start at /.
+    The OpenAPI document is at /v1/openapi.json (load it into any OpenAPI viewer; the server ships no
+    viewer, which would load scripts from elsewhere); /v1/health answers without a token; the inspection
+    pages start at / (/lookup, /clusters, /charts).
     Reads need a read token unless LINKFOLD_OPEN_READS=true; writes always need a write token (see
     linkfold tokens create). docs/api.md describes every endpoint.
 
@@ -53,7 +55,7 @@ def serve_command(obj: Context, host: str, port: int, access_log: bool) -> None:
     app = create_app(obj.settings, engine=obj.engine())
     if not _is_loopback(host):
         log.warning("serving on %s, not loopback: the registry holds personal data; use a TLS proxy", host)
-    obj.message(f"linkfold API on http://{host}:{port}/v1 (pages at http://{host}:{port}/); "
+    obj.message(f"linkfold API on http://{host}:{port}/v1/ (pages at http://{host}:{port}/); "
                 f"reads {'open' if obj.settings.open_reads else 'need a read token'}")
     uvicorn.run(app, host=host, port=port, access_log=access_log, log_level="warning",
                 server_header=False, proxy_headers=False)

@@ -60,37 +60,42 @@ def _presented(request: Request) -> str | None:
 
 
 def _refuse(request: Request, status: int, code: str, message: str, header: str, why: str,
-            token_id: int | None = None) -> ApiError:
+            token_id: int | None = None, *, log_it: bool = True) -> ApiError:
     # The log names the token by its id (or says it is unknown); the token text itself never appears.
-    client = request.client.host if request.client else "-"
-    who = f"token id {token_id}" if token_id is not None else "no known token"
-    log.warning("api access refused: %s %s from %s: %s (%s)", request.method, request.url.path, client,
-                why, who)
+    if log_it:
+        client = request.client.host if request.client else "-"
+        who = f"token id {token_id}" if token_id is not None else "no known token"
+        log.warning("api access refused: %s %s from %s: %s (%s)", request.method, request.url.path, client,
+                    why, who)
     return ApiError(status, code, message, headers={"WWW-Authenticate": header})
 
 
-def authorise(request: Request, needed: Scope) -> Access:
-    """The caller's access for a route that needs ``needed``; raises :class:`ApiError` to refuse."""
+def authorise(request: Request, needed: Scope, *, log_refusal: bool = True) -> Access:
+    """The caller's access for a route that needs ``needed``; raises :class:`ApiError` to refuse.
+
+    ``log_refusal=False`` is for asking rather than acting (may this page show its decision buttons?):
+    a page served under open reads must not log a refusal for a write nobody attempted.
+    """
     state = request.app.state.linkfold
     secret = _presented(request)
     if secret is None:
         if needed is Scope.READ and state.settings.open_reads:
             return Access(None, None)
         raise _refuse(request, 401, "unauthorized", f"this needs a {needed.value} token: send "
-                      "Authorization: Bearer <token>", f'Bearer realm="{REALM}"', "no token")
+                      "Authorization: Bearer <token>", f'Bearer realm="{REALM}"', "no token", log_it=log_refusal)
     check = check_token(state.engine, secret) if secret else None
     if check is None or check.state is TokenState.UNKNOWN:
         raise _refuse(request, 401, "unauthorized", "the token is not valid",
-                      f'Bearer realm="{REALM}", error="invalid_token"', "unknown token")
+                      f'Bearer realm="{REALM}", error="invalid_token"', "unknown token", log_it=log_refusal)
     if check.state is TokenState.REVOKED:
         raise _refuse(request, 401, "token_revoked", "the token has been revoked",
-                      f'Bearer realm="{REALM}", error="invalid_token"', "revoked token", check.token_id)
+                      f'Bearer realm="{REALM}", error="invalid_token"', "revoked token", check.token_id, log_it=log_refusal)
     assert check.scope is not None
     if not check.scope.allows(needed):
         raise _refuse(request, 403, "insufficient_scope", f"this needs a {needed.value} token; this one "
                       f"is a {check.scope.value} token",
                       f'Bearer realm="{REALM}", error="insufficient_scope", scope="{needed.value}"',
-                      f"{check.scope.value} token on a {needed.value} route", check.token_id)
+                      f"{check.scope.value} token on a {needed.value} route", check.token_id, log_it=log_refusal)
     return Access(check.token_id, check.scope)
 
 
@@ -100,3 +105,11 @@ def read_access(request: Request) -> Access:
 
 def write_access(request: Request) -> Access:
     return authorise(request, Scope.WRITE)
+
+
+def may_write(request: Request) -> bool:
+    """Whether the caller holds a write token, asked without logging a refusal (for what a page shows)."""
+    try:
+        return authorise(request, Scope.WRITE, log_refusal=False).can_write
+    except ApiError:
+        return False

@@ -22,10 +22,9 @@ from ..errors import InputError
 from ..ingest import lookup
 from ..store import registry
 from ..store.pages import current_document
-from ..store.tokens import Scope, TokenState, check_token
+from ..store.tokens import TokenState, check_token
 from . import charts
-from .auth import COOKIE_NAME, authorise, read_access, write_access
-from .errors import ApiError
+from .auth import COOKIE_NAME, may_write, read_access, write_access
 from .textdiff import side_by_side
 
 TEMPLATES = Jinja2Templates(directory=str(Path(__file__).with_name("templates")))
@@ -120,13 +119,6 @@ def clusters_page(request: Request, level: Annotated[str, Query(pattern="^(artic
                                              "outlet": outlet, "limit": limit})
 
 
-def _can_write(request: Request) -> bool:
-    try:
-        return authorise(request, Scope.WRITE).can_write
-    except ApiError:
-        return False
-
-
 def _texts(engine, keys: list[str]) -> dict[str, dict | None]:
     with engine.connect() as conn:
         found = registry.canonicals_by_key(conn, keys)
@@ -154,7 +146,7 @@ def cluster_page(request: Request, cluster_id: str,
             view = side_by_side(left["text"] or "", right["text"] or "")
     return render(request, "cluster.html", {
         "d": detail, "founder": founder, "chosen": chosen, "others": others, "view": view,
-        "docs": docs, "can_write": _can_write(request), "decided": decided,
+        "docs": docs, "can_write": may_write(request), "decided": decided,
         "other_level": "story" if detail.level == "article" else "article"})
 
 
