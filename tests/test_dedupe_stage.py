@@ -235,3 +235,21 @@ def test_show_cluster_gives_members_links_and_differing_passages(engine, tmp_pat
     assert d.differences and all(p for diff in d.differences for p in diff["passages"])
     left, right = d.differences[0]["passages"][0]
     assert "[" in left and "[" in right and left != right
+
+
+def test_clusters_outlet_filter_takes_an_outlet_name_or_a_domain(engine, tmp_path):
+    # Issue 15, item 9: `clusters --outlet` matched the outlet column only, so a domain found nothing for
+    # an outlet the site rules name.
+    from linkfold.canon import parse_rules
+    from linkfold.store.rulesets import store_ruleset
+
+    with engine.begin() as conn:
+        store_ruleset(conn, parse_rules('[site."courier.test"]\noutlet = "Valley Courier"\n', source="lab"))
+    _add_all(engine, _world(engine, tmp_path))
+    run_dedupe(engine, settings=settings())
+    [story] = [r.id for r in list_clusters(engine, level="story", min_size=2)]
+    for given in ("Valley Courier", "valley courier", "courier.test", "www.courier.test", "COURIER.test.",
+                  "herald.example", "m.herald.example"):
+        assert [r.id for r in list_clusters(engine, level="story", outlet=given)] == [story], given
+    for given in ("Valley", "other.test", "courier", "herald.example.test"):
+        assert list(list_clusters(engine, level="story", outlet=given)) == [], given

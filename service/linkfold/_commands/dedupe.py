@@ -160,8 +160,10 @@ def decide_list(obj: Context, limit: int, fmt: str) -> None:
 @click.option("--level", type=click.Choice(["article", "story"]), default="article", show_default=True)
 @click.option("--min-size", type=click.IntRange(min=1), default=2, show_default=True, metavar="N",
               help="Only clusters with at least N URLs.")
-@click.option("--outlet", metavar="D", help="Only clusters with a URL leading to this outlet (its final outlet, "
-                                             "after short links and redirects).")
+@click.option("--outlet", metavar="OUTLET",
+              help="Only clusters with a URL leading to this outlet (its final outlet, after short links and "
+                   "redirects): its name as the site rules give it (any case) or one of its domains (a host "
+                   "such as www.herald.example counts as herald.example).")
 @click.option("--limit", type=click.IntRange(min=1), metavar="N", help="At most N clusters (largest first).")
 @format_option()
 @common_options
@@ -177,6 +179,7 @@ def clusters_group(ctx: click.Context, level: str, min_size: int, outlet: str | 
     Example:
       linkfold clusters --level story --min-size 3
       linkfold clusters --outlet herald.example --format jsonl
+      linkfold clusters --level story --outlet "Northvale Herald"
       linkfold clusters show s4ljvvcsmrfdl
     """
     if ctx.invoked_subcommand is not None:

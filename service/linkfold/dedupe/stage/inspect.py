@@ -11,6 +11,7 @@ from typing import Any
 import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
+from ...canon import registered_domain
 from ...errors import InputError, NotFound
 from ...store import clusters as cs
 from ...store import tables as t
@@ -79,11 +80,25 @@ def _scores(links: Sequence[Any], members: set[int]) -> tuple[float | None, floa
     return (min(scores) if scores else None, max(scores) if scores else None, dict(sorted(kinds.items())))
 
 
+def _on_outlet(fj: FinalsJoin, outlet: str) -> sa.ColumnElement[bool]:
+    """Whether the URL a canonical URL stands for (its final URL) is on ``outlet``: an outlet name as the
+    site rules give it (any case), or a domain or host name, taken to its registered domain
+    (``www.Herald.example`` means ``herald.example``)."""
+    text = outlet.strip()
+    cond = sa.func.lower(fj.column("outlet")) == text.lower()
+    host = text.lower().rstrip(".")
+    if host and "." in host and " " not in host:
+        domain = registered_domain(host) or host
+        cond = sa.or_(cond, fj.column("domain") == domain, fj.column("host") == host)
+    return cond
+
+
 def list_clusters(engine: Engine, *, level: str = "article", min_size: int = 2, outlet: str | None = None,
                   limit: int | None = None, settings: Mapping[str, Any] | None = None) -> Iterator[ClusterRow]:
     """Clusters of ``level`` with at least ``min_size`` members (and, with ``outlet``, a member whose final
-    outlet is that one), largest first, with the number of final outlets, the range of similarity scores
-    between their members and the sinks near them (``settings`` gives the ``sink_fan_in`` limit)."""
+    outlet is that one: an outlet name or a domain, see :func:`_on_outlet`), largest first, with the number
+    of final outlets, the range of similarity scores between their members and the sinks near them
+    (``settings`` gives the ``sink_fan_in`` limit)."""
     if level not in cs.LEVELS:
         raise InputError(f"level must be article or story, not {level!r}")
     if min_size < 1:
@@ -98,7 +113,7 @@ def list_clusters(engine: Engine, *, level: str = "article", min_size: int = 2, 
          .select_from(fj.join(cm.join(c, c.c.id == cm.c.canonical_id)))
          .where(cm.c.level == level).group_by(cm.c.cluster_id).having(sa.func.count() >= min_size))
     if outlet is not None:
-        q = q.having(sa.func.sum(sa.case((member_outlet == outlet, 1), else_=0)) > 0)
+        q = q.having(sa.func.sum(sa.case((_on_outlet(fj, outlet), 1), else_=0)) > 0)
     q = q.order_by(size.desc(), cm.c.cluster_id)
     if limit:
         q = q.limit(limit)
