@@ -7,6 +7,8 @@ over HTTP must change the clusters after the next dedupe run.
 
 from __future__ import annotations
 
+import json
+
 import pytest
 
 from linkfold.api import create_app
@@ -69,6 +71,25 @@ def test_article_and_story_with_members_and_evidence(world):
     r = api.get(f"/v1/articles/{story_id}")
     assert r.status_code == 404 and "story ID" in r.json()["error"]["message"]
     assert api.get("/v1/stories/aaaaaaaaaaaaa").status_code == 404
+
+
+def test_lookup_of_an_id_gives_the_cluster_as_the_article_page_does(world):
+    # Issue 15, item 9: the lookup of an ID answers with its cluster, one or many at a time.
+    api, urls = world["api"], world["urls"]
+    article_id = _article_cluster(api)["id"]
+    article = api.get(f"/v1/articles/{article_id}").json()
+    answer = api.get("/v1/lookup", params={"q": article_id}).json()
+    assert answer["matched_by"] == "article_id" and answer["article_id"] == article_id
+    cluster = answer["cluster"]
+    assert {m["url"] for m in cluster["members"]} == {m["url"] for m in article["members"]}
+    founder = [m["url"] for m in article["members"] if m["founder"]]
+    assert [cluster["founder"]] == founder and cluster["members"][0]["url"] == founder[0]
+    assert cluster["size"] == 2 and cluster["outlets"] == sorted({m["outlet"] for m in article["members"]})
+    story_id = article["members"][0]["story_id"]
+    batch = api.post("/v1/lookup", json={"urls": [story_id, urls["copy"]]})
+    story, url = [json.loads(line) for line in batch.text.splitlines()]
+    assert {m["url"] for m in story["cluster"]["members"]} == {urls["original"], urls["print"], urls["copy"]}
+    assert story["cluster"]["level"] == "story" and url["cluster"] is None
 
 
 def test_history_of_a_live_and_an_unknown_id(world):

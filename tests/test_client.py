@@ -32,6 +32,10 @@ def test_three_lines_lookup_and_article(live):
         article = lf.article(answer["article_id"])
     assert answer["seen"] is True and answer["article_id"].startswith("a")
     assert {m["url"] for m in article["members"]} == {live["urls"]["original"], live["urls"]["print"]}
+    # An ID looked up answers with its cluster (issue 15, item 9).
+    with Client(live["url"], token=live["read"]) as lf:
+        by_id = lf.lookup(answer["article_id"])
+    assert {m["url"] for m in by_id["cluster"]["members"]} == {m["url"] for m in article["members"]}
 
 
 def test_lookup_many_batches_transparently_in_order(live):

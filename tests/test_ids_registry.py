@@ -194,3 +194,41 @@ def test_cli_decide_clusters_and_thresholds(db_url, engine, world, capsys):
     assert "32 bands × 3 rows" in text and "story threshold" in text and "verified cross-outlet" in text
     assert main(["--db", db_url, "clusters", "show", "szzzzzzzzzzzz"]) == 7
     assert "was ever issued" in capsys.readouterr().err
+
+
+def test_lookup_of_an_id_answers_with_its_cluster(engine, world):
+    # Issue 15, item 9: an ID looked up gave canonical null and nothing else about the cluster.
+    article_ids, story_ids = ids_of(engine, "article"), ids_of(engine, "story")
+    aid, sid = article_ids[A], story_ids[A]
+    by_article, by_story, unknown, url = lookup(engine, [aid, sid, "a" + "b" * 12, A])
+    assert by_article["matched_by"] == "article_id" and by_article["article_id"] == aid
+    assert by_article["canonical"] is None and by_article["id_history"]  # kept as it was
+    cluster = by_article["cluster"]
+    members = {m["url"] for m in cluster["members"]}
+    assert members == {u for u, i in article_ids.items() if i == aid} and cluster["size"] == len(members)
+    assert cluster["id"] == aid and cluster["level"] == "article"
+    assert cluster["founder"] in members
+    assert [m["founder"] for m in cluster["members"]].count(True) == 1 and cluster["members"][0]["founder"]
+    assert cluster["outlets"] == ["herald.example"] and not cluster["members_truncated"]
+    story = by_story["cluster"]
+    assert story["level"] == "story" and story["id"] == sid
+    assert {m["url"] for m in story["members"]} == {u for u, i in story_ids.items() if i == sid}
+    assert story["outlets"] == sorted({"herald.example", "courier.test", "gazette.example"} & {
+        m["outlet"] for m in story["members"]})
+    assert len(story["outlets"]) >= 2
+    assert unknown["error"] == "unknown_id" and unknown["cluster"] is None
+    assert url["cluster"] is None and url["article_id"] == aid  # a URL's answer is unchanged
+
+
+def test_lookup_cluster_title_is_the_founders(engine, world):
+    aid = ids_of(engine, "article")[A]
+    with engine.begin() as conn:
+        founder = conn.execute(sa.select(t.canonical_urls.c.url).select_from(
+            t.cluster_ids.join(t.canonical_urls, t.canonical_urls.c.id == t.cluster_ids.c.founder_id))
+            .where(t.cluster_ids.c.id == aid)).scalar_one()
+        conn.execute(t.documents.update().where(t.documents.c.canonical_id == sa.select(t.canonical_urls.c.id)
+                                                .where(t.canonical_urls.c.url == founder).scalar_subquery())
+                     .values(title="Flood warning for the lower valley"))
+    [answer] = lookup(engine, [aid])
+    assert answer["cluster"]["title"] == "Flood warning for the lower valley"
+    assert answer["cluster"]["founder"] == founder

@@ -92,7 +92,8 @@ class Client:
 
     # --- the three calls -----------------------------------------------------------------------------------
     def lookup(self, item: str) -> dict[str, Any]:
-        """What the registry knows about one URL, url key or ID (``linkfold lookup``'s fields)."""
+        """What the registry knows about one URL, url key or ID (``linkfold lookup``'s fields; for an ID,
+        ``cluster`` holds its members, outlets, title and founder)."""
         return self._get("/lookup", q=item)
 
     def lookup_many(self, items: Iterable[str]) -> Iterator[dict[str, Any]]:

@@ -112,13 +112,14 @@ def _stdin_items() -> Iterator[str]:
 @common_options
 @pass_ctx
 def lookup_command(obj: Context, items: tuple[str, ...]) -> None:
-    """What the registry knows about URLs or url keys; one JSON object a line on stdout.
+    """What the registry knows about URLs, url keys or IDs; one JSON object a line on stdout.
 
     Reads stdin, one a line, when no argument (or '-') is given. Each object has input, canonical,
     url_key, domain, outlet, seen, sightings, datasets, matched_by, article_id, story_id, error,
     id_history, and what the URL stands for after short links and redirects: final_url, final_domain,
     final_outlet, final_is_article (null for a short link not yet followed). A URL never loaded is
-    canonicalised on the fly (seen: false). Nothing is stored.
+    canonicalised on the fly (seen: false). An article or story ID answers with id_history and cluster
+    (its members, outlets, title and founder). Nothing is stored.
 
     \b
     Example:

@@ -16,6 +16,26 @@ class _Open(BaseModel):
     model_config = ConfigDict(extra="allow")
 
 
+class LookupClusterMember(_Open):
+    url: str
+    url_key: str
+    outlet: str | None = None
+    founder: bool
+
+
+class LookupCluster(_Open):
+    """The live cluster an article or story ID stands for."""
+
+    id: str
+    level: str
+    size: int = Field(description="Members in all (the list holds at most 1,000)")
+    founder: str | None = Field(default=None, description="The URL the ID was minted from")
+    title: str | None = Field(default=None, description="The founder's title, else the first member's")
+    outlets: list[str]
+    members: list[LookupClusterMember]
+    members_truncated: bool
+
+
 class LookupAnswer(_Open):
     """What the registry knows about one URL, url key or ID (the fields of ``linkfold lookup``)."""
 
@@ -41,6 +61,8 @@ class LookupAnswer(_Open):
     final_outlet: str | None = Field(default=None, description="The final URL's outlet")
     final_is_article: bool | None = Field(default=None, description="Whether the final URL is an article by "
                                                                     "the site rules (null when unknown)")
+    cluster: LookupCluster | None = Field(
+        default=None, description="For an ID given as input: the live cluster (members, outlets, title, founder)")
 
 
 class BatchRequest(BaseModel):

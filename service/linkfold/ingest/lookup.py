@@ -27,7 +27,13 @@ error          null, or the canonicaliser's reason code when the input cannot be
                (``unknown_id`` for an input shaped like an article or story ID that was never issued)
 id_history     for an ID given as input (``matched_by`` ``article_id`` / ``story_id``): the events from
                that ID to the live one (minted, merged_into, split_from, founder_moved, with run and reason); else null
+cluster        for an ID given as input: the live cluster it stands for — ``id``, ``level``, ``size``,
+               ``founder`` (URL), ``title``, ``outlets``, ``members`` (``url``, ``url_key``, ``outlet``,
+               ``founder``; at most 1,000, founder first) and ``members_truncated``; else null
 =============  ======================================================================================
+
+For an ID given as input, ``canonical``, ``url_key``, ``domain`` and ``outlet`` stay null (an ID is not
+one URL): what the ID stands for is in ``cluster``.
 """
 
 from __future__ import annotations
@@ -51,7 +57,7 @@ from .rows import raw_hash, storable
 URL_KEY_RE = re.compile(r"[a-z2-7]{24}")
 _CHUNK = 500
 LOOKUP_FIELDS = ("input", "canonical", "url_key", "domain", "outlet", "seen", "sightings", "datasets",
-                 "matched_by", "article_id", "story_id", "error", "id_history", *FINAL_COLUMNS)
+                 "matched_by", "article_id", "story_id", "error", "id_history", *FINAL_COLUMNS, "cluster")
 
 
 def is_url_key(text: str) -> bool:
@@ -146,8 +152,15 @@ def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> l
         answers[i].update(canonical=row["url"], url_key=key, domain=row["domain"], outlet=row["outlet"],
                           seen=True, sightings=n, datasets=nd, article_id=article_id, story_id=story_id,
                           **final[row["id"]])
+    live: dict[int, str] = {}
     for i in id_inputs:
-        _answer_id(conn, answers[i], items[i].strip())
+        current = _answer_id(conn, answers[i], items[i].strip())
+        if current is not None:
+            live[i] = current
+    if live:
+        summaries = clusters.cluster_summaries(conn, live.values())
+        for i, current in live.items():
+            answers[i]["cluster"] = summaries.get(current)
     if raw_only:
         raw_counts = registry.raw_sighting_counts(conn, list(raw_only.values()))
         for i, h in raw_only.items():
@@ -155,16 +168,17 @@ def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> l
     return answers
 
 
-def _answer_id(conn: Connection, answer: dict[str, Any], text: str) -> None:
-    """An article or story ID as input: the live ID it resolves to and the events on the way."""
+def _answer_id(conn: Connection, answer: dict[str, Any], text: str) -> str | None:
+    """An article or story ID as input: the live ID it resolves to (returned) and the events on the way."""
     found = clusters.resolve(conn, text)
     if found is None:
         answer["error"] = "unknown_id"
-        return
+        return None
     answer.update(seen=True, matched_by=f"{found.level}_id", id_history=[
         {"id": e["cluster_id"], "event": e["event"], "other_id": e["other_id"], "reason": e["reason"],
          "run_id": e["run_id"], "at": e["at"]} for e in found.events])
     answer[f"{found.level}_id"] = found.current
+    return found.current
 
 
 __all__ = ["LOOKUP_FIELDS", "URL_KEY_RE", "is_url_key", "lookup"]

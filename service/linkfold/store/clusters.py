@@ -287,3 +287,56 @@ def cluster_size_counts(conn: Connection, level: str) -> dict[int, int]:
              .group_by(cm.c.cluster_id).subquery())
     q = sa.select(sizes.c.size, sa.func.count()).group_by(sizes.c.size)
     return {int(size): int(n) for size, n in conn.execute(q)}
+
+
+#: Most members a cluster summary lists; ``size`` always counts them all.
+SUMMARY_MEMBERS = 1000
+
+
+def cluster_summaries(conn: Connection, ids: Iterable[str], *,
+                      max_members: int = SUMMARY_MEMBERS) -> dict[str, dict[str, Any]]:
+    """For live IDs: what the cluster is — ``id``, ``level``, ``size``, ``founder`` (URL), ``title`` (of the
+    founder's current document, else of the first member with one), ``outlets`` (sorted), ``members``
+    (``url``, ``url_key``, ``outlet``, ``founder``; founder first, then by URL; at most ``max_members``)
+    and ``members_truncated``."""
+    wanted = sorted(set(ids))
+    if not wanted:
+        return {}
+    rows = id_rows(conn, wanted)
+    cm, c, d = t.cluster_members, t.canonical_urls, t.documents
+    # Pairs, not members_of's mapping: one URL is a member at both levels, and both may be asked at once.
+    pairs: list[tuple[int, str]] = []
+    for part in chunks(wanted):
+        pairs.extend((int(m), i) for m, i in conn.execute(
+            sa.select(cm.c.canonical_id, cm.c.cluster_id).where(cm.c.cluster_id.in_(part))))
+    urls: dict[int, Any] = {}
+    titles: dict[int, str] = {}
+    for part in chunks(sorted({m for m, _ in pairs})):
+        urls.update((int(r.id), r) for r in conn.execute(
+            sa.select(c.c.id, c.c.url, c.c.url_key, c.c.outlet).where(c.c.id.in_(part))))
+        # Ascending ids: the newest usable document of a URL wins, as everywhere else.
+        for cid, title in conn.execute(sa.select(d.c.canonical_id, d.c.title).where(
+                d.c.canonical_id.in_(part), d.c.status == "usable", d.c.title.is_not(None)).order_by(d.c.id)):
+            titles[int(cid)] = title
+    by_id: dict[str, list[int]] = {i: [] for i in wanted}
+    for m, cid in pairs:
+        by_id[cid].append(m)
+    out: dict[str, dict[str, Any]] = {}
+    for cid in wanted:
+        row = rows.get(cid)
+        if row is None:
+            continue
+        founder = int(row["founder_id"])
+        ordered = sorted(by_id[cid], key=lambda m: (m != founder, urls[m].url))
+        title = titles.get(founder) or next((titles[m] for m in ordered if m in titles), None)
+        founder_url = urls[founder].url if founder in urls else None
+        if founder_url is None:  # a founder moved out by a decision: its URL still names the cluster's origin
+            founder_url = conn.execute(sa.select(c.c.url).where(c.c.id == founder)).scalar()
+        out[cid] = {
+            "id": cid, "level": row["level"], "size": len(ordered), "founder": founder_url, "title": title,
+            "outlets": sorted({urls[m].outlet for m in ordered if urls[m].outlet}),
+            "members": [{"url": urls[m].url, "url_key": urls[m].url_key, "outlet": urls[m].outlet,
+                         "founder": m == founder} for m in ordered[:max_members]],
+            "members_truncated": len(ordered) > max_members,
+        }
+    return out
