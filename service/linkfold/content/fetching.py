@@ -54,6 +54,7 @@ from ..store import evidence as ev
 from ..store import pages as sp
 from ..store.registry import get_dataset
 from ..store.rulesets import latest_ruleset
+from ..store.stats import refresh_statistics
 from .mediatype import is_html
 from .pages import keep_headers
 
@@ -353,6 +354,8 @@ def fetch_pages(engine: Engine, *, settings: Any, dataset: str | None = None, on
         finally:
             run.counts = summary.counts()
             progress.finish()
+    refresh_statistics(engine, ["canonical_urls", "links"], changed={"pages": summary.pages_stored,
+                                                                   "fetch_results": summary.selected})
     return summary
 
 

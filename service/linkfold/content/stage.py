@@ -38,6 +38,7 @@ from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import pages as sp
 from ..store.rulesets import latest_ruleset
+from ..store.stats import refresh_statistics
 from ._files import LineProblem, json_objects
 from .canonical_link import DeclaredLink, Relation, declared_link
 from .documents import DOCUMENT_FIELDS, MAX_LINE_BYTES, document_from_record
@@ -220,6 +221,7 @@ def import_pages(engine: Engine, paths: Iterable[str | Path], *, settings: Any =
                 summary.skipped.update(tally.skipped)
                 run.counts = summary.counts()
         progress.finish()
+    refresh_statistics(engine, ["canonical_urls", "links"], changed={"pages": summary.stored})
     return summary
 
 
@@ -371,6 +373,7 @@ def load_documents(engine: Engine, path: str | Path, *, settings: Any = None, ba
             flush()
             run.counts = summary.counts()
             progress.finish()
+    refresh_statistics(engine, ["canonical_urls"], changed={"documents": summary.stored})
     # Counted per record read, so a rerun reports what it read even though it stores nothing new.
     return summary
 
@@ -544,6 +547,8 @@ def extract_pages(engine: Engine, *, settings: Any = None, reextract: bool = Fal
         finally:
             run.counts = summary.counts()
             progress.finish()
+    refresh_statistics(engine, ["canonical_urls"], changed={"documents": summary.stored,
+                                                          "links": summary.links + summary.cross_links})
     return summary
 
 

@@ -35,6 +35,7 @@ from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import finals
 from ..store.rulesets import latest_ruleset
+from ..store.stats import refresh_statistics
 
 FORMATS = ("csv", "tsv", "jsonl")
 _SUFFIXES = {".csv": "csv", ".tsv": "tsv", ".tab": "tsv", ".jsonl": "jsonl", ".ndjson": "jsonl"}
@@ -205,6 +206,8 @@ def import_redirects(engine: Engine, path: str | Path, *, fmt: str | None = None
         _write(engine, batch, source=source, ruleset_id=ruleset_id, run_id=run.id, summary=summary)
         run.counts = summary.as_dict()
         progress.finish()
+    refresh_statistics(engine, ["canonical_urls"], changed={"links": summary.links,
+                                                          "follow_results": summary.settled})
     return summary
 
 

@@ -41,6 +41,7 @@ from ..store import evidence as ev
 from ..store import finals
 from ..store.registry import get_dataset
 from ..store.rulesets import latest_ruleset
+from ..store.stats import refresh_statistics
 from .chain import Chain, State, follow_chain
 from .client import ClientConfig, Failure, SafeClient
 from .guard import Resolver
@@ -357,6 +358,8 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
         finally:
             run.counts = summary.as_dict()
             progress.finish()
+    refresh_statistics(engine, ["canonical_urls", "follow_attempts"], changed={
+        "links": summary.links, "follow_results": summary.selected})
     return summary
 
 

@@ -37,6 +37,7 @@ from ..progress import SILENT, Progress
 from ..store import registry
 from ..store.bulk import EncodedRows
 from ..store.rulesets import get_ruleset, latest_ruleset, store_ruleset
+from ..store.stats import refresh_statistics
 from .formats import (
     DEFAULT_MAX_LINE_BYTES,
     DumpFormat,
@@ -202,6 +203,10 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
                 summary.files.append(result)
                 run.counts = summary.as_dict()
             run.counts = summary.as_dict()
+    # A first load can multiply a table's size: plan the next queries on what is there now.
+    refresh_statistics(engine, ["dataset_files"], changed={
+        "sightings": summary.sightings, "raw_urls": summary.new_raw_urls,
+        "canonical_urls": summary.new_canonical_urls, "rejects": sum(summary.rejects.values())})
     return summary
 
 

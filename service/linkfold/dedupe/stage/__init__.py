@@ -20,6 +20,7 @@ from ...jobs.runlog import recording_run
 from ...progress import SILENT, Progress
 from ...store.clusters import set_mark
 from ...store.registry import now
+from ...store.stats import refresh_statistics
 from .. import SignatureParams, Thresholds
 from .decisions import Decision, DecisionResult, list_decisions, record_decision, resolve_ref
 from .inspect import (
@@ -139,6 +140,9 @@ def run_dedupe(engine: Engine, *, settings: Any, full: bool = False, parent_id: 
             record_policy(conn, settings, run_id=run.id)
         summary.seconds = time.monotonic() - started
         run.counts = summary.as_dict()
+    # A first run writes signatures, band keys and IDs for every document at once.
+    refresh_statistics(engine, ["signatures", "band_keys", "links", "cluster_ids", "cluster_members",
+                                "id_events"], changed={"signatures": summary.signing.signed})
     log.info("dedupe: %s", summary.as_dict())
     return summary
 
