@@ -213,3 +213,12 @@ def test_pages_under_open_reads_log_no_refusal(db_url, engine, tmp_path, caplog)
                  data={"verdict": "same", "member": "x", "by": "someone"})
     assert r.status_code == 401
     assert any("access refused" in r.getMessage() for r in caplog.records)
+
+
+def test_lookup_page_of_an_id_shows_its_cluster(world):
+    article_id = _article_id(world)
+    r = world["web"].get(f"/lookup?q={article_id}", headers=_cookie(world["read"]))
+    page = _html(r)
+    cell = page.find(".//td[@id='cluster']")
+    assert cell is not None and "2 URL(s)" in "".join(cell.itertext())
+    assert "founded by" in "".join(cell.itertext())
