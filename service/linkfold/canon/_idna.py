@@ -15,6 +15,8 @@ from __future__ import annotations
 
 from functools import lru_cache
 
+from . import _parse  # the parser's ToASCII is the reference for the round trip
+
 # RFC 3492 §5: the parameter values for Punycode.
 _BASE, _TMIN, _TMAX, _SKEW, _DAMP = 36, 1, 26, 38, 700
 _INITIAL_BIAS, _INITIAL_N = 72, 0x80
@@ -94,8 +96,6 @@ def punycode_decode(text: str) -> str | None:
 @lru_cache(maxsize=4096)
 def xn_label_problem(label: str) -> str | None:
     """Why an ASCII host label that starts with ``xn--`` is not a valid A-label, or None (UTS #46 §4)."""
-    from . import _parse  # the parser is the reference ToASCII for the round trip
-
     rest = label[4:]
     if not rest:
         return f"label {label!r} is 'xn--' with nothing after it"
