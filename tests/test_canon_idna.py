@@ -146,3 +146,13 @@ def test_a_host_ending_in_two_dots_has_an_empty_label(url: str) -> None:
 
 def test_one_trailing_dot_is_still_the_root() -> None:
     assert canonicalize("https://daily.example./a").url == "https://daily.example/a"
+
+
+def test_a_rules_file_naming_an_invalid_a_label_host_is_an_error() -> None:
+    from linkfold.canon import parse_rules
+    from linkfold.errors import RulesError
+
+    with pytest.raises(RulesError) as err:
+        parse_rules('[site."xn--a.example"]\noutlet = "X"\n', source="lab.toml")
+    assert "lab.toml:1" in str(err.value)
+    assert parse_rules('[site."xn--bcher-kva.example"]\noutlet = "B"\n', source="ok").sites

@@ -137,4 +137,9 @@ def ascii_host(text: str) -> str | None:
     parts = parse(f"http://{text}/")
     if parts is None or parts.path != "/" or parts.port or parts.host_type != HOST_NAME:
         return None
+    if "xn--" in parts.host:
+        from ._idna import xn_label_problem  # late: that module uses this one
+
+        if any(label.startswith("xn--") and xn_label_problem(label) for label in parts.host.split(".")):
+            return None  # the parser passes such a label through; UTS #46 does not (see _idna)
     return parts.host
