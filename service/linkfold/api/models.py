@@ -20,6 +20,8 @@ class LookupClusterMember(_Open):
     url: str
     url_key: str
     outlet: str | None = None
+    final_url: str | None = None
+    final_outlet: str | None = None
     founder: bool
 
 
@@ -31,7 +33,7 @@ class LookupCluster(_Open):
     size: int = Field(description="Members in all (the list holds at most 1,000)")
     founder: str | None = Field(default=None, description="The URL the ID was minted from")
     title: str | None = Field(default=None, description="The founder's title, else the first member's")
-    outlets: list[str]
+    outlets: list[str] = Field(description="The members' final outlets (where each leads), sorted")
     members: list[LookupClusterMember]
     members_truncated: bool
 

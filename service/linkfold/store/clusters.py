@@ -19,6 +19,7 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
 from . import tables as t
+from .finals import finals_of
 from .registry import utc
 
 LEVELS = ("article", "story")
@@ -296,9 +297,10 @@ SUMMARY_MEMBERS = 1000
 def cluster_summaries(conn: Connection, ids: Iterable[str], *,
                       max_members: int = SUMMARY_MEMBERS) -> dict[str, dict[str, Any]]:
     """For live IDs: what the cluster is — ``id``, ``level``, ``size``, ``founder`` (URL), ``title`` (of the
-    founder's current document, else of the first member with one), ``outlets`` (sorted), ``members``
-    (``url``, ``url_key``, ``outlet``, ``founder``; founder first, then by URL; at most ``max_members``)
-    and ``members_truncated``."""
+    founder's current document, else of the first member with one), ``outlets`` (the members' final outlets,
+    sorted, as every per-outlet count of the tool), ``members`` (``url``, ``url_key``, ``outlet``,
+    ``final_url``, ``final_outlet``, ``founder``; founder first, then by URL; at most ``max_members``) and
+    ``members_truncated``."""
     wanted = sorted(set(ids))
     if not wanted:
         return {}
@@ -318,6 +320,7 @@ def cluster_summaries(conn: Connection, ids: Iterable[str], *,
         for cid, title in conn.execute(sa.select(d.c.canonical_id, d.c.title).where(
                 d.c.canonical_id.in_(part), d.c.status == "usable", d.c.title.is_not(None)).order_by(d.c.id)):
             titles[int(cid)] = title
+    final = finals_of(conn, [m for m, _ in pairs])
     by_id: dict[str, list[int]] = {i: [] for i in wanted}
     for m, cid in pairs:
         by_id[cid].append(m)
@@ -334,8 +337,9 @@ def cluster_summaries(conn: Connection, ids: Iterable[str], *,
             founder_url = conn.execute(sa.select(c.c.url).where(c.c.id == founder)).scalar()
         out[cid] = {
             "id": cid, "level": row["level"], "size": len(ordered), "founder": founder_url, "title": title,
-            "outlets": sorted({urls[m].outlet for m in ordered if urls[m].outlet}),
+            "outlets": sorted({final[m]["final_outlet"] for m in ordered if final[m]["final_outlet"]}),
             "members": [{"url": urls[m].url, "url_key": urls[m].url_key, "outlet": urls[m].outlet,
+                         "final_url": final[m]["final_url"], "final_outlet": final[m]["final_outlet"],
                          "founder": m == founder} for m in ordered[:max_members]],
             "members_truncated": len(ordered) > max_members,
         }
