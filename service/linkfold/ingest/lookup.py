@@ -28,8 +28,9 @@ error          null, or the canonicaliser's reason code when the input cannot be
 id_history     for an ID given as input (``matched_by`` ``article_id`` / ``story_id``): the events from
                that ID to the live one (minted, merged_into, split_from, founder_moved, with run and reason); else null
 cluster        for an ID given as input: the live cluster it stands for — ``id``, ``level``, ``size``,
-               ``founder`` (URL), ``title``, ``outlets``, ``members`` (``url``, ``url_key``, ``outlet``,
-               ``founder``; at most 1,000, founder first) and ``members_truncated``; else null
+               ``founder`` (URL), ``title``, ``outlets`` (final outlets), ``members`` (``url``, ``url_key``,
+               ``outlet``, ``final_url``, ``final_outlet``, ``founder``; at most 1,000, founder first) and
+               ``members_truncated``; else null
 =============  ======================================================================================
 
 For an ID given as input, ``canonical``, ``url_key``, ``domain`` and ``outlet`` stay null (an ID is not
