@@ -19,7 +19,7 @@ from pathlib import Path
 
 import pytest
 
-from linkfold.cli import main
+from linkfold.cli import main, setup_logging, teardown_logging
 from linkfold.content.extract import EXTRACTOR_LOGGERS
 from linkfold.demo import DEMO_DUMPS, fixtures_dir
 from linkfold.jobs.lock import hold_lock
@@ -95,11 +95,16 @@ def test_quiet_nightly_still_prints_a_real_failure(db_url):
 
 
 def test_quiet_keeps_errors_and_drops_warnings_of_any_library(sqlite_url, capsys):
-    # In process: the handler the CLI installs lets errors through under -q, from any logger.
+    # In process: the handler the CLI installs for a command lets errors through under -q, from any logger.
+    # It lasts as long as the command (main() takes it away again), so it is set up here as main does.
     assert main(["-q", "--db", sqlite_url, "settings"]) == 0
     capsys.readouterr()
-    logging.getLogger("some.dependency").warning("a warning nobody asked for")
-    logging.getLogger("some.dependency").error("an error worth a mail")
+    setup_logging(quiet=True)
+    try:
+        logging.getLogger("some.dependency").warning("a warning nobody asked for")
+        logging.getLogger("some.dependency").error("an error worth a mail")
+    finally:
+        teardown_logging()
     err = capsys.readouterr().err
     assert "an error worth a mail" in err and "a warning nobody asked for" not in err
 
@@ -189,3 +194,15 @@ def test_quiet_nightly_names_a_failed_stage(sqlite_url, monkeypatch, capsys):
     out, err = capsys.readouterr()
     assert out == ""
     assert "dedupe: RuntimeError: disk full while writing clusters" in err and "linkfold runs show" in err
+
+
+def test_main_gives_the_process_its_logging_back(tmp_path, capsys):
+    """A script (or a test) that calls `main` in process keeps its own logging afterwards: the command's
+    stderr handler, its root level and the capture of warnings last only as long as the command."""
+    root = logging.getLogger()
+    before = (list(root.handlers), root.level, logging.getLogger("py.warnings").handlers[:])
+    db = f"sqlite:///{tmp_path / 'r.db'}"
+    assert main(["-q", "--db", db, "db", "upgrade"]) == 0
+    assert main(["-vv", "--db", db, "db", "current"]) == 0
+    assert (list(root.handlers), root.level, logging.getLogger("py.warnings").handlers[:]) == before
+    assert not logging._warnings_showwarning  # type: ignore[attr-defined]  # captureWarnings(False)

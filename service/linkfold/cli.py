@@ -97,8 +97,8 @@ def setup_logging(*, verbose: int = 0, quiet: bool = False) -> None:
     """
     level = logging.ERROR if quiet and not verbose else max(logging.WARNING - 10 * verbose, logging.DEBUG)
     root = logging.getLogger()
-    for old in [h for h in root.handlers if isinstance(h, _StderrHandler)]:
-        root.removeHandler(old)
+    teardown_logging()
+    _saved_root_level.append(root.level)
     handler = _StderrHandler(sys.stderr)
     handler.setLevel(level)
     handler.setFormatter(logging.Formatter("%(levelname)s %(name)s: %(message)s"))
@@ -108,8 +108,29 @@ def setup_logging(*, verbose: int = 0, quiet: bool = False) -> None:
     logging.captureWarnings(True)
 
 
+_saved_root_level: list[int] = []
+
+
+def teardown_logging() -> None:
+    """Undo :func:`setup_logging`: a script (or a test) that calls :func:`main` gets its process's logging
+    back as it was, instead of a handler bound to a stream that may be gone and a changed root level."""
+    root = logging.getLogger()
+    for old in [h for h in root.handlers if isinstance(h, _StderrHandler)]:
+        root.removeHandler(old)
+    while _saved_root_level:
+        root.setLevel(_saved_root_level.pop())
+    logging.captureWarnings(False)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the console script; returns the process exit code."""
+    try:
+        return _run(argv)
+    finally:
+        teardown_logging()
+
+
+def _run(argv: list[str] | None) -> int:
     try:
         cli.main(args=argv, prog_name="linkfold", standalone_mode=False)
     except LinkfoldError as exc:
