@@ -206,3 +206,17 @@ def test_main_gives_the_process_its_logging_back(tmp_path, capsys):
     assert main(["-vv", "--db", db, "db", "current"]) == 0
     assert (list(root.handlers), root.level, logging.getLogger("py.warnings").handlers[:]) == before
     assert not logging._warnings_showwarning  # type: ignore[attr-defined]  # captureWarnings(False)
+
+
+def test_quiet_still_names_the_bad_lines_of_an_input(tmp_path, capsys):
+    """-q silences progress and summaries, not a bad line a person has to fix: file, line and reason."""
+    db = f"sqlite:///{tmp_path / 'r.db'}"
+    docs = tmp_path / "texts.jsonl"
+    docs.write_text('{"url": "https://a.example/x", "title": "t", "text": "w", "published": "2999-01-01"}\n'
+                    "not json\n", encoding="utf-8")
+    assert main(["-q", "--db", db, "db", "upgrade"]) == 0
+    capsys.readouterr()
+    assert main(["-q", "--db", db, "documents", "load", str(docs)]) == 0
+    err = capsys.readouterr().err
+    assert "texts.jsonl:1: bad_date" in err and "texts.jsonl:2:" in err
+    assert "loaded" not in err  # the summary stays quiet

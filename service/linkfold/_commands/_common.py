@@ -52,6 +52,11 @@ class Context:
         if not self.quiet:
             click.echo(text, err=True)
 
+    def problem(self, text: str) -> None:
+        """A line about something wrong with the input (file, line, reason), on stderr even under --quiet:
+        -q silences progress and summaries, not what a person has to fix."""
+        click.echo(text, err=True)
+
     def close(self) -> None:
         if self._engine is not None:
             self._engine.dispose()

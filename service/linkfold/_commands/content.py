@@ -27,10 +27,10 @@ def _report(obj: Context, summary, summary_format: str) -> None:
     problems = getattr(summary, "problems", None)
     if problems is not None:
         for problem in problems.kept[:SHOWN_PROBLEMS]:
-            obj.message(str(problem))
+            obj.problem(str(problem))
         hidden = problems.total - min(len(problems.kept), SHOWN_PROBLEMS)
         if hidden > 0:
-            obj.message(f"… and {hidden:,} more problems (counted below)")
+            obj.problem(f"… and {hidden:,} more problems (counted in the summary; run without -q to see it)")
     for line in summary.lines():
         obj.message(line)
 

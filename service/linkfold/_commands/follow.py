@@ -87,10 +87,10 @@ def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_url
         if summary_format == "json":
             click.echo(to_json(summary.as_dict()))
         for problem in summary.problems[:SHOWN_PROBLEMS]:
-            obj.message(f"{import_file}:{problem.line}: {problem.reason}: {problem.detail}")
+            obj.problem(f"{import_file}:{problem.line}: {problem.reason}: {problem.detail}")
         hidden = sum(summary.problem_counts.values()) - min(len(summary.problems), SHOWN_PROBLEMS)
         if hidden > 0:
-            obj.message(f"… and {hidden:,} more skipped lines (counted below)")
+            obj.problem(f"… and {hidden:,} more skipped lines (counted in the summary; run without -q to see it)")
         for line in summary.lines_for_people():
             obj.message(line)
         return
