@@ -1,0 +1,67 @@
+"""The co-exposure network as set-based SQL, on both backends.
+
+Three statements over one grouped set, the distinct unit × outlet pairs of the datasets (with the unit's
+sightings at the outlet): the outlets with their audiences (units, sightings), the number of units with
+any pair, and the edges — the pairs self-joined on the unit, grouped by the outlet pair and kept when at
+least ``min_units`` units share it. The database does the joins and the grouping; what comes back is one
+row per outlet and per kept outlet pair, so memory does not grow with the number of sightings.
+
+What a sighting counts for is the outlet of the URL it stands for (``store.finals.FinalsJoin``: after short
+links and redirects, with the outlet list in force), as in exposure tables; unless ``all_urls``, only
+sightings whose final URL is an article by the site rules count.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+import sqlalchemy as sa
+
+from ..store import tables as t
+from ..store.finals import FinalsJoin
+
+
+def pairs_select(*, dataset_ids: Sequence[int], all_urls: bool = False) -> sa.Select[Any]:
+    """One row per unit × outlet that the datasets link, with ``sightings``: the bipartite unit–outlet
+    table. Sightings without a unit or without a final outlet (a short link not yet followed) are left out."""
+    s, r, c, f = t.sightings, t.raw_urls, t.canonical_urls, t.dataset_files
+    fj = FinalsJoin.of(c)
+    source = fj.join(s.join(r, r.c.id == s.c.raw_url_id).join(c, c.c.id == r.c.canonical_id))
+    outlet = fj.column("outlet")
+    # sightings has no index on dataset_id; file_id leads its unique key (tables.sightings_in_dataset).
+    conditions = [s.c.file_id.in_(sa.select(f.c.id).where(f.c.dataset_id.in_(list(dataset_ids)))),
+                  s.c.unit.is_not(None), outlet.is_not(None)]
+    if not all_urls:
+        conditions.append(fj.column("is_article").is_(True))
+    # Group by position: the outlet expression is long.
+    return (sa.select(s.c.unit.label("unit"), outlet.label("outlet"), sa.func.count().label("sightings"))
+            .select_from(source).where(*conditions)
+            .group_by(sa.literal_column("1"), sa.literal_column("2")))
+
+
+def nodes_select(pairs: sa.Select[Any]) -> sa.Select[Any]:
+    """Per outlet: ``units`` (its audience) and ``sightings``."""
+    p = pairs.cte("pairs")
+    return (sa.select(p.c.outlet, sa.func.count().label("units"), sa.func.sum(p.c.sightings).label("sightings"))
+            .group_by(p.c.outlet))
+
+
+def units_select(pairs: sa.Select[Any]) -> sa.Select[Any]:
+    """How many distinct units have any pair: N of the lift."""
+    p = pairs.cte("pairs")
+    return sa.select(sa.func.count(sa.distinct(p.c.unit)))
+
+
+def edges_select(pairs: sa.Select[Any], *, min_units: int) -> sa.Select[Any]:
+    """Per outlet pair (``outlet_a`` < ``outlet_b`` in the database's order): ``units`` exposed to both,
+    kept when at least ``min_units``."""
+    p = pairs.cte("pairs")
+    a, b = p.alias("a"), p.alias("b")
+    units = sa.func.count()
+    return (sa.select(a.c.outlet.label("outlet_a"), b.c.outlet.label("outlet_b"), units.label("units"))
+            .select_from(a.join(b, sa.and_(a.c.unit == b.c.unit, a.c.outlet < b.c.outlet)))
+            .group_by(a.c.outlet, b.c.outlet).having(units >= min_units))
+
+
+__all__ = ["edges_select", "nodes_select", "pairs_select", "units_select"]

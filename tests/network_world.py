@@ -1,0 +1,98 @@
+"""Sightings with units for the network tests and pages (no tests here).
+
+Dumps are loaded through the real ingest stage (with the demo rules, so outlets and article pages are
+known); each row's unit is then set by SQL to a keyed-pseudonym-shaped value (HMAC-SHA256 of an invented
+ID, base32), as ``ingest --unit-column`` stores it.
+"""
+
+from __future__ import annotations
+
+import base64
+import csv
+import hashlib
+import hmac
+from collections.abc import Sequence
+from pathlib import Path
+
+import sqlalchemy as sa
+
+from linkfold.ingest import ingest_dump
+from linkfold.store import tables as t
+
+RULES = Path(__file__).resolve().parent.parent / "fixtures" / "rules" / "demo.toml"
+KEY = b"an invented lab key for the network tests"
+
+# One article page and one page that is not an article per outlet of the demo rules.
+ARTICLE = {
+    "Northvale Herald": "https://northvale-herald.example/news/2031/05/dam-levels-{i}",
+    "Riverton Daily": "https://riverton-daily.test/story/ferry-strike-{i}",
+    "Lakeside Wire": "https://lakeside-wire.example/wire/20310501/dam-levels-{i}",
+    "Harbourview News": "https://harbourview-news.example/article.php?id={i}",
+}
+HOME = {
+    "Northvale Herald": "https://northvale-herald.example/",
+    "Riverton Daily": "https://riverton-daily.test/about",
+    "Lakeside Wire": "https://lakeside-wire.example/",
+    "Harbourview News": "https://harbourview-news.example/",
+}
+
+
+def pseudonym(raw: str) -> str:
+    mac = hmac.new(KEY, raw.encode(), hashlib.sha256).digest()
+    return "hs256:" + base64.b32encode(mac).decode().rstrip("=").lower()
+
+
+def load_with_units(engine, tmp_path: Path, dataset: str, rows: Sequence[tuple[str | None, str]]) -> None:
+    """Load ``rows`` of (unit ID or None, URL) as dataset ``dataset``, then set each sighting's unit."""
+    path = tmp_path / f"{dataset}.csv"
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(["visit", "url"])
+        for i, (_unit, url) in enumerate(rows):
+            w.writerow([f"{dataset}-v{i}", url])
+    ingest_dump(engine, [path], dataset=dataset, key_column="visit", ruleset=RULES)
+    updates = [{"k": f"{dataset}-v{i}", "u": pseudonym(unit)} for i, (unit, _url) in enumerate(rows) if unit]
+    s = t.sightings
+    with engine.begin() as conn:
+        files = sa.select(t.dataset_files.c.id).join(t.datasets, t.datasets.c.id == t.dataset_files.c.dataset_id) \
+            .where(t.datasets.c.name == dataset)
+        conn.execute(s.update().where(s.c.row_key == sa.bindparam("k"), s.c.file_id.in_(files))
+                     .values(unit=sa.bindparam("u")), updates)
+
+
+def load_outlet_list(engine, columns: Sequence[str], entries: Sequence[tuple[str, str, dict]]) -> None:
+    """Store an outlet list version directly: (domain or host, outlet, attributes) per entry."""
+    from datetime import UTC, datetime
+
+    with engine.begin() as conn:
+        list_id = conn.execute(sa.insert(t.outlet_lists).values(
+            name="lab-outlets.csv", sha256=hashlib.sha256(repr(entries).encode()).hexdigest(),
+            columns=list(columns), created_at=datetime.now(UTC)).returning(t.outlet_lists.c.id)).scalar_one()
+        conn.execute(sa.insert(t.outlet_entries), [
+            {"list_id": list_id, "match": m, "outlet": o, "attributes": a, "line_no": i + 2}
+            for i, (m, o, a) in enumerate(entries)])
+
+
+# The hand-computed example of tests/test_network.py (articles unless said): units and the outlets they saw.
+HAND = {
+    "u1": ["Northvale Herald", "Riverton Daily", "Lakeside Wire"],
+    "u2": ["Northvale Herald", "Riverton Daily"],
+    "u3": ["Northvale Herald", "Riverton Daily"],
+    "u4": ["Northvale Herald", "Lakeside Wire"],
+    "u5": ["Riverton Daily", "Lakeside Wire"],
+    "u6": ["Northvale Herald"],
+    "u7": ["Harbourview News"],
+    "u8": ["Northvale Herald", "Northvale Herald", "Northvale Herald", "Riverton Daily", "Lakeside Wire"],
+}
+
+
+def hand_rows() -> list[tuple[str | None, str]]:
+    rows: list[tuple[str | None, str]] = []
+    for n, (unit, outlets) in enumerate(HAND.items()):
+        for j, outlet in enumerate(outlets):
+            url = ARTICLE[outlet].format(i=n * 10 + j + 1)
+            rows.append((unit, url + ("&" if "?" in url else "?") + "utm_source=feed"))
+    rows.append(("u9", HOME["Northvale Herald"]))   # u9 saw no article: counted only with all_urls
+    rows.append((None, ARTICLE["Lakeside Wire"].format(i=999)))  # no unit: never counted
+    rows.append(("u2", "not a url at all"))         # a reject
+    return rows
