@@ -230,3 +230,51 @@ def test_cli_help_names_an_example():
 
     result = CliRunner().invoke(cli, ["network", "--help"])
     assert result.exit_code == 0 and "Example:" in result.output and "--min-units" in result.output
+
+
+# --- over HTTP and from the Python client ------------------------------------------------------------------
+@pytest.fixture
+def served(engine, db_url, tmp_path):
+    from linkfold.store.tokens import create_token
+
+    rows, truth = _generate()
+    load_with_units(engine, tmp_path, "gen", rows)
+    return {"engine": engine, "truth": truth, "read": create_token(engine, scope="read", note="network").secret}
+
+
+def test_http_network_under_a_read_token(served, db_url):
+    from linkfold.api import create_app
+    from test_api_support import AsgiClient, settings_for
+
+    api = AsgiClient(create_app(settings_for(db_url), engine=served["engine"]), token=served["read"])
+    r = api.get("/v1/network", params={"dataset": "gen"})
+    assert r.status_code == 200
+    body = r.json()
+    want = co_exposure(served["engine"], datasets=["gen"])
+    assert body["min_units"] == 5 and body["units"] == want.units and body["edges"]
+    assert body["edges"] == want.edges and body["nodes"] == want.nodes
+    # Aggregates only: no unit pseudonym anywhere in the answer.
+    assert "hs256:" not in r.text
+    # The floor is the server's: a smaller threshold is refused, a larger one applies.
+    low = api.get("/v1/network", params={"dataset": "gen", "min_units": 2})
+    assert low.status_code == 422
+    high = api.get("/v1/network", params={"dataset": "gen", "min_units": 12, "all_urls": "true"}).json()
+    assert high["edges"] == co_exposure(served["engine"], datasets=["gen"], min_units=12, all_urls=True).edges
+    assert api.get("/v1/network", params={"dataset": "gen"}, token=None).status_code == 401
+    missing = api.get("/v1/network", params={"dataset": "nope"})
+    assert missing.status_code == 404 and missing.json()["error"]["code"] == "not_found"
+
+
+def test_client_returns_dataframes(served, db_url, tmp_path):
+    from linkfold.client import Client
+    from test_api_support import LiveServer
+
+    with LiveServer(db_url, cwd=tmp_path) as server, Client(server.url, token=served["read"]) as lf:
+        edges, nodes = lf.network("gen", min_units=6)
+    n, want_nodes, want_edges = _pandas_network(served["truth"], 6)
+    assert list(edges.columns) == list(EDGE_COLUMNS)
+    assert list(nodes.columns)[:3] == ["outlet", "units", "sightings"]
+    assert edges.attrs["units"] == n and edges.attrs["min_units"] == 6
+    assert {(a, b): u for a, b, u in edges[["outlet_a", "outlet_b", "units"]].itertuples(index=False)} == \
+           {pair: v[0] for pair, v in want_edges.items()}
+    assert dict(zip(nodes.outlet, zip(nodes.units, nodes.sightings, strict=True), strict=True)) == want_nodes
