@@ -42,7 +42,8 @@ def pseudonym(raw: str) -> str:
     return "hs256:" + base64.b32encode(mac).decode().rstrip("=").lower()
 
 
-def load_with_units(engine, tmp_path: Path, dataset: str, rows: Sequence[tuple[str | None, str]]) -> None:
+def load_with_units(engine, tmp_path: Path, dataset: str, rows: Sequence[tuple[str | None, str]], *,
+                    rules: Path = RULES) -> None:
     """Load ``rows`` of (unit ID or None, URL) as dataset ``dataset``, then set each sighting's unit."""
     path = tmp_path / f"{dataset}.csv"
     with path.open("w", newline="", encoding="utf-8") as fh:
@@ -50,7 +51,7 @@ def load_with_units(engine, tmp_path: Path, dataset: str, rows: Sequence[tuple[s
         w.writerow(["visit", "url"])
         for i, (_unit, url) in enumerate(rows):
             w.writerow([f"{dataset}-v{i}", url])
-    ingest_dump(engine, [path], dataset=dataset, key_column="visit", ruleset=RULES)
+    ingest_dump(engine, [path], dataset=dataset, key_column="visit", ruleset=rules)
     updates = [{"k": f"{dataset}-v{i}", "u": pseudonym(unit)} for i, (unit, _url) in enumerate(rows) if unit]
     s = t.sightings
     with engine.begin() as conn:
@@ -96,3 +97,49 @@ def hand_rows() -> list[tuple[str | None, str]]:
     rows.append((None, ARTICLE["Lakeside Wire"].format(i=999)))  # no unit: never counted
     rows.append(("u2", "not a url at all"))         # a reject
     return rows
+
+
+# A larger invented region for the pictures: ten outlets in two communities of readers, with an outlet list.
+REGION = [  # (host, outlet, type, reach)
+    ("northvale-herald.example", "Northvale Herald", "regional", "high"),
+    ("riverton-daily.test", "Riverton Daily", "local", "medium"),
+    ("lakeside-wire.example", "Lakeside Wire", "wire", "high"),
+    ("harbourview-news.example", "Harbourview News", "local", "low"),
+    ("upland-post.example", "Upland Post", "regional", "medium"),
+    ("fenmarsh-courier.test", "Fenmarsh Courier", "local", "low"),
+    ("capital-ledger.example", "Capital Ledger", "national", "high"),
+    ("quarry-voice.test", "Quarry Voice", "partisan", "low"),
+    ("tidewater-review.example", "Tidewater Review", "magazine", "medium"),
+    ("eastgate-bulletin.test", "Eastgate Bulletin", "partisan", "low"),
+]
+
+
+def region_rules(tmp_path: Path) -> Path:
+    lines = ['name = "network region"', 'shortener_hosts = ["short.test"]', ""]
+    for host, outlet, _type, _reach in REGION:
+        lines += [f'[site."{host}"]', f'outlet = "{outlet}"', "article = ['^/a/[0-9]+$']", ""]
+    path = tmp_path / "region.toml"
+    path.write_text("\n".join(lines), encoding="utf-8")
+    return path
+
+
+def region_rows(seed: int = 5, units: int = 160) -> list[tuple[str | None, str]]:
+    import random
+
+    rnd = random.Random(seed)
+    first, second = REGION[:5], REGION[5:]
+    rows: list[tuple[str | None, str]] = []
+    for u in range(units):
+        home, away = (first, second) if u % 3 else (second, first)
+        for _ in range(rnd.randrange(1, 14)):
+            host = rnd.choice(home if rnd.random() < 0.8 else away)[0]
+            if host == "capital-ledger.example" or rnd.random() < 0.15:
+                host = rnd.choice([host, "capital-ledger.example"])  # the national outlet reaches everyone
+            path = f"/a/{rnd.randrange(1, 400)}" if rnd.random() < 0.85 else "/"
+            rows.append((f"reader-{u:04d}", f"https://{host}{path}"))
+    return rows
+
+
+def load_region(engine, tmp_path: Path, dataset: str = "region-panel") -> None:
+    load_with_units(engine, tmp_path, dataset, region_rows(), rules=region_rules(tmp_path))
+    load_outlet_list(engine, ["type", "reach"], [(h, o, {"type": ty, "reach": r}) for h, o, ty, r in REGION])

@@ -28,7 +28,14 @@ from sqlalchemy.engine import Connection, Engine
 from ..errors import ConfigError
 from ..store import registry
 from ..store import tables as t
-from .query import edges_select, nodes_select, pairs_select, units_select
+from .query import (
+    SIGHTING_BUCKETS,
+    distribution_select,
+    edges_select,
+    nodes_select,
+    pairs_select,
+    units_select,
+)
 
 #: The default fewest units an edge (and a node) needs. A pair of outlets read by only a few people can
 #: single out individuals' reading; a threshold of 5 to 10 contributors per published cell is common
@@ -137,6 +144,28 @@ def bipartite_rows(engine: Engine, *, datasets: Sequence[str], all_urls: bool = 
             yield {"unit": unit, "outlet": outlet, "sightings": int(sightings)}
 
 
+def bucket_labels() -> list[str]:
+    """Labels of :data:`~linkfold.network.query.SIGHTING_BUCKETS`: 1, 2, 3–4 … 50+."""
+    return [str(lo) if lo == hi else (f"{lo}–{hi}" if hi is not None else f"{lo}+") for lo, hi in SIGHTING_BUCKETS]
+
+
+def exposure_distribution(engine: Engine, *, datasets: Sequence[str], min_units: int = DEFAULT_MIN_UNITS,
+                          all_urls: bool = False) -> dict[str, list[int | None]]:
+    """Per outlet, how many units had 1, 2, 3–4 … sightings there (:func:`bucket_labels`): the exposure
+    distribution. A bucket of fewer than ``min_units`` units is None (suppressed, as small groups are in
+    the network); outlets whose audience is below ``min_units`` are left out."""
+    if min_units < 1:
+        raise ConfigError(f"min_units must be at least 1, not {min_units}")
+    with engine.connect() as conn:
+        ids = dataset_ids(conn, datasets)
+        rows = conn.execute(distribution_select(pairs_select(dataset_ids=list(ids), all_urls=all_urls))).all()
+    counts: dict[str, list[int]] = {}
+    for outlet, bucket, units in rows:
+        counts.setdefault(str(outlet), [0] * len(SIGHTING_BUCKETS))[int(bucket)] = int(units)
+    return {o: [n if n >= min_units or n == 0 else None for n in c]
+            for o, c in sorted(counts.items()) if sum(c) >= min_units}
+
+
 def to_networkx(network: Network) -> Any:
     """The network as an undirected ``networkx.Graph``: a node per outlet (attributes: units, sightings,
     the outlet list's), an edge per kept pair (units, jaccard, lift, pmi). Empty attribute values are left
@@ -156,4 +185,5 @@ def to_networkx(network: Network) -> Any:
 
 
 __all__ = ["BIPARTITE_COLUMNS", "DEFAULT_MIN_UNITS", "EDGE_COLUMNS", "NODE_COLUMNS", "Network", "bipartite_rows",
-           "co_exposure", "dataset_ids", "outlet_attribute_table", "to_networkx", "weights"]
+           "bucket_labels", "co_exposure", "dataset_ids", "exposure_distribution", "outlet_attribute_table",
+           "to_networkx", "weights"]

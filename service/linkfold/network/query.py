@@ -64,4 +64,22 @@ def edges_select(pairs: sa.Select[Any], *, min_units: int) -> sa.Select[Any]:
             .group_by(a.c.outlet, b.c.outlet).having(units >= min_units))
 
 
-__all__ = ["edges_select", "nodes_select", "pairs_select", "units_select"]
+
+
+#: Buckets of sightings per unit at an outlet, for the exposure distribution: (lowest, highest or None).
+SIGHTING_BUCKETS: tuple[tuple[int, int | None], ...] = ((1, 1), (2, 2), (3, 4), (5, 9), (10, 19), (20, 49),
+                                                        (50, None))
+
+
+def distribution_select(pairs: sa.Select[Any]) -> sa.Select[Any]:
+    """Per outlet and bucket of :data:`SIGHTING_BUCKETS` (its index): how many units had that many
+    sightings at the outlet."""
+    p = pairs.cte("pairs")
+    bucket = sa.case(*[(p.c.sightings <= hi, i) for i, (_lo, hi) in enumerate(SIGHTING_BUCKETS) if hi is not None],
+                     else_=len(SIGHTING_BUCKETS) - 1)
+    return (sa.select(p.c.outlet, bucket.label("bucket"), sa.func.count().label("units"))
+            .group_by(sa.literal_column("1"), sa.literal_column("2")))
+
+
+__all__ = ["SIGHTING_BUCKETS", "distribution_select", "edges_select", "nodes_select", "pairs_select",
+           "units_select"]
