@@ -32,6 +32,7 @@ from .query import (
     SIGHTING_BUCKETS,
     distribution_select,
     edges_select,
+    materialised,
     nodes_select,
     pairs_select,
     units_select,
@@ -104,10 +105,10 @@ def co_exposure(engine: Engine, *, datasets: Sequence[str], min_units: int = DEF
         raise ConfigError(f"min_units must be at least 1, not {min_units}")
     with engine.connect() as conn:
         ids = dataset_ids(conn, datasets)
-        pairs = pairs_select(dataset_ids=list(ids), all_urls=all_urls)
-        audience = {str(o): (int(u), int(s)) for o, u, s in conn.execute(nodes_select(pairs))}
-        n = int(conn.execute(units_select(pairs)).scalar_one() or 0)
-        found = conn.execute(edges_select(pairs, min_units=min_units)).all()
+        with materialised(conn, pairs_select(dataset_ids=list(ids), all_urls=all_urls)) as pairs:
+            audience = {str(o): (int(u), int(s)) for o, u, s in conn.execute(nodes_select(pairs))}
+            n = int(conn.execute(units_select(pairs)).scalar_one() or 0)
+            found = conn.execute(edges_select(pairs, min_units=min_units)).all()
         attr_cols, attrs = outlet_attribute_table(conn) if attributes else ([], {})
     node_columns = list(NODE_COLUMNS) + [a if a not in NODE_COLUMNS else f"outlet_{a}" for a in attr_cols]
     nodes = []
