@@ -136,6 +136,15 @@ def measure_duckdb(path: Path, min_units: int) -> dict:
             "edge_units": sum(int(e[2]) for e in edges)}
 
 
+def peak_rss_mb() -> float:
+    """This process's peak resident memory (VmHWM). Not ``ru_maxrss``: Linux carries the parent's high-water
+    mark across fork and exec into it, so a child started by a large parent would report the parent's."""
+    for line in Path("/proc/self/status").read_text().splitlines():
+        if line.startswith("VmHWM:"):
+            return int(line.split()[1]) / 1024
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+
+
 def _child(kind: str, target: str, min_units: int) -> dict:
     out = subprocess.run([sys.executable, __file__, "--child", kind, "--target", target, "--min-units",
                           str(min_units)], check=True, capture_output=True, text=True)
@@ -158,7 +167,7 @@ def main() -> None:
     if args.child:
         got = (measure_ours(args.target, args.min_units) if args.child == "ours"
                else measure_duckdb(Path(args.target), args.min_units))
-        got["peak_rss_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+        got["peak_rss_mb"] = peak_rss_mb()
         print(json.dumps(got))
         return
     for rows in args.rows:
