@@ -61,17 +61,18 @@ def load_with_units(engine, tmp_path: Path, dataset: str, rows: Sequence[tuple[s
                      .values(unit=sa.bindparam("u")), updates)
 
 
-def load_outlet_list(engine, columns: Sequence[str], entries: Sequence[tuple[str, str, dict]]) -> None:
-    """Store an outlet list version directly: (domain or host, outlet, attributes) per entry."""
-    from datetime import UTC, datetime
+def load_outlet_list(engine, tmp_path: Path, columns: Sequence[str],
+                     entries: Sequence[tuple[str, str, dict]]) -> None:
+    """Write an outlet list file, (domain, outlet, attributes) per line, and load it as the list in force."""
+    from linkfold.outlets import load_outlet_list as load
 
-    with engine.begin() as conn:
-        list_id = conn.execute(sa.insert(t.outlet_lists).values(
-            name="lab-outlets.csv", sha256=hashlib.sha256(repr(entries).encode()).hexdigest(),
-            columns=list(columns), created_at=datetime.now(UTC)).returning(t.outlet_lists.c.id)).scalar_one()
-        conn.execute(sa.insert(t.outlet_entries), [
-            {"list_id": list_id, "match": m, "outlet": o, "attributes": a, "line_no": i + 2}
-            for i, (m, o, a) in enumerate(entries)])
+    path = tmp_path / "lab-outlets.csv"
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(["domain", "outlet", *columns])
+        for match, outlet, attributes in entries:
+            w.writerow([match, outlet, *[attributes.get(c) or "" for c in columns]])
+    load(engine, path)
 
 
 # The hand-computed example of tests/test_network.py (articles unless said): units and the outlets they saw.
@@ -142,4 +143,5 @@ def region_rows(seed: int = 5, units: int = 160) -> list[tuple[str | None, str]]
 
 def load_region(engine, tmp_path: Path, dataset: str = "region-panel") -> None:
     load_with_units(engine, tmp_path, dataset, region_rows(), rules=region_rules(tmp_path))
-    load_outlet_list(engine, ["type", "reach"], [(h, o, {"type": ty, "reach": r}) for h, o, ty, r in REGION])
+    load_outlet_list(engine, tmp_path, ["type", "reach"],
+                     [(h, o, {"type": ty, "reach": r}) for h, o, ty, r in REGION])

@@ -88,8 +88,8 @@ def test_all_urls_counts_pages_that_are_not_articles(hand):
     assert e[(H, R)]["units"] == 4 and e[(H, R)]["lift"] == pytest.approx(9 * 4 / (7 * 5))
 
 
-def test_nodes_carry_the_outlet_list_attributes(hand):
-    load_outlet_list(hand, ["type", "reach"], [
+def test_nodes_carry_the_outlet_list_attributes(hand, tmp_path):
+    load_outlet_list(hand, tmp_path, ["type", "reach"], [
         ("northvale-herald.example", H, {"type": "regional", "reach": "high"}),
         ("riverton-daily.test", R, {"type": "local", "reach": None}),
     ])
@@ -176,7 +176,7 @@ def test_two_datasets_pool_their_units(engine, tmp_path):
 
 # --- formats -------------------------------------------------------------------------------------------------
 def test_graphml_reads_back_equal(hand, tmp_path):
-    load_outlet_list(hand, ["type"], [("northvale-herald.example", H, {"type": "regional"})])
+    load_outlet_list(hand, tmp_path, ["type"], [("northvale-herald.example", H, {"type": "regional"})])
     out = tmp_path / "net.graphml"
     summary = write_network(hand, datasets=["panel"], min_units=2, fmt="graphml", out=out)
     assert (summary.nodes, summary.edges) == (3, 3)

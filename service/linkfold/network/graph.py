@@ -26,8 +26,8 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
 from ..errors import ConfigError
+from ..outlets import outlet_attributes, outlet_columns
 from ..store import registry
-from ..store import tables as t
 from .query import (
     SIGHTING_BUCKETS,
     distribution_select,
@@ -68,21 +68,6 @@ class Network:
                 "nodes": self.nodes, "edges": self.edges, "suppressed_nodes": self.suppressed_nodes}
 
 
-def outlet_attribute_table(conn: Connection) -> tuple[list[str], dict[str, dict[str, Any]]]:
-    """The attribute columns of the outlet list in force and each outlet's attributes (the first line
-    that names an outlet gives them); nothing when no list is loaded."""
-    ol, oe = t.outlet_lists, t.outlet_entries
-    newest = conn.execute(sa.select(ol.c.id, ol.c.columns).order_by(ol.c.id.desc()).limit(1)).first()
-    if newest is None:
-        return [], {}
-    list_id, columns = newest
-    out: dict[str, dict[str, Any]] = {}
-    for outlet, attributes in conn.execute(sa.select(oe.c.outlet, oe.c.attributes)
-                                           .where(oe.c.list_id == list_id).order_by(oe.c.line_no)):
-        out.setdefault(outlet, dict(attributes or {}))
-    return [str(c) for c in (columns or [])], out
-
-
 def dataset_ids(conn: Connection, datasets: Sequence[str]) -> dict[int, str]:
     names = list(dict.fromkeys(datasets))
     if not names:
@@ -100,7 +85,8 @@ def weights(units_ab: int, units_a: int, units_b: int, n: int) -> dict[str, floa
 def co_exposure(engine: Engine, *, datasets: Sequence[str], min_units: int = DEFAULT_MIN_UNITS,
                 all_urls: bool = False, attributes: bool = True) -> Network:
     """The outlet co-exposure network of ``datasets``: an edge joins two outlets when at least
-    ``min_units`` units were exposed to both (module doc for the weights)."""
+    ``min_units`` units were exposed to both (module doc for the weights). Nodes carry the attributes of
+    the outlet list in force (``linkfold.outlets``) unless ``attributes`` is false."""
     if min_units < 1:
         raise ConfigError(f"min_units must be at least 1, not {min_units}")
     with engine.connect() as conn:
@@ -109,7 +95,8 @@ def co_exposure(engine: Engine, *, datasets: Sequence[str], min_units: int = DEF
             audience = {str(o): (int(u), int(s)) for o, u, s in conn.execute(nodes_select(pairs))}
             n = int(conn.execute(units_select(pairs)).scalar_one() or 0)
             found = conn.execute(edges_select(pairs, min_units=min_units)).all()
-        attr_cols, attrs = outlet_attribute_table(conn) if attributes else ([], {})
+        attr_cols = outlet_columns(conn) if attributes else []
+        attrs = outlet_attributes(conn) if attr_cols else {}
     node_columns = list(NODE_COLUMNS) + [a if a not in NODE_COLUMNS else f"outlet_{a}" for a in attr_cols]
     nodes = []
     for outlet in sorted(audience):
@@ -186,5 +173,4 @@ def to_networkx(network: Network) -> Any:
 
 
 __all__ = ["BIPARTITE_COLUMNS", "DEFAULT_MIN_UNITS", "EDGE_COLUMNS", "NODE_COLUMNS", "Network", "bipartite_rows",
-           "bucket_labels", "co_exposure", "dataset_ids", "exposure_distribution", "outlet_attribute_table",
-           "to_networkx", "weights"]
+           "bucket_labels", "co_exposure", "dataset_ids", "exposure_distribution", "to_networkx", "weights"]
