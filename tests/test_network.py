@@ -278,3 +278,21 @@ def test_client_returns_dataframes(served, db_url, tmp_path):
     assert {(a, b): u for a, b, u in edges[["outlet_a", "outlet_b", "units"]].itertuples(index=False)} == \
            {pair: v[0] for pair, v in want_edges.items()}
     assert dict(zip(nodes.outlet, zip(nodes.units, nodes.sightings, strict=True), strict=True)) == want_nodes
+
+
+def test_the_outlet_list_groups_domains_into_one_node(engine, tmp_path):
+    # The list names a second host (not in the site rules) as Harbourview News: its pages count for that
+    # outlet, so a unit seen on both is one member of one audience (docs/outlets.md, "Which outlet").
+    rows = [(f"r{i}", "https://harbourview-radio.test/live") for i in range(6)]
+    rows += [(f"r{i}", ARTICLE[B].format(i=i + 1)) for i in range(3)]
+    rows += [(f"r{i}", ARTICLE[H].format(i=i + 1)) for i in range(6)]
+    load_with_units(engine, tmp_path, "radio", rows)
+    before = co_exposure(engine, datasets=["radio"], min_units=1, all_urls=True)
+    assert {n["outlet"] for n in before.nodes} == {"harbourview-radio.test", B, H}
+    load_outlet_list(engine, tmp_path, ["type"], [("harbourview-news.example", B, {"type": "online"}),
+                                                  ("harbourview-radio.test", B, {"type": "online"})])
+    after = co_exposure(engine, datasets=["radio"], min_units=1, all_urls=True)
+    nodes = {n["outlet"]: n for n in after.nodes}
+    assert set(nodes) == {B, H} and nodes[B]["units"] == 6 and nodes[B]["sightings"] == 9
+    assert nodes[B]["type"] == "online" and nodes[H]["type"] is None
+    assert _edges(after)[(B, H)]["units"] == 6
