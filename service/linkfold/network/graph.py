@@ -35,6 +35,7 @@ from .query import (
     materialised,
     nodes_select,
     pairs_select,
+    plan_for_all_rows,
     units_select,
 )
 
@@ -128,6 +129,7 @@ def bipartite_rows(engine: Engine, *, datasets: Sequence[str], all_urls: bool = 
     q = pairs_select(dataset_ids=list(ids), all_urls=all_urls).order_by(sa.literal_column("1"),
                                                                          sa.literal_column("2"))
     with engine.connect() as conn:
+        plan_for_all_rows(conn)
         for unit, outlet, sightings in conn.execute(q.execution_options(yield_per=yield_per, stream_results=True)):
             yield {"unit": unit, "outlet": outlet, "sightings": int(sightings)}
 
