@@ -296,3 +296,15 @@ def test_the_outlet_list_groups_domains_into_one_node(engine, tmp_path):
     assert set(nodes) == {B, H} and nodes[B]["units"] == 6 and nodes[B]["sightings"] == 9
     assert nodes[B]["type"] == "online" and nodes[H]["type"] is None
     assert _edges(after)[(B, H)]["units"] == 6
+
+
+def test_a_missing_folder_is_a_clear_error_and_nothing_is_left(hand, db_url, tmp_path, capsys):
+    target = tmp_path / "no-such-folder" / "edges.csv"
+    assert main(["--db", db_url, "network", "--dataset", "panel", "--out", str(target)]) == 6
+    assert "does not exist" in capsys.readouterr().err and not target.parent.exists()
+    # GraphML into a file, then again over it: replaced whole, never appended to.
+    out = tmp_path / "g.graphml"
+    for _ in range(2):
+        assert main(["--db", db_url, "-q", "network", "--dataset", "panel", "--min-units", "2",
+                     "--format", "graphml", "--out", str(out)]) == 0
+    assert len(nx.read_graphml(out)) == 3 and [p.name for p in tmp_path.glob(".g.graphml.*")] == []
