@@ -47,7 +47,7 @@ def _operations(schema, **selector):
 READS = ["GET /v1/health", "GET /v1/lookup", "GET /v1/datasets", "GET /v1/datasets/{name}", "GET /v1/runs",
          "GET /v1/runs/{run_id}", "GET /v1/clusters", "GET /v1/articles/{cluster_id}",
          "GET /v1/stories/{cluster_id}", "GET /v1/ids/{cluster_id}/history", "GET /v1/decisions",
-         "POST /v1/lookup", "GET /v1/outlets", "GET /v1/outlets/report"]
+         "POST /v1/lookup", "GET /v1/outlets", "GET /v1/outlets/report", "GET /v1/network"]
 
 
 def test_the_document_lists_every_read_endpoint(world):

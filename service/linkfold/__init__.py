@@ -59,6 +59,8 @@ _LAZY = {
     "outlet_attributes": "linkfold.outlets",
     "outlet_report": "linkfold.outlets",
     "outlet_table": "linkfold.outlets",
+    "co_exposure": "linkfold.network",
+    "write_network": "linkfold.network",
 }
 
 
@@ -93,6 +95,7 @@ __all__ = [
     "StageFailed",
     "__version__",
     "canonicalize",
+    "co_exposure",
     "export_dataset",
     "extract_pages",
     "fetch_pages",
@@ -116,4 +119,5 @@ __all__ = [
     "run_dedupe",
     "run_nightly",
     "url_key",
+    "write_network",
 ]

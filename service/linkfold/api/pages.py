@@ -20,10 +20,11 @@ from .. import __version__
 from ..dedupe.stage import list_clusters, record_decision, resolve_cluster_id, show_cluster, similarity_values
 from ..errors import InputError
 from ..ingest import lookup
+from ..network import DEFAULT_MIN_UNITS, bucket_labels, co_exposure, exposure_distribution
 from ..store import registry
 from ..store.pages import current_document
 from ..store.tokens import TokenState, check_token
-from . import charts
+from . import charts, network_svg
 from .auth import COOKIE_NAME, may_write, read_access, write_access
 from .textdiff import side_by_side
 
@@ -200,3 +201,29 @@ def similarity_chart(request: Request) -> Response:
 def sizes_chart(request: Request) -> Response:
     read_access(request)
     return _svg(charts.sizes_svg(request.app.state.linkfold.engine))
+
+
+@router.get("/network", response_class=HTMLResponse)
+def network_page(request: Request, dataset: Annotated[list[str] | None, Query(max_length=20)] = None,
+                 min_units: Annotated[int, Query(ge=DEFAULT_MIN_UNITS, le=1_000_000)] = DEFAULT_MIN_UNITS,
+                 color: Annotated[str, Query(max_length=200)] = "",
+                 weight: Annotated[str, Query(pattern="^(jaccard|lift|units)$")] = "jaccard",
+                 all_urls: bool = False) -> HTMLResponse:
+    # Aggregates only, under the read token, with the API's floor of units (docs/network.md).
+    read_access(request)
+    engine = request.app.state.linkfold.engine
+    with engine.connect() as conn:
+        names = [d["dataset"] for d in registry.list_datasets(conn)]
+    chosen = [d for d in (dataset or []) if d.strip()] or names[:1]
+    context: dict[str, Any] = {"names": names, "chosen": chosen, "min_units": min_units, "color": color,
+                               "weight": weight, "all_urls": all_urls, "weights": network_svg.WEIGHTS}
+    if chosen:
+        net = co_exposure(engine, datasets=chosen, min_units=min_units, all_urls=all_urls)
+        attributes = network_svg.attribute_choices(net)
+        colour_by = color if color in attributes else None
+        dist = exposure_distribution(engine, datasets=chosen, min_units=min_units, all_urls=all_urls)
+        context.update(net=net, attributes=attributes, color=colour_by or "",
+                       graph=network_svg.network_svg(net, attribute=colour_by, weight=weight),
+                       distribution=network_svg.distribution_svg(dist, bucket_labels(), min_units=min_units),
+                       top_edges=sorted(net.edges, key=lambda e: -e[weight])[:25])
+    return render(request, "network.html", context)
