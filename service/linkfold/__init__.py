@@ -28,6 +28,7 @@ from .errors import (
     SchemaError,
     SignatureError,
     StageFailed,
+    WriteConflict,
 )
 from .settings import Settings, load_settings
 
@@ -93,6 +94,7 @@ __all__ = [
     "Settings",
     "SignatureError",
     "StageFailed",
+    "WriteConflict",
     "__version__",
     "canonicalize",
     "co_exposure",

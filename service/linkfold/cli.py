@@ -152,6 +152,16 @@ def _run(argv: list[str] | None) -> int:
         # `linkfold lookup … | head`: the reader went away; that is not an error of ours.
         sys.stderr.close()
         return 0
+    except Exception as exc:
+        # A concurrent writer's conflict that reached here without a retry of its own is still a known
+        # condition of the database, not a bug: its own message and exit code (store/conflicts.py).
+        from .store.conflicts import as_write_conflict
+
+        conflict = as_write_conflict(exc)
+        if conflict is None:
+            raise
+        click.echo(f"linkfold: error: {conflict}", err=True)
+        return conflict.exit_code
     return 0
 
 

@@ -18,6 +18,9 @@ Exit codes (documented in README.md, kept stable for scripts):
 8   lock held (another job holds the registry lock)
 9   network error (fetching or following links failed as a whole)
 10  a stage of the nightly job failed (the other stages ran; see ``linkfold runs show``)
+11  write conflict: a concurrent writer kept this one out (a deadlock or serialization failure that
+    retries did not resolve, or an SQLite registry locked past ``busy_timeout``); nothing of the
+    failed transaction was stored: run the command again
 130 interrupted (Ctrl-C); what was committed stays committed
 ==  =====================================================
 """
@@ -126,6 +129,15 @@ class InvalidURL(LinkfoldError):
         self.detail = detail
 
 
+class WriteConflict(DatabaseError):
+    """A concurrent writer kept this one out: PostgreSQL chose this transaction as the loser of a
+    deadlock or serialization conflict more times than it is retried, or an SQLite registry stayed
+    locked by another writer for longer than the busy timeout. The failed transaction left nothing."""
+
+    exit_code = 11
+    code = "write_conflict"
+
+
 class SignatureError(DatabaseError):
     """A stored signature or its parameter record is malformed or does not match its parameters."""
 
@@ -175,4 +187,5 @@ __all__ = [
     "RulesError",
     "SchemaError",
     "SignatureError",
+    "WriteConflict",
 ]

@@ -72,6 +72,9 @@ SETTINGS: tuple[Setting, ...] = (
             "directory) or postgresql+psycopg://user@host/dbname for a lab server."),
     Setting("batch_size", 5000, _positive_int,
             "Rows written per transaction by bulk stages; a crash loses at most the batch in flight."),
+    Setting("busy_timeout", 30.0, _nonneg_float,
+            "SQLite only: seconds a writer waits for another writer of the same registry file before it "
+            "gives up with a write conflict (exit 11); SQLite has one writer at a time."),
     Setting("ingest_batch_size", 20000, _positive_int,
             "Dump rows per transaction of an ingest; an interrupted load resumes after the last whole "
             "batch. Larger batches mean fewer round trips per row (a batch costs about ten)."),

@@ -39,7 +39,7 @@ class Context:
         from ..store import ensure_schema, make_engine
 
         if self._engine is None:
-            self._engine = make_engine(self.settings.database_url)
+            self._engine = make_engine(self.settings.database_url, busy_timeout=self.settings.busy_timeout)
         if check_schema:
             ensure_schema(self._engine)
         return self._engine

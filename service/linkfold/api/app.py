@@ -34,7 +34,7 @@ def create_app(settings: Settings | None = None, *, engine: Engine | None = None
     The schema is checked once here, so a server never starts on a registry it cannot read.
     """
     settings = settings if settings is not None else load_settings()
-    engine = engine if engine is not None else make_engine(settings.database_url)
+    engine = engine if engine is not None else make_engine(settings.database_url, busy_timeout=settings.busy_timeout)
     ensure_schema(engine)
     # No Swagger or ReDoc pages: they load scripts from the internet, and nothing here may.
     app = FastAPI(title="linkfold", version=__version__, description=DESCRIPTION,

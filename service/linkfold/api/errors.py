@@ -20,6 +20,7 @@ from pydantic import BaseModel
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from .. import errors as lf
+from ..store.conflicts import as_write_conflict
 
 log = logging.getLogger("linkfold")
 
@@ -142,6 +143,9 @@ def install_handlers(app: FastAPI, *, render_page: PageRenderer | None = None) -
 
     @app.exception_handler(Exception)
     async def _bug(request: Request, exc: Exception) -> Response:
+        conflict = as_write_conflict(exc)
+        if conflict is not None:  # a concurrent writer's conflict is a known condition (store/conflicts.py)
+            return await _linkfold_error(request, conflict)
         # A bug, not the caller's fault: log the traceback here, give the caller no internals.
         log.exception("internal error on %s %s", request.method, request.url.path)
         return _respond(request, 500, "internal", "internal error (logged on the server)")

@@ -237,10 +237,10 @@ class _Job:
     raws_ready: EncodedRows | None = None  # ``raws``, encoded for COPY (PostgreSQL)
 
 
-def _resolve(job: _Job, recent: list[dict[str, int]]) -> list[int]:
-    """Give the job's hashed sightings the ids the writer already knows (plain dict lookups, not through
-    ``write_batch``'s general mapping); return the indexes of those still hashed."""
-    sightings = job.sightings
+def _resolve(job: _Job, sightings: list[tuple], recent: list[dict[str, int]]) -> list[int]:
+    """Give the job's hashed sightings (in ``sightings``, a copy of the job's) the ids the writer already
+    knows (plain dict lookups, not through ``write_batch``'s general mapping); return the indexes of
+    those still hashed."""
     here, newer, older = job.known.get, recent[0].get, recent[1].get
     left = []
     for i in job.pending:
@@ -271,24 +271,29 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
     recent: list[dict[str, int]] = [{}, {}]  # newer, older
 
     def write(conn: Connection, job: _Job) -> registry.BatchCounts:
-        # Runs on the writer thread, inside one transaction per batch.
-        pending = _resolve(job, recent)
+        # Runs on the writer thread, inside one transaction per batch, and again from the same job if that
+        # transaction loses to a concurrent writer: write_batch completes the lists it is given in place,
+        # so it gets copies (a list copy is microseconds a batch), and nothing learnt here is kept before
+        # the commit.
+        sightings, rejects = list(job.sightings), list(job.rejects)
+        pending = _resolve(job, sightings, recent)
         counts = registry.write_batch(conn, dataset_id=dataset_id, file_id=stored["id"], ruleset_id=ruleset_id,
-                                      sightings=job.sightings, rejects=job.rejects, pending=pending,
+                                      sightings=sightings, rejects=rejects, pending=pending,
                                       raws=job.raws, known=ChainMap(job.known, *recent), row_count=job.row_count,
                                       lines_before=state["lines_done"], lines_after=job.lines_after,
                                       ready=job.ready, raws_ready=job.raws_ready)
-        if len(recent[0]) + len(counts.raw_ids) > memo_size // 2:
-            recent[1] = recent[0]
-            recent[0] = {}
-        recent[0].update(counts.raw_ids)
         if job.final:
             registry.complete_file(conn, stored["id"], lines_done=max(job.lines_after, plan.facts.lines))
         return counts
 
     def committed(job: _Job, counts: registry.BatchCounts) -> None:
         # Only after the commit: the summary counts what is stored, and an id is only certain now. The
-        # reading thread takes the ids in between batches.
+        # writer thread's own memory of recent ids first (it runs on that thread, before the next batch);
+        # the reading thread takes the ids in between batches.
+        if len(recent[0]) + len(counts.raw_ids) > memo_size // 2:
+            recent[1] = recent[0]
+            recent[0] = {}
+        recent[0].update(counts.raw_ids)
         raw_ids.offer(job.raws, counts.raw_ids)
         state["lines_done"] = job.lines_after
         summary.rows += counts.rows

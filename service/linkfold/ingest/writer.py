@@ -7,6 +7,8 @@ slows the reader down rather than letting batches pile up.
 
 Every batch handed over is written (or the writer fails and says so): stopping early waits for the
 batches already handed over, so what is committed is always "everything up to some batch", never a gap.
+A batch whose transaction loses a deadlock or serialization conflict to a concurrent writer is written
+again from the same job (``store.conflicts.retrying``): ``write`` must leave the job as it found it.
 
 While a writer thread runs, the interpreter's thread switch interval is lowered (``SWITCH_INTERVAL``):
 the writer thread needs the interpreter after every round trip and every piece of a COPY, and the reading
@@ -24,6 +26,8 @@ from collections.abc import Callable
 from typing import Any, Generic, TypeVar
 
 from sqlalchemy.engine import Connection, Engine
+
+from ..store.conflicts import retrying
 
 log = logging.getLogger("linkfold")
 
@@ -55,7 +59,9 @@ def _restore_switch_interval() -> None:
 
 class BatchWriter(Generic[Job]):
     """Run ``write(conn, job)`` for each submitted job on one thread, each inside ``conn.begin()``;
-    then ``committed(job, result)`` once that transaction is committed."""
+    then ``committed(job, result)`` once that transaction is committed. ``write`` may run more than once
+    for one job (a transaction that lost to a concurrent writer is run again): it must not change the
+    job, nor keep anything from a run whose transaction did not commit."""
 
     def __init__(self, engine: Engine, write: Callable[[Connection, Job], Any],
                  committed: Callable[[Job, Any], None] = lambda _job, _result: None, *, depth: int = 2,
@@ -78,8 +84,7 @@ class BatchWriter(Generic[Job]):
         try:
             with self._engine.connect() as conn:
                 while (job := self._queue.get()) is not _STOP:
-                    with conn.begin():
-                        result = self._write(conn, job)
+                    result = retrying(lambda: self._transaction(conn, job), what="a batch")
                     self._committed(job, result)
                 return
         except BaseException as exc:  # handed to the submitting thread, which re-raises it
@@ -87,6 +92,10 @@ class BatchWriter(Generic[Job]):
         # Keep taking batches (and dropping them) so a submitter never blocks, until told to stop.
         while self._queue.get() is not _STOP:
             pass
+
+    def _transaction(self, conn: Connection, job: Job) -> Any:
+        with conn.begin():
+            return self._write(conn, job)
 
     def _raise_if_failed(self) -> None:
         if self._error is not None:
@@ -96,8 +105,7 @@ class BatchWriter(Generic[Job]):
         """Hand over a batch; blocks while ``depth`` batches are waiting. Raises the writer's error."""
         if self._inline:
             with self._engine.connect() as conn:
-                with conn.begin():
-                    result = self._write(conn, job)
+                result = retrying(lambda: self._transaction(conn, job), what="a batch")
                 self._committed(job, result)
             return
         while True:

@@ -187,8 +187,10 @@ def insert_new_rows(conn: sa.Connection, table: sa.Table, rows: Sequence[Mapping
         _copy_rows(conn, f'"{stage}"', columns, ([r[c] for c in columns] for r in rows))
         cols = ", ".join(f'"{c}"' for c in columns)
         conf = ", ".join(f'"{c}"' for c in conflict)
+        # In the unique key's order, as every writer of a shared table inserts (store/conflicts.py): two
+        # transactions that insert the same keys then wait for each other in one direction only.
         result = conn.exec_driver_sql(
-            f'INSERT INTO "{table.name}" ({cols}) SELECT {cols} FROM "{stage}" '
+            f'INSERT INTO "{table.name}" ({cols}) SELECT {cols} FROM "{stage}" ORDER BY {conf} '
             f"ON CONFLICT ({conf}) DO NOTHING")
         conn.exec_driver_sql(f'DROP TABLE "{stage}"')
         return result.rowcount

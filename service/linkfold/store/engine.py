@@ -30,19 +30,26 @@ def normalise_database_url(url: str) -> str:
     return url
 
 
-def _sqlite_on_connect(dbapi_conn, _record) -> None:
-    cur = dbapi_conn.cursor()
-    # Foreign keys are off by default in SQLite, per connection; WAL lets readers work beside the one
-    # writer; busy_timeout makes a second writer wait instead of failing at once.
-    cur.execute("PRAGMA foreign_keys=ON")
-    cur.execute("PRAGMA journal_mode=WAL")
-    cur.execute("PRAGMA synchronous=NORMAL")
-    cur.execute("PRAGMA busy_timeout=30000")
-    cur.close()
+DEFAULT_BUSY_TIMEOUT = 30.0  # seconds; the ``busy_timeout`` setting
 
 
-def make_engine(url: str, **kwargs) -> Engine:
-    """An engine for ``url`` with the per-connection settings each backend needs."""
+def _sqlite_on_connect(busy_ms: int):
+    def on_connect(dbapi_conn, _record) -> None:
+        cur = dbapi_conn.cursor()
+        # Foreign keys are off by default in SQLite, per connection; WAL lets readers work beside the one
+        # writer; busy_timeout makes a second writer wait instead of failing at once (store/conflicts.py
+        # turns a wait that runs out into a clear error).
+        cur.execute("PRAGMA foreign_keys=ON")
+        cur.execute("PRAGMA journal_mode=WAL")
+        cur.execute("PRAGMA synchronous=NORMAL")
+        cur.execute(f"PRAGMA busy_timeout={int(busy_ms)}")
+        cur.close()
+    return on_connect
+
+
+def make_engine(url: str, *, busy_timeout: float = DEFAULT_BUSY_TIMEOUT, **kwargs) -> Engine:
+    """An engine for ``url`` with the per-connection settings each backend needs. ``busy_timeout``:
+    seconds an SQLite writer waits for another one (the setting of that name)."""
     url = normalise_database_url(url)
     try:
         parsed = make_url(url)
@@ -56,8 +63,10 @@ def make_engine(url: str, **kwargs) -> Engine:
             if not parent.is_dir():
                 raise DatabaseError(f"cannot create the SQLite database {database}: "
                                     f"folder {parent} does not exist")
-        engine = sa.create_engine(parsed, **kwargs)
-        sa.event.listen(engine, "connect", _sqlite_on_connect)
+        # The driver's own wait (sqlite3's ``timeout``) is the same busy handler: set it to the same.
+        connect_args = {"timeout": max(busy_timeout, 0.0), **kwargs.pop("connect_args", {})}
+        engine = sa.create_engine(parsed, connect_args=connect_args, **kwargs)
+        sa.event.listen(engine, "connect", _sqlite_on_connect(round(busy_timeout * 1000)))
         return engine
     if backend == "postgresql":
         if parsed.get_driver_name() != "psycopg":
