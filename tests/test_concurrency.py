@@ -154,3 +154,136 @@ def test_a_writer_locked_out_past_the_busy_timeout_exits_11_and_says_why(tmp_pat
             assert conn.execute(sa.select(sa.func.count()).select_from(t.sightings)).scalar_one() == 0
     finally:
         engine.dispose()
+
+
+# --- item 2: nothing pending is ever skipped ---------------------------------------------------------------
+def _without_ids(engine) -> dict[str, int]:
+    """Canonical URLs without an article ID, and without a story ID."""
+    c, m = t.canonical_urls, t.cluster_members
+    out = {}
+    with engine.connect() as conn:
+        for level in ("article", "story"):
+            has = sa.select(m.c.canonical_id).where(m.c.level == level, m.c.canonical_id == c.c.id).exists()
+            out[level] = int(conn.execute(sa.select(sa.func.count()).select_from(c).where(~has)).scalar_one())
+    return out
+
+
+def _waiting_on_a_lock(engine) -> int:
+    with engine.connect() as conn:
+        return int(conn.execute(sa.text(
+            "SELECT count(*) FROM pg_stat_activity WHERE datname = current_database() "
+            "AND wait_event_type = 'Lock'")).scalar_one())
+
+
+@pytest.mark.postgres
+def test_a_load_committed_after_a_later_load_and_a_nightly_run_is_picked_up(pg_url, tmp_path):
+    """Issue 16, item 2, reproduced: load A takes its canonical URL ids, then waits with its transaction
+    open (here: on a raw URL that another session is inserting, the way two loads meet); load B takes
+    larger ids and commits; a nightly run clusters B. Then A commits. With id high-water marks the
+    nightly run had moved past A's ids, and every later run said "nothing pending"; now the next nightly
+    run gives every canonical URL an article and a story ID."""
+    from linkfold.jobs.nightly import run_nightly
+    from linkfold.settings import load_settings
+    from linkfold.store.evidence import raw_hash
+
+    a = _dump(tmp_path / "a.csv", 0, 1500, seed=1)
+    b = _dump(tmp_path / "b.csv", 5000, 800, seed=2)
+    blocked = "https://www.outlet0.example/held-back"
+    with a.open("a") as fh:
+        fh.write(f"held,{blocked}\n")
+    engine = make_engine(pg_url)
+    blocker = engine.connect()
+    proc = None
+    try:
+        # Another session inserts one of A's raw URLs and keeps its transaction open: A inserts its
+        # canonical URLs (taking their ids), then waits on that raw URL's unique key.
+        blocker.begin()
+        blocker.execute(sa.insert(t.raw_urls).values(raw_hash=raw_hash(blocked), raw=blocked, canonical_id=None,
+                                                     ruleset_id=None, error=None, created_at=sa.func.now()))
+        proc = subprocess.Popen(_ingest_cmd(a, "panel-a"), env=_env(pg_url), stdout=subprocess.DEVNULL,
+                                stderr=subprocess.PIPE, text=True)
+        import time
+
+        deadline = time.monotonic() + 120
+        while _waiting_on_a_lock(engine) == 0:
+            assert proc.poll() is None and time.monotonic() < deadline, "load A never reached the wait"
+            time.sleep(0.05)
+        done = subprocess.run(_ingest_cmd(b, "panel-b"), env=_env(pg_url), capture_output=True, text=True,
+                              timeout=300)
+        assert done.returncode == 0, done.stderr
+        settings = load_settings(overrides={"database_url": pg_url}, environ={})
+        first = run_nightly(engine, settings=settings)
+        assert first.ok
+        with engine.connect() as conn:
+            smallest_b = conn.execute(sa.select(sa.func.min(t.canonical_urls.c.id))).scalar_one()
+        assert _without_ids(engine) == {"article": 0, "story": 0}  # B only: A is not committed yet
+        blocker.rollback()
+        _out, err = proc.communicate(timeout=300)
+        assert proc.returncode == 0, err
+    finally:
+        blocker.close()
+        if proc is not None and proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    with engine.connect() as conn:
+        c = t.canonical_urls
+        late = conn.execute(sa.select(sa.func.count()).where(c.c.id < smallest_b)).scalar_one()
+    assert late >= 1000, "load A's ids should lie below load B's: the gap was not reproduced"
+    assert _without_ids(engine)["article"] >= late
+    second = run_nightly(engine, settings=settings)
+    assert second.ok
+    assert {s.name: s.status for s in second.stages}["dedupe"] == "ok"
+    assert _without_ids(engine) == {"article": 0, "story": 0}
+    third = run_nightly(engine, settings=settings)
+    assert {s.name: s.reason for s in third.stages}["dedupe"] == "nothing pending"
+    engine.dispose()
+
+
+def test_an_existing_registry_is_migrated_to_the_pending_queue_and_heals(empty_db_url, backend, tmp_path):
+    """Migration 0013 on a registry with data: rows past a stage mark stay pending; on PostgreSQL rows
+    at or below it that the marks passed over (canonical URLs without an article ID) become pending too,
+    so the next dedupe run gives every canonical URL its IDs."""
+    from dedupe_world import settings
+    from linkfold.dedupe.stage import count_pending, run_dedupe
+    from linkfold.ingest import ingest_dump
+    from linkfold.store import upgrade
+    from linkfold.store.migrate import history
+
+    before = next(down for rev, down, _doc in history() if rev == "0013")
+    engine = make_engine(empty_db_url)
+    try:
+        upgrade(engine, before)
+        ingest_dump(engine, [_dump(tmp_path / "a.csv", 0, 300, seed=1)], dataset="panel-a", key_column="id")
+        with engine.begin() as conn:
+            top = conn.execute(sa.select(sa.func.max(t.canonical_urls.c.id))).scalar_one()
+            # A registry whose marks say "up to here is done" although nothing below was clustered: what
+            # PostgreSQL registries were left with by loads committed out of id order. SQLite cannot get
+            # there, so its mark stands at 0 (a registry that was never deduplicated).
+            mark = top - 5 if backend == "postgres" else 0
+            conn.execute(sa.insert(t.stage_marks).values(name="dedupe.canonical", value=mark, run_id=None,
+                                                         updated_at=sa.func.now()))
+        upgrade(engine)
+        with engine.connect() as conn:
+            entries = conn.execute(sa.select(t.stage_pending.c.topic, t.stage_pending.c.lo,
+                                             t.stage_pending.c.hi)).all()
+            marks = dict(conn.execute(sa.select(t.stage_marks.c.name, t.stage_marks.c.value)).all())
+        if backend == "postgres":
+            covered = {i for topic, lo, hi in entries if topic == "dedupe.canonical" for i in range(lo, hi + 1)}
+            assert covered == set(range(1, top + 1))
+            assert "dedupe.canonical" not in marks
+        else:
+            assert entries == [] and marks == {"dedupe.canonical": 0}
+        assert count_pending(engine) >= top
+        run_dedupe(engine, settings=settings())
+        assert _without_ids(engine) == {"article": 0, "story": 0}
+        assert count_pending(engine) == 0
+    finally:
+        engine.dispose()
+
+
+def test_claims_join_ranges_and_stay_within_their_limit():
+    from linkfold.store.pending import coalesce
+
+    assert coalesce([(5, 9), (1, 3), (4, 4), (20, 30), (25, 26)]) == ((1, 9), (20, 30))
+    assert coalesce([(1, 1), (10, 10), (12, 12), (40, 40)], limit=2) == ((1, 12), (40, 40))
+    assert coalesce([]) == ()

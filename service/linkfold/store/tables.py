@@ -441,7 +441,8 @@ id_events = sa.Table(
     sa.Index("ix_id_events_other_id", "other_id"),
 )
 
-# High-water marks of incremental stages (the last row id each has taken into account).
+# Marks of incremental stages: on SQLite the last row id each has taken into account (rows commit in id
+# order there); on PostgreSQL only settings fingerprints (``dedupe.params``): see ``stage_pending``.
 stage_marks = sa.Table(
     "stage_marks", metadata,
     sa.Column("name", sa.String(40), primary_key=True),
@@ -474,6 +475,19 @@ outlet_entries = sa.Table(
     sa.Column("line_no", sa.Integer, nullable=False),     # where the entry stands in the loaded file
     sa.UniqueConstraint("list_id", "match"),
     sa.Index("ix_outlet_entries_list_outlet", "list_id", "outlet"),
+)
+
+# Rows an incremental stage has still to take into account, on PostgreSQL (migration 0013;
+# store/pending.py): a trigger on each watched table writes ``(topic, lo, hi)`` — the id range one
+# statement inserted — in the inserting transaction; the stage deletes the entries it took on. Unused on
+# SQLite, whose stage marks cannot pass over a row.
+stage_pending = sa.Table(
+    "stage_pending", metadata,
+    sa.Column("id", sa.BigInteger().with_variant(sa.Integer, "sqlite"), primary_key=True),
+    sa.Column("topic", sa.String(40), nullable=False),
+    sa.Column("lo", sa.BigInteger, nullable=False),
+    sa.Column("hi", sa.BigInteger, nullable=False),
+    sa.Index("ix_stage_pending_topic", "topic"),
 )
 
 # --- API tokens (migration 0008) --------------------------------------------------------------------------

@@ -18,8 +18,7 @@ from sqlalchemy.engine import Engine
 
 from ...jobs.runlog import recording_run
 from ...progress import SILENT, Progress
-from ...store.clusters import set_mark
-from ...store.registry import now
+from ...store import pending as pq
 from ...store.stats import refresh_statistics
 from .. import SignatureParams, Thresholds
 from .decisions import Decision, DecisionResult, list_decisions, record_decision, resolve_ref
@@ -113,7 +112,7 @@ def run_dedupe(engine: Engine, *, settings: Any, full: bool = False, parent_id: 
                                                  progress=progress)
         elif full:
             with engine.begin() as conn:
-                set_mark(conn, MATCHED, 0, run_id=run.id, now=now())
+                pq.reset(conn, MATCHED, run_id=run.id)
         signed = sign_pending(engine, params, run_id=run.id, batch_size=settings.batch_size, progress=progress)
         summary.signing.signed += signed.signed
         summary.signing.empty += signed.empty

@@ -33,12 +33,13 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
 from ...progress import SILENT, Progress
+from ...store import pending as pq
 from ...store import tables as t
-from ...store.clusters import chunks, get_mark, set_mark
+from ...store.clusters import chunks
 from ...store.evidence import add_links
 from ...store.registry import now
 from .. import DocFeatures, SignatureParams, Thresholds, shingle_hashes, signature_from_bytes, verify_pairs
-from .signing import MATCHED, SIGNED
+from .signing import MATCHED
 
 log = logging.getLogger("linkfold")
 
@@ -59,28 +60,46 @@ class MatchCounts:
     title_candidates: int = 0
 
 
-def _keyed(lo: int, hi: int) -> sa.Subquery:
-    """Ids of documents in ``(lo, hi]`` that have band keys or title keys: the current documents that
+@dataclass(frozen=True)
+class _Window:
+    """The documents matched in one transaction: ids in ``(lo, hi]`` within the run's claim."""
+
+    lo: int
+    hi: int
+    claim: pq.Claim
+
+    def holds(self, column: Any) -> Any:
+        return sa.and_(column > self.lo, column <= self.hi, self.claim.where(column))
+
+    def partner(self, other: Any, mine: Any) -> Any:
+        """Whom a window document is paired with: every other document, except one with a larger id that
+        this run matches as well (it pairs with this one in its own window, so each pair is met once).
+        Claimed documents are matched in id order, but a document claimed in no earlier run can have a
+        smaller id than one matched before: pairing only with smaller ids would miss that pair."""
+        return sa.and_(other != mine, sa.or_(other < mine, sa.not_(self.claim.where(other))))
+
+
+def _keyed(w: _Window) -> sa.Subquery:
+    """Ids of the window's documents that have band keys or title keys: the current documents that
     can meet a candidate (a short text without shingles may still have a title that decides)."""
     bk, tk = t.band_keys, t.title_keys
-    return sa.union(sa.select(bk.c.document_id.label("id")).where(bk.c.document_id > lo, bk.c.document_id <= hi),
-                    sa.select(tk.c.document_id.label("id")).where(tk.c.document_id > lo, tk.c.document_id <= hi)
-                    ).subquery()
+    return sa.union(sa.select(bk.c.document_id.label("id")).where(w.holds(bk.c.document_id)),
+                    sa.select(tk.c.document_id.label("id")).where(w.holds(tk.c.document_id))).subquery()
 
 
-def count_unmatched(conn: Connection) -> int:
-    lo = get_mark(conn, MATCHED) or 0
-    hi = get_mark(conn, SIGNED) or 0
-    if hi <= lo:
+def count_unmatched(conn: Connection, todo: pq.Claim | None = None) -> int:
+    todo = todo if todo is not None else pq.claim(conn, MATCHED)
+    if todo.empty:
         return 0
-    return int(conn.execute(sa.select(sa.func.count()).select_from(_keyed(lo, hi))).scalar_one())
+    return int(conn.execute(sa.select(sa.func.count()).select_from(_keyed(_Window(0, todo.top, todo))))
+               .scalar_one())
 
 
-def _oversize(conn: Connection, lo: int, hi: int, max_bucket: int) -> tuple[list[tuple[int, int]], int]:
+def _oversize(conn: Connection, w: _Window, max_bucket: int) -> tuple[list[tuple[int, int]], int]:
     """(band, key) buckets met by the window's documents that hold more than ``max_bucket`` documents,
     and the largest bucket size met."""
     bk = t.band_keys
-    mine = sa.select(bk.c.band, bk.c.key).where(bk.c.document_id > lo, bk.c.document_id <= hi).subquery()
+    mine = sa.select(bk.c.band, bk.c.key).where(w.holds(bk.c.document_id)).subquery()
     q = (sa.select(bk.c.band, bk.c.key, sa.func.count(sa.distinct(bk.c.document_id)).label("n"))
          .where(sa.tuple_(bk.c.band, bk.c.key).in_(sa.select(mine.c.band, mine.c.key)))
          .group_by(bk.c.band, bk.c.key).having(sa.func.count(sa.distinct(bk.c.document_id)) > 1))
@@ -93,22 +112,26 @@ def _oversize(conn: Connection, lo: int, hi: int, max_bucket: int) -> tuple[list
     return big, largest
 
 
-def _band_pairs(conn: Connection, lo: int, hi: int, skip: Sequence[tuple[int, int]]) -> set[tuple[int, int]]:
+def _pair(a: Any, b: Any) -> tuple[int, int]:
+    return (int(a), int(b)) if int(a) < int(b) else (int(b), int(a))
+
+
+def _band_pairs(conn: Connection, w: _Window, skip: Sequence[tuple[int, int]]) -> set[tuple[int, int]]:
     n, o = t.band_keys.alias("n"), t.band_keys.alias("o")
     q = (sa.select(o.c.document_id, n.c.document_id).distinct()
          .select_from(n.join(o, sa.and_(o.c.band == n.c.band, o.c.key == n.c.key,
-                                        o.c.document_id < n.c.document_id)))
-         .where(n.c.document_id > lo, n.c.document_id <= hi))
+                                        w.partner(o.c.document_id, n.c.document_id))))
+         .where(w.holds(n.c.document_id)))
     if skip:
         q = q.where(sa.tuple_(n.c.band, n.c.key).not_in(list(skip)))
-    return {(int(a), int(b)) for a, b in conn.execute(q)}
+    return {_pair(a, b) for a, b in conn.execute(q)}
 
 
-def _title_oversize(conn: Connection, lo: int, hi: int, max_bucket: int) -> tuple[list[int], int]:
+def _title_oversize(conn: Connection, w: _Window, max_bucket: int) -> tuple[list[int], int]:
     """Title keys met by the window's documents that more than ``max_bucket`` documents share (a title
     every outlet uses), and the largest such bucket met."""
     tk = t.title_keys
-    mine = sa.select(tk.c.key).where(tk.c.document_id > lo, tk.c.document_id <= hi).subquery()
+    mine = sa.select(tk.c.key).where(w.holds(tk.c.document_id)).subquery()
     q = (sa.select(tk.c.key, sa.func.count().label("n")).where(tk.c.key.in_(sa.select(mine.c.key)))
          .group_by(tk.c.key).having(sa.func.count() > 1))
     big: list[int] = []
@@ -120,34 +143,34 @@ def _title_oversize(conn: Connection, lo: int, hi: int, max_bucket: int) -> tupl
     return big, largest
 
 
-def _title_pairs(conn: Connection, lo: int, hi: int, skip: Sequence[int], min_words: int) -> set[tuple[int, int]]:
+def _title_pairs(conn: Connection, w: _Window, skip: Sequence[int], min_words: int) -> set[tuple[int, int]]:
     """Pairs sharing a title key, on different outlets, at least one of them short: the only pairs the
-    title-and-date rule can join (docs/dedupe.md §6). Partners have a smaller id, as for band keys."""
+    title-and-date rule can join (docs/dedupe.md §6). Partners as for band keys (``_Window.partner``)."""
     n, o = t.title_keys.alias("tn"), t.title_keys.alias("to")
     dn, do = t.documents.alias("dn"), t.documents.alias("do")
     cn, co = t.canonical_urls.alias("cn"), t.canonical_urls.alias("co")
     q = (sa.select(o.c.document_id, n.c.document_id).distinct()
-         .select_from(n.join(o, sa.and_(o.c.key == n.c.key, o.c.document_id < n.c.document_id))
+         .select_from(n.join(o, sa.and_(o.c.key == n.c.key, w.partner(o.c.document_id, n.c.document_id)))
                       .join(dn, dn.c.id == n.c.document_id).join(do, do.c.id == o.c.document_id)
                       .join(cn, cn.c.id == dn.c.canonical_id).join(co, co.c.id == do.c.canonical_id))
-         .where(n.c.document_id > lo, n.c.document_id <= hi, cn.c.outlet != co.c.outlet,
+         .where(w.holds(n.c.document_id), cn.c.outlet != co.c.outlet,
                 sa.or_(dn.c.word_count < min_words, do.c.word_count < min_words)))
     if skip:
         q = q.where(n.c.key.not_in(list(skip)))
-    return {(int(a), int(b)) for a, b in conn.execute(q)}
+    return {_pair(a, b) for a, b in conn.execute(q)}
 
 
-def _hash_pairs(conn: Connection, lo: int, hi: int) -> set[tuple[int, int]]:
+def _hash_pairs(conn: Connection, w: _Window) -> set[tuple[int, int]]:
     """Pairs of current documents with equal normalised text (band 0 present = current and non-empty)."""
     dn, do = t.documents.alias("dn"), t.documents.alias("do")
     bn, bo = t.band_keys.alias("bn"), t.band_keys.alias("bo")
     q = (sa.select(do.c.id, dn.c.id).distinct()
          .select_from(dn.join(bn, sa.and_(bn.c.document_id == dn.c.id, bn.c.band == 0))
-                      .join(do, sa.and_(do.c.text_hash == dn.c.text_hash, do.c.id < dn.c.id,
+                      .join(do, sa.and_(do.c.text_hash == dn.c.text_hash, w.partner(do.c.id, dn.c.id),
                                         do.c.canonical_id != dn.c.canonical_id))
                       .join(bo, sa.and_(bo.c.document_id == do.c.id, bo.c.band == 0)))
-         .where(dn.c.id > lo, dn.c.id <= hi, dn.c.text_hash.is_not(None)))
-    return {(int(a), int(b)) for a, b in conn.execute(q)}
+         .where(w.holds(dn.c.id), dn.c.text_hash.is_not(None)))
+    return {_pair(a, b) for a, b in conn.execute(q)}
 
 
 @dataclass(frozen=True)
@@ -186,18 +209,19 @@ def _link_row(kind: str, a: _Doc, b: _Doc, detail: dict[str, Any], run_id: int |
 
 
 def match_window(conn: Connection, lo: int, hi: int, params: SignatureParams, thresholds: Thresholds, *,
-                 max_bucket: int, run_id: int | None, counts: MatchCounts) -> int:
-    """Match the documents with ids in ``(lo, hi]`` against every smaller current document; returns the
-    number of documents matched."""
-    skip, largest = _oversize(conn, lo, hi, max_bucket)
+                 max_bucket: int, run_id: int | None, counts: MatchCounts, claim: pq.Claim | None = None) -> int:
+    """Match the documents of ``claim`` (default: every document) with ids in ``(lo, hi]`` against every
+    current document they have not met (``_Window.partner``); returns the number of documents matched."""
+    w = _Window(lo, hi, claim if claim is not None else pq.Claim(MATCHED, ((lo + 1, hi),)))
+    skip, largest = _oversize(conn, w, max_bucket)
     counts.oversize_buckets += len(skip)
     counts.largest_bucket = max(counts.largest_bucket, largest)
-    band = _band_pairs(conn, lo, hi, skip)
-    exact = _hash_pairs(conn, lo, hi)
-    skip_titles, largest_titles = _title_oversize(conn, lo, hi, max_bucket)
+    band = _band_pairs(conn, w, skip)
+    exact = _hash_pairs(conn, w)
+    skip_titles, largest_titles = _title_oversize(conn, w, max_bucket)
     counts.oversize_buckets += len(skip_titles)
     counts.largest_bucket = max(counts.largest_bucket, largest_titles)
-    titles = _title_pairs(conn, lo, hi, skip_titles, thresholds.min_words) - band - exact
+    titles = _title_pairs(conn, w, skip_titles, thresholds.min_words) - band - exact
     counts.title_candidates += len(titles)
     pairs = sorted(band | exact | titles)
     counts.candidates += len(pairs)
@@ -232,31 +256,32 @@ def match_window(conn: Connection, lo: int, hi: int, params: SignatureParams, th
     counts.similar_text += len(verified)
     counts.rejected += len(rest) - len(verified)
     counts.links_written += add_links(conn, rows)
-    return int(conn.execute(sa.select(sa.func.count()).select_from(_keyed(lo, hi))).scalar_one())
+    return int(conn.execute(sa.select(sa.func.count()).select_from(_keyed(w))).scalar_one())
 
 
 def match_pending(engine: Engine, params: SignatureParams, thresholds: Thresholds, *, max_bucket: int,
                   run_id: int | None, progress: Progress = SILENT, window: int = WINDOW) -> MatchCounts:
     counts = MatchCounts()
     with engine.connect() as conn:
-        total = count_unmatched(conn)
+        todo = pq.claim(conn, MATCHED)
+        total = count_unmatched(conn, todo)
     progress.start("matching and verifying", total)
-    while True:
+    lo, top = 0, todo.top
+    while not todo.empty:
         with engine.begin() as conn:
-            lo = get_mark(conn, MATCHED) or 0
-            top = get_mark(conn, SIGNED) or 0
-            keyed = _keyed(lo, top)
+            keyed = _keyed(_Window(lo, top, todo))
             ids = conn.execute(sa.select(keyed.c.id).order_by(keyed.c.id).limit(window)).scalars().all()
             if not ids:
-                if top > lo:
-                    set_mark(conn, MATCHED, top, run_id=run_id, now=now())
                 break
             hi = int(ids[-1]) if len(ids) == window else top
             done = match_window(conn, lo, hi, params, thresholds, max_bucket=max_bucket, run_id=run_id,
-                                counts=counts)
+                                counts=counts, claim=todo)
             counts.matched += done
-            set_mark(conn, MATCHED, hi, run_id=run_id, now=now())
+            pq.advance(conn, todo, hi, run_id=run_id)
+        lo = hi
         progress.advance(done)
+    with engine.begin() as conn:
+        pq.settle(conn, todo, run_id=run_id)
     progress.finish()
     if counts.oversize_buckets:
         log.warning("skipped %d band-key bucket(s) of more than %d documents (largest: %d); see lsh_max_bucket",

@@ -38,6 +38,7 @@ from sqlalchemy.engine import Connection, Engine
 from ...errors import DatabaseError
 from ...progress import SILENT, Progress
 from ...store import clusters as cs
+from ...store import pending as pq
 from ...store import tables as t
 from ...store.registry import now
 from .. import Edge, EventKind, IdState, Reason, Thresholds, assign_ids, cluster, derive_id
@@ -107,9 +108,8 @@ def link_strength(kind: str, detail: Mapping[str, Any] | None, thresholds: Thres
     return strength
 
 
-def links_touching(conn: Connection, members: Sequence[int], *, after: int | None = None,
-                   upto: int | None = None) -> list[Any]:
-    """Links with an end among ``members`` (or, with ``after``/``upto``, links in that id range), with the
+def links_touching(conn: Connection, members: Sequence[int], *, within: pq.Claim | None = None) -> list[Any]:
+    """Links with an end among ``members`` (or, with ``within``, the links of that claim), with the
     outlets of both ends."""
     lk = t.links
     src, dst = t.canonical_urls.alias("src"), t.canonical_urls.alias("dst")
@@ -120,8 +120,8 @@ def links_touching(conn: Connection, members: Sequence[int], *, after: int | Non
                       dst.c.host.label("dst_host"), dst.c.is_article.label("dst_is_article"))
             .select_from(lk.join(src, src.c.id == lk.c.src_id).join(dst, dst.c.id == lk.c.dst_id)))
     rows: dict[int, Any] = {}
-    if after is not None:
-        for r in conn.execute(base.where(lk.c.id > after, lk.c.id <= (upto or 0))):
+    if within is not None:
+        for r in conn.execute(base.where(within.where(lk.c.id))):
             rows[r.id] = r
         return [rows[k] for k in sorted(rows)]
     for part in cs.chunks(sorted(set(members))):
@@ -375,59 +375,45 @@ def cluster_seeds(engine: Engine, level: str, seeds: Iterable[int], thresholds: 
 
 @dataclass(frozen=True)
 class Pending:
-    """What the clustering step has to look at: row-id ranges past the marks, snapshotted at the start."""
+    """What the clustering step has to look at, claimed at the start (``store/pending.py``): new
+    canonical URLs, links and decisions, including any committed late with smaller ids."""
 
-    canonical: tuple[int, int]
-    links: tuple[int, int]
-    decisions: tuple[int, int]
+    canonical: pq.Claim
+    links: pq.Claim
+    decisions: pq.Claim
 
     @property
     def empty(self) -> bool:
-        return all(hi <= lo for lo, hi in (self.canonical, self.links, self.decisions))
+        return self.canonical.empty and self.links.empty and self.decisions.empty
 
 
 def pending_ranges(conn: Connection) -> Pending:
-    def span(mark: str, column: sa.Column) -> tuple[int, int]:
-        lo = cs.get_mark(conn, mark) or 0
-        hi = int(conn.execute(sa.select(sa.func.max(column))).scalar() or 0)
-        return lo, max(lo, hi)
-
-    return Pending(span(CANONICAL, t.canonical_urls.c.id), span(LINKS, t.links.c.id),
-                   span(DECISIONS, t.decisions.c.id))
+    return Pending(pq.claim(conn, CANONICAL), pq.claim(conn, LINKS), pq.claim(conn, DECISIONS))
 
 
 def count_pending_clustering(conn: Connection) -> int:
     p = pending_ranges(conn)
-    c, lk, d = t.canonical_urls, t.links, t.decisions
-
-    def n(table: sa.Table, span: tuple[int, int]) -> int:
-        if span[1] <= span[0]:
-            return 0
-        return int(conn.execute(sa.select(sa.func.count()).select_from(table)
-                                .where(table.c.id > span[0], table.c.id <= span[1])).scalar_one())
-
-    return n(c, p.canonical) + n(lk, p.links) + n(d, p.decisions)
+    return pq.count(conn, p.canonical) + pq.count(conn, p.links) + pq.count(conn, p.decisions)
 
 
 def seeds_of(conn: Connection, pending: Pending) -> tuple[set[int], set[int]]:
-    """(article seeds, extra story seeds) for the pending ranges."""
+    """(article seeds, extra story seeds) for what is pending."""
     c, d = t.canonical_urls, t.decisions
     article: set[int] = set()
     story: set[int] = set()
-    lo, hi = pending.canonical
-    if hi > lo:
-        article.update(int(i) for i in conn.execute(sa.select(c.c.id).where(c.c.id > lo, c.c.id <= hi)).scalars())
-    lo, hi = pending.links
-    if hi > lo:
-        for r in links_touching(conn, [], after=lo, upto=hi):
+    if not pending.canonical.empty:
+        article.update(int(i) for i in conn.execute(sa.select(c.c.id).where(pending.canonical.where(c.c.id)))
+                       .scalars())
+    if not pending.links.empty:
+        for r in links_touching(conn, [], within=pending.links):
             lvl = link_level(r.kind, r.src_outlet, r.dst_outlet)
             if lvl == "article":
                 article.update((r.src_id, r.dst_id))
             elif lvl == "story":
                 story.update((r.src_id, r.dst_id))
-    lo, hi = pending.decisions
-    if hi > lo:
-        for r in conn.execute(sa.select(d.c.level, d.c.a_member, d.c.b_member).where(d.c.id > lo, d.c.id <= hi)):
+    if not pending.decisions.empty:
+        for r in conn.execute(sa.select(d.c.level, d.c.a_member, d.c.b_member)
+                              .where(pending.decisions.where(d.c.id))):
             (article if r.level == "article" else story).update((r.a_member, r.b_member))
     return article, story
 
@@ -437,10 +423,9 @@ def all_canonical_ids(conn: Connection) -> set[int]:
 
 
 def advance_marks(conn: Connection, pending: Pending, *, run_id: int | None) -> None:
-    stamp = now()
-    cs.set_mark(conn, CANONICAL, pending.canonical[1], run_id=run_id, now=stamp)
-    cs.set_mark(conn, LINKS, pending.links[1], run_id=run_id, now=stamp)
-    cs.set_mark(conn, DECISIONS, pending.decisions[1], run_id=run_id, now=stamp)
+    """Record that what ``pending`` claimed is clustered (after the clustering committed)."""
+    for claimed in (pending.canonical, pending.links, pending.decisions):
+        pq.settle(conn, claimed, run_id=run_id)
 
 
 __all__ = ["CANONICAL", "DECISIONS", "LINKS", "ClusterCounts", "Pending", "Region", "advance_marks",

@@ -1,12 +1,15 @@
 """Signing: MinHash signatures and LSH band keys for documents not yet signed, stored in the database.
 
-Pending documents are the documents past the ``dedupe.signed`` mark that take part in finding copies, in
-id order, one transaction per batch; the mark moves in the same transaction, so a killed run resumes at
-the first unsigned batch. They are the usable documents and, for a canonical URL that has no usable
+Pending documents are the documents of the ``dedupe.signed`` claim (``store/pending.py``: past the mark on
+SQLite, the entries committed with the documents on PostgreSQL) that take part in finding copies, in id
+order, one transaction per batch; on SQLite the mark moves in the same transaction, so a killed run
+resumes at the first unsigned batch (on PostgreSQL a rerun skips what is signed already). They are the
+usable documents and, for a canonical URL that has no usable
 document, the short or empty ones (content reasons ``too_short`` and ``empty``: briefs, teasers, pages
 with a headline only), for which the title decides (docs/dedupe.md §6). Only the newest usable document
-of a canonical URL is its current one (docs/content.md), else its newest short one: when a newer one is
-signed, the band and title keys of the older ones are removed (they are derived data; the signatures
+of a canonical URL is its current one (docs/content.md), else its newest short one, looked up in the
+whole table (on PostgreSQL an older document can be committed after a newer one was signed): when a
+newer one is signed, the band and title keys of the older ones are removed (they are derived data; the signatures
 stay), so candidate joins only ever meet current documents.
 
 Title keys (:mod:`linkfold.dedupe.titles`) are written beside the band keys for current documents with a
@@ -30,6 +33,7 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
 from ...progress import SILENT, Progress
+from ...store import pending as pq
 from ...store import tables as t
 from ...store.bulk import insert_rows
 from ...store.clusters import chunks, get_mark, set_mark
@@ -82,10 +86,6 @@ def _takes_part():
     return sa.or_(d.c.status == "usable", sa.and_(d.c.status == "no_text", d.c.unusable_reason.in_(SHORT_REASONS)))
 
 
-def _usable(after: int):
-    return sa.and_(_takes_part(), t.documents.c.id > after)
-
-
 def _with_usable(conn: Connection, canonical_ids: list[int]) -> set[int]:
     """The canonical URLs among ``canonical_ids`` that have a usable document (a short one never
     replaces it)."""
@@ -98,8 +98,7 @@ def _with_usable(conn: Connection, canonical_ids: list[int]) -> set[int]:
 
 
 def count_unsigned(conn: Connection) -> int:
-    after = get_mark(conn, SIGNED) or 0
-    n = int(conn.execute(sa.select(sa.func.count()).select_from(t.documents).where(_usable(after))).scalar_one())
+    n = pq.count(conn, pq.claim(conn, SIGNED), where=_takes_part())
     if get_mark(conn, TITLES) != titles_mark() and conn.execute(sa.select(t.signatures.c.document_id)
                                                                  .limit(1)).first() is not None:
         n += 1   # signed documents without title keys: the next run gives them theirs
@@ -161,10 +160,9 @@ def backfill_title_keys(engine: Engine, *, run_id: int | None, batch_size: int) 
             rows = _title_rows(docs)
             insert_rows(conn, tk, rows)
             written += len(rows)
-        stamp = now()
-        set_mark(conn, TITLES, titles_mark(), run_id=run_id, now=stamp)
+        set_mark(conn, TITLES, titles_mark(), run_id=run_id, now=now())
         if written:
-            set_mark(conn, MATCHED, 0, run_id=run_id, now=stamp)
+            pq.reset(conn, MATCHED, run_id=run_id)
     if written:
         log.info("wrote %d title keys for documents signed before title keys existed; matching them again",
                  written)
@@ -177,25 +175,34 @@ def sign_pending(engine: Engine, params: SignatureParams, *, run_id: int | None,
     d, sg = t.documents, t.signatures
     counts.titled = backfill_title_keys(engine, run_id=run_id, batch_size=batch_size)
     with engine.connect() as conn:
-        total = count_unsigned(conn)
+        todo = pq.claim(conn, SIGNED)
+        total = pq.count(conn, todo, where=_takes_part())
     progress.start("signing documents", total)
     started = time.monotonic()
+    after = 0
     while True:
         with engine.begin() as conn:
-            after = get_mark(conn, SIGNED) or 0
             batch = conn.execute(sa.select(d.c.id, d.c.canonical_id, d.c.text, d.c.title, d.c.published,
                                            d.c.status)
-                                 .where(_usable(after)).order_by(d.c.id).limit(batch_size)).all()
+                                 .where(_takes_part(), d.c.id > after, todo.where(d.c.id))
+                                 .order_by(d.c.id).limit(batch_size)).all()
             if not batch:
                 break
-            # The newest document of a canonical URL in the batch is the one to sign (a short one only
-            # where the URL has no usable document); any older one is already superseded (its id stays
-            # below the mark, so it is not pending again).
+            after = int(batch[-1].id)
+            # The newest document of a canonical URL is the one to sign (a short one only where the URL
+            # has no usable document); any older one is superseded. The newest may be outside the batch:
+            # on PostgreSQL an older document can be committed (and claimed) after a newer one was signed.
             full = _with_usable(conn, sorted({int(r.canonical_id) for r in batch}))
             newest: dict[int, int] = {}
             for r in batch:
                 if r.status == "usable" or int(r.canonical_id) not in full:
                     newest[int(r.canonical_id)] = max(newest.get(int(r.canonical_id), 0), int(r.id))
+            for part in chunks(sorted(newest)):
+                for cid, status, top in conn.execute(
+                        sa.select(d.c.canonical_id, d.c.status, sa.func.max(d.c.id))
+                        .where(d.c.canonical_id.in_(part), _takes_part()).group_by(d.c.canonical_id, d.c.status)):
+                    if status == "usable" or int(cid) not in full:
+                        newest[int(cid)] = max(newest[int(cid)], int(top))
             chosen = [(int(r.id), r.text or "") for r in batch if newest.get(int(r.canonical_id)) == int(r.id)]
             already: set[int] = set()
             for part in chunks([i for i, _ in chosen]):
@@ -218,10 +225,12 @@ def sign_pending(engine: Engine, params: SignatureParams, *, run_id: int | None,
                 counts.empty += len(ids) - len({r["document_id"] for r in rows})
                 counts.signed += len(ids)
             counts.superseded += _supersede(conn, sorted(newest), newest)
-            set_mark(conn, SIGNED, int(batch[-1].id), run_id=run_id, now=now())
+            pq.advance(conn, todo, after, run_id=run_id)
             if get_mark(conn, PARAMS) is None:
                 set_mark(conn, PARAMS, params_mark(params), run_id=run_id, now=now())
         progress.advance(len(batch))
+    with engine.begin() as conn:
+        pq.settle(conn, todo, run_id=run_id)
     progress.finish()
     if counts.signed:
         rate = counts.signed / max(time.monotonic() - started, 1e-9)
@@ -277,7 +286,7 @@ def refresh_signatures(engine: Engine, params: SignatureParams, *, run_id: int |
         progress.advance(len(batch))
     with engine.begin() as conn:
         set_mark(conn, PARAMS, params_mark(params), run_id=run_id, now=now())
-        set_mark(conn, MATCHED, 0, run_id=run_id, now=now())
+        pq.reset(conn, MATCHED, run_id=run_id)
     progress.finish()
     return counts
 
