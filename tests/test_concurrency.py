@@ -287,3 +287,84 @@ def test_claims_join_ranges_and_stay_within_their_limit():
     assert coalesce([(5, 9), (1, 3), (4, 4), (20, 30), (25, 26)]) == ((1, 9), (20, 30))
     assert coalesce([(1, 1), (10, 10), (12, 12), (40, 40)], limit=2) == ((1, 12), (40, 40))
     assert coalesce([]) == ()
+
+
+# --- item 3: an honest run log -----------------------------------------------------------------------------
+def test_a_run_whose_process_was_killed_shows_as_interrupted_everywhere(db_url, tmp_path):
+    """Issue 16, item 3: a process killed outright records no end; its run must not read ``running``
+    forever in ``linkfold runs``, ``linkfold runs show`` or the API, while a live process's run does."""
+    import json
+
+    from linkfold.api.app import create_app
+    from linkfold.jobs.nightly import list_runs, show_run
+    from linkfold.store.tokens import create_token
+    from test_api_support import AsgiClient, settings_for
+
+    script = ("import sys, time\n"
+              "from linkfold.jobs.runlog import start_run\n"
+              "from linkfold.store import make_engine\n"
+              f"e = make_engine({db_url!r})\n"
+              "print(start_run(e, sys.argv[1]), flush=True)\n"
+              "time.sleep(600)\n")
+    killed = subprocess.Popen([sys.executable, "-c", script, "ingest"], stdout=subprocess.PIPE, text=True,
+                              env=_env(db_url))
+    alive = subprocess.Popen([sys.executable, "-c", script, "follow"], stdout=subprocess.PIPE, text=True,
+                             env=_env(db_url))
+    try:
+        assert killed.stdout is not None and alive.stdout is not None
+        dead_id, live_id = int(killed.stdout.readline()), int(alive.stdout.readline())
+        killed.send_signal(signal.SIGKILL)
+        killed.wait(timeout=30)
+        engine = make_engine(db_url)
+        try:
+            with engine.connect() as conn:  # the row itself still says what was recorded
+                assert conn.execute(sa.select(t.runs.c.status).where(t.runs.c.id == dead_id)).scalar_one() == "running"
+            listed = {r["id"]: r for r in list_runs(engine)}
+            assert listed[dead_id]["status"] == "interrupted"
+            assert f"process {killed.pid}" in listed[dead_id]["error"]
+            assert listed[live_id]["status"] == "running"
+            assert show_run(engine, dead_id)["status"] == "interrupted"
+            assert show_run(engine, live_id)["status"] == "running"
+
+            cli = subprocess.run([sys.executable, "-m", "linkfold.cli", "runs", "--format", "jsonl"],
+                                 env=_env(db_url), capture_output=True, text=True, timeout=120)
+            assert cli.returncode == 0, cli.stderr
+            by_id = {r["id"]: r["status"] for r in map(json.loads, cli.stdout.splitlines())}
+            assert by_id[dead_id] == "interrupted" and by_id[live_id] == "running"
+            shown = subprocess.run([sys.executable, "-m", "linkfold.cli", "runs", "show", str(dead_id)],
+                                   env=_env(db_url), capture_output=True, text=True, timeout=120)
+            assert json.loads(shown.stdout)["status"] == "interrupted"
+
+            api = AsgiClient(create_app(settings_for(db_url), engine=engine),
+                             token=create_token(engine, scope="read", note="tests").secret)
+            runs = {r["id"]: r["status"] for r in api.get("/v1/runs").json()["runs"]}
+            assert runs[dead_id] == "interrupted" and runs[live_id] == "running"
+            assert api.get(f"/v1/runs/{dead_id}").json()["status"] == "interrupted"
+        finally:
+            engine.dispose()
+    finally:
+        for p in (killed, alive):
+            if p.poll() is None:
+                p.kill()
+            p.communicate(timeout=30)
+
+
+def test_a_pid_taken_by_a_later_process_is_not_the_runs():
+    """A pid is reused once its process is gone: a live process that started after the run did is not
+    the run's (Linux /proc starttime, proc(5))."""
+    import socket
+    from datetime import UTC, datetime, timedelta
+
+    from linkfold.jobs.runlog import process_gone
+
+    other = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"])
+    try:
+        now = datetime.now(UTC)
+        row = {"status": "running", "host": socket.gethostname(), "pid": other.pid}
+        assert process_gone({**row, "started_at": now - timedelta(hours=1)})
+        assert not process_gone({**row, "started_at": now + timedelta(minutes=1)})
+        assert not process_gone({**row, "host": "elsewhere.test", "started_at": now - timedelta(hours=1)})
+        assert not process_gone({**row, "status": "ok", "started_at": now - timedelta(hours=1)})
+    finally:
+        other.kill()
+        other.wait()

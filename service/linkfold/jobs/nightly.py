@@ -17,8 +17,6 @@ have work of their own); the nightly run is then ``failed``.
 from __future__ import annotations
 
 import logging
-import os
-import socket
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -31,8 +29,8 @@ from sqlalchemy.engine import Engine
 from ..errors import LinkfoldError
 from ..progress import SILENT, Progress
 from ..store import tables as t
-from .lock import acquire_lock, pid_alive
-from .runlog import RunStatus, finish_run, recording_run, start_run
+from .lock import acquire_lock
+from .runlog import RunStatus, finish_run, observed, process_gone, recording_run, start_run
 
 log = logging.getLogger("linkfold")
 
@@ -188,14 +186,13 @@ def mark_interrupted(engine: Engine, *, own_run: int) -> list[int]:
     """Runs a killed job left ``running``: every nightly run (and its children) other than ours — we hold
     the lock, so no other nightly job is alive — and any run of a process on this host that is gone."""
     r = t.runs
-    host = socket.gethostname()
     with engine.connect() as conn:
-        rows = conn.execute(sa.select(r.c.id, r.c.stage, r.c.parent_id, r.c.host, r.c.pid)
-                            .where(r.c.status == RunStatus.RUNNING.value, r.c.id != own_run)).all()
-    nightly = {row.id for row in rows if row.stage == "nightly"}
-    dead = [row.id for row in rows
-            if row.id in nightly or row.parent_id in nightly
-            or (row.host == host and row.pid is not None and row.pid != os.getpid() and not pid_alive(row.pid))]
+        rows = [dict(x) for x in conn.execute(
+            sa.select(r.c.id, r.c.stage, r.c.status, r.c.parent_id, r.c.host, r.c.pid, r.c.started_at)
+            .where(r.c.status == RunStatus.RUNNING.value, r.c.id != own_run)).mappings()]
+    nightly = {row["id"] for row in rows if row["stage"] == "nightly"}
+    dead = [row["id"] for row in rows
+            if row["id"] in nightly or row["parent_id"] in nightly or process_gone(row)]
     for run_id in sorted(dead):
         finish_run(engine, run_id, status=RunStatus.INTERRUPTED,
                    error="interrupted: its process ended without recording an end (found by a later nightly run)")
@@ -287,6 +284,7 @@ def list_runs(engine: Engine, *, limit: int = 20, stage: str | None = None,
     for x in rows:
         x["children"] = children.get(x["id"], 0)
         _times(x)
+        observed(x)
     return rows
 
 
@@ -307,13 +305,14 @@ def show_run(engine: Engine, run_id: int) -> dict[str, Any]:
         row = conn.execute(sa.select(r).where(r.c.id == run_id)).mappings().first()
         if row is None:
             raise NotFound(f"no run {run_id}")
-        out = dict(row)
+        out = observed(dict(row))
         _times(out)
 
         def children_of(pid: int) -> list[dict[str, Any]]:
             kids = [dict(x) for x in conn.execute(sa.select(r).where(r.c.parent_id == pid).order_by(r.c.id)).mappings()]
             for k in kids:
                 _times(k)
+                observed(k)
                 k["children"] = children_of(k["id"])
             return kids
 

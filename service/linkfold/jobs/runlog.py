@@ -3,6 +3,12 @@
 A run is committed as ``running`` the moment it starts (in its own transaction), so that a crash still
 leaves a trace; :func:`finish_run` then records ``ok``, ``failed`` or ``interrupted`` with the counts.
 :func:`recording_run` does both around a block of work.
+
+A process killed outright (``kill -9``, a lost machine) records no end: its row stays ``running``. Every
+reader of the run log passes rows through :func:`observed`, which shows such a run as ``interrupted``
+when its process is gone: the row names its host and pid, and on that host a pid that no longer exists,
+or that now belongs to a process started after the run, is not the run's (as the registry lock checks
+its holder). A run on another host cannot be checked from here and is shown as recorded.
 """
 
 from __future__ import annotations
@@ -70,6 +76,49 @@ def finish_run(bind: Bind, run_id: int, *, status: RunStatus | str,
         counts=dict(counts) if counts is not None else None, error=error))
 
 
+def _process_started(pid: int) -> datetime | None:
+    """When process ``pid`` of this machine started (Linux ``/proc``), or None where that cannot be told."""
+    try:
+        with open(f"/proc/{pid}/stat", encoding="ascii", errors="replace") as fh:
+            stat = fh.read()
+        ticks = int(stat.rsplit(")", 1)[1].split()[19])  # field 22, starttime (proc(5))
+        with open("/proc/stat", encoding="ascii") as fh:
+            boot = next(int(line.split()[1]) for line in fh if line.startswith("btime "))
+        return datetime.fromtimestamp(boot + ticks / os.sysconf("SC_CLK_TCK"), UTC)
+    except (OSError, ValueError, IndexError, StopIteration):
+        return None
+
+
+def process_gone(row: Mapping[str, Any]) -> bool:
+    """Whether a ``running`` run's process has ended without recording an end (checked on its own host
+    only: the pid is gone, or belongs to a process that started after the run did)."""
+    from .lock import pid_alive
+
+    pid, host = row.get("pid"), row.get("host")
+    if row.get("status") != RunStatus.RUNNING.value or pid is None or host != socket.gethostname():
+        return False
+    if pid == os.getpid():
+        return False
+    if not pid_alive(int(pid)):
+        return True
+    started, run_started = _process_started(int(pid)), row.get("started_at")
+    if started is None or run_started is None:
+        return False
+    if run_started.tzinfo is None:
+        run_started = run_started.replace(tzinfo=UTC)
+    # A second of slack: the two clocks are read at different moments (the boot time is whole seconds).
+    return (started - run_started).total_seconds() > 1.0
+
+
+def observed(row: dict[str, Any]) -> dict[str, Any]:
+    """``row`` as the run log shows it: a ``running`` run whose process is gone is ``interrupted``."""
+    if process_gone(row):
+        row["status"] = RunStatus.INTERRUPTED.value
+        row["error"] = row.get("error") or (f"interrupted: process {row['pid']} on {row['host']} ended without "
+                                            "recording an end")
+    return row
+
+
 def get_run(bind: Bind, run_id: int) -> dict[str, Any] | None:
     row = _execute(bind, sa.select(t.runs).where(t.runs.c.id == run_id)).mappings().first()
     return dict(row) if row else None
@@ -111,4 +160,5 @@ def _finish_quietly(engine: Engine, record: RunRecord, status: RunStatus, error:
         log.warning("could not record the end of run %d (%s)", record.id, status.value, exc_info=True)
 
 
-__all__ = ["RunRecord", "RunStatus", "finish_run", "get_run", "recording_run", "start_run"]
+__all__ = ["RunRecord", "RunStatus", "finish_run", "get_run", "observed", "process_gone", "recording_run",
+           "start_run"]
