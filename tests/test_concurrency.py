@@ -368,3 +368,56 @@ def test_a_pid_taken_by_a_later_process_is_not_the_runs():
     finally:
         other.kill()
         other.wait()
+
+
+@pytest.mark.postgres
+def test_loads_an_import_and_a_nightly_run_at_once_equal_running_them_in_turn(pg_server, tmp_path):
+    """Three loads of overlapping dumps, an import of expanded short links whose targets are in the dumps,
+    and a nightly run, all at once on one PostgreSQL registry: every process exits 0, and after one more
+    nightly run the registry holds what running them one after another leaves, every canonical URL with
+    its IDs."""
+    from conftest import PG_ADMIN_URL, _with_database
+    from linkfold.jobs.nightly import run_nightly
+    from linkfold.settings import load_settings
+
+    dumps = [(_dump(tmp_path / f"d{i}.csv", 1500 * i, 3000, seed=i + 1), f"panel-{i}") for i in range(3)]
+    pairs = tmp_path / "pairs.csv"
+    with pairs.open("w") as fh:
+        fh.write("short,expanded\n")
+        for i in range(0, 6000, 7):
+            fh.write(f"https://lnk.test/s{i},https://www.outlet{i % 23}.example/2031/{i % 12 + 1:02d}/story-{i}\n")
+    commands = [_ingest_cmd(path, name) for path, name in dumps]
+    commands.append([sys.executable, "-m", "linkfold.cli", "--quiet", "follow", "--import", str(pairs)])
+    nightly = [sys.executable, "-m", "linkfold.cli", "--quiet", "nightly"]
+
+    def state(url: str) -> dict[str, object]:
+        out = registry_state(url)
+        engine = make_engine(url)
+        try:
+            with engine.connect() as conn:
+                lk, a, b = t.links, t.canonical_urls.alias("a"), t.canonical_urls.alias("b")
+                out["links"] = sorted(conn.execute(sa.select(lk.c.kind, a.c.url_key, b.c.url_key).select_from(
+                    lk.join(a, a.c.id == lk.c.src_id).join(b, b.c.id == lk.c.dst_id))).all())
+        finally:
+            engine.dispose()
+        return out
+
+    serial = _with_database(PG_ADMIN_URL, pg_server.create(template=pg_server.migrated_template()))
+    for cmd in commands:
+        done = subprocess.run(cmd, env=_env(serial), capture_output=True, text=True, timeout=300)
+        assert done.returncode == 0, done.stderr
+
+    url = _with_database(PG_ADMIN_URL, pg_server.create(template=pg_server.migrated_template()))
+    env = _env(url, LINKFOLD_INGEST_BATCH_SIZE="300", LINKFOLD_BATCH_SIZE="200")
+    procs = [subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+             for cmd in [*commands, nightly]]
+    for cmd, p in zip([*commands, nightly], procs, strict=True):
+        _out, err = p.communicate(timeout=600)
+        assert p.returncode == 0, f"{cmd[4:6]}: exit {p.returncode}: {err}"
+    engine = make_engine(url)
+    try:
+        assert run_nightly(engine, settings=load_settings(overrides={"database_url": url}, environ={})).ok
+        assert _without_ids(engine) == {"article": 0, "story": 0}
+    finally:
+        engine.dispose()
+    assert state(url) == state(serial)
