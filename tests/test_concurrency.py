@@ -421,3 +421,76 @@ def test_loads_an_import_and_a_nightly_run_at_once_equal_running_them_in_turn(pg
     finally:
         engine.dispose()
     assert state(url) == state(serial)
+
+
+def _losing(monkeypatch, fail_calls: set[int]) -> list[int]:
+    """Make the ingest writer's transactions numbered in ``fail_calls`` lose as PostgreSQL makes a
+    deadlock's loser lose: after the batch's rows are written, the server raises SQLSTATE 40P01 and the
+    transaction rolls back (a real server error through the real driver, not a Python stand-in)."""
+    from linkfold.store import registry
+
+    calls: list[int] = []
+    original = registry.write_batch
+
+    def write_batch(conn, **kwargs):
+        counts = original(conn, **kwargs)
+        calls.append(len(calls) + 1)
+        if len(calls) in fail_calls or (0 in fail_calls):
+            conn.exec_driver_sql("DO $$ BEGIN RAISE EXCEPTION 'chosen as the loser' "
+                                 "USING ERRCODE = 'deadlock_detected'; END $$")
+        return counts
+
+    monkeypatch.setattr(registry, "write_batch", write_batch)
+    return calls
+
+
+@pytest.mark.postgres
+def test_a_batch_that_loses_a_deadlock_is_written_again_intact(pg_server, pg_url, tmp_path, monkeypatch):
+    """The retry path itself: batch 2 loses twice, batch 3 once; the load completes, and the registry
+    equals a load where nothing was lost (the batch's lists are not left half-resolved by the lost try,
+    and no id learnt in a rolled-back transaction is used)."""
+    from conftest import PG_ADMIN_URL, _with_database
+    from linkfold.ingest import ingest_dump
+
+    path = _dump(tmp_path / "a.csv", 0, 2000, seed=3)
+    monkeypatch.setattr("linkfold.store.conflicts.time.sleep", lambda _s: None)
+    calls = _losing(monkeypatch, {2, 3, 5})
+    engine = make_engine(pg_url)
+    try:
+        summary = ingest_dump(engine, [path], dataset="panel-a", key_column="id", batch_size=300)
+    finally:
+        engine.dispose()
+    assert len(calls) == 7 + 3 and (summary.rows, summary.sightings) == (2000, 2000)
+    monkeypatch.undo()
+    clean = _with_database(PG_ADMIN_URL, pg_server.create(template=pg_server.migrated_template()))
+    engine = make_engine(clean)
+    try:
+        ingest_dump(engine, [path], dataset="panel-a", key_column="id", batch_size=300)
+    finally:
+        engine.dispose()
+    assert registry_state(pg_url) == registry_state(clean)
+
+
+@pytest.mark.postgres
+def test_a_batch_that_keeps_losing_stops_with_exit_11_and_keeps_what_was_committed(pg_url, tmp_path,
+                                                                                    monkeypatch, capsys):
+    from linkfold.cli import main
+
+    path = _dump(tmp_path / "a.csv", 0, 1000, seed=4)
+    monkeypatch.setattr("linkfold.store.conflicts.time.sleep", lambda _s: None)
+    monkeypatch.setenv("LINKFOLD_DATABASE_URL", pg_url)
+    monkeypatch.setenv("LINKFOLD_INGEST_BATCH_SIZE", "300")
+    calls = _losing(monkeypatch, set(range(2, 100)))
+    code = main(["ingest", str(path), "--dataset", "panel-a", "--key-column", "id"])
+    err = capsys.readouterr().err
+    assert code == 11, err
+    assert "deadlock" in err and "5 times" in err and "Traceback" not in err
+    assert len(calls) == 1 + 5
+    engine = make_engine(pg_url)
+    try:
+        with engine.connect() as conn:
+            f = conn.execute(sa.select(t.dataset_files)).mappings().one()
+            stored = conn.execute(sa.select(sa.func.count()).select_from(t.sightings)).scalar_one()
+    finally:
+        engine.dispose()
+    assert (f["status"], f["lines_done"], stored) == ("loading", 301, 300)
