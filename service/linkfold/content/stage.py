@@ -37,6 +37,7 @@ from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import pages as sp
+from ..store.conflicts import retrying
 from ..store.rulesets import latest_ruleset
 from ..store.stats import refresh_statistics
 from ._files import LineProblem, json_objects
@@ -147,6 +148,12 @@ class _PageWriter:
                 found = _canonical(self.canon, u)
                 if isinstance(found, Canonical):
                     urls[u] = found
+        new, rows = retrying(lambda: self._store(batch, urls), what="a batch of imported pages")
+        self.summary.stored += new
+        self.summary.already_stored += len(rows) - new
+
+    def _store(self, batch: Sequence[tuple[Page, str]], urls: dict[str, Canonical]) -> tuple[int, list[Any]]:
+        # One transaction, run again whole if it loses to a concurrent writer.
         with self.engine.begin() as conn:
             ids = ev.register_urls(conn, urls.items(), ruleset_id=self.ruleset_id)
             rows = []
@@ -160,8 +167,7 @@ class _PageWriter:
                                         truncated=False, source=source, fetched_at=page.fetched_at,
                                         run_id=self.run_id))
             new, _ids = sp.store_pages(conn, rows)
-        self.summary.stored += new
-        self.summary.already_stored += len(rows) - new
+        return new, rows
 
 
 def import_pages(engine: Engine, paths: Iterable[str | Path], *, settings: Any = None,
@@ -336,12 +342,16 @@ def load_documents(engine: Engine, path: str | Path, *, settings: Any = None, ba
         def flush() -> None:
             if not batch:
                 return
-            with engine.begin() as conn:
-                ids = ev.register_urls(conn, [(d.url, c) for d, c, _ in batch], ruleset_id=ruleset_id)
-                rows = [_document_row(d, canonical_id=(ids.get(d.url) or ids[storable(d.url)]).canonical_id, page_id=None,
-                                      source=f"load:{path.name}:{line}", run_id=run.id,
-                                      record_sha256=record_hash(d), at=moment) for d, _c, line in batch]
-                new = sp.store_documents(conn, rows)
+            def attempt() -> tuple[int, list[dict[str, Any]]]:
+                # One transaction, run again whole if it loses to a concurrent writer.
+                with engine.begin() as conn:
+                    ids = ev.register_urls(conn, [(d.url, c) for d, c, _ in batch], ruleset_id=ruleset_id)
+                    rows = [_document_row(d, canonical_id=(ids.get(d.url) or ids[storable(d.url)]).canonical_id,
+                                          page_id=None, source=f"load:{path.name}:{line}", run_id=run.id,
+                                          record_sha256=record_hash(d), at=moment) for d, _c, line in batch]
+                    return sp.store_documents(conn, rows), rows
+
+            new, rows = retrying(attempt, what="a batch of documents")
             summary.stored += new
             summary.already_stored += len(rows) - new
             run.counts = summary.counts()

@@ -34,6 +34,7 @@ from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import finals
+from ..store.conflicts import retrying
 from ..store.rulesets import latest_ruleset
 from ..store.stats import refresh_statistics
 
@@ -235,21 +236,29 @@ def _write(engine: Engine, batch: list[tuple[int, str, Canonical, str, Canonical
     if not batch:
         return
     stamp = datetime.now(UTC)
-    with engine.begin() as conn:
-        urls = [(s, cs) for _n, s, cs, _e, _ce in batch] + [(e, ce) for _n, _s, _cs, e, ce in batch]
-        ids = ev.register_urls(conn, urls, ruleset_id=ruleset_id, stamp=stamp)
-        rows = [{"kind": "redirect", "src_id": ids[s].canonical_id, "dst_id": ids[e].canonical_id, "status": None,
-                 "hop": 1, "source": source, "detail": {"line": n}, "run_id": run_id, "created_at": stamp}
-                for n, s, _cs, e, _ce in batch]
-        written = ev.add_links(conn, rows)
-        summary.links += written
-        summary.already_linked += len({(r["src_id"], r["dst_id"]) for r in rows}) - written
-        before = finals.edges_of(conn, [ids[s].canonical_id for _n, s, _cs, _e, _ce in batch])
-        outcomes = [ev.Outcome(canonical_id=ids[s].canonical_id, state="resolved", via="imported", at=stamp,
-                               final_id=ids[e].canonical_id, hops=1, detail=source)
-                    for _n, s, _cs, e, _ce in batch]
-        summary.settled += ev.record_outcomes(conn, outcomes, run_id=run_id, replace="unresolved")
-        finals.refresh_finals(conn, [o.canonical_id for o in outcomes], edges_before=before)
+
+    def attempt() -> tuple[int, int, int]:
+        # One transaction, run again whole if it loses to a concurrent writer: counts are kept only after.
+        with engine.begin() as conn:
+            urls = [(s, cs) for _n, s, cs, _e, _ce in batch] + [(e, ce) for _n, _s, _cs, e, ce in batch]
+            ids = ev.register_urls(conn, urls, ruleset_id=ruleset_id, stamp=stamp)
+            rows = [{"kind": "redirect", "src_id": ids[s].canonical_id, "dst_id": ids[e].canonical_id,
+                     "status": None, "hop": 1, "source": source, "detail": {"line": n}, "run_id": run_id,
+                     "created_at": stamp}
+                    for n, s, _cs, e, _ce in batch]
+            written = ev.add_links(conn, rows)
+            before = finals.edges_of(conn, [ids[s].canonical_id for _n, s, _cs, _e, _ce in batch])
+            outcomes = [ev.Outcome(canonical_id=ids[s].canonical_id, state="resolved", via="imported", at=stamp,
+                                   final_id=ids[e].canonical_id, hops=1, detail=source)
+                        for _n, s, _cs, e, _ce in batch]
+            settled = ev.record_outcomes(conn, outcomes, run_id=run_id, replace="unresolved")
+            finals.refresh_finals(conn, [o.canonical_id for o in outcomes], edges_before=before)
+            return written, len({(r["src_id"], r["dst_id"]) for r in rows}) - written, settled
+
+    written, already, settled = retrying(attempt, what="a batch of imported pairs")
+    summary.links += written
+    summary.already_linked += already
+    summary.settled += settled
 
 
 __all__ = ["FORMATS", "ImportSummary", "Problem", "import_redirects"]
