@@ -442,7 +442,8 @@ id_events = sa.Table(
 )
 
 # Marks of incremental stages: on SQLite the last row id each has taken into account (rows commit in id
-# order there); on PostgreSQL only settings fingerprints (``dedupe.params``): see ``stage_pending``.
+# order there); on both, fingerprints of the settings results were made under (``dedupe.params``, the sink
+# policy). PostgreSQL records pending rows in ``stage_pending`` instead.
 stage_marks = sa.Table(
     "stage_marks", metadata,
     sa.Column("name", sa.String(40), primary_key=True),
