@@ -9,6 +9,7 @@ from collections.abc import Iterator
 from pathlib import Path
 from typing import IO, Any
 
+from .._json import JSON_LIMITS, json_problem
 from ..errors import InputError
 
 _GZIP_MAGIC = b"\x1f\x8b"
@@ -51,6 +52,8 @@ def _parse(raw: bytes) -> dict[str, Any]:
         raise LineProblem("bad_json", f"not UTF-8: {exc.reason} at byte {exc.start}") from None
     except json.JSONDecodeError as exc:
         raise LineProblem("bad_json", f"{exc.msg} at column {exc.colno}") from None
+    except JSON_LIMITS as exc:  # too deep, a number too long: this line's problem, not the file's
+        raise LineProblem("bad_json", json_problem(exc)) from None
     if not isinstance(obj, dict):
         raise LineProblem("not_object", f"a JSON {type(obj).__name__}, not an object")
     return obj

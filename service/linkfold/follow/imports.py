@@ -28,6 +28,7 @@ from typing import Any
 
 from sqlalchemy.engine import Engine
 
+from .._json import JSON_LIMITS, json_problem
 from ..canon import Canonical, Canonicaliser
 from ..errors import DumpFormatError, InputError, InvalidURL, MissingColumnError
 from ..jobs.runlog import recording_run
@@ -104,13 +105,26 @@ def _format_of(path: Path, fmt: str | None) -> str:
                           hint="pass --format csv|tsv|jsonl")
 
 
-def _physical_lines(path: Path) -> Iterator[tuple[int, bytes]]:
+#: A line of a redirect table holds two URLs; a longer one is a problem of its line, read no further.
+MAX_LINE_BYTES = 1 << 20
+
+
+def _physical_lines(path: Path) -> Iterator[tuple[int, bytes | None]]:
+    """(number, line without its end) for each line; ``None`` for a line past ``MAX_LINE_BYTES``, of which
+    no more than that is ever held (a gzip'd line can inflate without end)."""
     try:
         with path.open("rb") as probe:
             gz = probe.read(2) == GZIP_MAGIC
         opener = gzip.open if gz else open
         with opener(path, "rb") as fh:
-            for number, line in enumerate(fh, start=1):
+            number = 0
+            while line := fh.readline(MAX_LINE_BYTES + 1):
+                number += 1
+                if len(line) > MAX_LINE_BYTES and not line.endswith(b"\n"):
+                    while (rest := fh.readline(MAX_LINE_BYTES)) and not rest.endswith(b"\n"):
+                        pass
+                    yield number, None
+                    continue
                 yield number, line.rstrip(b"\r\n")
     except FileNotFoundError:
         raise InputError(f"{path}: no such file") from None
@@ -127,6 +141,9 @@ def _records(path: Path, fmt: str, short_col: str, expanded_col: str,
     delimiter = "\t" if fmt == "tsv" else ","
     for number, raw in _physical_lines(path):
         summary.lines = number
+        if raw is None:
+            summary.add_problem(number, "line_too_long", f"longer than {MAX_LINE_BYTES:,} bytes")
+            continue
         if number == 1 and raw.startswith(b"\xef\xbb\xbf"):
             raw = raw[3:]  # a UTF-8 byte order mark written by spreadsheet programs
         try:
@@ -143,6 +160,9 @@ def _records(path: Path, fmt: str, short_col: str, expanded_col: str,
                 obj = json.loads(text)
             except json.JSONDecodeError as exc:
                 summary.add_problem(number, "bad_json", exc.msg)
+                continue
+            except JSON_LIMITS as exc:  # too deep, a number too long: this line's problem
+                summary.add_problem(number, "bad_json", json_problem(exc))
                 continue
             if not isinstance(obj, dict):
                 summary.add_problem(number, "not_an_object", f"a JSON {type(obj).__name__}, not an object")

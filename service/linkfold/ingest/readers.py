@@ -22,6 +22,7 @@ from dataclasses import dataclass, field
 from operator import itemgetter
 from typing import Any
 
+from .._json import JSON_LIMITS, json_problem, past_a_limit
 from ..errors import DumpFormatError, InputError, MissingColumnError
 from .formats import DumpFormat, PhysicalLine, PhysicalLines
 from .paths import JsonPath, parse_path, resolve
@@ -557,6 +558,7 @@ class _JsonLines(_Format):
         objects = reached = 0
         first_miss: str | None = None
         nonblank = 0
+        unholdable = 0
         held = 0
         for line in self.r._lines:
             self.peeked.append(line)
@@ -566,8 +568,10 @@ class _JsonLines(_Format):
             nonblank += 1
             try:
                 record = json.loads(line.data)
-            except (ValueError, UnicodeDecodeError):
+            except JSON_LIMITS as exc:
                 record = None
+                if past_a_limit(exc):
+                    unholdable += 1  # JSON, most likely, but past a limit: the line's reject, not the file's
             if isinstance(record, dict):
                 objects += 1
                 members.update(dict.fromkeys(record))
@@ -580,7 +584,7 @@ class _JsonLines(_Format):
             if len(self.peeked) >= JSONL_PEEK_LINES or held >= JSONL_PEEK_BYTES:
                 break
         self.r.columns = list(members)
-        if nonblank and not objects:
+        if nonblank and not objects and not unholdable:
             raise DumpFormatError(f"{self.r.name}: none of the first {nonblank} non-blank lines is a JSON "
                                   "object; is this JSON lines?", hint="pass --format to say what it is")
         if objects and not reached:
@@ -609,8 +613,8 @@ class _JsonLines(_Format):
                 break
             try:
                 record = loads(text)
-            except ValueError:
-                break
+            except JSON_LIMITS:
+                break  # read again on its own, which rejects it with the reason
             if type(record) is not dict:
                 break
             got = resolve(url_path, record)
@@ -662,9 +666,8 @@ class _JsonLines(_Format):
             n = line.number
             try:
                 record = json.loads(line.data.decode("utf-8"))
-            except ValueError as exc:
-                yield DumpRow(n, n, reject=RowReject(Reason.BAD_JSON, f"not valid JSON: {exc}",
-                                                     excerpt(line.data)))
+            except JSON_LIMITS as exc:
+                yield DumpRow(n, n, reject=RowReject(Reason.BAD_JSON, json_problem(exc), excerpt(line.data)))
                 continue
             if not isinstance(record, dict):
                 # Parsed, so no excerpt (module doc): its type is all the lab needs to find it.

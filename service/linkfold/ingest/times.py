@@ -71,7 +71,11 @@ def parse_time(value: Any) -> datetime:
     if isinstance(value, bool):
         raise BadTime("a boolean, not a time")
     if isinstance(value, int | float):
-        return _from_epoch(float(value))
+        try:
+            number = float(value)
+        except OverflowError:  # a JSON integer past the float range (json reads up to 4,300 digits)
+            raise BadTime(f"epoch value with {len(str(abs(value)))} digits is out of range") from None
+        return _from_epoch(number)
     if not isinstance(value, str):
         raise BadTime(f"a JSON {type(value).__name__} is not a time")
     if len(value) > 10 and value[4] == "-" and value[-1] == "Z":
