@@ -11,16 +11,27 @@ import gzip
 import hashlib
 import io
 import zlib
+from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, BinaryIO
 
-from ..errors import InputError
+from ..errors import DumpFormatError, InputError
 
 GZIP_MAGIC = b"\x1f\x8b"  # RFC 1952 §2.3.1: ID1 = 31, ID2 = 139
 UTF8_BOM = b"\xef\xbb\xbf"
 DEFAULT_MAX_LINE_BYTES = 1 << 20
 _CHUNK = 1 << 20
+_SNIFF_BYTES = 4096  # of the decompressed start: enough to tell UTF-16 from UTF-8 text
+
+# Byte order marks of the encodings a dump must not be read as UTF-8 in (Unicode §23.8, Table 23-5; the
+# UTF-32 marks first, as UTF-32LE's begins with UTF-16LE's).
+_FOREIGN_BOMS = (
+    (b"\xff\xfe\x00\x00", "UTF-32 (little-endian)"),
+    (b"\x00\x00\xfe\xff", "UTF-32 (big-endian)"),
+    (b"\xff\xfe", "UTF-16 (little-endian)"),
+    (b"\xfe\xff", "UTF-16 (big-endian)"),
+)
 
 
 class DumpFormat(enum.StrEnum):
@@ -76,6 +87,7 @@ class FileFacts:
     size_bytes: int
     gzipped: bool
     lines: int  # newline count of the decompressed text (+1 if the last line has none): the progress total
+    empty: bool = False  # nothing but white space (and a UTF-8 byte order mark) once decompressed
 
 
 def _is_gzip(path: Path) -> bool:
@@ -83,11 +95,72 @@ def _is_gzip(path: Path) -> bool:
         return fh.read(2) == GZIP_MAGIC
 
 
+def foreign_encoding(head: bytes) -> str | None:
+    """The encoding the start of a dump is in when it is plainly not UTF-8 text, else None.
+
+    A byte order mark names UTF-16 or UTF-32. Without one, text in those encodings shows as NUL bytes at
+    every second (or in three of four) positions, as RFC 4627 §3 used to tell them apart: ASCII
+    characters in UTF-16LE are ``X 00``, in UTF-16BE ``00 X``. Other NUL-heavy starts are binary data.
+    A stray NUL here and there is left to the line checks (a reject of that line, not of the file).
+    """
+    for bom, name in _FOREIGN_BOMS:
+        if head.startswith(bom):
+            return f"{name} text (it starts with that byte order mark)"
+    sample = head[:_SNIFF_BYTES]
+    if len(sample) < 2 or sample.count(0) * 4 < len(sample):
+        return None
+    even, odd = sample[0::2], sample[1::2]
+    if odd.count(0) * 10 >= len(odd) * 9 and even.count(0) * 2 < len(even):
+        return "UTF-16 (little-endian) text without a byte order mark (every second byte is NUL)"
+    if even.count(0) * 10 >= len(even) * 9 and odd.count(0) * 2 < len(odd):
+        return "UTF-16 (big-endian) text without a byte order mark (every second byte is NUL)"
+    return "binary data, not text (a quarter or more of its first bytes are NUL)"
+
+
+def _refuse_encoding(path: Path, head: bytes) -> None:
+    found = foreign_encoding(head)
+    if found is not None:
+        raise DumpFormatError(f"{path}:1: the file is {found}; linkfold reads UTF-8 (or ASCII) dumps, "
+                              "nothing was loaded from it",
+                              hint="convert it first, e.g. iconv -f UTF-16 -t UTF-8 FILE > FILE.utf8"
+                              if "UTF-" in found else None)
+
+
+class _Inflater:
+    """A gzip file's members decompressed a bounded piece at a time.
+
+    ``zlib``'s ``decompress(data)`` without a bound returns all the data inflates to at once: a 1 MiB piece
+    of a gzip of zeros is a gigabyte. With ``max_length`` it returns at most that and keeps the rest of
+    the input in ``unconsumed_tail``. Concatenated members (RFC 1952 §2.2) are one file to ``gzip.open``;
+    so they are here.
+    """
+
+    def __init__(self, piece: int = _CHUNK) -> None:
+        self._z = zlib.decompressobj(wbits=16 + zlib.MAX_WBITS)
+        self._piece = piece
+
+    def feed(self, data: bytes) -> Iterator[bytes]:
+        while data:
+            if self._z.eof:
+                self._z = zlib.decompressobj(wbits=16 + zlib.MAX_WBITS)  # the next member
+            z = self._z
+            out = z.decompress(data, self._piece)
+            if out:
+                yield out
+            data = z.unused_data if z.eof else z.unconsumed_tail
+
+    @property
+    def complete(self) -> bool:
+        """Whether the last member read so far ended (False: the stream is truncated)."""
+        return self._z.eof
+
+
 def inspect_file(path: Path) -> FileFacts:
-    """Hash the file and count its lines in one streaming pass.
+    """Hash the file and count its lines in one streaming pass, in bounded memory whatever it inflates to.
 
     The digest has to be known before anything is written (it decides whether the file is new, resumed
-    or already loaded), so this pass cannot be folded into the load itself.
+    or already loaded), so this pass cannot be folded into the load itself. The same pass refuses a file
+    in another encoding than UTF-8 (:func:`foreign_encoding`) and notes one with no content at all.
     """
     try:
         if not path.is_file():
@@ -97,32 +170,37 @@ def inspect_file(path: Path) -> FileFacts:
         size = 0
         lines = 0
         last = b"\n"
-        inflate = zlib.decompressobj(wbits=16 + zlib.MAX_WBITS) if gz else None
+        head = b""  # the first decompressed bytes, for the encoding check
+        blank = True
+        inflate = _Inflater() if gz else None
         with path.open("rb") as fh:
             while chunk := fh.read(_CHUNK):
                 digest.update(chunk)
                 size += len(chunk)
-                text = chunk
-                if inflate is not None:
-                    text = inflate.decompress(chunk)
-                    # Concatenated gzip members (RFC 1952 §2.2) are one file to gzip.open; follow suit.
-                    while inflate.eof and inflate.unused_data:
-                        rest = inflate.unused_data
-                        inflate = zlib.decompressobj(wbits=16 + zlib.MAX_WBITS)
-                        text += inflate.decompress(rest)
-                if text:
+                for text in inflate.feed(chunk) if inflate is not None else (chunk,):
+                    if len(head) < _SNIFF_BYTES:
+                        at = len(head)
+                        head += text[:_SNIFF_BYTES - at]
+                        if len(head) >= _SNIFF_BYTES:
+                            _refuse_encoding(path, head)  # now, not after a large file was read to its end
+                        if at < len(UTF8_BOM) and head.startswith(UTF8_BOM):
+                            text = text[len(UTF8_BOM) - at:]
+                    if blank and text:
+                        blank = text.isspace()
                     lines += text.count(b"\n")
-                    last = text[-1:]
-        if inflate is not None and not inflate.eof:
+                    last = text[-1:] or last
+        if inflate is not None and not inflate.complete:
             raise InputError(f"{path}: the gzip stream is truncated (it ends before its last member "
                              "does); nothing was loaded from it")
+        _refuse_encoding(path, head)
         if last != b"\n":
             lines += 1
     except zlib.error as exc:
         raise InputError(f"{path}: not a readable gzip file ({exc})") from exc
     except OSError as exc:
         raise InputError(f"{path}: cannot read ({exc.strerror or exc})") from exc
-    return FileFacts(path=path, sha256=digest.hexdigest(), size_bytes=size, gzipped=gz, lines=lines)
+    return FileFacts(path=path, sha256=digest.hexdigest(), size_bytes=size, gzipped=gz, lines=lines,
+                     empty=blank)
 
 
 class _HashingFile(io.RawIOBase):
@@ -332,6 +410,7 @@ __all__ = [
     "FileFacts",
     "PhysicalLine",
     "PhysicalLines",
+    "foreign_encoding",
     "guess_format",
     "inspect_file",
     "open_binary",

@@ -119,6 +119,8 @@ def plan_file(path: str | Path, *, fmt: str | DumpFormat | None = None, url_colu
     facts = inspect_file(p)
     options = ReadOptions(fmt=dump_format, url_columns=_columns(url_column), key_column=key_column,
                           time_column=time_column, max_line_bytes=max_line_bytes)
+    if facts.empty:
+        return _Plan(p, facts, options)  # nothing to check: an empty file is one outcome in every format
     with closing(open_binary(p, facts.gzipped)) as stream:
         DumpReader(physical_lines(stream.binary, max_line_bytes), options, name=str(p)).check()
     return _Plan(p, facts, options)
@@ -188,6 +190,16 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
                     else:
                         _check_resume(stored, plan, version, explicit=ruleset is not None)
                         registry.claim_file(conn, stored["id"], run.id)
+                    if plan.facts.empty:
+                        registry.complete_file(conn, stored["id"], lines_done=plan.facts.lines)
+                if plan.facts.empty:
+                    # CSV without a header, JSON lines without a line, an empty gzip, a blank list: one
+                    # outcome, recorded as loaded (a second load says so), with nothing to read.
+                    log.info("%s is empty; nothing to load from it", plan.name)
+                    summary.files.append(FileSummary(plan.name, plan.facts.sha256, FileOutcome.EMPTY,
+                                                     blank_lines=plan.facts.lines, loaded_at=registry.now()))
+                    run.counts = summary.as_dict()
+                    continue
                 file_version = int(stored["ruleset_id"] or version)
                 if file_version not in canonicalisers:
                     file_rules = rules

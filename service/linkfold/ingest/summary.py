@@ -14,6 +14,7 @@ class FileOutcome(enum.StrEnum):
     LOADED = "loaded"  # read from the first line to the last in this run
     RESUMED = "resumed"  # an interrupted load of the same file, completed in this run
     ALREADY_LOADED = "already_loaded"  # loaded completely before: nothing to add
+    EMPTY = "empty"  # nothing but white space once decompressed, in any format: recorded, nothing to read
 
 
 @dataclass
@@ -112,6 +113,9 @@ class IngestSummary:
             if f.outcome is FileOutcome.ALREADY_LOADED:
                 when = f" on {f.loaded_at:%Y-%m-%d %H:%M} UTC" if f.loaded_at else ""
                 out.append(f"  {f.file}: already loaded{when} (sha256 {f.sha256[:12]}…); nothing added")
+                continue
+            if f.outcome is FileOutcome.EMPTY:
+                out.append(f"  {f.file}: empty (no content once decompressed); nothing to load")
                 continue
             how = f"resumed after line {f.resumed_after_line:,}" if f.outcome is FileOutcome.RESUMED \
                 else "loaded"
