@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from fastapi import FastAPI
+from fastapi import Depends, FastAPI
 from fastapi.staticfiles import StaticFiles
 from sqlalchemy.engine import Engine
 
@@ -14,6 +14,7 @@ from ..store import ensure_schema, make_engine
 from . import pages, routes, routes_clusters, routes_network, routes_outlets
 from .errors import API_PREFIX, install_handlers
 from .limits import BodyLimit
+from .screen import SecurityHeaders, no_nul
 from .state import ApiState
 
 STATIC_DIR = Path(__file__).with_name("static")
@@ -38,10 +39,12 @@ def create_app(settings: Settings | None = None, *, engine: Engine | None = None
     ensure_schema(engine)
     # No Swagger or ReDoc pages: they load scripts from the internet, and nothing here may.
     app = FastAPI(title="linkfold", version=__version__, description=DESCRIPTION,
-                  openapi_url=f"{API_PREFIX}/openapi.json", docs_url=None, redoc_url=None)
+                  openapi_url=f"{API_PREFIX}/openapi.json", docs_url=None, redoc_url=None,
+                  dependencies=[Depends(no_nul)])
     app.state.linkfold = ApiState(settings=settings, engine=engine)
     install_handlers(app, render_page=pages.render_error_page)
     app.add_middleware(BodyLimit, limit=settings.api_max_body_bytes)
+    app.add_middleware(SecurityHeaders)
     app.include_router(routes.router, prefix=API_PREFIX)
     app.include_router(routes_clusters.router, prefix=API_PREFIX)
     app.include_router(routes_outlets.router, prefix=API_PREFIX)

@@ -131,6 +131,11 @@ def install_handlers(app: FastAPI, *, render_page: PageRenderer | None = None) -
 
     @app.exception_handler(RequestValidationError)
     async def _invalid(request: Request, exc: RequestValidationError) -> Response:
+        # A body that is not JSON at all is malformed syntax, 400 (RFC 9110 §15.5.1); JSON of the wrong
+        # shape is content the server cannot process, 422 (§15.5.21).
+        if any(err.get("type") == "json_invalid" for err in exc.errors()):
+            return _respond(request, 400, "invalid_request", "the body is not valid JSON: "
+                            + _validation_message(exc))
         return _respond(request, 422, "invalid_request", _validation_message(exc))
 
     @app.exception_handler(StarletteHTTPException)

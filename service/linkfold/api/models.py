@@ -246,8 +246,9 @@ class DecisionRequest(BaseModel):
     verdict: str = Field(pattern="^(same|different)$", description="same | different")
     a: str = Field(min_length=1, max_length=8192, description="A URL, url key, or article or story ID")
     b: str = Field(min_length=1, max_length=8192, description="A URL, url key, or article or story ID")
-    decided_by: str = Field(min_length=1, max_length=200, description="Who decided")
-    note: str | None = Field(default=None, max_length=2000)
+    # No NUL: PostgreSQL text cannot hold it (the pattern makes it a 422 rather than a 500).
+    decided_by: str = Field(min_length=1, max_length=200, pattern="^[^\x00]*$", description="Who decided")
+    note: str | None = Field(default=None, max_length=2000, pattern="^[^\x00]*$")
     level: str | None = Field(default=None, pattern="^(article|story)$",
                               description="article | story; default: what follows from a and b")
 

@@ -12,7 +12,7 @@ from pathlib import Path
 from typing import Annotated, Any
 from urllib.parse import quote
 
-from fastapi import APIRouter, Form, Query, Request
+from fastapi import APIRouter, Depends, Form, Query, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from fastapi.templating import Jinja2Templates
 
@@ -26,6 +26,7 @@ from ..store.pages import current_document
 from ..store.tokens import TokenState, check_token
 from . import charts, network_svg
 from .auth import COOKIE_NAME, may_write, read_access, write_access
+from .screen import refuse_nul, same_origin
 from .textdiff import side_by_side
 
 TEMPLATES = Jinja2Templates(directory=str(Path(__file__).with_name("templates")))
@@ -81,9 +82,14 @@ def lookup_page(request: Request, q: Annotated[str, Query(max_length=8192)] = ""
     return render(request, "lookup.html", {"q": q, "answer": answer})
 
 
+# Every form post of the pages is checked for its origin before anything else (see screen.same_origin).
+SameOrigin = Annotated[None, Depends(same_origin)]
+
+
 @router.post("/session")
-def start_session(request: Request, token: Annotated[str, Form(max_length=200)],
+def start_session(request: Request, _origin: SameOrigin, token: Annotated[str, Form(max_length=200)],
                   next: Annotated[str, Form(max_length=2000)] = "/") -> Response:
+    refuse_nul(token=token, next=next)
     state = request.app.state.linkfold
     check = check_token(state.engine, token.strip())
     if check.state is not TokenState.VALID:
@@ -100,7 +106,7 @@ def start_session(request: Request, token: Annotated[str, Form(max_length=200)],
 
 
 @router.post("/session/end")
-def end_session() -> Response:
+def end_session(_origin: SameOrigin) -> Response:
     response = RedirectResponse("/", status_code=303)
     response.delete_cookie(COOKIE_NAME, path="/", httponly=True, samesite="strict")
     return response
@@ -152,12 +158,13 @@ def cluster_page(request: Request, cluster_id: str,
 
 
 @router.post("/clusters/{cluster_id}/decide")
-def decide_page(request: Request, cluster_id: str,
+def decide_page(request: Request, _origin: SameOrigin, cluster_id: str,
                 verdict: Annotated[str, Form(pattern="^(same|different)$")],
                 member: Annotated[str, Form(min_length=1, max_length=64)],
                 by: Annotated[str, Form(max_length=200)] = "",
                 note: Annotated[str, Form(max_length=2000)] = "") -> Response:
     write_access(request)
+    refuse_nul(member=member, by=by, note=note)
     engine = request.app.state.linkfold.engine
     res = resolve_cluster_id(engine, cluster_id)
     if not by.strip():

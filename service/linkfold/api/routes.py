@@ -35,7 +35,10 @@ router = APIRouter()
 
 NDJSON = "application/x-ndjson"
 ReadAccess = Annotated[Access, Depends(read_access)]
-READ_ERRORS = error_responses(401, 403, 422, 503)
+# 400: a NUL character in the query (api.screen.no_nul, on every route; in the path it is a 404). The
+# text parameters also say so in the document (NO_NUL), so a schema-valid request is never refused for it.
+NO_NUL = "^[^\\x00]*$"
+READ_ERRORS = error_responses(400, 401, 403, 422, 503)
 
 
 def api_state(request: Request) -> ApiState:
@@ -54,7 +57,7 @@ def json_line(obj: Any) -> bytes:
 
 @router.get("/health", response_model=Health, tags=["service"],
             summary="Whether the server can reach the registry (no token needed)",
-            responses=error_responses(503))
+            responses=error_responses(400, 503))
 def health(request: Request) -> dict[str, Any]:
     state = api_state(request)
     return {"status": "ok", "schema_revision": current_revision(state.engine), "version": __version__,
@@ -64,7 +67,7 @@ def health(request: Request) -> dict[str, Any]:
 @router.get("/lookup", response_model=LookupAnswer, tags=["lookup"],
             summary="Look up one URL, url key or ID", responses=READ_ERRORS)
 def lookup_one(request: Request, _access: ReadAccess,
-               q: Annotated[str, Query(min_length=1, max_length=8192,
+               q: Annotated[str, Query(min_length=1, max_length=8192, pattern=NO_NUL,
                                        description="A URL, a url key, or an article or story ID")]
                ) -> dict[str, Any]:
     state = api_state(request)
@@ -169,7 +172,8 @@ def dataset(request: Request, _access: ReadAccess,
             responses=READ_ERRORS)
 def runs(request: Request, _access: ReadAccess,
          limit: Annotated[int, Query(ge=1, le=1000)] = 20,
-         stage: Annotated[str | None, Query(min_length=1, max_length=40)] = None) -> dict[str, Any]:
+         stage: Annotated[str | None, Query(min_length=1, max_length=40, pattern=NO_NUL)] = None
+         ) -> dict[str, Any]:
     return {"runs": list_runs(api_state(request).engine, limit=limit, stage=stage)}
 
 

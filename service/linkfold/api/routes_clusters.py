@@ -24,7 +24,8 @@ from ..store.clusters import Resolution
 from .auth import Access, read_access, write_access
 from .errors import error_responses
 from .models import ClusterDetailOut, ClusterList, DecisionCreated, DecisionList, DecisionRequest, IdHistory
-from .routes import READ_ERRORS, api_state
+from .routes import NO_NUL, READ_ERRORS, api_state
+from .screen import json_media
 
 router = APIRouter()
 
@@ -60,7 +61,7 @@ def cluster_answer(request: Request, cluster_id: str, level: str) -> dict[str, A
 def clusters(request: Request, _access: ReadAccess,
              level: Literal["article", "story"] = "article",
              min_size: Annotated[int, Query(ge=1, le=1_000_000)] = 2,
-             outlet: Annotated[str | None, Query(min_length=1, max_length=255)] = None,
+             outlet: Annotated[str | None, Query(min_length=1, max_length=255, pattern=NO_NUL)] = None,
              limit: Annotated[int, Query(ge=1, le=MAX_LIST)] = 100) -> dict[str, Any]:
     state = api_state(request)
     rows = list_clusters(state.engine, level=level, min_size=min_size, outlet=outlet, limit=limit,
@@ -99,8 +100,9 @@ def decisions(request: Request, _access: ReadAccess,
 
 @router.post("/decisions", response_model=DecisionCreated, status_code=201, tags=["decisions"],
              summary="Record that two URLs, keys or IDs are the same, or are not (needs a write token)",
-             responses=error_responses(400, 401, 403, 404, 413, 422, 503))
-def decide(request: Request, body: DecisionRequest, access: WriteAccess) -> JSONResponse:
+             responses=error_responses(400, 401, 403, 404, 413, 415, 422, 503))
+def decide(request: Request, body: DecisionRequest, access: WriteAccess,
+           _media: Annotated[None, Depends(json_media)]) -> JSONResponse:
     result = record_decision(api_state(request).engine, body.verdict, body.a, body.b,
                              decided_by=body.decided_by, note=body.note, level=body.level)
     d = result.decision
