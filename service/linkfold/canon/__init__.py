@@ -7,6 +7,7 @@ format are documented in docs/canonical-form.md.
 
 from __future__ import annotations
 
+from ._parse import whatwg_href
 from ._version import CANON_VERSION, PSL_VERSION
 from .core import MAX_URL_LENGTH, Canonical, Canonicaliser, canonicalize
 from .hosts import registered_domain
@@ -30,4 +31,5 @@ __all__ = [
     "registered_domain",
     "resolve_reference",
     "url_key",
+    "whatwg_href",
 ]

@@ -130,6 +130,14 @@ def parse_with_ada(text: str) -> Parts | None:
                  fragment, host_type)
 
 
+def whatwg_href(text: str) -> str | None:
+    """``text`` serialised as the WHATWG URL parser reads it (what a browser would request), or None when it
+    refuses it: hosts in odd IPv4 spellings (``2130706433``, ``0x7f.1``, ``%31%32%37.0.0.1``) come out as
+    the dotted address they stand for, so the request-forgery guard sees the address a socket would use."""
+    parts = parse(text)
+    return parts.href if parts is not None else None
+
+
 def ascii_host(text: str) -> str | None:
     """A host name as the WHATWG host parser writes it (lower case, IDNA to ASCII), or None."""
     if not text or any(ch in text for ch in "/?#@:[]\\ ") or any(ord(ch) < 0x21 for ch in text):

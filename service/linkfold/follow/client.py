@@ -38,6 +38,7 @@ import httpcore
 import httpx
 
 from .. import __version__
+from ..canon import whatwg_href
 from ..errors import ConfigError
 from .guard import (
     AddressGuard,
@@ -446,8 +447,14 @@ class SafeClient:
     # -- requests --
     async def _once(self, method: str, url: str, *, read_body: bool, max_bytes: int,
                     truncate: bool) -> Reply:
+        # The URL as the WHATWG parser reads it, as a browser would request it: httpx reads "2130706433" or
+        # "%31%32%37.0.0.1" as a host name and would hand it to the resolver; our parser makes it the
+        # address it stands for, which the guard then checks without asking any resolver.
+        whatwg = whatwg_href(url)
+        if whatwg is None:
+            raise FetchError(Failure.BAD_URL, "not a URL the WHATWG URL parser accepts", url=url)
         try:
-            host = httpx.URL(url).host.lower()
+            host = httpx.URL(whatwg).host.lower()
         except httpx.InvalidURL as exc:
             raise FetchError(Failure.BAD_URL, str(exc), url=url) from None
         if not host:
@@ -455,7 +462,7 @@ class SafeClient:
         async with self._slot(host):
             try:
                 async with asyncio.timeout(self.config.timeout):
-                    request = httpx.Request(method, url, headers=self._headers,
+                    request = httpx.Request(method, whatwg, headers=self._headers,
                                             extensions={"timeout": self._timeouts})
                     response = await self._transport.handle_async_request(request)
                     response.request = request

@@ -14,9 +14,13 @@ Blocked by default (``ipaddress`` flags, plus what they miss):
   ``is_private`` does not flag;
 * anything else that ``ipaddress`` does not call globally reachable (documentation ranges, benchmarking
   ranges …: the IANA special-purpose registries, RFC 6890);
-* IPv6 forms that carry an IPv4 address (IPv4-mapped ``::ffff:a.b.c.d``, 6to4 ``2002::/16``, NAT64
-  ``64:ff9b::/96`` and Teredo): the embedded IPv4 address is checked as well, because a router or the
-  kernel may deliver such a packet to it.
+* every other block of the IANA special-purpose registries, including those the registry marks globally
+  reachable (protocol anycast addresses: no news site lives there), from a table of our own;
+* IPv6 forms that carry an IPv4 address (IPv4-mapped ``::ffff:a.b.c.d``, IPv4-compatible ``::a.b.c.d``,
+  6to4 ``2002::/16``, NAT64 ``64:ff9b::/96`` and Teredo): the embedded IPv4 address is checked as well,
+  because a router or the kernel may deliver such a packet to it. The mapped, 6to4 and NAT64 forms of a
+  public IPv4 address are allowed (that address is where they go; a DNS64 network answers NAT64 addresses
+  for every IPv4-only site); the IPv4-compatible form and Teredo are refused whatever they carry.
 
 A name whose answer holds *any* blocked address is refused as a whole, even if another address is
 public: a mixed answer is exactly what a rebinding attacker serves, and there is no honest reason for a
@@ -48,6 +52,37 @@ _EXTRA_BLOCKED: tuple[tuple[IPNetwork, str], ...] = (
     (ipaddress.ip_network("100.64.0.0/10"), "shared"),  # RFC 6598 carrier-grade NAT
 )
 _NAT64 = ipaddress.ip_network("64:ff9b::/96")  # RFC 6052 well-known prefix
+_MAPPED = ipaddress.ip_network("::ffff:0:0/96")  # RFC 4291 §2.5.5.2 IPv4-mapped
+_SIX_TO_FOUR = ipaddress.ip_network("2002::/16")  # RFC 3056
+_COMPATIBLE = ipaddress.ip_network("::/96")  # RFC 4291 §2.5.5.1 IPv4-compatible (deprecated)
+
+# Forms whose packets go to the embedded IPv4 address: with a public one inside, they are that public
+# address (a DNS64 network answers 64:ff9b::a.b.c.d for every IPv4-only site), so they are judged by it.
+_JUDGED_BY_EMBEDDED = (_MAPPED, _NAT64, _SIX_TO_FOUR)
+
+# Every block of the IANA IPv4 and IPv6 Special-Purpose Address Registries (RFC 6890 and its updates) is
+# refused, whether or not the registry calls it globally reachable: no news site is served from a
+# protocol's anycast address (PCP, TURN, AS112, AMT, DNS-SD) or an ORCHID or drone-ID tag, so an answer
+# naming one is a misconfiguration or an attack. The ``ipaddress`` flags cover most of these, but depend
+# on the Python release (3.11.7 calls 192.0.0.128, 3fff::1 and the AS112 blocks global); this table does
+# not. tests/cases/special_purpose_addresses.tsv lists every entry with its RFC.
+_SPECIAL_PURPOSE: tuple[tuple[IPNetwork, str], ...] = tuple((ipaddress.ip_network(net), name) for net, name in (
+    ("192.0.0.0/24", "IETF protocol assignments, RFC 6890"),
+    ("192.31.196.0/24", "AS112-v4, RFC 7535"),
+    ("192.52.193.0/24", "AMT, RFC 7450"),
+    ("192.88.99.0/24", "6to4 relay anycast (deprecated), RFC 7526"),
+    ("192.175.48.0/24", "AS112 direct delegation, RFC 7534"),
+    ("198.18.0.0/15", "benchmarking, RFC 2544"),
+    ("240.0.0.0/4", "reserved, RFC 1112"),
+    ("64:ff9b:1::/48", "IPv4-IPv6 translation for local use, RFC 8215"),
+    ("100::/64", "discard-only, RFC 6666"),
+    ("100:0:0:1::/64", "dummy prefix, RFC 9780"),
+    ("2001::/23", "IETF protocol assignments, RFC 2928"),
+    ("2001:db8::/32", "documentation, RFC 3849"),
+    ("2620:4f:8000::/48", "AS112 direct delegation, RFC 7534"),
+    ("3fff::/20", "documentation, RFC 9637"),
+    ("5f00::/16", "SRv6 SIDs, RFC 9602"),
+))
 
 
 class AddressRefused(Exception):
@@ -97,7 +132,7 @@ def _embedded_ipv4(addr: IPAddress) -> ipaddress.IPv4Address | None:
         return addr.sixtofour
     if addr.teredo is not None:
         return addr.teredo[1]  # (server, client): the client is where packets end up
-    if addr in _NAT64:
+    if addr in _NAT64 or (addr in _COMPATIBLE and int(addr) > 1):  # ::ffff… done above; :: and ::1 are not
         return ipaddress.IPv4Address(int(addr) & 0xFFFFFFFF)
     return None
 
@@ -109,6 +144,10 @@ def blocked_reason(addr: IPAddress) -> str | None:
         why = blocked_reason(inner)
         if why is not None:
             return f"{why} (embedded in {addr})"
+        if any(addr in net for net in _JUDGED_BY_EMBEDDED):
+            return None
+        if addr in _COMPATIBLE:
+            return f"IPv4-compatible (deprecated, RFC 4291 §2.5.5.1; embeds {inner})"
     # Order matters only for the message: the most specific name first.
     for flag in ("is_loopback", "is_link_local", "is_multicast", "is_unspecified", "is_private",
                  "is_reserved"):
@@ -117,6 +156,9 @@ def blocked_reason(addr: IPAddress) -> str | None:
     for network, name in _EXTRA_BLOCKED:
         if addr.version == network.version and addr in network:
             return name
+    for network, name in _SPECIAL_PURPOSE:
+        if addr.version == network.version and addr in network:
+            return f"special-purpose ({name})"
     if inner is None and not addr.is_global:
         return "not-global"
     return None

@@ -29,6 +29,8 @@ _GUARD_KINDS = {
     "this-network": "a 'this network' address (0.0.0.0/8, RFC 791)",
     "shared": "a shared address (100.64.0.0/10, RFC 6598)",
     "not-global": "an address that is not globally reachable (IANA special-purpose registries)",
+    "special-purpose": "an address of an IANA special-purpose block (RFC 6890), globally reachable or not",
+    "IPv4-compatible": "an IPv4-compatible IPv6 address (::a.b.c.d, deprecated by RFC 4291)",
     "not_an_address": "not a network address",
 }
 ALLOW_HINT = ("the request-forgery guard refuses it; to allow a network, set allow_networks "
