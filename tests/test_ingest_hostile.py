@@ -273,3 +273,24 @@ def test_documents_past_the_json_limits_are_problems_of_their_lines(tmp_path):
     problems = [(p.line, p.reason, p.detail) for p in out if not hasattr(p, "status")]
     assert [(n, r) for n, r, _ in problems] == [(2, "bad_json"), (3, "bad_json")]
     assert "nested deeper" in problems[0][2] and "digits" in problems[1][2]
+
+
+# --- through the command line ----------------------------------------------------------------------------
+def test_the_cli_names_the_encoding_file_and_line_and_loads_empty_files_alike(db_url, tmp_path, capsys):
+    from linkfold.cli import main
+    from linkfold.errors import DumpFormatError as Refused
+
+    utf16 = tmp_path / "export.csv"
+    utf16.write_bytes(("\ufeff" + CSV_TEXT).encode("utf-16-le"))
+    assert main(["--db", db_url, "ingest", str(utf16), "--dataset", "panel"]) == Refused.exit_code
+    err = capsys.readouterr().err
+    assert f"{utf16}:1: the file is UTF-16 (little-endian) text" in err and "iconv" in err
+    empty_csv, empty_gz = tmp_path / "none.csv", tmp_path / "none.jsonl.gz"
+    empty_csv.write_bytes(b"")
+    empty_gz.write_bytes(gzip.compress(b""))
+    assert main(["--db", db_url, "ingest", str(empty_csv), str(empty_gz), "--dataset", "panel",
+                 "--summary", "json"]) == 0
+    captured = capsys.readouterr()
+    summary = json.loads(captured.out)
+    assert [f["outcome"] for f in summary["files"]] == ["empty", "empty"]
+    assert "none.csv: empty (no content once decompressed)" in captured.err
