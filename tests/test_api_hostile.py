@@ -96,6 +96,9 @@ def test_pages_send_headers_that_keep_script_and_framing_out(api):
     assert "script-src 'none'" in csp and "frame-ancestors 'none'" in csp and "form-action 'self'" in csp
     assert r.headers["x-content-type-options"] == "nosniff"
     assert api["web"].get("/v1/health", token=False).headers["x-content-type-options"] == "nosniff"
+    svg = api["web"].get("/charts/cluster-sizes.svg", headers={"Cookie": f"linkfold_token={api['read']}"},
+                         token=False)
+    assert svg.status_code == 200 and "script-src 'none'" in svg.headers["content-security-policy"]
 
 
 NUL_REQUESTS = [
