@@ -294,3 +294,36 @@ def test_the_cli_names_the_encoding_file_and_line_and_loads_empty_files_alike(db
     summary = json.loads(captured.out)
     assert [f["outcome"] for f in summary["files"]] == ["empty", "empty"]
     assert "none.csv: empty (no content once decompressed)" in captured.err
+
+
+def test_the_line_reader_never_holds_more_than_a_piece_and_the_line_limit(tmp_path):
+    # The reading side on its own: whatever a gzip'd line inflates to, no read returns more than a piece
+    # plus the line limit (formats.PhysicalLines' documented bound).
+    from linkfold.ingest.formats import open_binary, physical_lines
+
+    path = tmp_path / "long.txt.gz"
+    path.write_bytes(gzip.compress(b"x" * (64 << 20) + b"\nhttps://a.example/\n" + b"y" * (3 << 20)))
+    stream = open_binary(path, gzipped=True)
+    largest = 0
+    real_read, real_readline = stream.binary.read, stream.binary.readline
+
+    def read(n=-1):
+        nonlocal largest
+        data = real_read(n)
+        largest = max(largest, len(data))
+        return data
+
+    def readline(n=-1):
+        nonlocal largest
+        data = real_readline(n)
+        largest = max(largest, len(data))
+        return data
+
+    stream.binary.read, stream.binary.readline = read, readline  # type: ignore[method-assign]
+    try:
+        lines = list(physical_lines(stream.binary, 1 << 20, chunk_bytes=1 << 20))
+    finally:
+        stream.close()
+    assert [(line.number, line.too_long) for line in lines] == [(1, True), (2, False), (3, True)]
+    assert lines[1].data == b"https://a.example/"
+    assert largest <= (1 << 20) + (1 << 20) + 1
