@@ -296,6 +296,22 @@ def test_the_cli_names_the_encoding_file_and_line_and_loads_empty_files_alike(db
     assert "none.csv: empty (no content once decompressed)" in captured.err
 
 
+def test_gzip_members_and_zero_padding_read_as_gzip_open_reads_them(tmp_path):
+    # RFC 1952 §2.2: a gzip file is a series of members; gzip.open (the reference here) also skips zero
+    # bytes after a member. The pre-pass must count the same lines the reader then reads.
+    first, second = b"url\nhttps://a.example/1\n", b"https://a.example/2\n"
+    path = tmp_path / "members.txt.gz"
+    path.write_bytes(gzip.compress(first) + b"\x00" * 8 + gzip.compress(second) + b"\x00" * ((1 << 20) + 5))
+    with gzip.open(path) as fh:
+        assert fh.read() == first + second
+    facts = inspect_file(path)
+    assert (facts.lines, facts.empty, facts.gzipped) == (3, False, True)
+    truncated = tmp_path / "cut.txt.gz"
+    truncated.write_bytes(gzip.compress(first)[:-6])
+    with pytest.raises(Exception, match="truncated"):
+        inspect_file(truncated)
+
+
 def test_the_line_reader_never_holds_more_than_a_piece_and_the_line_limit(tmp_path):
     # The reading side on its own: whatever a gzip'd line inflates to, no read returns more than a piece
     # plus the line limit (formats.PhysicalLines' documented bound).

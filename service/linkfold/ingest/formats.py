@@ -142,6 +142,10 @@ class _Inflater:
     def feed(self, data: bytes) -> Iterator[bytes]:
         while data:
             if self._z.eof:
+                # Zero bytes after a member are padding, as gzip.open reads them (its _read_eof).
+                data = data.lstrip(b"\x00")
+                if not data:
+                    return
                 self._z = zlib.decompressobj(wbits=16 + zlib.MAX_WBITS)  # the next member
             z = self._z
             out = z.decompress(data, self._piece)
