@@ -215,5 +215,5 @@ def test_every_form_is_refused_end_to_end_with_the_reason_shown(db_url, tmp_path
     assert server.seen == [] and asked == []
     assert "refused:  14 (refused 14)" in err, err
     # One line a reason, with the count and what would allow it (follow.report.explain_refusal).
-    assert re.search(r"^\s+12  a loopback address \(127\.0\.0\.0/8, ::1\): the request-forgery guard", err, re.M), err
-    assert re.search(r"^\s+2  the unspecified address", err, re.M), err
+    assert re.search(r"^\s+13  a loopback address \(127\.0\.0\.0/8, ::1\): the request-forgery guard", err, re.M), err
+    assert re.search(r"^\s+1  the unspecified address", err, re.M), err

@@ -27,7 +27,6 @@ from linkfold.ingest import FileOutcome, ingest_dump
 from linkfold.ingest import load as load_module
 from linkfold.ingest.formats import foreign_encoding, inspect_file
 from linkfold.ingest.readers import _JsonLines
-from linkfold.ingest.rows import shown
 from linkfold.store import tables as t
 from test_ingest_load import counts, rejects
 
@@ -128,16 +127,6 @@ def test_values_that_cannot_be_written_back_become_rejects(engine, tmp_path):
     assert (summary.rows, summary.sightings) == (4, 3)
     assert rejects(engine) == [(1, -1, "bad_key"), (2, -2, "bad_time"), (3, 0, "not_text"), (4, -2, "bad_time")]
     assert "out of range" in _reject_details(engine)[2][1]
-
-
-def test_shown_never_fails_on_a_value_deeper_than_the_encoder_can_go():
-    value: list = []
-    for _ in range(sys.getrecursionlimit() + 100):  # built without recursion; json.dumps would recurse
-        value = [value]
-    with pytest.raises(RecursionError):
-        json.dumps(value)
-    assert shown(value) == "(a JSON list nested too deep to show)"
-    assert shown({"a": [1, 2]}) == '{"a": [1, 2]}'
 
 
 # --- encodings -------------------------------------------------------------------------------------------
