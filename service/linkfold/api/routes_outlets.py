@@ -16,7 +16,7 @@ from ..outlets import outlet_report, outlet_table
 from ..outlets.report import DEFAULT_SHAPES
 from .auth import Access, read_access
 from .errors import error_responses
-from .routes import READ_ERRORS, api_state
+from .routes import NO_NUL, READ_ERRORS, api_state
 
 router = APIRouter()
 ReadAccess = Annotated[Access, Depends(read_access)]
@@ -80,9 +80,10 @@ class OutletReportOut(BaseModel):
 
 # One value each (the CLI takes several): a query parameter that repeats is an array in the OpenAPI
 # document, and any text is a valid item of it, so no request could be refused as the document promises.
-DatasetParam = Annotated[str | None, Query(min_length=1, max_length=200, description="Only this dataset "
-                                                                                       "(default: all)")]
-OutletParam = Annotated[str | None, Query(min_length=1, max_length=255, description="Only this outlet")]
+DatasetParam = Annotated[str | None, Query(min_length=1, max_length=200, pattern=NO_NUL,
+                                           description="Only this dataset (default: all)")]
+OutletParam = Annotated[str | None, Query(min_length=1, max_length=255, pattern=NO_NUL,
+                                          description="Only this outlet")]
 
 
 @router.get("/outlets", response_model=OutletList, tags=["outlets"],
