@@ -25,7 +25,9 @@ from .errors import API_PREFIX, ApiError
 
 log = logging.getLogger("linkfold")
 
-PAGE_POLICY = ("default-src 'none'; style-src 'self'; img-src 'self'; form-action 'self'; "
+# Inline style is allowed: the network page draws its SVG into the page with a <style> element of its own
+# (every label escaped, api/network_svg.py); style cannot run anything, script-src 'none' is what counts.
+PAGE_POLICY = ("default-src 'none'; style-src 'self' 'unsafe-inline'; img-src 'self'; form-action 'self'; "
                "frame-ancestors 'none'; base-uri 'none'; script-src 'none'")
 # The charts are SVG documents with their own <style> element (every label in them is escaped, api/charts.py):
 # opened on their own they keep it; nothing else is allowed.
