@@ -16,9 +16,10 @@ import sqlalchemy as sa
 from linkfold.store import bulk, registry
 from linkfold.store import tables as t
 
-ROWS = [(1, 2, 3, 0, "v1", datetime(2031, 5, 4, 8, 0, tzinfo=UTC), 7),
-        (1, 2, 4, 1, "ключ é \u2028", None, 2_000_000_000),  # non-ASCII text, NULL time, a large int4
-        (1, 2, 9_000_000_000, 0, "", datetime(1999, 12, 31, 23, 59, 59, 999999, tzinfo=UTC), 1)]  # int8 line
+# The last field is the unit's pseudonym (text) or NULL.
+ROWS = [(1, 2, 3, 0, "v1", datetime(2031, 5, 4, 8, 0, tzinfo=UTC), 7, "hs256:" + "a" * 52),
+        (1, 2, 4, 1, "ключ é \u2028", None, 2_000_000_000, None),  # non-ASCII text, NULL time, a large int4
+        (1, 2, 9_000_000_000, 0, "", datetime(1999, 12, 31, 23, 59, 59, 999999, tzinfo=UTC), 1, "u")]  # int8
 
 
 def _count_encoded_rows(monkeypatch) -> list[int]:
@@ -47,10 +48,11 @@ def test_a_row_is_a_field_count_then_length_prefixed_fields():
     # Same documentation, "Tuples": a 16-bit field count, then per field a 32-bit length (-1 for NULL) and
     # the value in the type's binary send format (int4/int8 in network byte order).
     enc = bulk.BinaryRows(t.sightings, registry.SIGHTING_COLUMNS)
-    data = bytes(enc.encode([(1, 2, 3, 0, "v1", None, 7)]).data)
-    assert data == (b"\x00\x07" + b"\x00\x00\x00\x04\x00\x00\x00\x01" + b"\x00\x00\x00\x04\x00\x00\x00\x02"
+    data = bytes(enc.encode([(1, 2, 3, 0, "v1", None, 7, "hs256:ab")]).data)
+    assert data == (b"\x00\x08" + b"\x00\x00\x00\x04\x00\x00\x00\x01" + b"\x00\x00\x00\x04\x00\x00\x00\x02"
                     + b"\x00\x00\x00\x08" + (3).to_bytes(8, "big") + b"\x00\x00\x00\x04\x00\x00\x00\x00"
-                    + b"\x00\x00\x00\x02v1" + b"\xff\xff\xff\xff" + b"\x00\x00\x00\x04\x00\x00\x00\x07")
+                    + b"\x00\x00\x00\x02v1" + b"\xff\xff\xff\xff" + b"\x00\x00\x00\x04\x00\x00\x00\x07"
+                    + b"\x00\x00\x00\x08hs256:ab")
 
 
 @pytest.mark.postgres
@@ -74,7 +76,7 @@ def test_encoded_rows_read_back_as_the_rows_and_are_what_the_server_writes(pg_ur
             raw = conn.connection.driver_connection
             sent: list[bytes] = []
             with raw.cursor() as cur, cur.copy("COPY sightings (dataset_id, file_id, line_no, position, row_key, "
-                                               "seen_at, raw_url_id) TO STDOUT (FORMAT BINARY)") as copy:
+                                               "seen_at, raw_url_id, unit) TO STDOUT (FORMAT BINARY)") as copy:
                 sent = [bytes(b) for b in copy]
             body = b"".join(sent)
             assert body.startswith(bulk.BINARY_HEADER) and body.endswith(bulk.BINARY_TRAILER)
@@ -104,12 +106,13 @@ def test_a_load_leaves_the_same_registry_with_and_without_encoding_ahead(pg_serv
     from linkfold.store import make_engine
 
     dump = tmp_path / "panel.csv"
-    lines = ["visit_id,url,visited"]
+    lines = ["visit_id,url,visited,person"]
     for i in range(700):
         url = f"https://site{i % 7}.example/story/{(i * 37) % 120}" + ("?utm_source=x" if i % 3 else "")
         if i % 50 == 0:
             url = "http://[broken"
-        lines.append(f"v{i},{url},2031-05-{1 + i % 28:02d}T08:00:00Z")
+        person = "" if i % 41 == 0 else f"person-{i % 13}"  # the unit travels in the encoded rows too
+        lines.append(f"v{i},{url},2031-05-{1 + i % 28:02d}T08:00:00Z,{person}")
     dump.write_text("\n".join(lines) + "\n", encoding="utf-8")
 
     def load(encode: bool) -> list[tuple]:
@@ -120,10 +123,10 @@ def test_a_load_leaves_the_same_registry_with_and_without_encoding_ahead(pg_serv
         engine = make_engine(_with_database(PG_ADMIN_URL, name))
         try:
             summary = ingest_dump(engine, [dump], dataset="panel", key_column="visit_id", time_column="visited",
-                                  batch_size=64, cache_size=16)
+                                  unit_column="person", pseudonym_key=b"k" * 32, batch_size=64, cache_size=16)
             with engine.connect() as conn:
                 rows = conn.execute(sa.text(
-                    "SELECT s.line_no, s.position, s.row_key, s.seen_at, r.raw, r.error, c.url FROM sightings s "
+                    "SELECT s.line_no, s.position, s.row_key, s.seen_at, r.raw, r.error, c.url, s.unit FROM sightings s "
                     "JOIN raw_urls r ON r.id = s.raw_url_id LEFT JOIN canonical_urls c ON c.id = r.canonical_id "
                     "ORDER BY s.line_no, s.position")).all()
                 tallies = [conn.execute(sa.text(f"SELECT count(*) FROM {name}")).scalar_one()
@@ -137,6 +140,7 @@ def test_a_load_leaves_the_same_registry_with_and_without_encoding_ahead(pg_serv
     sent_ready = _count_encoded_rows(monkeypatch)
     with_encoding = load(True)
     assert with_encoding[0][0] == 700 and len(with_encoding) == 701
+    assert len({r[7] for r in with_encoding[1:]}) == 14  # 13 pseudonyms and NULL
     assert sum(sent_ready) > 350  # most sightings and every staged raw URL went as encoded bytes
     sent_ready.clear()
     assert load(False) == with_encoding
@@ -166,7 +170,7 @@ def test_sqlite_bulk_rows_are_stored_as_an_orm_insert_stores_them(tmp_path):
         got = conn.execute(sa.select(*[t.sightings.c[c] for c in registry.SIGHTING_COLUMNS])
                            .order_by(t.sightings.c.line_no)).all()
         # SQLite keeps no zone: times read back naive, as for any row (registry.utc puts UTC back).
-        assert [(*r[:5], registry.utc(r[5]), r[6]) for r in got] == ROWS
+        assert [(*r[:5], registry.utc(r[5]), *r[6:]) for r in got] == ROWS
     engine.dispose()
 
 

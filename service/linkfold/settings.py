@@ -84,6 +84,13 @@ SETTINGS: tuple[Setting, ...] = (
     Setting("max_line_bytes", 1 << 20, _positive_int,
             "Longest line (or quoted CSV record) an ingest reads, in bytes; a longer one becomes a "
             "line_too_long or malformed_csv reject with its line number."),
+    Setting("pseudonym_key", "", str,
+            "The lab's secret for unit pseudonyms (HMAC-SHA256, at least 32 bytes); needed by ingest "
+            "--unit-column and linkfold pseudonymise. Keep it out of the registry, its backups and shell "
+            "history (docs/exposure.md)."),
+    Setting("pseudonym_key_file", "", str,
+            "A file holding the pseudonym key instead (its bytes, one trailing line end removed); give "
+            "this or pseudonym_key, not both."),
     Setting("contact", "", str,
             "Contact address (mail or URL) put in the User-Agent of every request, so site operators can "
             "reach the lab. Required before fetching or following links."),

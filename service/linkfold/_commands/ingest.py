@@ -9,6 +9,7 @@ from pathlib import Path
 import click
 
 from ..ingest import EXPORT_FORMATS, DumpFormat, export_dataset, ingest_dump, lookup
+from ..pseudonyms import key_from_settings
 from ..store import registry
 from ._common import Context, common_options, format_option, pass_ctx, to_json, write_jsonl, write_table
 
@@ -28,6 +29,9 @@ TABLE_LIMIT = 1000
                                                      "number is the key).")
 @click.option("--time-column", metavar="COLUMN", help="Column holding the row's time: ISO 8601 or Unix "
                                                       "epoch seconds/milliseconds; no zone means UTC.")
+@click.option("--unit-column", metavar="COLUMN",
+              help="Column (or JSON path) naming the person or account of the row; stored only as its "
+                   "keyed pseudonym (needs the setting pseudonym_key or pseudonym_key_file).")
 @click.option("--ruleset", "version", type=click.IntRange(min=1), metavar="VERSION",
               help="Canonicalise under this stored ruleset version (default: the newest).")
 @click.option("--rules", "rules_file", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE",
@@ -40,25 +44,30 @@ TABLE_LIMIT = 1000
 @pass_ctx
 def ingest_command(obj: Context, files: tuple[Path, ...], dataset: str, dump_format: str | None,
                    url_columns: tuple[str, ...], key_column: str | None, time_column: str | None,
-                   version: int | None, rules_file: Path | None, description: str | None,
+                   unit_column: str | None, version: int | None, rules_file: Path | None, description: str | None,
                    summary_format: str) -> None:
     """Load URL dumps into a dataset: raw URLs, canonical URLs and one sighting per URL of each row.
 
     Bad rows never stop a load: each becomes a reject with file, line and reason (see linkfold
     rejects). Loading the same file into the same dataset again adds nothing; an interrupted load is
-    resumed by running the same command again. Only the URLs, the row key and the time are stored.
+    resumed by running the same command again. Only the URLs, the row key and the time are stored, and
+    with --unit-column the unit's keyed pseudonym (HMAC-SHA256 under the lab's pseudonym_key), never
+    the unit's own ID.
 
     \b
     Example:
       linkfold ingest panel-week1.csv.gz --dataset panel-2031 --key-column visit_id --time-column visited
       linkfold ingest posts.jsonl --dataset posts --url-column 'entities.links.*.url' --key-column id
+      LINKFOLD_PSEUDONYM_KEY_FILE=~/lab.key linkfold ingest panel.csv --dataset panel --unit-column person
     """
     if version is not None and rules_file is not None:
         raise click.UsageError("give --ruleset VERSION or --rules FILE, not both")
     settings = obj.settings
+    # The key is read only for a load that needs it, so a broken key file never stops other loads.
+    key = key_from_settings(settings) if unit_column is not None else None
     summary = ingest_dump(
         obj.engine(), list(files), dataset=dataset, fmt=dump_format, url_column=url_columns or None,
-        key_column=key_column, time_column=time_column,
+        key_column=key_column, time_column=time_column, unit_column=unit_column, pseudonym_key=key,
         ruleset=version if version is not None else rules_file, description=description,
         batch_size=settings.ingest_batch_size, max_line_bytes=settings.max_line_bytes,
         cache_size=settings.canon_cache_size, progress=obj.progress())

@@ -34,8 +34,10 @@ from ..canon import Canonicaliser, Ruleset, load_rules
 from ..errors import ConfigError, InputError
 from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
+from ..pseudonyms import SCHEME, Pseudonymiser
 from ..store import registry
 from ..store.bulk import EncodedRows
+from ..store.pseudonym_keys import check_key
 from ..store.rulesets import get_ruleset, latest_ruleset, store_ruleset
 from ..store.stats import refresh_statistics
 from .formats import (
@@ -90,8 +92,11 @@ class _Plan:
 
     def options_record(self) -> dict[str, Any]:
         o = self.options
-        return {"format": o.fmt.value, "url_columns": list(o.url_columns), "key_column": o.key_column,
-                "time_column": o.time_column, "gzip": self.facts.gzipped, "max_line_bytes": o.max_line_bytes}
+        record = {"format": o.fmt.value, "url_columns": list(o.url_columns), "key_column": o.key_column,
+                  "time_column": o.time_column, "gzip": self.facts.gzipped, "max_line_bytes": o.max_line_bytes}
+        if o.unit_column is not None:
+            record["unit_column"] = o.unit_column  # the column's name only, never a value
+        return record
 
 
 def _same_reading(stored: dict[str, Any] | None, plan: _Plan) -> bool:
@@ -99,7 +104,8 @@ def _same_reading(stored: dict[str, Any] | None, plan: _Plan) -> bool:
     if not stored:
         return False
     now = plan.options_record()
-    return all(stored.get(k) == now[k] for k in ("format", "url_columns", "key_column", "time_column"))
+    return all(stored.get(k) == now.get(k) for k in ("format", "url_columns", "key_column", "time_column",
+                                                      "unit_column"))
 
 
 def _columns(value: str | Sequence[str] | None) -> tuple[str, ...]:
@@ -111,14 +117,14 @@ def _columns(value: str | Sequence[str] | None) -> tuple[str, ...]:
 
 
 def plan_file(path: str | Path, *, fmt: str | DumpFormat | None = None, url_column: str | Sequence[str] | None,
-              key_column: str | None, time_column: str | None,
+              key_column: str | None, time_column: str | None, unit_column: str | None = None,
               max_line_bytes: int = DEFAULT_MAX_LINE_BYTES) -> _Plan:
     """Check one file as far as possible without writing: format, digest, columns."""
     p = Path(path)
     dump_format = parse_format(fmt, p)
     facts = inspect_file(p)
     options = ReadOptions(fmt=dump_format, url_columns=_columns(url_column), key_column=key_column,
-                          time_column=time_column, max_line_bytes=max_line_bytes)
+                          time_column=time_column, unit_column=unit_column, max_line_bytes=max_line_bytes)
     if facts.empty:
         return _Plan(p, facts, options)  # nothing to check: an empty file is one outcome in every format
     with closing(open_binary(p, facts.gzipped)) as stream:
@@ -140,7 +146,8 @@ def _resolve_ruleset(conn: Connection, ruleset: int | str | Path | Ruleset | Non
 
 def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
                 fmt: str | DumpFormat | None = None, url_column: str | Sequence[str] | None = None,
-                key_column: str | None = None, time_column: str | None = None,
+                key_column: str | None = None, time_column: str | None = None, unit_column: str | None = None,
+                pseudonym_key: bytes | None = None,
                 ruleset: int | str | Path | Ruleset | None = None, description: str | None = None,
                 batch_size: int = DEFAULT_BATCH_SIZE, max_line_bytes: int = DEFAULT_MAX_LINE_BYTES,
                 cache_size: int = 65536, progress: Progress = SILENT) -> IngestSummary:
@@ -148,7 +155,10 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
 
     ``url_column`` is a column name (CSV/TSV) or dotted path (JSON lines; see ``linkfold.ingest.paths``),
     or several of them; ``ruleset`` is a stored version, a rules file, a :class:`Ruleset`, or ``None``
-    for the newest stored one. Raises ``InputError`` (and its subclasses) before writing anything when a
+    for the newest stored one. ``unit_column`` (a column or path, like ``key_column``) names the person
+    or account of each row, stored only as its HMAC-SHA256 pseudonym under ``pseudonym_key``
+    (``linkfold.pseudonyms``; needed with a unit column, refused before anything is written without one,
+    and refused when the registry's units were pseudonymised under another key). Raises ``InputError`` (and its subclasses) before writing anything when a
     file cannot be read as asked; single bad rows never raise, they become rejects.
     """
     name = (dataset or "").strip()
@@ -160,10 +170,29 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
         raise ConfigError("batch_size must be a positive integer")
     if not paths:
         raise InputError("no file to ingest")
+    units: Pseudonymiser | None = None
+    if unit_column is not None:
+        if not unit_column.strip():
+            raise ConfigError("--unit-column needs a column name or path")
+        others = [("--key-column", key_column), ("--time-column", time_column),
+                  *(("--url-column", u) for u in _columns(url_column) or ("url",))]
+        clash = [option for option, col in others if col == unit_column]
+        if clash:
+            # The key and the URL are stored as they are: the unit's column among them would store the raw ID.
+            raise ConfigError(f"--unit-column {unit_column!r} is also given as {clash[0]}; a unit column is "
+                              "stored only as a pseudonym, so it cannot be a key, time or URL column too")
+        if not pseudonym_key:
+            raise ConfigError("a load with --unit-column needs the lab's pseudonym key, and none is set",
+                              hint="set pseudonym_key (LINKFOLD_PSEUDONYM_KEY) or pseudonym_key_file; "
+                                   "see docs/exposure.md")
+        units = Pseudonymiser(pseudonym_key)
     plans = [plan_file(p, fmt=fmt, url_column=url_column, key_column=key_column, time_column=time_column,
-                       max_line_bytes=max_line_bytes) for p in paths]
+                       unit_column=unit_column, max_line_bytes=max_line_bytes) for p in paths]
 
     with engine.connect() as conn:
+        if units is not None:
+            with conn.begin():
+                check_key(conn, scheme=SCHEME, fingerprint=units.fingerprint)
         with conn.begin():
             version, rules = _resolve_ruleset(conn, ruleset)
         summary = IngestSummary(dataset=name, ruleset_version=version)
@@ -211,7 +240,7 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
                     canonicalisers[file_version] = Canonicaliser(file_rules, cache_size=4096)
                 result = _load_file(engine, plan, stored, dataset_id=dataset_id, ruleset_id=file_version,
                                     canon=canonicalisers[file_version], batch_size=batch_size,
-                                    progress=progress, raw_ids=raw_ids, memo_size=cache_size)
+                                    progress=progress, raw_ids=raw_ids, memo_size=cache_size, units=units)
                 summary.files.append(result)
                 run.counts = summary.as_dict()
             run.counts = summary.as_dict()
@@ -226,7 +255,7 @@ def _check_resume(stored: dict[str, Any], plan: _Plan, version: int, *, explicit
     if not _same_reading(stored["options"], plan):
         raise InputError(f"{plan.name}: an interrupted load of this file into the dataset read it with "
                          f"options {stored['options']}; resume it with the same --format, --url-column, "
-                         "--key-column and --time-column")
+                         "--key-column, --time-column and --unit-column")
     if explicit and stored["ruleset_id"] is not None and int(stored["ruleset_id"]) != version:
         raise InputError(f"{plan.name}: the interrupted load of this file used ruleset version "
                          f"{stored['ruleset_id']}; resume it under that version (omit --ruleset), so that "
@@ -262,13 +291,13 @@ def _resolve(job: _Job, sightings: list[tuple], recent: list[dict[str, int]]) ->
         if rid is None:
             left.append(i)
         else:
-            sightings[i] = (s[0], s[1], s[2], s[3], s[4], s[5], rid)
+            sightings[i] = (s[0], s[1], s[2], s[3], s[4], s[5], rid, s[7])
     return left
 
 
 def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_id: int, ruleset_id: int,
                canon: Canonicaliser, batch_size: int, progress: Progress, raw_ids: RawIds,
-               memo_size: int) -> FileSummary:
+               memo_size: int, units: Pseudonymiser | None = None) -> FileSummary:
     resume_after = int(stored["lines_done"] or 0)
     outcome = FileOutcome.RESUMED if resume_after else FileOutcome.LOADED
     summary = FileSummary(plan.name, plan.facts.sha256, outcome, resumed_after_line=resume_after)
@@ -319,7 +348,8 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
         state["reported"] = max(done, state["reported"])
 
     batch = Batch(canon, dataset_id=dataset_id, file_id=stored["id"], keyed=plan.options.key_column is not None,
-                  timed=plan.options.time_column is not None, memo_size=memo_size, ids=raw_ids)
+                  timed=plan.options.time_column is not None, memo_size=memo_size, ids=raw_ids,
+                  units=units if plan.options.unit_column is not None else None)
     last_line = resume_after
 
     # On PostgreSQL the reading thread also encodes the batch for COPY, so that the writer thread, whose

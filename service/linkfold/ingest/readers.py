@@ -5,7 +5,7 @@ and goes on, in line order, so that "everything up to line N is stored" stays a 
 loader's resume point. Only a problem with the file as a whole (no header, not JSON lines at all, a
 named column that is not there) raises, and it does so before the first row is yielded.
 
-The readers hand on only the values of the URL, key and time columns; every other column is dropped
+The readers hand on only the values of the URL, key, time and unit columns; every other column is dropped
 as soon as a row is parsed (data minimisation: a browsing-panel export is personal data, and the
 registry needs nothing else from it). For the same reason a reject carries an excerpt of its line only
 when the line could not be parsed at all (broken CSV quoting, text that is not JSON, bytes that are not
@@ -59,6 +59,8 @@ class Reason:
     BAD_KEY = "bad_key"
     MISSING_TIME = "missing_time"
     BAD_TIME = "bad_time"
+    MISSING_UNIT = "missing_unit"
+    BAD_UNIT = "bad_unit"
 
 
 @dataclass(slots=True)
@@ -78,12 +80,13 @@ class DumpRow:
     key: Any = MISSING
     time: Any = MISSING
     reject: RowReject | None = None  # set: the row as a whole could not be read
+    unit: Any = MISSING  # the unit column's value, raw: the loader keeps only its pseudonym
 
 
 @dataclass(slots=True)
 class RowBlock:
     """Rows of consecutive single lines, one URL value each, as columns: line ``first + i`` has ``urls[i]``,
-    ``keys[i]`` and ``times[i]`` (``None`` when the column is not read). The values are as they stand (CSV
+    ``keys[i]``, ``times[i]`` and ``units[i]`` (``None`` when the column is not read). The values are as they stand (CSV
     and TSV fields; for JSON lines whatever the paths reached, ``MISSING`` included), checked no further
     than a :class:`DumpRow`'s would be: the loader applies the same rules to both (``rows.Batch``). A block
     is how the fast lanes hand on a run of ordinary lines."""
@@ -92,16 +95,18 @@ class RowBlock:
     urls: list[Any]
     keys: list[Any] | None
     times: list[Any] | None
+    units: list[Any] | None = None
 
     def __len__(self) -> int:
         return len(self.urls)
 
     def rows(self) -> Iterator[DumpRow]:
         """The block as :class:`DumpRow` objects."""
-        keys, times = self.keys, self.times
+        keys, times, units = self.keys, self.times, self.units
         for i, url in enumerate(self.urls):
             n = self.first + i
-            yield DumpRow(n, n, [url], MISSING if keys is None else keys[i], MISSING if times is None else times[i])
+            yield DumpRow(n, n, [url], MISSING if keys is None else keys[i], MISSING if times is None else times[i],
+                          unit=MISSING if units is None else units[i])
 
 
 @dataclass(frozen=True)
@@ -110,6 +115,7 @@ class ReadOptions:
     url_columns: tuple[str, ...] = ()
     key_column: str | None = None
     time_column: str | None = None
+    unit_column: str | None = None
     max_line_bytes: int = 1 << 20
 
 
@@ -205,7 +211,8 @@ class _PlainLines(_Format):
 
     def check(self) -> None:
         given = [n for n, v in (("--url-column", self.opt.url_columns), ("--key-column", self.opt.key_column),
-                                ("--time-column", self.opt.time_column)) if v]
+                                ("--time-column", self.opt.time_column),
+                                ("--unit-column", self.opt.unit_column)) if v]
         if given:
             raise InputError(f"{self.r.name}: {', '.join(given)} do not apply to the lines format "
                              "(one URL a line, keyed by line number)")
@@ -302,6 +309,7 @@ class _Delimited(_Format):
         self._run_size = RUN_MIN
         self.key_idx: int | None = None
         self.time_idx: int | None = None
+        self.unit_idx: int | None = None
 
     def check(self) -> None:
         name = self.r.name
@@ -329,6 +337,8 @@ class _Delimited(_Format):
             self.key_idx = self._index(header, self.opt.key_column, "--key-column")
         if self.opt.time_column:
             self.time_idx = self._index(header, self.opt.time_column, "--time-column")
+        if self.opt.unit_column:
+            self.unit_idx = self._index(header, self.opt.unit_column, "--unit-column")
 
     def _default_url_column(self, header: list[str]) -> tuple[str, ...]:
         if "url" in header:
@@ -386,16 +396,17 @@ class _Delimited(_Format):
         else:
             self._run_size = min(2 * self._run_size, RUN_MAX)
         (url,) = self.url_idx
-        key_idx, time_idx = self.key_idx, self.time_idx
+        key_idx, time_idx, unit_idx = self.key_idx, self.time_idx, self.unit_idx
         return RowBlock(first, list(map(itemgetter(url), split)),
                         None if key_idx is None else list(map(itemgetter(key_idx), split)),
-                        None if time_idx is None else list(map(itemgetter(time_idx), split))), good
+                        None if time_idx is None else list(map(itemgetter(time_idx), split)),
+                        None if unit_idx is None else list(map(itemgetter(unit_idx), split))), good
 
     def rows(self) -> Iterator[DumpRow | RowBlock]:
         feed = self.feed
         width = len(self.r.columns)
         lines, pending = feed.lines, feed.pending
-        url_idx, key_idx, time_idx = self.url_idx, self.key_idx, self.time_idx
+        url_idx, key_idx, time_idx, unit_idx = self.url_idx, self.key_idx, self.time_idx, self.unit_idx
         tsv = self.opt.fmt is DumpFormat.TSV
         delimiter = "\t" if tsv else ","
         fast = self.fast_lane
@@ -432,7 +443,8 @@ class _Delimited(_Format):
                         n = line.number
                         yield DumpRow(n, n, [fields[i] for i in url_idx],
                                       fields[key_idx] if key_idx is not None else MISSING,
-                                      fields[time_idx] if time_idx is not None else MISSING)
+                                      fields[time_idx] if time_idx is not None else MISSING,
+                                      unit=fields[unit_idx] if unit_idx is not None else MISSING)
                         continue
                 pending.append(line)
             feed.start_record()
@@ -492,6 +504,7 @@ class _Delimited(_Format):
                 urls=[fields[i] for i in self.url_idx],
                 key=fields[self.key_idx] if self.key_idx is not None else MISSING,
                 time=fields[self.time_idx] if self.time_idx is not None else MISSING,
+                unit=fields[self.unit_idx] if self.unit_idx is not None else MISSING,
             )
 
     def _reject_first(self, record: list[PhysicalLine], detail: str) -> DumpRow:
@@ -540,6 +553,7 @@ class _JsonLines(_Format):
         self.url_paths = [parse_path(p) for p in (self.opt.url_columns or ("url",))]
         self.key_path = self._scalar_path(self.opt.key_column, "--key-column")
         self.time_path = self._scalar_path(self.opt.time_column, "--time-column")
+        self.unit_path = self._scalar_path(self.opt.unit_column, "--unit-column")
         self.peeked: list[PhysicalLine] = []
         self._run_size = RUN_MIN
 
@@ -548,7 +562,7 @@ class _JsonLines(_Format):
             return None
         path = parse_path(text)
         if any(not isinstance(seg, str) for seg in path.segments):
-            raise InputError(f"{option} {text!r}: a key or time path must reach one value; '*' is for "
+            raise InputError(f"{option} {text!r}: a key, time or unit path must reach one value; '*' is for "
                              "--url-column only")
         return path
 
@@ -603,10 +617,11 @@ class _JsonLines(_Format):
         that the URL path takes to exactly one value, as a block, and its length. The first line that is
         anything else (blank, not JSON, not an object, no URL or several) ends it and is read on its own."""
         (url_path,) = self.url_paths
-        key_path, time_path, one = self.key_path, self.time_path, self._one
+        key_path, time_path, unit_path, one = self.key_path, self.time_path, self.unit_path, self._one
         urls: list[Any] = []
         keys: list[Any] | None = [] if key_path is not None else None
         times: list[Any] | None = [] if time_path is not None else None
+        units: list[Any] | None = [] if unit_path is not None else None
         loads = json.loads
         for text in texts[start:start + self._run_size]:
             if not text or text.isspace():
@@ -625,12 +640,14 @@ class _JsonLines(_Format):
                 keys.append(one(key_path, record))
             if times is not None:
                 times.append(one(time_path, record))
+            if units is not None:
+                units.append(one(unit_path, record))
         used = len(urls)
         if used < len(texts) - start and used < self._run_size:
             self._run_size = RUN_MIN
         else:
             self._run_size = min(2 * self._run_size, RUN_MAX)
-        return (RowBlock(first, urls, keys, times) if used else None), used
+        return (RowBlock(first, urls, keys, times, units) if used else None), used
 
     def rows(self) -> Iterator[DumpRow | RowBlock]:
         lines = self.r._lines
@@ -680,7 +697,7 @@ class _JsonLines(_Format):
                 # optional in JSON (a path no record has is refused before loading, see check()).
                 urls.extend(resolve(path, record).values)
             yield DumpRow(n, n, urls=urls, key=self._one(self.key_path, record),
-                          time=self._one(self.time_path, record))
+                          time=self._one(self.time_path, record), unit=self._one(self.unit_path, record))
 
     @staticmethod
     def _one(path: JsonPath | None, record: dict) -> Any:

@@ -10,11 +10,15 @@ The rules, in one place for every format:
 * the row key is the key column's value, else the line number; a missing or unusable key falls back to
   the line number and records ``missing_key`` / ``bad_key`` at position -1;
 * a missing or unreadable time leaves the time empty and records ``missing_time`` / ``bad_time`` at
-  position -2: the sightings are kept either way.
+  position -2: the sightings are kept either way;
+* with a unit column, the unit is stored only as its keyed pseudonym (``linkfold.pseudonyms``); a missing
+  or blank unit leaves it empty (NULL) and records ``missing_unit`` at position -3, a JSON object or array
+  ``bad_unit``.
 
 A reject of a row that was parsed keeps its reason, line and position but never an excerpt: the other
 fields of a parsed record (a bad time, a key that is an object, a JSON value where a URL should be) can
-be personal data. Only a line that could not be parsed at all brings an excerpt (``readers``).
+be personal data. Only a line that could not be parsed at all brings an excerpt (``readers``), and not
+while a load reads units: a broken line's text holds the raw unit ID, which must never be stored.
 """
 
 from __future__ import annotations
@@ -29,19 +33,21 @@ from typing import Any
 
 from ..canon import Canonical
 from ..errors import InvalidURL
+from ..pseudonyms import Pseudonymiser, unit_text
 from .readers import MISSING, DumpRow, Reason, RowBlock
 from .times import BadTime, parse_time
 
 ROW_POSITION = -1  # the row itself: a row that could not be read, or a problem with its key
 TIME_POSITION = -2  # the row's time
+UNIT_POSITION = -3  # the row's unit
 
 _UNSTORABLE = re.compile("[\x00\ud800-\udfff]")
 _fromisoformat = datetime.fromisoformat
 
 # What a batch hands the writer, in the column order of the tables it goes into (registry.SIGHTING_COLUMNS,
-# registry.REJECT_COLUMNS). The raw URL (last field) is its id when the load already knows it, else its raw
+# registry.REJECT_COLUMNS). The raw URL (field 6) is its id when the load already knows it, else its raw
 # hash (a str), which the writer swaps for the id once the batch's new raw URLs are stored.
-SightingEntry = tuple[Any, ...]  # dataset_id, file_id, line_no, position, row_key, seen_at, raw URL
+SightingEntry = tuple[Any, ...]  # dataset_id, file_id, line_no, position, row_key, seen_at, raw URL, unit
 RejectEntry = tuple[Any, ...]  # dataset_id, file_id, line_no, position, reason, detail, excerpt, raw URL
 _REASON = 4
 # A staging raw URL: one per distinct raw URL of a batch that the load has no id for, with its canonical
@@ -170,8 +176,13 @@ class Batch:
     """
 
     def __init__(self, canon: Callable[[str], Canonical], *, dataset_id: int, file_id: int, keyed: bool,
-                 timed: bool, memo_size: int = 65536, ids: RawIds | None = None) -> None:
+                 timed: bool, memo_size: int = 65536, ids: RawIds | None = None,
+                 units: Pseudonymiser | None = None) -> None:
         self.canon = canon
+        #: Pseudonymises the unit column, when the load reads one; raw field text -> pseudonym in
+        #: ``_unit_cache`` (bounded; panels repeat their units on row after row).
+        self.units = units
+        self._unit_cache: dict[str, str] = {}
         self.dataset_id = dataset_id
         self.file_id = file_id
         self.keyed = keyed
@@ -216,6 +227,29 @@ class Batch:
         # No excerpt: the row was parsed, and its fields are not ours to keep (module doc).
         self.rejects.append((self.dataset_id, self.file_id, line_no, position, reason, detail, None, None))
 
+    def _unit(self, line_no: int, value: Any) -> str | None:
+        """The pseudonym of a row's unit value, or None (with a reject) when it holds none."""
+        cache = self._unit_cache
+        if type(value) is str:
+            got = cache.get(value)
+            if got is not None:
+                return got
+        try:
+            text = None if value is MISSING else unit_text(value)
+        except ValueError as exc:
+            self._reject(line_no, UNIT_POSITION, Reason.BAD_UNIT, f"the unit is {exc}; the sightings have no unit")
+            return None
+        if text is None:
+            self._reject(line_no, UNIT_POSITION, Reason.MISSING_UNIT, "no unit value; the sightings have no unit")
+            return None
+        assert self.units is not None
+        got = self.units(text)
+        if type(value) is str:
+            if len(cache) >= self.memo_size:
+                drop_older_half(cache)
+            cache[value] = got
+        return got
+
     def _url(self, value: str) -> tuple[str, str | None, str | None]:
         known = self._memo.get(value)
         if known is not None:
@@ -256,6 +290,9 @@ class Batch:
         urls = block.urls
         keys = block.keys if self.keyed else None
         times = block.times if self.timed else None
+        units = block.units if self.units is not None else None
+        unit_cache = self._unit_cache
+        unit = None
         out, pending, rejects = self.sightings, self.pending, self.rejects
         young, old = self.ids.young, self.ids.old  # RawIds.get, inline
         usual = 0
@@ -268,7 +305,7 @@ class Batch:
             # (JSON lines can give other types: those rows go through add()).
             if type(value) is not str or not value or value.isspace() or (keys is not None and not (
                     type(key) is str and key.isascii() and key and not key.isspace() and "\x00" not in key)):
-                self.add(DumpRow(n, n, [value], key, t))
+                self.add(DumpRow(n, n, [value], key, t, unit=units[i] if units is not None else MISSING))
                 continue
             seen_at = None
             if times is not None:
@@ -278,21 +315,26 @@ class Batch:
                     except ValueError:
                         seen_at = None
                 if seen_at is None or seen_at.tzinfo is not UTC:
-                    self.add(DumpRow(n, n, [value], key, t))
+                    self.add(DumpRow(n, n, [value], key, t, unit=units[i] if units is not None else MISSING))
                     continue
             usual += 1
             row_key = key if keys is not None else str(n)
+            if units is not None:
+                u = units[i]
+                unit = unit_cache.get(u) if type(u) is str else None
+                if unit is None:
+                    unit = self._unit(n, u)
             rid = young.get(value)
             if rid is None:
                 rid = old.get(value)
                 if rid is not None:
                     young[value] = rid
             if rid is not None:
-                out.append((ds, fid, n, 0, row_key, seen_at, rid))
+                out.append((ds, fid, n, 0, row_key, seen_at, rid, unit))
                 continue
             h, url_reason, url_detail = self._url(value)
             pending.append(len(out))
-            out.append((ds, fid, n, 0, row_key, seen_at, h))
+            out.append((ds, fid, n, 0, row_key, seen_at, h, unit))
             if url_reason is not None:
                 rejects.append((ds, fid, n, 0, url_reason, url_detail, None, h))
         self.count += usual
@@ -304,7 +346,9 @@ class Batch:
         n = row.line_no
         if row.reject is not None:
             rej = row.reject
-            self.rejects.append((ds, fid, n, ROW_POSITION, rej.reason, rej.detail, rej.excerpt, None))
+            # A broken row's text holds its raw unit ID when the load reads units: no excerpt then.
+            self.rejects.append((ds, fid, n, ROW_POSITION, rej.reason, rej.detail,
+                                 rej.excerpt if self.units is None else None, None))
             return
         urls = row.urls
         # (x and not x.isspace()) is "not blank", as x.strip() would say, without a copy of x.
@@ -341,6 +385,7 @@ class Batch:
                 seen_at, time_problem = _time(t)
                 if time_problem:
                     self._reject(n, TIME_POSITION, *time_problem)
+        unit = self._unit(n, row.unit) if self.units is not None else None
         out = self.sightings
         ids = self.ids
         for pos, value in enumerate(values):
@@ -349,14 +394,14 @@ class Batch:
                 continue
             rid = ids.get(value)
             if rid is not None:
-                out.append((ds, fid, n, pos, row_key, seen_at, rid))
+                out.append((ds, fid, n, pos, row_key, seen_at, rid, unit))
                 continue
             h, url_reason, url_detail = self._url(value)
             self.pending.append(len(out))
-            out.append((ds, fid, n, pos, row_key, seen_at, h))
+            out.append((ds, fid, n, pos, row_key, seen_at, h, unit))
             if url_reason is not None:
                 self.rejects.append((ds, fid, n, pos, url_reason, url_detail, None, h))
 
 
-__all__ = ["RAW_FIELDS", "ROW_POSITION", "TIME_POSITION", "Batch", "RawIds", "RejectEntry", "SightingEntry",
+__all__ = ["RAW_FIELDS", "ROW_POSITION", "TIME_POSITION", "UNIT_POSITION", "Batch", "RawIds", "RejectEntry", "SightingEntry",
            "drop_older_half", "raw_hash", "storable"]

@@ -120,7 +120,8 @@ stage_raws = sa.Table(
     prefixes=["TEMPORARY"], postgresql_on_commit="DELETE ROWS",
 )
 RAW_COLUMNS = tuple(c.name for c in stage_raws.columns)
-SIGHTING_COLUMNS = ("dataset_id", "file_id", "line_no", "position", "row_key", "seen_at", "raw_url_id")
+# ``unit``: the keyed pseudonym, or None (linkfold/pseudonyms.py); after the raw URL so that field 6 stays it.
+SIGHTING_COLUMNS = ("dataset_id", "file_id", "line_no", "position", "row_key", "seen_at", "raw_url_id", "unit")
 REJECT_COLUMNS = ("dataset_id", "file_id", "line_no", "position", "reason", "detail", "excerpt", "raw_url_id")
 
 
@@ -164,8 +165,8 @@ def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
                 raws_ready: EncodedRows | None = None) -> BatchCounts:
     """Write one batch inside the caller's transaction and move the file's resume point forward.
 
-    ``sightings`` and ``rejects`` are rows in ``SIGHTING_COLUMNS`` / ``REJECT_COLUMNS`` order whose last
-    field, the raw URL, is its id or, where the caller had none, its raw hash (``pending`` lists the
+    ``sightings`` and ``rejects`` are rows in ``SIGHTING_COLUMNS`` / ``REJECT_COLUMNS`` order whose raw URL
+    (field 6 of a sighting, the last of a reject) is its id or, where the caller had none, its raw hash (``pending`` lists the
     sightings that carry one). ``raws`` are the raw URLs to store for those, in ``RAW_COLUMNS`` order;
     ``known`` gives raw hash -> id for hashed rows whose raw URL the caller knows to be stored; any other
     hash not among ``raws`` is looked up (a raw URL an earlier, committed batch stored).
@@ -217,7 +218,7 @@ def write_batch(conn: Connection, *, dataset_id: int, file_id: int, ruleset_id: 
     for i in pending:
         s = sightings[i]
         h = s[6]
-        sightings[i] = (*s[:6], ids.get(h) or known.get(h) or found[h])
+        sightings[i] = (*s[:6], ids.get(h) or known.get(h) or found[h], s[7])
     for i, r in enumerate(rejects):
         if isinstance(h := r[7], str):
             rejects[i] = (*r[:7], ids.get(h) or known.get(h) or found[h])

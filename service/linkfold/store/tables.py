@@ -491,6 +491,17 @@ stage_pending = sa.Table(
     sa.Index("ix_stage_pending_topic", "topic"),
 )
 
+# --- the pseudonym key (migration 0020) -----------------------------------------------------------------
+# One row once units were loaded: the scheme and a fingerprint of the key they are pseudonymised under
+# (an HMAC of a fixed label, never the key: linkfold/pseudonyms.py), so a load under another key is refused.
+pseudonym_keys = sa.Table(
+    "pseudonym_keys", metadata,
+    sa.Column("name", sa.String(40), primary_key=True),
+    sa.Column("scheme", sa.String(20), nullable=False),
+    sa.Column("fingerprint", sa.String(64), nullable=False),
+    sa.Column("created_at", UTC, nullable=False),
+)
+
 # --- API tokens (migration 0008) --------------------------------------------------------------------------
 # Bearer tokens of the HTTP API. Only the SHA-256 of a token is stored (hex); the token itself is shown
 # once, when it is created. ``scope`` is read | write (write includes read). A revoked token keeps its
