@@ -31,6 +31,7 @@ COMMANDS: dict[str, str] = {
     "dedupe": "dedupe", "decide": "dedupe", "clusters": "dedupe", "thresholds": "dedupe",
     "nightly": "dedupe", "runs": "dedupe",
     "outlets": "outlets",
+    "exposure": "exposure", "pseudonymise": "exposure",
     "network": "network",
     "serve": "api", "tokens": "api",
     "demo": "demo",
