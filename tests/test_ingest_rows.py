@@ -14,6 +14,7 @@ from hypothesis import strategies as st
 from linkfold.canon import Canonicaliser
 from linkfold.ingest.readers import MISSING, DumpRow, RowBlock
 from linkfold.ingest.rows import TIME_POSITION, Batch, RawIds, _key, _time
+from linkfold.pseudonyms import Pseudonymiser
 
 _TIMES = st.one_of(
     st.datetimes(timezones=st.just(__import__("datetime").UTC)).map(lambda d: d.isoformat().replace("+00:00", "Z")),
@@ -21,6 +22,8 @@ _TIMES = st.one_of(
                      "2031-05-04T08:00:00+02:00", "2031-05-04T08:00:00.123456Z", "1999-12-31T23:59:59z",
                      "  2031-05-04T08:00:00Z", "20310504T080000Z", "2031-05-04", "", " ", "1715000000", "Z" * 11]),
     st.text(max_size=25), st.integers(), st.none(), st.just(MISSING))
+_UNITS = st.one_of(st.sampled_from(["p1", " p1", "", " ", "é", "\ud800", "p\x00"]), st.text(max_size=8),
+                   st.integers(), st.floats(allow_nan=False), st.none(), st.just(MISSING), st.just({"a": 1}))
 _KEYS = st.one_of(st.text(max_size=12), st.sampled_from(["v1", " ", "", "a\x00b", "\ud800", "é1", "k 1 "]),
                   st.integers(), st.none(), st.just(MISSING))
 
@@ -48,25 +51,28 @@ _URLS = st.one_of(st.sampled_from(["https://a.example/p", "https://a.example/p?u
 
 @settings(max_examples=300, deadline=None)
 @given(rows=st.lists(st.tuples(st.one_of(_URLS, st.integers(), st.none(), st.lists(st.integers(), max_size=2)),
-                               st.one_of(st.text(max_size=12), _KEYS), _TIMES), max_size=12),
-       keyed=st.booleans(), timed=st.booleans(), cut=st.tuples(st.integers(0, 12), st.integers(0, 12)))
-def test_a_block_is_staged_as_its_rows_one_by_one(rows, keyed, timed, cut):
+                               st.one_of(st.text(max_size=12), _KEYS), _TIMES, _UNITS), max_size=12),
+       keyed=st.booleans(), timed=st.booleans(), united=st.booleans(),
+       cut=st.tuples(st.integers(0, 12), st.integers(0, 12)))
+def test_a_block_is_staged_as_its_rows_one_by_one(rows, keyed, timed, united, cut):
     # Behaviour test: the block path has its own inline checks; every row it does not take as the usual
     # one must go through add(), and the rows it takes must come out as add() would have them. Values of
     # any JSON type, as JSON-lines blocks carry them.
     start, stop = sorted((min(cut[0], len(rows)), min(cut[1], len(rows))))
-    block = RowBlock(5, [r[0] for r in rows], [r[1] for r in rows], [r[2] for r in rows])
+    block = RowBlock(5, [r[0] for r in rows], [r[1] for r in rows], [r[2] for r in rows],
+                     [r[3] for r in rows] if united else None)
 
     def batch() -> Batch:
         ids = RawIds(64)
         ids["https://a.example/known"] = 41  # a raw URL whose id the load already has
-        return Batch(Canonicaliser(), dataset_id=1, file_id=2, keyed=keyed, timed=timed, ids=ids)
+        units = Pseudonymiser(b"k" * 32) if united else None
+        return Batch(Canonicaliser(), dataset_id=1, file_id=2, keyed=keyed, timed=timed, ids=ids, units=units)
 
     whole, single = batch(), batch()
     whole.add_block(block, start, stop)
     for row in list(block.rows())[start:stop]:
         single.add(DumpRow(row.line_no, row.end_line, row.urls, row.key if keyed else MISSING,
-                           row.time if timed else MISSING))
+                           row.time if timed else MISSING, unit=row.unit))
     assert whole.sightings == single.sightings
     assert whole.rejects == single.rejects
     assert whole.pending == single.pending and whole.raws == single.raws
