@@ -64,6 +64,13 @@ def test_write_scope_includes_read():
     assert Scope.READ.allows(Scope.READ) and not Scope.READ.allows(Scope.WRITE)
 
 
+def test_unit_rows_need_their_own_scope():
+    # Unit-level rows are personal data: only a units token gets them; it also reads, but does not write.
+    assert Scope.UNITS.allows(Scope.UNITS) and Scope.UNITS.allows(Scope.READ)
+    assert not Scope.UNITS.allows(Scope.WRITE)
+    assert not Scope.READ.allows(Scope.UNITS) and not Scope.WRITE.allows(Scope.UNITS)
+
+
 @pytest.mark.parametrize(("scope", "note"), [("admin", "x"), ("read", "  "), ("read", "n" * 501)])
 def test_bad_scope_or_note_is_refused_and_nothing_stored(engine, scope, note):
     with pytest.raises(InputError):

@@ -271,3 +271,52 @@ def test_the_command_streams_csv_and_summarises_on_stderr(db_url, tmp_path, caps
     assert capsys.readouterr().err == ""
     assert main(["--db", db_url, "exposure", "--dataset", "nope"]) == 7
     assert main(["--db", db_url, "exposure", "--dataset", "panel", "--format", "parquet"]) == 3
+
+
+# --- over HTTP and from the Python client -------------------------------------------------------------------
+def test_the_client_gets_unit_rows_only_with_a_units_token(db_url, engine, tmp_path):
+    from linkfold.client import ApiError, Client
+    from linkfold.store.tokens import create_token
+    from test_api_support import LiveServer
+
+    _world(engine, tmp_path)
+    read = create_token(engine, scope="read", note="exposure tests").secret
+    units = create_token(engine, scope="units", note="exposure tests: unit rows").secret
+    write = create_token(engine, scope="write", note="exposure tests").secret
+    want = _got(engine, datasets=["panel", "posts"], level="outlet", by="week")
+    with LiveServer(db_url, cwd=tmp_path) as server:
+        with Client(server.url, token=units) as lf:
+            got = lf.exposure(["panel", "posts"], level="outlet", by="week")
+            story = lf.exposure("panel", level="story")
+        keys = ["dataset", "unit", "outlet", "period"]
+        pd.testing.assert_frame_equal(got.sort_values(keys).reset_index(drop=True), want, check_dtype=False)
+        assert list(story.columns) == ["unit", "story_id", "sightings", "first_seen", "last_seen"]
+        for token in (read, write):  # neither read nor write includes unit-level rows
+            with Client(server.url, token=token) as lf, pytest.raises(ApiError) as info:
+                lf.exposure("panel")
+            assert info.value.status == 403 and info.value.code == "insufficient_scope"
+        with Client(server.url, token=read) as lf:
+            agg = lf.outlet_exposure(["panel"], min_units=12)
+            with pytest.raises(ApiError) as below:
+                lf.outlet_exposure(["panel"], min_units=2)  # never below the documented minimum
+            assert below.value.status == 422
+            with pytest.raises(ApiError) as unknown:
+                lf.outlet_exposure(["no-such-dataset"])
+            assert unknown.value.status == 404
+    lib = outlet_exposure(engine, datasets=["panel"], min_units=12)
+    assert agg.to_dict("records") == lib["rows"] and agg.attrs["suppressed_groups"] == lib["suppressed_groups"]
+    assert "unit" not in agg.columns
+
+
+def test_open_reads_never_open_unit_rows(db_url, engine, tmp_path):
+    from linkfold.api import create_app
+    from test_api_support import AsgiClient, settings_for
+
+    _world(engine, tmp_path)
+    client = AsgiClient(create_app(settings_for(db_url, open_reads=True), engine=engine))
+    assert client.get("/v1/exposure?dataset=panel", token=None).status_code == 401
+    answer = client.get("/v1/exposure/outlets?dataset=panel&dataset=posts&by=month", token=None)
+    assert answer.status_code == 200
+    body = answer.json()
+    assert body["columns"][:3] == ["dataset", "outlet", "period"] and body["min_units"] == 10
+    assert all(r["units"] >= 10 for r in body["rows"])

@@ -173,6 +173,55 @@ class Client:
         nodes.attrs.update(meta)
         return edges, nodes
 
+    # --- exposure (docs/exposure.md) ----------------------------------------------------------------------
+    def exposure(self, datasets: str | Iterable[str], *, level: str = "outlet", by: str | None = None,
+                 all_urls: bool = False) -> Any:
+        """The unit-level exposure table as a pandas DataFrame (needs a ``units`` token): one row per unit ×
+        outlet (or article, story) (× period), columns as ``linkfold exposure`` writes them; ``first_seen``
+        and ``last_seen`` as UTC times."""
+        pd = _pandas("exposure")
+        names = [datasets] if isinstance(datasets, str) else list(datasets)
+        target = {"outlet": "outlet", "article": "article_id", "story": "story_id"}.get(level, level)
+        columns = (["dataset"] if len(set(names)) > 1 else []) + ["unit", target] + (["period"] if by else [])
+        columns += ["sightings", "first_seen", "last_seen"]
+        rows: list[dict[str, Any]] = []
+        params: dict[str, Any] = {"dataset": names, "level": level, "all_urls": str(all_urls).lower()}
+        if by is not None:
+            params["by"] = by
+        try:
+            with self._http.stream("GET", "/exposure", params=params,
+                                   headers={"Accept": "application/x-ndjson"}) as response:
+                self._check(response)
+                for line in response.iter_lines():
+                    if not line:
+                        continue
+                    row = json.loads(line)
+                    if "error" in row and isinstance(row["error"], dict):
+                        raise ApiError(response.status_code, row["error"]["code"], row["error"]["message"])
+                    rows.append(row)
+        except httpx.TransportError as exc:
+            raise NetworkError(f"the exposure table from {self.base_url} broke off after {len(rows):,} rows: "
+                               f"{exc}") from exc
+        extra = [c for c in (rows[0] if rows else {}) if c not in columns]  # the outlet list's attributes
+        frame = pd.DataFrame(rows, columns=columns + extra)
+        for col in ("first_seen", "last_seen"):
+            frame[col] = pd.to_datetime(frame[col], utc=True, format="ISO8601")
+        return frame
+
+    def outlet_exposure(self, datasets: str | Iterable[str], *, by: str | None = None, all_urls: bool = False,
+                        min_units: int | None = None) -> Any:
+        """Units and sightings per outlet (× period) as a pandas DataFrame, groups of fewer than the server's
+        minimum of units left out (a read token is enough; no unit-level rows). The number left out is in
+        ``frame.attrs["suppressed_groups"]``."""
+        pd = _pandas("outlet_exposure")
+        names = [datasets] if isinstance(datasets, str) else list(datasets)
+        answer = self._get("/exposure/outlets", dataset=names, by=by, all_urls=str(all_urls).lower(),
+                           min_units=min_units)
+        frame = pd.DataFrame(answer["rows"], columns=answer["columns"])
+        frame.attrs["suppressed_groups"] = answer["suppressed_groups"]
+        frame.attrs["min_units"] = answer["min_units"]
+        return frame
+
     def _batch(self, batch: list[str]) -> Iterator[dict[str, Any]]:
         n = 0
         try:
@@ -213,6 +262,14 @@ def _params(**params: Any) -> list[tuple[str, Any]]:
             continue
         out += [(name, v) for v in value] if isinstance(value, list) else [(name, value)]
     return out
+
+
+def _pandas(what: str) -> Any:
+    try:
+        import pandas as pd
+    except ImportError as exc:  # pragma: no cover - exercised only where pandas is absent
+        raise ImportError(f"{what} returns a DataFrame and needs pandas: pip install pandas") from exc
+    return pd
 
 
 def _path_part(text: str) -> str:

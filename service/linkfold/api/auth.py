@@ -113,3 +113,8 @@ def may_write(request: Request) -> bool:
         return authorise(request, Scope.WRITE, log_refusal=False).can_write
     except ApiError:
         return False
+
+
+def units_access(request: Request) -> Access:
+    """Unit-level rows: only a ``units`` token, never open reads (the rows are personal data)."""
+    return authorise(request, Scope.UNITS)

@@ -5,7 +5,9 @@ of entropy. Because it is random and long, one unsalted SHA-256 is enough to sto
 there is nothing to guess, so a slow salted hash would only slow every request down. The hash is also
 the lookup key, so a check is one indexed query.
 
-Scopes: ``read`` answers reads; ``write`` answers reads and writes (manual decisions).
+Scopes: ``read`` answers reads; ``write`` answers reads and writes (manual decisions); ``units`` answers
+reads and unit-level rows (exposure per pseudonymised person), which are personal data: neither of the
+other scopes includes them.
 """
 
 from __future__ import annotations
@@ -36,9 +38,10 @@ MAX_NOTE_CHARS = 500
 class Scope(enum.StrEnum):
     READ = "read"
     WRITE = "write"
+    UNITS = "units"
 
     def allows(self, needed: Scope) -> bool:
-        return self is Scope.WRITE or needed is Scope.READ
+        return needed is Scope.READ or self is needed
 
 
 class TokenState(enum.StrEnum):
@@ -79,7 +82,7 @@ def _scope(value: str) -> Scope:
     try:
         return Scope(value)
     except ValueError:
-        raise InputError(f"unknown token scope {value!r}", hint="use read or write") from None
+        raise InputError(f"unknown token scope {value!r}", hint="use read, write or units") from None
 
 
 def create_token(engine: Engine, *, scope: str, note: str) -> NewToken:
