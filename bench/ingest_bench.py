@@ -15,7 +15,9 @@ as ``--repeat`` pairs, one right after the other, reporting the pair with the me
       migrated sightings table, i.e. the cost of that table's two indexes (its natural key and the raw
       URL id; migration 0011) on their own.
 
-URLs repeat as in a browsing panel: each row draws from D distinct URLs with a Zipf-like skew.
+URLs repeat as in a browsing panel: each row draws from D distinct URLs with a Zipf-like skew. With
+``--units K`` the dump has a ``person`` column too (K distinct panellists, skewed the same way) and the
+load pseudonymises it (``--unit-column person``: an HMAC per distinct unit, cached; docs/exposure.md).
 Target (issue 4): (b) >= 0.35x the baseline's rows/s (goal 0.8x); RSS at N about equal to RSS at N/10.
 The ratios are printed; nothing is asserted.
 
@@ -23,7 +25,8 @@ Peak memory is bounded by the canonicaliser's LRU cache (``--cache-size``, the c
 it grows while the cache fills with distinct URLs and is flat after; run with a small cache to see the
 rest of the load's memory on its own.
 
-Run:  python bench/ingest_bench.py [--rows 1000000] [--distinct 200000] [--cache-size 65536] [--repeat 3] [--pg URL]
+Run:  python bench/ingest_bench.py [--rows 1000000] [--distinct 200000] [--cache-size 65536] [--repeat 3]
+                                   [--units 20000] [--pg URL]
 """
 
 from __future__ import annotations
@@ -60,16 +63,17 @@ def distinct_urls(d: int, rng: random.Random) -> list[str]:
     return out
 
 
-def write_dump(path: Path, urls_path: Path, rows: int, d: int, seed: int = 4) -> None:
+def write_dump(path: Path, urls_path: Path, rows: int, d: int, seed: int = 4, units: int = 0) -> None:
     rng = random.Random(seed)
     pool = distinct_urls(d, rng)
     # Zipf-like: index = floor(d * u^3) puts most draws on a small head of popular pages.
     with path.open("w", encoding="utf-8") as dump, urls_path.open("w", encoding="utf-8") as plain:
-        dump.write("visit_id,url,visited,device\n")
+        dump.write("visit_id,url,visited,device" + (",person\n" if units else "\n"))
         for i in range(rows):
             url = pool[int(d * rng.random() ** 3)]
+            person = f",panellist-{int(units * rng.random() ** 2):06d}" if units else ""
             dump.write(f"v{i},{url},2031-05-{1 + i % 28:02d}T{i % 24:02d}:{i % 60:02d}:00Z,"
-                       f"{'phone' if i % 3 else 'desktop'}\n")
+                       f"{'phone' if i % 3 else 'desktop'}{person}\n")
             plain.write(url + "\n")
 
 
@@ -167,12 +171,14 @@ class Quarters:
     def finish(self):
         pass
 
-url, path, cache = sys.argv[1], sys.argv[2], int(sys.argv[3])
+url, path, cache, units = sys.argv[1], sys.argv[2], int(sys.argv[3]), int(sys.argv[4])
 engine = make_engine(url)
 quarters = Quarters()
+# An invented key, for the benchmark only.
+extra = {"unit_column": "person", "pseudonym_key": b"bench key, invented, 32 bytes long"} if units else {}
 t0 = time.perf_counter()
 s = ingest_dump(engine, [path], dataset="bench", key_column="visit_id", time_column="visited",
-                cache_size=cache, progress=quarters)
+                cache_size=cache, progress=quarters, **extra)
 elapsed = time.perf_counter() - t0
 print(json.dumps({"seconds": elapsed, "rss_kib": status("VmHWM"), "quarters_kib": quarters.marks,
                   "rows": s.rows, "sightings": s.sightings, "new_raw_urls": s.new_raw_urls,
@@ -180,12 +186,12 @@ print(json.dumps({"seconds": elapsed, "rss_kib": status("VmHWM"), "quarters_kib"
 """
 
 
-def run_ingest(url: str, path: Path, cache: int) -> dict:
+def run_ingest(url: str, path: Path, cache: int, units: int = 0) -> dict:
     engine = make_engine(url)
     upgrade(engine)
     engine.dispose()
-    proc = subprocess.run([sys.executable, "-c", CHILD, url, str(path), str(cache)], capture_output=True, text=True,
-                          check=False)
+    proc = subprocess.run([sys.executable, "-c", CHILD, url, str(path), str(cache), str(units)], capture_output=True,
+                          text=True, check=False)
     if proc.returncode != 0:
         raise SystemExit(f"ingest failed:\n{proc.stderr}")
     return json.loads(proc.stdout)
@@ -198,6 +204,8 @@ def main() -> None:
     ap.add_argument("--cache-size", type=int, default=65536,
                     help="canonicaliser cache entries (the canon_cache_size setting's default)")
     ap.add_argument("--repeat", type=int, default=3, help="baseline/load pairs; the median ratio is reported")
+    ap.add_argument("--units", type=int, default=0,
+                    help="distinct units in a person column the load pseudonymises (default 0: no unit column)")
     ap.add_argument("--pg", default=os.environ.get("LINKFOLD_TEST_PG",
                                                    "postgresql+psycopg://postgres@127.0.0.1:5432/postgres"))
     args = ap.parse_args()
@@ -209,8 +217,8 @@ def main() -> None:
         big, big_urls = folder / "panel.csv", folder / "panel.urls"
         little, little_urls = folder / "panel-small.csv", folder / "panel-small.urls"
         t0 = time.perf_counter()
-        write_dump(big, big_urls, n, d)
-        write_dump(little, little_urls, small, max(small // 5, 1))
+        write_dump(big, big_urls, n, d, units=args.units)
+        write_dump(little, little_urls, small, max(small // 5, 1), units=args.units and max(args.units // 10, 1))
         print(f"generated {n:,} rows over {d:,} distinct URLs ({big.stat().st_size / 1e6:.0f} MB) and "
               f"{small:,} rows in {time.perf_counter() - t0:.1f} s", flush=True)
 
@@ -222,7 +230,7 @@ def main() -> None:
             with Scratch(args.pg) as url:
                 copy_s = baseline_copy(url, big_urls, n)
             with Scratch(args.pg) as url:
-                full = run_ingest(url, big, args.cache_size)
+                full = run_ingest(url, big, args.cache_size, args.units)
             pairs.append((full["rows"] / full["seconds"] / (n / copy_s), copy_s, full))
             print(f"pair {k + 1}/{args.repeat}: (a) raw COPY {n / copy_s:,.0f} rows/s ({copy_s:.1f} s), "
                   f"(b) ingest_dump {full['rows'] / full['seconds']:,.0f} rows/s ({full['seconds']:.1f} s): "
@@ -230,7 +238,7 @@ def main() -> None:
         with Scratch(args.pg) as url:
             floor_s = schema_floor(url, big_urls, n)
         with Scratch(args.pg) as url:
-            part = run_ingest(url, little, args.cache_size)
+            part = run_ingest(url, little, args.cache_size, args.units)
 
     pairs.sort(key=lambda p: p[0])
     ratio, copy_s, full = pairs[len(pairs) // 2]
