@@ -73,14 +73,16 @@ def _generate(tmp_path: Path, seed: int = 7) -> tuple[Path, Path, pd.DataFrame]:
             return url + rnd.choice(["", "?utm_source=feed", "?utm_medium=social&ref=homepage"])
         if roll < 0.75:
             return rnd.choice(list(NOT_ARTICLES))
-        if roll < 0.95:
+        if roll < 0.93:
             return rnd.choice(list(SHORT))
+        if roll < 0.95:
+            return "ftp://northvale-herald.example/file"  # refused by the canonicaliser: still a sighting
         return NEVER_FOLLOWED
 
     def record(dataset: str, unit: str | None, url: str, when: datetime | None) -> None:
         bare = url.split("?")[0]
         final = SHORT.get(bare, bare)
-        if bare == NEVER_FOLLOWED:
+        if bare == NEVER_FOLLOWED or bare.startswith("ftp:"):
             outlet = article = story = None
             is_article = False
         elif final in ARTICLES:

@@ -19,6 +19,7 @@ from .canon import load_rules
 from .content.stage import import_pages
 from .dedupe.stage import list_clusters
 from .errors import InputError
+from .exposure import write_exposure
 from .follow import import_redirects
 from .ingest import ingest_dump, lookup
 from .jobs.nightly import run_nightly
@@ -38,17 +39,22 @@ def fixtures_dir() -> Path:
     return path
 
 
-# (dataset, file under fixtures/, ingest options): a browsing panel (CSV; the panellist column is
-# deliberately not stored) and a post archive (JSON lines, links nested in an array).
+# (dataset, file under fixtures/, ingest options): a browsing panel (CSV; the panellist column is stored
+# only as a keyed pseudonym) and a post archive (JSON lines, links nested in an array).
 DEMO_DUMPS: list[tuple[str, str, dict[str, Any]]] = [
     ("northvale-panel", "panel_visits.csv",
-     {"url_column": "url", "key_column": "visit_id", "time_column": "visited_at",
+     {"url_column": "url", "key_column": "visit_id", "time_column": "visited_at", "unit_column": "panelist",
       "description": "invented browsing panel, one visit a row"}),
     ("northvale-posts", "posts.jsonl",
      {"url_column": "entities.urls.*.expanded", "key_column": "post_id", "time_column": "created",
       "description": "invented post archive, links nested in each post"}),
 ]
 
+
+
+#: The demo's pseudonym key: invented, public, for the demo registry only. A lab's own key is a secret held
+#: outside the registry (docs/exposure.md); the demo never reads it, so its pseudonyms are reproducible.
+DEMO_PSEUDONYM_KEY = b"invented demo key: public, never for real data"
 
 
 def demo_lookups(fx: Path) -> list[str]:
@@ -170,7 +176,9 @@ def run_demo(workdir: Path, *, settings: Settings | None = None, progress: Progr
             version = store_ruleset(conn, load_rules(fx / "rules" / "demo.toml"))
         report.notes.append(f"site rules: fixtures/rules/demo.toml stored as ruleset version {version}")
         for name, path, options in DEMO_DUMPS:
-            summary = ingest_dump(engine, [fx / path], dataset=name, progress=progress, **options)
+            key = DEMO_PSEUDONYM_KEY if "unit_column" in options else None
+            summary = ingest_dump(engine, [fx / path], dataset=name, progress=progress, pseudonym_key=key,
+                                  **options)
             report.notes.extend(summary.lines())
         imported = import_redirects(engine, fx / "short_links.csv", progress=progress)
         report.notes.extend(imported.lines_for_people())
@@ -185,6 +193,12 @@ def run_demo(workdir: Path, *, settings: Settings | None = None, progress: Progr
         for level in ("article", "story"):
             report.clusters[level] = [c.as_dict() for c in list_clusters(engine, level=level, min_size=2)]
         report.examples = list(lookup(engine, demo_lookups(fx)))
+        # Exposure: each panellist's (pseudonymised) visits per outlet and per story, as a lab joins them
+        # to survey answers (docs/exposure.md).
+        for level, by in (("outlet", None), ("story", "month")):
+            out = workdir / f"exposure-{level}.csv"
+            exposure = write_exposure(engine, datasets=["northvale-panel"], level=level, by=by, out=out)
+            report.notes.extend(exposure.lines())
         return report
     finally:
         engine.dispose()

@@ -46,7 +46,8 @@ def _parts(*, dataset_ids: Sequence[int], level: str) -> _Parts:
         raise ValueError(f"unknown exposure level {level!r}: one of {', '.join(LEVELS)}")
     s, r, c, f = t.sightings, t.raw_urls, t.canonical_urls, t.dataset_files
     fj = FinalsJoin.of(c)
-    source = fj.join(s.join(r, r.c.id == s.c.raw_url_id).join(c, c.c.id == r.c.canonical_id))
+    # Outer: a raw URL that could not be canonicalised is still a sighting, counted as left out.
+    source = fj.join(s.join(r, r.c.id == s.c.raw_url_id).outerjoin(c, c.c.id == r.c.canonical_id))
     if level == "outlet":
         target = fj.column("outlet")
     else:
