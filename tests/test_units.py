@@ -240,3 +240,13 @@ def test_pseudonymise_prints_what_a_load_stores(db_url, tmp_path, capsys, monkey
     monkeypatch.setattr(sys, "stdin", io.StringIO("a\n"))
     assert main(["--db", db_url, "pseudonymise", "--check"]) == 3
     assert "another key" in capsys.readouterr().err
+
+
+def test_the_quick_base32_of_a_mac_is_the_standard_librarys():
+    # Python's base64 (a reference implementation of RFC 4648 §6) on random 32-byte values.
+    import os
+
+    from linkfold.pseudonyms import _b32_of_32
+
+    for mac in [bytes(32), b"\xff" * 32, *(os.urandom(32) for _ in range(2000))]:
+        assert _b32_of_32(mac) == base64.b32encode(mac).decode().rstrip("=").lower()

@@ -45,7 +45,23 @@ def hmac_sha256(key: bytes, message: bytes) -> bytes:
 
 def encode_mac(mac: bytes) -> str:
     """``hs256:`` + lower-case RFC 4648 §6 base32 of ``mac``, without padding."""
+    if len(mac) == 32:
+        return PREFIX + _b32_of_32(mac)
     return PREFIX + base64.b32encode(mac).decode("ascii").rstrip("=").lower()
+
+
+# RFC 4648 §6 base32 of a 32-byte MAC in one step: 256 bits and 4 zero bits (the last group's padding
+# bits) are 26 groups of 10 bits, each two characters. The standard library's encoder goes 5 bytes at a
+# time and pads, then we strip and lower: three times slower, and a load pays it once per distinct unit.
+_ALPHABET = "abcdefghijklmnopqrstuvwxyz234567"
+_PAIRS = [a + b for a in _ALPHABET for b in _ALPHABET]
+_SHIFTS = tuple(range(250, -1, -10))
+
+
+def _b32_of_32(mac: bytes) -> str:
+    n = int.from_bytes(mac, "big") << 4
+    pairs = _PAIRS
+    return "".join([pairs[(n >> s) & 1023] for s in _SHIFTS])
 
 
 def unit_text(value: Any) -> str | None:
@@ -79,7 +95,7 @@ class Pseudonymiser:
         cache = self._cache
         got = cache.get(text)
         if got is None:
-            got = encode_mac(hmac.new(self._key, text.encode("utf-8", "surrogatepass"), hashlib.sha256).digest())
+            got = PREFIX + _b32_of_32(hmac.digest(self._key, text.encode("utf-8", "surrogatepass"), "sha256"))
             if len(cache) >= self._cache_size:
                 keep = list(cache.items())[len(cache) // 2:]
                 cache.clear()
