@@ -62,6 +62,9 @@ _LAZY = {
     "outlet_table": "linkfold.outlets",
     "co_exposure": "linkfold.network",
     "write_network": "linkfold.network",
+    "exposure_rows": "linkfold.exposure",
+    "write_exposure": "linkfold.exposure",
+    "outlet_exposure": "linkfold.exposure",
 }
 
 
@@ -99,6 +102,7 @@ __all__ = [
     "canonicalize",
     "co_exposure",
     "export_dataset",
+    "exposure_rows",
     "extract_pages",
     "fetch_pages",
     "follow_links",
@@ -114,6 +118,7 @@ __all__ = [
     "lookup",
     "make_engine",
     "outlet_attributes",
+    "outlet_exposure",
     "outlet_report",
     "outlet_table",
     "recanonicalize",
@@ -121,5 +126,6 @@ __all__ = [
     "run_dedupe",
     "run_nightly",
     "url_key",
+    "write_exposure",
     "write_network",
 ]

@@ -75,7 +75,8 @@ def tokens_group() -> None:
 
 @tokens_group.command("create")
 @click.option("--scope", type=click.Choice([s.value for s in tok.Scope]), required=True,
-              help="read: answers reads; write: reads and manual decisions.")
+              help="read: answers reads; write: reads and manual decisions; units: reads and unit-level "
+                   "exposure rows (personal data; neither of the others includes them).")
 @click.option("--note", required=True, metavar="TEXT", help="Who or what the token is for (kept with it).")
 @common_options
 @pass_ctx
