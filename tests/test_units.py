@@ -250,3 +250,14 @@ def test_the_quick_base32_of_a_mac_is_the_standard_librarys():
 
     for mac in [bytes(32), b"\xff" * 32, *(os.urandom(32) for _ in range(2000))]:
         assert _b32_of_32(mac) == base64.b32encode(mac).decode().rstrip("=").lower()
+
+
+def test_a_unit_path_no_record_has_is_refused_before_loading(engine, tmp_path):
+    from linkfold.errors import MissingColumnError
+
+    _, posts = _panel(tmp_path, 5)
+    before = _counts(engine)
+    with pytest.raises(MissingColumnError, match=r"author\.hnadle"):
+        ingest_dump(engine, [posts], dataset="posts", url_column="links.*.url", unit_column="author.hnadle",
+                    pseudonym_key=KEY)
+    assert _counts(engine) == before

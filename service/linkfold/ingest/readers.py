@@ -569,7 +569,7 @@ class _JsonLines(_Format):
     def check(self) -> None:
         """Look at the first records: fail now if none has the URL path, naming the members found."""
         members: dict[str, None] = {}
-        objects = reached = 0
+        objects = reached = units = 0
         first_miss: str | None = None
         nonblank = 0
         unholdable = 0
@@ -595,6 +595,8 @@ class _JsonLines(_Format):
                         reached += 1
                     elif first_miss is None:
                         first_miss = got.missing or f"no element has the member at {path.text!r}"
+                if self.unit_path is not None and resolve(self.unit_path, record).values:
+                    units += 1
             if len(self.peeked) >= JSONL_PEEK_LINES or held >= JSONL_PEEK_BYTES:
                 break
         self.r.columns = list(members)
@@ -606,6 +608,11 @@ class _JsonLines(_Format):
             raise MissingColumnError(f"{self.r.name}: no record among the first {objects} has {paths} "
                                      f"({first_miss}); top-level members found: {_list(self.r.columns)}",
                                      hint="pass --url-column PATH, e.g. links.*.url")
+        if objects and self.unit_path is not None and not units:
+            # A mistyped unit path would load every row without its unit: refuse it, as a missing column.
+            raise MissingColumnError(f"{self.r.name}: no record among the first {objects} has "
+                                     f"{self.unit_path.text!r} for --unit-column; top-level members found: "
+                                     f"{_list(self.r.columns)}")
 
     def _all_lines(self) -> Iterator[PhysicalLine]:
         yield from self.peeked
