@@ -85,7 +85,8 @@ def ingest_command(obj: Context, files: tuple[Path, ...], dataset: str, dump_for
 @common_options
 @pass_ctx
 def rejects_command(obj: Context, dataset: str, reason: str | None, limit: int | None, fmt: str) -> None:
-    """List the rejects of a dataset: file, line, position (-1 the row, -2 its time), reason, detail.
+    """List the rejects of a dataset: file, line, position (-1 the row, -2 its time, -3 its unit), reason,
+    detail.
 
     \b
     Example:
