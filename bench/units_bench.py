@@ -20,7 +20,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-import ingest_bench as ib  # noqa: E402  (the sibling benchmark's generator and loader)
+import ingest_bench as ib  # the sibling benchmark: its generator and loader
 
 
 def main() -> None:
