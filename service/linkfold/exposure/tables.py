@@ -17,9 +17,10 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
 from ..errors import ConfigError
+from ..outlets import outlet_attributes as attributes_in_force
+from ..outlets import outlet_columns
 from ..progress import SILENT, Progress
 from ..store import registry
-from ..store import tables as t
 from .query import COVERAGE_FIELDS, LEVELS, PERIODS, TARGET_COLUMN, coverage_select, exposure_select
 
 EXPOSURE_FORMATS = ("csv", "jsonl", "parquet")
@@ -32,18 +33,9 @@ _ROW_GROUP = 65536
 
 # --- the outlet list in force ------------------------------------------------------------------------------
 def outlet_attributes(conn: Connection) -> tuple[list[str], dict[str, dict[str, Any]]]:
-    """The attribute columns of the newest outlet list and each outlet's attributes (an outlet listed
-    under several domains or hosts takes those of its first line); none when no list is loaded."""
-    ol, oe = t.outlet_lists, t.outlet_entries
-    newest = conn.execute(sa.select(ol.c.id, ol.c.columns).order_by(ol.c.id.desc()).limit(1)).first()
-    if newest is None:
-        return [], {}
-    list_id, columns = newest
-    out: dict[str, dict[str, Any]] = {}
-    for outlet, attributes in conn.execute(sa.select(oe.c.outlet, oe.c.attributes)
-                                           .where(oe.c.list_id == list_id).order_by(oe.c.line_no)):
-        out.setdefault(outlet, dict(attributes or {}))
-    return [str(c) for c in (columns or [])], out
+    """The attribute columns of the outlet list in force and each outlet's attributes (linkfold.outlets, the
+    one reader of the list); none when no list is loaded."""
+    return [str(c) for c in outlet_columns(conn)], attributes_in_force(conn)
 
 
 # --- rows ------------------------------------------------------------------------------------------------
