@@ -47,12 +47,8 @@ def _operations(schema, **selector):
 READS = ["GET /v1/health", "GET /v1/lookup", "GET /v1/datasets", "GET /v1/datasets/{name}", "GET /v1/runs",
          "GET /v1/runs/{run_id}", "GET /v1/clusters", "GET /v1/articles/{cluster_id}",
          "GET /v1/stories/{cluster_id}", "GET /v1/ids/{cluster_id}/history", "GET /v1/decisions",
-<<<<<<< HEAD
-         "POST /v1/lookup", "GET /v1/outlets", "GET /v1/outlets/report", "GET /v1/network"]
-=======
-         "POST /v1/lookup", "GET /v1/outlets", "GET /v1/outlets/report", "GET /v1/exposure/outlets",
-         "GET /v1/exposure"]  # with a read token, the unit-level rows are a documented 403
->>>>>>> 6523bf2 (exposure over HTTP and from the client: per-outlet aggregate under a read token (small groups suppressed), unit-level rows only under a new units token scope)
+         "POST /v1/lookup", "GET /v1/outlets", "GET /v1/outlets/report", "GET /v1/network",
+         "GET /v1/exposure/outlets", "GET /v1/exposure"]  # with a read token, the unit-level rows are a documented 403
 
 
 def test_the_document_lists_every_read_endpoint(world):

@@ -6,7 +6,7 @@ linkfold/pseudonyms.py). A later load under a different key is refused, so one p
 pseudonyms in one registry without anyone noticing.
 
 Revision ID: 0020
-Revises: 0021
+Revises: 0013
 """
 
 from __future__ import annotations
@@ -15,7 +15,7 @@ import sqlalchemy as sa
 from alembic import op
 
 revision = "0020"
-down_revision = "0021"
+down_revision = "0013"
 branch_labels = None
 depends_on = None
 
