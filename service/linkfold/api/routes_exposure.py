@@ -14,13 +14,13 @@ from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Depends, Query, Request
 from fastapi.responses import StreamingResponse
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field, StringConstraints
 
 from ..errors import LinkfoldError
 from ..exposure import DEFAULT_MIN_UNITS, exposure_rows, outlet_exposure
 from .auth import Access, read_access, units_access
 from .errors import envelope, error_responses
-from .routes import NDJSON, READ_ERRORS, api_state, json_line
+from .routes import NDJSON, NO_NUL, READ_ERRORS, api_state, json_line
 
 log = logging.getLogger("linkfold")
 
@@ -28,8 +28,10 @@ router = APIRouter()
 
 ReadAccess = Annotated[Access, Depends(read_access)]
 UnitsAccess = Annotated[Access, Depends(units_access)]
-Datasets = Annotated[list[str], Query(min_length=1, max_length=20,
-                                      description="A dataset name; repeat for several (one table)")]
+# Each name as the document promises it: no NUL (refused for every route, api.screen), at most 200 characters.
+DatasetName = Annotated[str, StringConstraints(min_length=1, max_length=200, pattern=NO_NUL)]
+Datasets = Annotated[list[DatasetName], Query(min_length=1, max_length=20,
+                                              description="A dataset name; repeat for several (one table)")]
 Period = Annotated[Literal["day", "week", "month"] | None,
                    Query(description="One row per period too (UTC; weeks start on Monday)")]
 AllUrls = Annotated[bool, Query(description="Count every sighting, not only those whose final URL is an article")]
