@@ -16,6 +16,7 @@ from ..network import DEFAULT_MIN_UNITS, co_exposure
 from .auth import Access, read_access
 from .errors import error_responses
 from .routes import READ_ERRORS, api_state
+from .routes_exposure import DatasetName
 
 router = APIRouter()
 
@@ -56,7 +57,7 @@ class NetworkOut(BaseModel):
             summary="The outlet co-exposure network (aggregates only; small groups left out)",
             responses={**READ_ERRORS, **error_responses(404)})
 def network(request: Request, _access: ReadAccess,
-            dataset: Annotated[list[str], Query(min_length=1, max_length=20,
+            dataset: Annotated[list[DatasetName], Query(min_length=1, max_length=20,
                                                 description="A dataset name; repeat for several (pooled)")],
             min_units: Annotated[int, Query(ge=DEFAULT_MIN_UNITS, le=1_000_000, description=(
                 f"Fewest units an edge or an outlet needs to be shown; never below {DEFAULT_MIN_UNITS}"))]
