@@ -145,3 +145,18 @@ def test_demo_loads_its_outlet_list(tmp_path: Path) -> None:
     assert header.split() == ["outlet", "type", "reach", "coding", "founded", "datasets", "sightings", "units",
                               "urls", "articles", "stories", "listed"]
     assert any(line.strip().startswith("Eastbrook Gazette") for line in report.outlets)
+
+
+def test_demo_shows_exposure_and_the_outlet_network(tmp_path: Path) -> None:
+    """Issue 18's "the demo shows each": exposure tables and the co-exposure network of the panel."""
+    import csv
+
+    from linkfold.demo import run_demo
+
+    report = run_demo(tmp_path / "demo")
+    text = "\n".join(report.lines())
+    assert "exposure of northvale-panel by outlet" in text and "co-exposure network of northvale-panel" in text
+    with (tmp_path / "demo" / "network-edges.csv").open(encoding="utf-8") as fh:
+        edges = list(csv.DictReader(fh))
+    assert edges and all(e["outlet_a"] < e["outlet_b"] and int(e["units"]) >= 5 for e in edges)
+    assert (tmp_path / "demo" / "network-nodes.csv").exists()

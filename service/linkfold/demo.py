@@ -20,6 +20,7 @@ from .content.stage import import_pages
 from .dedupe.stage import list_clusters
 from .errors import InputError
 from .exposure import write_exposure
+from .network import write_network
 from .follow import import_redirects
 from .ingest import ingest_dump, lookup
 from .jobs.nightly import run_nightly
@@ -199,6 +200,10 @@ def run_demo(workdir: Path, *, settings: Settings | None = None, progress: Progr
             out = workdir / f"exposure-{level}.csv"
             exposure = write_exposure(engine, datasets=["northvale-panel"], level=level, by=by, out=out)
             report.notes.extend(exposure.lines())
+        # The outlets the same panellists read, as a network (docs/network.md): edges and nodes as CSV.
+        network = write_network(engine, datasets=["northvale-panel"], out=workdir / "network-edges.csv",
+                                nodes_out=workdir / "network-nodes.csv")
+        report.notes.extend(network.lines())
         return report
     finally:
         engine.dispose()
