@@ -20,10 +20,10 @@ from .content.stage import import_pages
 from .dedupe.stage import list_clusters
 from .errors import InputError
 from .exposure import write_exposure
-from .network import write_network
 from .follow import import_redirects
 from .ingest import ingest_dump, lookup
 from .jobs.nightly import run_nightly
+from .network import write_network
 from .outlets import load_outlet_list, outlet_table
 from .progress import SILENT, Progress
 from .settings import Settings, load_settings
