@@ -695,7 +695,7 @@ def _amp_cache_target(parts: _parse.Parts, label: str) -> str | None:
 #: the article's URL as a parameter, like a redirect wrapper, but it is a page of its own (a form), not the
 #: article, so a generic wrapper never unwraps it. Common practice; see docs/canonical-form.md.
 SHARE_SEGMENTS = frozenset({"share", "sharer", "sharing", "sharearticle", "shareurl", "intent", "submit",
-                            "compose", "post", "bookmark", "bookmarks", "addtoany", "send", "pin", "tweet",
+                            "compose", "post", "bookmark", "bookmarks", "send", "pin",
                             "mail", "email", "messaging"})
 
 
