@@ -11,6 +11,7 @@ from typing import Any
 
 import click
 
+from .._tabular import csv_cell
 from ..errors import OutletListError
 from ..outlets import (
     PREFER_CHOICES,
@@ -37,21 +38,11 @@ def _dataset_option(func: Any) -> Any:
                         help="Count only these datasets (repeat for several; default: all).")(func)
 
 
-def _cell(value: Any) -> Any:
-    if value is None:
-        return ""
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, list | dict):
-        return json.dumps(value, ensure_ascii=False)
-    return value
-
-
 def _write_csv(rows: Sequence[Mapping[str, Any]], columns: Sequence[str]) -> None:
     writer = csv.writer(sys.stdout, lineterminator="\r\n")
     writer.writerow(columns)
     for row in rows:
-        writer.writerow([_cell(row.get(c)) for c in columns])
+        writer.writerow([csv_cell(row.get(c)) for c in columns])
     sys.stdout.flush()
 
 

@@ -16,6 +16,7 @@ from typing import IO, Any
 import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
+from .._tabular import atomic_path, csv_cell
 from ..errors import ConfigError
 from ..outlets import outlet_attributes as attributes_in_force
 from ..outlets import outlet_columns
@@ -145,18 +146,6 @@ class ExposureSummary:
                 "rows": self.rows, "out": self.out, **self.coverage}
 
 
-def _cell(value: Any) -> Any:
-    if value is None:
-        return ""
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, datetime):
-        return value.isoformat()
-    if isinstance(value, dict | list):
-        return json.dumps(value, ensure_ascii=False)
-    return value
-
-
 def _json_value(value: Any) -> Any:
     return value.isoformat() if isinstance(value, datetime) else value
 
@@ -168,7 +157,7 @@ def _write_text(table: ExposureTable, fmt: str, stream: IO[str], progress: Progr
         writer = csv.writer(stream, lineterminator="\n")
         writer.writerow(cols)
         for row in table.rows:
-            writer.writerow([_cell(row[c]) for c in cols])
+            writer.writerow([csv_cell(row[c]) for c in cols])
             n += 1
             if n % 10000 == 0:
                 progress.advance(10000)
@@ -217,7 +206,7 @@ def _write_parquet(table: ExposureTable, path: Path, progress: Progress) -> int:
             for c, col in columns.items():
                 v = row[c]
                 # Lab attributes are text in every format (a CSV outlet list gives text anyway).
-                col.append(v if c in known or v is None or isinstance(v, str) else _cell(v))
+                col.append(v if c in known or v is None or isinstance(v, str) else csv_cell(v))
             n += 1
             if len(columns[table.columns[0]]) >= _ROW_GROUP:
                 flush()
@@ -233,7 +222,6 @@ def write_exposure(engine: Engine, *, datasets: Sequence[str], level: str = "out
     """Write the exposure table (:func:`exposure_rows`) as CSV (with a header), JSON lines or Parquet to
     ``out``: a path (written beside it and renamed when complete), an open text stream, or ``None`` for
     stdout (not for Parquet)."""
-    from ..ingest.export import _atomic_path
 
     if fmt not in EXPOSURE_FORMATS:
         raise ConfigError(f"unknown format {fmt!r}: use one of {', '.join(EXPOSURE_FORMATS)}")
@@ -244,7 +232,7 @@ def write_exposure(engine: Engine, *, datasets: Sequence[str], level: str = "out
     try:
         if isinstance(out, str | Path):
             path = Path(out)
-            with _atomic_path(path) as tmp:
+            with atomic_path(path) as tmp:
                 if fmt == "parquet":
                     n = _write_parquet(table, tmp, progress)
                 else:

@@ -10,11 +10,8 @@ from __future__ import annotations
 
 import csv
 import json
-import os
 import sys
-import tempfile
 from collections.abc import Iterator
-from contextlib import contextmanager
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
@@ -22,7 +19,8 @@ from typing import IO, Any
 
 from sqlalchemy.engine import Engine
 
-from ..errors import ConfigError, InputError
+from .._tabular import atomic_path, csv_cell
+from ..errors import ConfigError
 from ..progress import SILENT, Progress
 from ..store import registry
 from ..store.registry import LINK_COLUMNS
@@ -47,14 +45,6 @@ def _iso(value: datetime | None) -> str | None:
     return value.isoformat() if value is not None else None
 
 
-def _cell(value: Any) -> Any:
-    if value is None:
-        return ""
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    return _iso(value) if isinstance(value, datetime) else value
-
-
 def _parquet_schema():
     import pyarrow as pa
 
@@ -68,22 +58,6 @@ def _parquet_schema():
     ])
 
 
-@contextmanager
-def _atomic_path(out: Path) -> Iterator[Path]:
-    out = out.expanduser()
-    if not out.parent.is_dir():
-        raise InputError(f"{out}: folder {out.parent} does not exist")
-    fd, tmp = tempfile.mkstemp(prefix=f".{out.name}.", suffix=".part", dir=out.parent)
-    os.close(fd)
-    tmp_path = Path(tmp)
-    try:
-        yield tmp_path
-        os.replace(tmp_path, out)
-    except BaseException:
-        tmp_path.unlink(missing_ok=True)
-        raise
-
-
 def _write_text(rows: Iterator[tuple], fmt: str, stream: IO[str], progress: Progress) -> int:
     n = 0
     if fmt == "csv":
@@ -93,7 +67,7 @@ def _write_text(rows: Iterator[tuple], fmt: str, stream: IO[str], progress: Prog
             # An empty cell is "no value": CSV cannot tell null from the empty text, and no stored value
             # is the empty text (row keys fall back to line numbers, URLs are never blank). Truth values
             # are written as JSON writes them.
-            writer.writerow([_cell(v) for v in row])
+            writer.writerow([csv_cell(v) for v in row])
             n += 1
             if n % 10000 == 0:
                 progress.advance(10000)
@@ -157,7 +131,7 @@ def export_dataset(engine: Engine, dataset: str, *, fmt: str = "csv", out: str |
         try:
             if isinstance(out, str | Path):
                 path = Path(out)
-                with _atomic_path(path) as tmp:
+                with atomic_path(path) as tmp:
                     if fmt == "parquet":
                         n = _write_parquet(rows, tmp, progress, row_group)
                     else:

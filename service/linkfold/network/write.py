@@ -13,6 +13,7 @@ from typing import IO, Any
 
 from sqlalchemy.engine import Engine
 
+from .._tabular import atomic_path, csv_cell
 from ..errors import ConfigError
 from ..progress import SILENT, Progress
 from .graph import (
@@ -54,18 +55,6 @@ class NetworkSummary:
         return dict(self.__dict__)
 
 
-def _cell(value: Any) -> Any:
-    if value is None:
-        return ""
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, float):
-        return repr(value)  # shortest text that reads back to the same float
-    if isinstance(value, dict | list):
-        return json.dumps(value, ensure_ascii=False)
-    return value
-
-
 def write_rows(rows: Iterable[Mapping[str, Any]], columns: Sequence[str], fmt: str, stream: IO[str],
                progress: Progress = SILENT) -> int:
     """Rows as CSV (RFC 4180, with a header; empty cell for no value) or JSON lines; returns the count."""
@@ -74,7 +63,7 @@ def write_rows(rows: Iterable[Mapping[str, Any]], columns: Sequence[str], fmt: s
         writer = csv.writer(stream, lineterminator="\n")
         writer.writerow(columns)
         for row in rows:
-            writer.writerow([_cell(row.get(c)) for c in columns])
+            writer.writerow([csv_cell(row.get(c)) for c in columns])
             n += 1
             if n % 10000 == 0:
                 progress.advance(10000)
@@ -89,9 +78,8 @@ def write_rows(rows: Iterable[Mapping[str, Any]], columns: Sequence[str], fmt: s
 
 
 def _to_file(path: Path, write: Any, binary: bool = False) -> None:
-    from ..ingest.export import _atomic_path
 
-    with _atomic_path(path) as tmp:
+    with atomic_path(path) as tmp:
         if binary:
             with tmp.open("wb") as fh:
                 write(fh)
