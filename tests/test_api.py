@@ -9,7 +9,7 @@ from datetime import datetime, timedelta
 import pytest
 
 from linkfold.api import create_app
-from linkfold.jobs.runlog import finish_run, start_run
+from linkfold.store.runs import finish_run, start_run
 from linkfold.store.tokens import create_token
 from test_api_support import DUMP_ROWS, AsgiClient, load_demo_dump, settings_for
 

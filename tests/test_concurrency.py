@@ -301,7 +301,7 @@ def test_a_run_whose_process_was_killed_shows_as_interrupted_everywhere(db_url, 
     from test_api_support import AsgiClient, settings_for
 
     script = ("import sys, time\n"
-              "from linkfold.jobs.runlog import start_run\n"
+              "from linkfold.store.runs import start_run\n"
               "from linkfold.store import make_engine\n"
               f"e = make_engine({db_url!r})\n"
               "print(start_run(e, sys.argv[1]), flush=True)\n"
@@ -355,7 +355,7 @@ def test_a_pid_taken_by_a_later_process_is_not_the_runs():
     import socket
     from datetime import UTC, datetime, timedelta
 
-    from linkfold.jobs.runlog import process_gone
+    from linkfold.store.runs import process_gone
 
     other = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"])
     try:

@@ -14,8 +14,8 @@ from datetime import UTC, datetime, timedelta
 import pytest
 
 from linkfold.errors import LockHeld
-from linkfold.jobs.lock import acquire_lock, hold_lock, read_lock
 from linkfold.store import tables as t
+from linkfold.store.locks import acquire_lock, hold_lock, read_lock
 
 
 def test_second_holder_is_refused_with_who_holds_it(engine):
@@ -52,7 +52,7 @@ def test_killed_holder_releases_the_lock(db_url, engine):
     script = textwrap.dedent(f"""
         import sys, time
         from linkfold.store import make_engine
-        from linkfold.jobs.lock import acquire_lock
+        from linkfold.store.locks import acquire_lock
         lock = acquire_lock(make_engine({db_url!r}))
         print("held", flush=True)
         time.sleep(120)

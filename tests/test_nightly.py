@@ -21,10 +21,10 @@ import sqlalchemy as sa
 from dedupe_world import bulk_world, registry_snapshot, settings
 from linkfold.cli import main
 from linkfold.errors import LockHeld
-from linkfold.jobs.lock import hold_lock
 from linkfold.jobs.nightly import list_runs, run_nightly, show_run
 from linkfold.store import make_engine
 from linkfold.store import tables as t
+from linkfold.store.locks import hold_lock
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -60,7 +60,7 @@ def test_a_second_nightly_is_refused_and_names_the_holder(db_url, engine, tmp_pa
         [sys.executable, "-c", textwrap.dedent(f"""
             import sys, time
             from linkfold.store import make_engine
-            from linkfold.jobs.lock import acquire_lock
+            from linkfold.store.locks import acquire_lock
             lock = acquire_lock(make_engine({db_url!r}))
             print("held", flush=True)
             sys.stdin.read()

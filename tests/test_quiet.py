@@ -22,8 +22,8 @@ import pytest
 from linkfold.cli import main, setup_logging, teardown_logging
 from linkfold.content.extract import EXTRACTOR_LOGGERS
 from linkfold.demo import DEMO_DUMPS, fixtures_dir
-from linkfold.jobs.lock import hold_lock
 from linkfold.store import make_engine
+from linkfold.store.locks import hold_lock
 
 EMPTY_PAGE = "<!doctype html><html><head><title></title></head><body></body></html>\n"
 

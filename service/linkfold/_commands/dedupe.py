@@ -19,8 +19,8 @@ from ..dedupe.stage import (
     thresholds_report,
 )
 from ..errors import StageFailed
-from ..jobs.lock import hold_lock
 from ..jobs.nightly import list_runs, run_nightly, show_run
+from ..store.locks import hold_lock
 from ._common import Context, common_options, format_option, pass_ctx, to_json, write_jsonl, write_table
 
 

@@ -48,12 +48,12 @@ from ..follow.guard import AddressRefused, ResolveFailed, Resolver, literal_addr
 from ..follow.report import explain_refusal
 from ..follow.runner import request_url, run_requests
 from ..follow.stage import never_follow_check, next_attempt
-from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import pages as sp
 from ..store.registry import get_dataset
 from ..store.rulesets import latest_ruleset
+from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
 from .mediatype import is_html
 from .pages import keep_headers

@@ -33,12 +33,12 @@ from sqlalchemy.engine import Engine
 from ..canon import Canonical, Canonicaliser, Ruleset
 from ..errors import ConfigError, InputError, InvalidURL
 from ..ingest.rows import storable
-from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import pages as sp
 from ..store.conflicts import retrying
 from ..store.rulesets import latest_ruleset
+from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
 from ._files import LineProblem, json_objects
 from .canonical_link import DeclaredLink, Relation, declared_link

@@ -31,12 +31,12 @@ from sqlalchemy.engine import Engine
 from .._json import JSON_LIMITS, json_problem
 from ..canon import Canonical, Canonicaliser
 from ..errors import DumpFormatError, InputError, InvalidURL, MissingColumnError
-from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import finals
 from ..store.conflicts import retrying
 from ..store.rulesets import latest_ruleset
+from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
 
 FORMATS = ("csv", "tsv", "jsonl")

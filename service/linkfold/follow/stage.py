@@ -35,12 +35,12 @@ from sqlalchemy.engine import Engine
 
 from ..canon import Canonical, Canonicaliser, Ruleset
 from ..errors import ConfigError, InvalidURL
-from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import finals
 from ..store.registry import get_dataset
 from ..store.rulesets import latest_ruleset
+from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
 from .chain import Chain, State, follow_chain
 from .client import ClientConfig, Failure, SafeClient

@@ -32,13 +32,13 @@ from sqlalchemy.engine import Connection, Engine
 
 from ..canon import Canonicaliser, Ruleset, load_rules
 from ..errors import ConfigError, InputError
-from ..jobs.runlog import recording_run
 from ..progress import SILENT, Progress
 from ..pseudonyms import SCHEME, Pseudonymiser
 from ..store import registry
 from ..store.bulk import EncodedRows
 from ..store.pseudonym_keys import check_key
 from ..store.rulesets import get_ruleset, latest_ruleset, store_ruleset
+from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
 from .formats import (
     DEFAULT_MAX_LINE_BYTES,

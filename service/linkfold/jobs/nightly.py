@@ -29,8 +29,8 @@ from sqlalchemy.engine import Engine
 from ..errors import LinkfoldError
 from ..progress import SILENT, Progress
 from ..store import tables as t
-from .lock import acquire_lock
-from .runlog import RunStatus, finish_run, observed, process_gone, recording_run, start_run
+from ..store.locks import acquire_lock
+from ..store.runs import RunStatus, finish_run, observed, process_gone, recording_run, start_run
 
 log = logging.getLogger("linkfold")
 

@@ -251,7 +251,7 @@ follow_attempts = sa.Table(
 )
 
 # --- jobs -------------------------------------------------------------------------------------------------
-# Who holds an exclusive job lock (the nightly job); see jobs/lock.py for how stale rows are detected.
+# Who holds an exclusive job lock (the nightly job); see store/locks.py for how stale rows are detected.
 job_locks = sa.Table(
     "job_locks", metadata,
     sa.Column("name", sa.String(40), primary_key=True),

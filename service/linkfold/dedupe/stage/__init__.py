@@ -16,9 +16,9 @@ from typing import Any
 
 from sqlalchemy.engine import Engine
 
-from ...jobs.runlog import recording_run
 from ...progress import SILENT, Progress
 from ...store import pending as pq
+from ...store.runs import recording_run
 from ...store.stats import refresh_statistics
 from .. import SignatureParams, Thresholds
 from .decisions import Decision, DecisionResult, list_decisions, record_decision, resolve_ref

@@ -21,12 +21,12 @@ from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
-from typing import Any
+from typing import Any, Protocol, runtime_checkable
 
 import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
-from ..store import tables as t
+from . import tables as t
 
 _MAX_ERROR_CHARS = 4000
 
@@ -41,6 +41,19 @@ class RunStatus(enum.StrEnum):
 
 
 Bind = Engine | Connection
+
+
+@runtime_checkable
+class StageSummary(Protocol):
+    """What every stage returns: the run it recorded, its counts as JSON-ready data, and the lines a
+    person reads. The CLI prints ``lines()`` (or ``as_dict()`` as JSON), the API answers ``as_dict()``,
+    and the nightly job stores ``as_dict()`` as the stage's counts, so all three say the same thing."""
+
+    run_id: int | None
+
+    def as_dict(self) -> dict[str, Any]: ...
+
+    def lines(self) -> list[str]: ...
 
 
 def _execute(bind: Bind, stmt: sa.Executable) -> sa.CursorResult:
@@ -92,7 +105,7 @@ def _process_started(pid: int) -> datetime | None:
 def process_gone(row: Mapping[str, Any]) -> bool:
     """Whether a ``running`` run's process has ended without recording an end (checked on its own host
     only: the pid is gone, or belongs to a process that started after the run did)."""
-    from .lock import pid_alive
+    from .locks import pid_alive
 
     pid, host = row.get("pid"), row.get("host")
     if row.get("status") != RunStatus.RUNNING.value or pid is None or host != socket.gethostname():

@@ -25,7 +25,7 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Engine
 
 from ..errors import LockHeld
-from ..store import tables as t
+from . import tables as t
 
 log = logging.getLogger("linkfold")
 
