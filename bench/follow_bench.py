@@ -4,7 +4,7 @@ Baseline: a bare ``httpx.AsyncClient(follow_redirects=True)`` sending HEAD reque
 chains with the same number of requests in flight — no guard, no robots, no per-host bookkeeping, no
 loop detection, no canonicalisation. It is the least an httpx-based follower can cost.
 
-Measured: ``follow_chain`` over :class:`linkfold.follow.SafeClient` (guard with address pinning,
+Measured: ``follow_chain`` over :class:`linkfold.web.SafeClient` (guard with address pinning,
 politeness slots with a zero host delay, retries armed) on the same chains.
 
 Both run against a threaded HTTP server on 127.0.0.1 (in a process of its own) serving chains of
@@ -27,7 +27,7 @@ from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 
 import httpx
 
-from linkfold.follow import ClientConfig, SafeClient, follow_chain
+from linkfold.web import ClientConfig, SafeClient, follow_chain
 
 TARGET = 0.5
 

@@ -44,7 +44,7 @@ def run(engine, db_url, **kw):
 
 
 def sp_resolver():
-    from linkfold.follow.guard import StaticResolver
+    from linkfold.web.guard import StaticResolver
 
     return StaticResolver(NAMES)
 

@@ -22,11 +22,11 @@ from httpserver import load_url_list as load
 from httpserver import loopback_settings as settings_for
 from linkfold.canon import Canonicaliser, parse_rules
 from linkfold.follow import follow_links, import_redirects
-from linkfold.follow.guard import StaticResolver
 from linkfold.ingest import export_dataset, lookup
 from linkfold.store import finals
 from linkfold.store import tables as t
 from linkfold.store.rulesets import store_ruleset
+from linkfold.web.guard import StaticResolver
 
 FINALS = ("final_url", "final_domain", "final_outlet", "final_is_article")
 RULES = """

@@ -9,9 +9,9 @@ import pytest
 
 from httpserver import LoopbackOnlyBackend
 from linkfold.errors import InvalidURL
-from linkfold.follow.chain import State, follow_chain, next_url
-from linkfold.follow.client import ClientConfig, Failure, SafeClient
-from linkfold.follow.guard import StaticResolver
+from linkfold.web import ClientConfig, Failure, SafeClient
+from linkfold.web.guard import StaticResolver
+from linkfold.web.redirects import State, follow_chain, next_url
 
 CONFIG = ClientConfig(contact="mailto:lab@university.example", timeout=2.0, max_bytes=64 * 1024,
                       host_delay=0.0, retries=1, max_wait=5.0, allow_networks=("127.0.0.0/8",))

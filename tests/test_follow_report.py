@@ -23,9 +23,10 @@ from httpserver import load_url_list as load
 from httpserver import loopback_settings as settings_for
 from linkfold.cli import main
 from linkfold.errors import ConfigError
-from linkfold.follow import FollowReport, explain_refusal, follow_links, follow_report
-from linkfold.follow.guard import StaticResolver
+from linkfold.follow import FollowReport, follow_links, follow_report
 from linkfold.store import tables as t
+from linkfold.web import explain_refusal
+from linkfold.web.guard import StaticResolver
 
 NAMES = {"short.test": ["127.0.0.1"], "news.test": ["127.0.0.1"], "private.test": ["10.0.0.5"]}
 

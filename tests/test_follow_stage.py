@@ -12,10 +12,11 @@ from httpserver import LoopbackOnlyBackend
 from httpserver import load_url_list as load
 from httpserver import loopback_settings as settings_for
 from linkfold.errors import ConfigError, NotFound
-from linkfold.follow import follow_links, next_attempt
-from linkfold.follow.guard import StaticResolver
+from linkfold.follow import follow_links
 from linkfold.store import evidence as ev
 from linkfold.store import tables as t
+from linkfold.web import next_attempt
+from linkfold.web.guard import StaticResolver
 
 NAMES = {"short.test": ["127.0.0.1"], "news.test": ["127.0.0.1"], "private.test": ["10.0.0.5"]}
 

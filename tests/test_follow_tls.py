@@ -23,10 +23,11 @@ import pytest
 from httpserver import LoopbackOnlyBackend, load_url_list
 from httpserver import loopback_settings as settings_for
 from linkfold.errors import ConfigError
-from linkfold.follow import ClientConfig, Failure, follow_links, follow_report
-from linkfold.follow.client import classify
-from linkfold.follow.guard import StaticResolver
+from linkfold.follow import follow_links, follow_report
 from linkfold.settings import load_settings
+from linkfold.web import ClientConfig, Failure
+from linkfold.web.failures import classify
+from linkfold.web.guard import StaticResolver
 
 NAME = "secure-desk.test"
 

@@ -24,7 +24,7 @@ from httpserver import LoopbackOnlyBackend, load_url_list, loopback_settings
 from linkfold.canon import canonicalize
 from linkfold.cli import main
 from linkfold.follow import follow_links
-from linkfold.follow.guard import (
+from linkfold.web.guard import (
     AddressGuard,
     AddressRefused,
     StaticResolver,
@@ -201,7 +201,7 @@ def test_every_form_is_refused_end_to_end_with_the_reason_shown(db_url, tmp_path
         raise AssertionError(f"the system resolver was asked about {host!r}")
 
     # Every host below is an address once our parser has read it: the resolver must never be asked.
-    monkeypatch.setattr("linkfold.follow.client.system_resolver", no_resolver)
+    monkeypatch.setattr("linkfold.web.client.system_resolver", no_resolver)
     port = server.port
     hosts = ["127.0.0.1", "2130706433", "0x7f000001", "0177.0.0.1", "127.1", "0x7f.1", "127.0.1",
              "%31%32%37.0.0.1", "[::ffff:127.0.0.1]", "[::127.0.0.1]", "[64:ff9b::7f00:1]", "[2002:7f00:1::1]",
@@ -214,7 +214,7 @@ def test_every_form_is_refused_end_to_end_with_the_reason_shown(db_url, tmp_path
     err = capsys.readouterr().err
     assert server.seen == [] and asked == []
     assert "refused:  14 (refused 14)" in err, err
-    # One line a reason, with the count and what would allow it (follow.report.explain_refusal).
+    # One line a reason, with the count and what would allow it (linkfold.web.explain_refusal).
     assert re.search(r"^\s+13  a loopback address \(127\.0\.0\.0/8, ::1\): the request-forgery guard", err, re.M), err
     assert re.search(r"^\s+1  the unspecified address", err, re.M), err
 

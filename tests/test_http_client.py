@@ -16,15 +16,9 @@ import pytest
 from httpserver import LoopbackOnlyBackend, LoopbackServer
 from linkfold import __version__
 from linkfold.errors import ConfigError
-from linkfold.follow.client import (
-    ClientConfig,
-    Failure,
-    FetchError,
-    SafeClient,
-    backoff_delay,
-    parse_retry_after,
-)
-from linkfold.follow.guard import StaticResolver
+from linkfold.web import ClientConfig, Failure, FetchError, SafeClient
+from linkfold.web.guard import StaticResolver
+from linkfold.web.retry import backoff_delay, parse_retry_after
 
 CONTACT = "mailto:lab@university.example"
 BASE = ClientConfig(contact=CONTACT, timeout=2.0, max_bytes=64 * 1024, concurrency=4, host_concurrency=2,

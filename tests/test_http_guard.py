@@ -9,7 +9,7 @@ import re
 import pytest
 
 from linkfold.errors import ConfigError
-from linkfold.follow.guard import (
+from linkfold.web.guard import (
     AddressGuard,
     AddressRefused,
     ResolveFailed,

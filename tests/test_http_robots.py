@@ -11,7 +11,7 @@ import urllib.robotparser
 
 import pytest
 
-from linkfold.follow.robots import RobotRules, parse_robots
+from linkfold.web.robots import RobotRules, parse_robots
 
 # RFC 9309 §5.1 "Simple Example" (from memory).
 SIMPLE = """\

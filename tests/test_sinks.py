@@ -356,8 +356,8 @@ def test_merges_through_a_target_that_becomes_a_sink_are_split_next_run(engine, 
 def test_never_follow_hosts_are_not_asked(engine, db_url, tmp_path, server):
     from httpserver import LoopbackOnlyBackend, load_url_list, loopback_settings
     from linkfold.follow import follow_links
-    from linkfold.follow.guard import StaticResolver
-    from linkfold.follow.stage import never_follow_check
+    from linkfold.web.guard import StaticResolver
+    from linkfold.web.runner import never_follow_check
 
     _store_rules(engine)
     rules = parse_rules(RULES, source="messy.toml")
@@ -393,7 +393,7 @@ def test_never_follow_hosts_are_not_asked(engine, db_url, tmp_path, server):
 def test_never_follow_hosts_are_not_fetched_either(engine, db_url, tmp_path, server):
     from httpserver import LoopbackOnlyBackend, load_url_list, loopback_settings
     from linkfold.content.stage import fetch_pages
-    from linkfold.follow.guard import StaticResolver
+    from linkfold.web.guard import StaticResolver
 
     _store_rules(engine)
     load_url_list(engine, tmp_path, "panel", [server.url("/final/1", host="www.tracker.test"),

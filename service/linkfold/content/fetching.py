@@ -1,17 +1,17 @@
 """The fetch stage: GET pending canonical URLs through the safe client and store the pages.
 
-The client, its request-forgery guard, robots.txt handling, politeness, caps and failure classes are the
-follow stage's (:mod:`linkfold.follow.client`); this module adds only what fetching a page needs:
+The requests are the shared layer's (:mod:`linkfold.web`): its client, request-forgery guard, robots.txt
+handling, politeness, caps and failure classes, and its one redirect loop in its ``keep_body`` mode (every
+hop a GET that robots.txt allows first, RFC 9309; the final body kept, cut at ``http_max_bytes`` and
+flagged ``truncated``). This module adds only what storing a page needs:
 
-* every hop is a GET that robots.txt must allow first (RFC 9309), since the body of the last one is kept;
-* redirects (RFC 9110 §15.4) are followed hop by hop with the follow stage's rules for ``Location``,
-  loops and ``max_hops``; each hop between two canonical URLs is stored as a ``redirect`` link, with the
-  same source (``fetched``) as the follow stage's, so one redirect seen by both is one row;
+* each hop between two canonical URLs is stored as a ``redirect`` link, with the same source
+  (``fetched``) as the follow stage's, so one redirect seen by both is one row;
 * a 2xx answer becomes a page: status, the headers in :data:`~linkfold.content.KEPT_HEADERS`, the final
-  URL, the body up to ``http_max_bytes`` (cut there and flagged ``truncated`` rather than refused, since
-  the start of an article is what extraction needs), compressed. A 2xx answer that is not HTML is stored
-  without its body: extraction then marks it ``not_html``, and no PDF or video is kept that nothing reads;
-* anything else is a failure in ``fetch_results`` with the follow stage's class and backoff schedule.
+  URL, the body (the start of an article is what extraction needs), compressed. A 2xx answer that is not
+  HTML is stored without its body: extraction then marks it ``not_html``, and no PDF or video is kept
+  that nothing reads;
+* anything else is a failure in ``fetch_results`` with the shared failure class and retry schedule.
 
 The async client runs inside ``asyncio.run`` from the sync :func:`fetch_pages`; results are written from
 the main thread in batches, one transaction each, so SQLite keeps a single writer and a killed run loses at
@@ -22,32 +22,16 @@ from __future__ import annotations
 
 import logging
 from collections import Counter
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field
-from datetime import UTC, datetime
+from datetime import datetime
 from typing import Any
 
 import httpcore
-import httpx
 from sqlalchemy.engine import Engine
 
 from ..canon import Canonical, Canonicaliser
 from ..errors import ConfigError, InvalidURL
-from ..follow.chain import REFUSALS, Hop, decode_location, next_url
-from ..follow.client import (
-    NEVER_FOLLOW_REASON,
-    REDIRECT_STATUSES,
-    ClientConfig,
-    Failure,
-    FetchError,
-    Reply,
-    SafeClient,
-    classify,
-)
-from ..follow.guard import AddressRefused, ResolveFailed, Resolver, literal_address
-from ..follow.report import explain_refusal
-from ..follow.runner import request_url, run_requests
-from ..follow.stage import never_follow_check, next_attempt
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import pages as sp
@@ -55,6 +39,8 @@ from ..store.registry import get_dataset
 from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
+from ..web import Chain, ClientConfig, Resolver, State, explain_refusal
+from ..web.runner import due_again, never_follow_check, run_chains, tally
 from .mediatype import is_html
 from .pages import keep_headers
 
@@ -67,108 +53,9 @@ WRITE_BATCH = 100
 FETCH_SOURCE = "fetch"
 
 
-@dataclass(frozen=True)
-class Fetched:
-    """How one GET chain ended. ``reply`` is the 2xx answer whose body is the page."""
-
-    start: str
-    state: str  # fetched | failed | refused
-    final_url: str
-    hops: tuple[Hop, ...] = ()
-    failure: Failure | None = None
-    detail: str | None = None
-    status: int | None = None
-    retry_after: float | None = None
-    reply: Reply | None = None
-    requests: int = 0
-    at: datetime = field(default_factory=lambda: datetime.now(UTC))
-    reason: str | None = None  # a refusal's stable key (FetchError.reason)
-
-
-def _defragment(url: str) -> str:
-    return url.split("#", 1)[0]
-
-
-async def _guard_check(client: SafeClient, url: str) -> None:
-    """Raise the guard's refusal for ``url``'s host, if it has one.
-
-    The client treats a robots.txt it cannot reach as "disallow all" (RFC 9309 §2.3.1.4), and a robots.txt
-    on a refused address is unreachable, so without this a private address would be stored as a robots
-    refusal. Asked only after robots.txt said no, so the common path resolves each name once.
-    """
-    parsed = httpx.URL(url)
-    host = parsed.host
-    port = parsed.port or (443 if parsed.scheme == "https" else 80)
-    literal = literal_address(host)
-    try:
-        addresses = [str(literal)] if literal is not None else await client.backend.resolver(host, port)
-        client.guard.check_all(host, addresses)
-    except (AddressRefused, ResolveFailed) as exc:
-        raise classify(exc, url) from None
-
-
-async def fetch_one(client: SafeClient, start: str, *, max_hops: int,
-                    now: Callable[[], datetime] = lambda: datetime.now(UTC),
-                    never_follow: Callable[[str], str | None] | None = None) -> Fetched:
-    """GET ``start``, following redirects, robots.txt checked before every hop; never raises for one URL.
-    ``never_follow(url)`` names why a URL must not be asked (its host is in ``never_follow_hosts``)."""
-    url = start
-    visited = {_defragment(url)}
-    hops: list[Hop] = []
-    requests = 0
-    began = now()
-
-    def stop(state: str, failure: Failure | None, detail: str | None, *, final: str, status: int | None = None,
-             retry_after: float | None = None, reply: Reply | None = None, reason: str | None = None) -> Fetched:
-        return Fetched(start=start, state=state, final_url=final, hops=tuple(hops), failure=failure,
-                       detail=detail, status=status, retry_after=retry_after, reply=reply, requests=requests,
-                       at=began, reason=reason)
-
-    while True:
-        why = never_follow(url) if never_follow is not None else None
-        if why is not None:
-            return stop("refused", Failure.NEVER_FOLLOW, why, final=url, reason=NEVER_FOLLOW_REASON)
-        try:
-            if not await client.robots_allows(url):
-                await _guard_check(client, url)  # a refused address is "refused", not a robots verdict
-                await client.require_robots(url)  # raises, saying whether the file or its absence said no
-            reply = await client.request("GET", url, truncate=True)
-        except FetchError as exc:
-            return stop("refused" if exc.failure in REFUSALS else "failed", exc.failure, exc.detail, final=url,
-                        reason=exc.reason)
-        except httpx.InvalidURL as exc:
-            return stop("failed", Failure.BAD_URL, str(exc), final=url)
-        requests += reply.attempts
-        status = reply.status
-        if status in REDIRECT_STATUSES:
-            location = decode_location(reply)
-            if not location:
-                return stop("failed", Failure.BAD_LOCATION, f"HTTP {status} without a Location header",
-                            final=url, status=status)
-            try:
-                target = next_url(url, location)
-            except InvalidURL as exc:
-                return stop("failed", Failure.BAD_LOCATION, f"Location {location[:200]!r}: {exc}", final=url,
-                            status=status)
-            hops.append(Hop(len(hops) + 1, url, target, status, "GET", now()))
-            if _defragment(target) in visited:
-                return stop("failed", Failure.LOOP, f"hop {len(hops)} leads back to {target[:200]}",
-                            final=target, status=status)
-            if len(hops) > max_hops:
-                return stop("failed", Failure.TOO_MANY_HOPS, f"more than {max_hops} redirects", final=target,
-                            status=status)
-            visited.add(_defragment(target))
-            url = target
-            continue
-        if 200 <= status < 300:
-            return stop("fetched", None, None, final=url, status=status, reply=reply)
-        if 400 <= status < 500:
-            failure = Failure.HTTP_4XX
-        elif 500 <= status < 600:
-            failure = Failure.HTTP_5XX
-        else:
-            failure = Failure.HTTP_OTHER
-        return stop("failed", failure, f"HTTP {status}", final=url, status=status, retry_after=reply.retry_after)
+def _stored_state(chain: Chain) -> str:
+    """``fetch_results.state``: a chain that resolved is a page ``fetched``; the others keep their name."""
+    return "fetched" if chain.state is State.RESOLVED else chain.state.value
 
 
 @dataclass
@@ -233,7 +120,7 @@ class _Writer:
             log.info("URL %s met while fetching cannot be canonicalised (%s)", url[:200], exc)
             return None
 
-    def write(self, batch: Sequence[tuple[sp.FetchPending, Fetched]]) -> None:
+    def write(self, batch: Sequence[tuple[sp.FetchPending, Chain]]) -> None:
         s = self.summary
         urls: dict[str, Canonical] = {}
         for _item, got in batch:
@@ -247,7 +134,7 @@ class _Writer:
             for item, got in batch:
                 s.requests += got.requests
                 links.extend(self._links(got, ids))
-                if got.state == "fetched":
+                if got.state is State.RESOLVED:
                     rows[item.canonical_id] = self._page_row(item, got, ids)
             s.redirect_links += ev.add_links(conn, links)
             new, page_ids = sp.store_pages(conn, list(rows.values()))
@@ -256,24 +143,18 @@ class _Writer:
             outcomes = []
             for item, got in batch:
                 page_id = None
-                if got.state == "fetched":
+                if got.state is State.RESOLVED:
                     s.fetched += 1
                     page_id = page_ids.get((item.canonical_id, rows[item.canonical_id]["body_sha256"]))
-                elif got.state == "refused":
-                    s.refused[got.failure.value if got.failure else "unknown"] += 1
-                    s.refusals[got.reason or "unknown"] += 1
-                else:
-                    s.failed[got.failure.value if got.failure else "unknown"] += 1
-                due = None
-                if got.state == "failed" and got.failure is not None:
-                    due = next_attempt(got.failure, attempts.get(item.canonical_id, 0) + 1, got.at, got.retry_after)
-                outcomes.append(sp.FetchOutcome(canonical_id=item.canonical_id, state=got.state, at=got.at,
+                tally(s, got)
+                due = due_again(got, attempts.get(item.canonical_id, 0) + 1)
+                outcomes.append(sp.FetchOutcome(canonical_id=item.canonical_id, state=_stored_state(got), at=got.at,
                                                 failure=got.failure.value if got.failure else None,
                                                 http_status=got.status, page_id=page_id, next_attempt_at=due,
                                                 detail=got.detail))
             sp.record_fetch_outcomes(conn, outcomes, run_id=self.run_id)
 
-    def _links(self, got: Fetched, ids: dict[str, ev.UrlIds]) -> list[dict[str, Any]]:
+    def _links(self, got: Chain, ids: dict[str, ev.UrlIds]) -> list[dict[str, Any]]:
         rows = []
         for hop in got.hops:
             src, dst = ids.get(hop.src), ids.get(hop.dst)
@@ -286,7 +167,7 @@ class _Writer:
                          "run_id": self.run_id, "created_at": hop.at})
         return rows
 
-    def _page_row(self, item: sp.FetchPending, got: Fetched, ids: dict[str, ev.UrlIds]) -> dict[str, Any]:
+    def _page_row(self, item: sp.FetchPending, got: Chain, ids: dict[str, ev.UrlIds]) -> dict[str, Any]:
         assert got.reply is not None
         headers = keep_headers(list(got.reply.headers.multi_items()))
         body = got.reply.body or b""
@@ -336,21 +217,17 @@ def fetch_pages(engine: Engine, *, settings: Any, dataset: str | None = None, on
         summary.run_id = run.id
         writer = _Writer(engine, canon, ruleset_id=ruleset_id, run_id=run.id, summary=summary)
 
-        def write(batch: list[tuple[sp.FetchPending, Fetched]]) -> None:
+        def write(batch: list[tuple[sp.FetchPending, Chain]]) -> None:
             writer.write(batch)
             run.counts = summary.counts()
-
-        async def fetch(client: SafeClient, item: sp.FetchPending) -> Fetched | None:
-            url = request_url(item.raw, item.url)
-            return None if url is None else await fetch_one(client, url, max_hops=settings.max_hops,
-                                                            never_follow=refuse)
 
         def skip(_item: sp.FetchPending) -> None:
             summary.skipped += 1
 
         try:
-            run_requests(items, config=config, resolver=resolver, backend=backend, request=fetch,
-                         write=write, batch_size=batch_size, progress=progress, on_skip=skip)
+            run_chains(items, config=config, keep_body=True, max_hops=settings.max_hops, never_follow=refuse,
+                       write=write, batch_size=batch_size, progress=progress, on_skip=skip, resolver=resolver,
+                       backend=backend)
         finally:
             run.counts = summary.counts()
             progress.finish()
@@ -359,4 +236,4 @@ def fetch_pages(engine: Engine, *, settings: Any, dataset: str | None = None, on
     return summary
 
 
-__all__ = ["FETCH_SOURCE", "FetchSummary", "Fetched", "fetch_one", "fetch_pages"]
+__all__ = ["FETCH_SOURCE", "FetchSummary", "fetch_pages"]

@@ -24,16 +24,15 @@ from __future__ import annotations
 
 import logging
 from collections import Counter
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
-from datetime import datetime, timedelta
+from datetime import datetime
 from typing import Any
-from urllib.parse import urlsplit
 
 import httpcore
 from sqlalchemy.engine import Engine
 
-from ..canon import Canonical, Canonicaliser, Ruleset
+from ..canon import Canonical, Canonicaliser
 from ..errors import ConfigError, InvalidURL
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
@@ -42,39 +41,13 @@ from ..store.registry import get_dataset
 from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
-from .chain import Chain, State, follow_chain
-from .client import ClientConfig, Failure, SafeClient
-from .guard import Resolver
-from .report import explain_refusal
-from .runner import request_url, run_requests
+from ..web import Chain, ClientConfig, Failure, Resolver, State, explain_refusal
+from ..web.runner import due_again, never_follow_check, run_chains, tally
 
 log = logging.getLogger("linkfold")
 
-#: Failure classes that usually pass by themselves; retried sooner (see :func:`next_attempt`).
-PASSING = frozenset({Failure.DNS, Failure.CONNECT, Failure.TIMEOUT, Failure.TLS, Failure.PROTOCOL,
-                     Failure.HTTP_5XX})  # tls_certificate is not: a certificate is fixed by a person
-RETRY_FIRST_PASSING = timedelta(hours=1)
-RETRY_FIRST_LASTING = timedelta(days=1)
-RETRY_CAP_PASSING = timedelta(days=30)
-RETRY_CAP_LASTING = timedelta(days=90)
-
 #: Chains written per transaction (at most ``batch_size`` from the settings).
 WRITE_BATCH = 200
-
-
-def next_attempt(failure: Failure | str, attempts: int, at: datetime,
-                 retry_after: float | None = None) -> datetime:
-    """When a failed URL is due again: doubling per attempt from one hour (failures that tend to pass:
-    DNS, connection, timeout, TLS, protocol, 5xx) or one day (the rest: 4xx, loops …), capped at 30 and
-    90 days, and never before what the server asked for in ``Retry-After``. The schedule is common
-    practice, no source; it is deterministic so a lab can say when a link will be tried next.
-    """
-    passing = Failure(failure) in PASSING or (retry_after is not None)
-    first, cap = (RETRY_FIRST_PASSING, RETRY_CAP_PASSING) if passing else (RETRY_FIRST_LASTING, RETRY_CAP_LASTING)
-    delay = min(cap, first * (2 ** max(0, attempts - 1)))
-    if retry_after is not None:
-        delay = max(delay, timedelta(seconds=retry_after))
-    return at + delay
 
 
 @dataclass
@@ -134,30 +107,6 @@ class FollowSummary:
 
 def _by_class(counts: Counter[str]) -> str:
     return (" (" + ", ".join(f"{k} {v:,}" for k, v in sorted(counts.items())) + ")") if counts else ""
-
-
-def never_follow_check(rules: Ruleset) -> Callable[[str], str | None] | None:
-    """A check for :func:`follow_chain`: why a URL's host must not be asked (the ruleset lists it, or a
-    parent domain of it, in ``never_follow_hosts``), else None. None when the list is empty.
-
-    The host is the one the request would go to, not the canonical URL's: a wrapper URL is asked at the
-    wrapper's host even though it canonicalises to its target.
-    """
-    if not rules.never_follow_hosts:
-        return None
-    from ..canon.rules import normalise_rule_host
-
-    def check(url: str) -> str | None:
-        try:
-            host = urlsplit(url).hostname
-        except ValueError:
-            return None
-        norm = normalise_rule_host(host) if host else None
-        if norm is not None and rules.never_follows(norm):
-            return f"{norm} is listed in never_follow_hosts (rules file); no request sent"
-        return None
-
-    return check
 
 
 def canonical_hosts(hosts: Iterable[str]) -> frozenset[str]:
@@ -248,16 +197,11 @@ class _Writer:
         s.requests += chain.requests
         if chain.state is State.RESOLVED:
             s.resolved += 1
-        elif chain.state is State.REFUSED:
-            s.refused[chain.failure.value if chain.failure else "unknown"] += 1
-            s.refusals[chain.reason or "unknown"] += 1
-        else:
-            s.failed[chain.failure.value if chain.failure else "unknown"] += 1
+        tally(s, chain)
         due = None
         if chain.state is State.FAILED and chain.failure is not None:
             before = ev.follow_result(conn, item.canonical_id)
-            attempts = (before["attempts"] if before else 0) + 1
-            due = next_attempt(chain.failure, attempts, chain.at, chain.retry_after)
+            due = due_again(chain, (before["attempts"] if before else 0) + 1)
         return ev.Outcome(canonical_id=item.canonical_id, state=chain.state.value, via="fetched", at=chain.at,
                           failure=chain.failure.value if chain.failure else None, http_status=chain.status,
                           final_id=final.canonical_id if final else None, hops=len(chain.hops),
@@ -344,17 +288,13 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
             writer.write(batch)
             run.counts = summary.as_dict()
 
-        async def follow_one(client: SafeClient, item: ev.Pending) -> Chain | None:
-            url = request_url(item.raw, item.url)
-            return None if url is None else await follow_chain(client, url, max_hops=settings.max_hops,
-                                                                 never_follow=refuse)
-
         def skip(_item: ev.Pending) -> None:
             summary.skipped += 1
 
         try:
-            run_requests(items, config=config, resolver=resolver, backend=backend, request=follow_one,
-                         write=write, batch_size=batch_size, progress=progress, on_skip=skip)
+            run_chains(items, config=config, keep_body=False, max_hops=settings.max_hops, never_follow=refuse,
+                       write=write, batch_size=batch_size, progress=progress, on_skip=skip, resolver=resolver,
+                       backend=backend)
         finally:
             run.counts = summary.as_dict()
             progress.finish()
@@ -363,4 +303,4 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
     return summary
 
 
-__all__ = ["FollowSummary", "canonical_hosts", "follow_links", "never_follow_check", "next_attempt"]
+__all__ = ["FollowSummary", "canonical_hosts", "follow_links"]

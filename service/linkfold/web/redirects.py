@@ -1,17 +1,30 @@
-"""Following one URL's redirect chain over the safe client: no database, one chain in, one outcome out.
+"""The one redirect loop: where one URL leads over the safe client; no database, one chain in, one out.
 
-Per URL: HEAD first, because it costs the server nothing and a redirect needs no body. When the server
-refuses HEAD — any 4xx or 5xx other than 429/503, which the client already retried — the same URL is
-asked again with GET (after robots.txt allows it), since servers that mishandle HEAD answer with all
-kinds of errors (common practice, no source). A GET's body is never read: the status and ``Location``
-are all a redirect needs.
+Following and fetching both walk a chain with :func:`follow_chain`; what they need differs in one switch,
+``keep_body``:
 
-Redirects are 301, 302, 303, 307 and 308 (RFC 9110 §15.4). ``Location`` is resolved against the URL
-that was requested by RFC 3986 §5.2 (RFC 9110 §10.2.2); when it has no fragment the requested URL's
-fragment is kept (also RFC 9110 §10.2.2). A chain stops as a ``loop`` when a redirect leads back to a URL
-already in it, and as ``too_many_hops`` when more than ``max_hops`` redirects would be needed.
+* ``keep_body=False`` (following): HEAD first, because it costs the server nothing and a redirect needs
+  no body. When the server refuses HEAD — any 4xx or 5xx other than 429/503, which the client already
+  retried — the same URL is asked again with GET (after robots.txt allows it), since servers that
+  mishandle HEAD answer with all kinds of errors (common practice, no source). A GET's body is never read.
+* ``keep_body=True`` (fetching): every hop is a GET that robots.txt must allow first (RFC 9309), and the
+  body of the final 2xx answer is kept in :attr:`Chain.reply`, cut at ``http_max_bytes`` and flagged
+  ``truncated`` rather than refused (the start of an article is what extraction needs). When robots.txt
+  says no, the address is checked first, so a refused address is stored as the guard's refusal rather than
+  as a robots verdict (a robots.txt on a refused address is unreachable, which RFC 9309 §2.3.1.4 makes
+  "disallow all").
 
-The URLs fetched are the raw hop URLs exactly as the chain produced them, never their canonical forms:
+The rest is the same in both modes. Redirects are 301, 302, 303, 307 and 308 (RFC 9110 §15.4); the chain
+stops at the first other answer (2xx: resolved; anything else: failed). ``Location`` is resolved against
+the URL that was requested by RFC 3986 §5.2 (RFC 9110 §10.2.2); the requested URL's fragment is not part
+of that base (RFC 3986 §5.1 takes the base without it, §5.2.2 never copies it), and when the ``Location``
+has no fragment of its own the requested URL's is kept (RFC 9110 §10.2.2). A chain stops as a ``loop``
+when a redirect leads back to a URL already in it — URLs compared without fragments, since a fragment is
+never sent (RFC 9110 §7.1) — and as ``too_many_hops`` when more than ``max_hops`` redirects would be
+needed. A URL on a host the rules file lists in ``never_follow_hosts`` (the start or any hop) ends the
+chain as refused before any request is sent to it.
+
+The URLs requested are the raw hop URLs exactly as the chain produced them, never their canonical forms:
 a canonical fold (http→https, dropped parameters) could name a URL that the server does not answer.
 """
 
@@ -25,19 +38,17 @@ from enum import StrEnum
 import httpx
 
 from ..errors import InvalidURL
-from .client import NEVER_FOLLOW_REASON, REDIRECT_STATUSES, Failure, FetchError, Reply, SafeClient
+from .client import Reply, SafeClient
+from .failures import NEVER_FOLLOW_REASON, REDIRECT_STATUSES, REFUSALS, Failure, FetchError, classify
+from .guard import AddressRefused, ResolveFailed, literal_address
 
 
 class State(StrEnum):
-    """Outcome of following one URL (stored in ``follow_results.state``)."""
+    """Where a chain ended (stored in ``follow_results.state``; fetching stores ``resolved`` as ``fetched``)."""
 
     RESOLVED = "resolved"  # the chain ended in a 2xx answer
     FAILED = "failed"      # it ended anywhere else: see the failure class
     REFUSED = "refused"    # we chose not to go on: request-forgery guard, robots.txt, never_follow_hosts
-
-
-#: The failure classes that are our refusals rather than the server's or the network's failures.
-REFUSALS = frozenset({Failure.REFUSED, Failure.ROBOTS, Failure.NEVER_FOLLOW})
 
 
 @dataclass(frozen=True)
@@ -67,9 +78,12 @@ class Chain:
     reason: str | None = None  # a refusal's stable key (FetchError.reason)
     requests: int = 0
     at: datetime = field(default_factory=lambda: datetime.now(UTC))
+    reply: Reply | None = None  # the final 2xx answer; its body only with keep_body
 
 
-def _defragment(url: str) -> str:
+def defragment(url: str) -> str:
+    """``url`` without its fragment: what is sent on the wire (RFC 9110 §7.1) and the base a reference is
+    resolved against (RFC 3986 §5.1)."""
     return url.split("#", 1)[0]
 
 
@@ -92,7 +106,7 @@ def next_url(current: str, location: str) -> str:
     """
     from ..canon import resolve_reference
 
-    target = resolve_reference(_defragment(current), location)
+    target = resolve_reference(defragment(current), location)
     if "#" not in target and "#" in current:
         target += "#" + current.split("#", 1)[1]  # RFC 9110 §10.2.2: the fragment is inherited
     try:
@@ -106,8 +120,22 @@ def next_url(current: str, location: str) -> str:
     return target
 
 
-async def _ask(client: SafeClient, url: str) -> tuple[Reply, int]:
-    """HEAD, then GET when HEAD is refused. Returns the reply and the number of requests made."""
+async def _guard_check(client: SafeClient, url: str) -> None:
+    """Raise the guard's refusal for ``url``'s host, if it has one. Asked only after robots.txt said no,
+    so the common path resolves each name once."""
+    parsed = httpx.URL(url)
+    host = parsed.host
+    port = parsed.port or (443 if parsed.scheme == "https" else 80)
+    literal = literal_address(host)
+    try:
+        addresses = [str(literal)] if literal is not None else await client.backend.resolver(host, port)
+        client.guard.check_all(host, addresses)
+    except (AddressRefused, ResolveFailed) as exc:
+        raise classify(exc, url) from None
+
+
+async def _ask_headers(client: SafeClient, url: str) -> tuple[Reply, int]:
+    """HEAD, then GET when HEAD is refused; no body read. Returns the reply and the requests made."""
     reply = await client.request("HEAD", url, read_body=False)
     requests = reply.attempts
     if reply.status >= 400 and reply.status not in (429, 503):
@@ -117,35 +145,49 @@ async def _ask(client: SafeClient, url: str) -> tuple[Reply, int]:
     return reply, requests
 
 
-async def follow_chain(client: SafeClient, start: str, *, max_hops: int,
+async def _ask_page(client: SafeClient, url: str) -> tuple[Reply, int]:
+    """A GET that robots.txt allows, its body kept up to the cap. Returns the reply and the requests made."""
+    if not await client.robots_allows(url):
+        await _guard_check(client, url)  # a refused address is "refused", not a robots verdict
+        await client.require_robots(url)  # raises, saying whether the file or its absence said no
+    reply = await client.request("GET", url, truncate=True)
+    return reply, reply.attempts
+
+
+async def follow_chain(client: SafeClient, start: str, *, max_hops: int, keep_body: bool = False,
                        now: Callable[[], datetime] = lambda: datetime.now(UTC),
                        never_follow: Callable[[str], str | None] | None = None) -> Chain:
-    """Follow ``start`` to where it leads; never raises for a single URL's failure.
+    """Follow ``start`` to where it leads (see the module doc for ``keep_body``); never raises for a
+    single URL's failure.
 
     ``never_follow(url)`` names why a URL must not be asked (a host the rules file lists) or returns None;
     such a URL, the start or any hop, ends the chain as refused before any request is sent to it.
     """
+    ask = _ask_page if keep_body else _ask_headers
     url = start
-    visited = {_defragment(url)}
+    visited = {defragment(url)}
     hops: list[Hop] = []
     requests = 0
     began = now()
 
     def stop(state: State, failure: Failure | None, detail: str | None, *, final: str,
-             status: int | None = None, retry_after: float | None = None, reason: str | None = None) -> Chain:
+             status: int | None = None, retry_after: float | None = None, reason: str | None = None,
+             reply: Reply | None = None) -> Chain:
         return Chain(start=start, state=state, final_url=final, hops=tuple(hops), failure=failure,
                      detail=detail, status=status, retry_after=retry_after, reason=reason, requests=requests,
-                     at=began)
+                     at=began, reply=reply)
 
     while True:
         why = never_follow(url) if never_follow is not None else None
         if why is not None:
             return stop(State.REFUSED, Failure.NEVER_FOLLOW, why, final=url, reason=NEVER_FOLLOW_REASON)
         try:
-            reply, made = await _ask(client, url)
+            reply, made = await ask(client, url)
         except FetchError as exc:
             state = State.REFUSED if exc.failure in REFUSALS else State.FAILED
             return stop(state, exc.failure, exc.detail, final=url, reason=exc.reason)
+        except httpx.InvalidURL as exc:  # robots.txt's origin of a URL httpx cannot read
+            return stop(State.FAILED, Failure.BAD_URL, str(exc), final=url)
         requests += made
         status = reply.status
         if status in REDIRECT_STATUSES:
@@ -159,17 +201,17 @@ async def follow_chain(client: SafeClient, start: str, *, max_hops: int,
                 return stop(State.FAILED, Failure.BAD_LOCATION, f"Location {location[:200]!r}: {exc}",
                             final=url, status=status)
             hops.append(Hop(len(hops) + 1, url, target, status, reply.method, now()))
-            if _defragment(target) in visited:
+            if defragment(target) in visited:
                 return stop(State.FAILED, Failure.LOOP, f"hop {len(hops)} leads back to {target[:200]}",
                             final=target, status=status)
             if len(hops) > max_hops:
                 return stop(State.FAILED, Failure.TOO_MANY_HOPS, f"more than {max_hops} redirects",
                             final=target, status=status)
-            visited.add(_defragment(target))
+            visited.add(defragment(target))
             url = target
             continue
         if 200 <= status < 300:
-            return stop(State.RESOLVED, None, None, final=url, status=status)
+            return stop(State.RESOLVED, None, None, final=url, status=status, reply=reply)
         if 400 <= status < 500:
             failure = Failure.HTTP_4XX
         elif 500 <= status < 600:
@@ -180,4 +222,4 @@ async def follow_chain(client: SafeClient, start: str, *, max_hops: int,
                     retry_after=reply.retry_after)
 
 
-__all__ = ["REFUSALS", "Chain", "Hop", "State", "decode_location", "follow_chain", "next_url"]
+__all__ = ["Chain", "Hop", "State", "decode_location", "defragment", "follow_chain", "next_url"]

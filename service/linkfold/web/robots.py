@@ -7,7 +7,7 @@ characters. A site that writes ``Allow: /news/`` before ``Disallow: /news/privat
 read the wrong way round.
 
 What the HTTP status of the robots file means (§2.3.1) is decided by the caller
-(:meth:`linkfold.follow.client.SafeClient.robots_allows`); this module turns a file's text into a
+(:meth:`linkfold.web.client.SafeClient.robots_rules`); this module turns a file's text into a
 :class:`RobotRules` and answers ``allows(path)``.
 """
 
