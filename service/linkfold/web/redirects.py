@@ -121,8 +121,12 @@ def next_url(current: str, location: str) -> str:
 
 
 async def _guard_check(client: SafeClient, url: str) -> None:
-    """Raise the guard's refusal for ``url``'s host, if it has one. Asked only after robots.txt said no,
-    so the common path resolves each name once."""
+    """Raise the guard's refusal for ``url``'s host, if it has one.
+
+    The client treats a robots.txt it cannot reach as "disallow all" (RFC 9309 §2.3.1.4), and a robots.txt
+    on a refused address is unreachable, so without this a private address would be stored as a robots
+    refusal. Asked only after robots.txt said no, so the common path resolves each name once.
+    """
     parsed = httpx.URL(url)
     host = parsed.host
     port = parsed.port or (443 if parsed.scheme == "https" else 80)
