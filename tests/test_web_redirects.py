@@ -156,6 +156,28 @@ def test_a_location_that_only_changes_the_fragment_is_a_loop(server, keep_body):
     assert chain.final_url == server.url("/to?loc=%23s") + "#s"
 
 
+# --- what a stage stores of a chain --------------------------------------------------------------------
+
+def test_hop_links_keep_redirects_between_two_canonical_urls_only():
+    from datetime import UTC, datetime
+
+    from linkfold.store.evidence import UrlIds
+    from linkfold.web.redirects import Chain, Hop
+    from linkfold.web.runner import hop_links
+
+    at = datetime(2031, 3, 1, tzinfo=UTC)
+    hops = (Hop(1, "http://s.test/a", "https://s.test/a", 301, "HEAD", at),   # one canonical URL: no evidence
+            Hop(2, "https://s.test/a", "https://news.test/x", 302, "HEAD", at),
+            Hop(3, "https://news.test/x", "https://gone.test/", 302, "HEAD", at))  # an end not stored
+    ids = {"http://s.test/a": UrlIds(1, 10), "https://s.test/a": UrlIds(1, 11), "https://news.test/x": UrlIds(2, 12)}
+    chain = Chain(start="http://s.test/a", state=State.FAILED, final_url="https://gone.test/", hops=hops)
+    rows, same = hop_links(chain, ids, run_id=7, detail={"stage": "fetch"})
+    assert same == 1
+    assert rows == [{"kind": "redirect", "src_id": 1, "dst_id": 2, "status": 302, "hop": 2, "source": "fetched",
+                     "detail": {"method": "HEAD", "src_raw_id": 11, "dst_raw_id": 12, "stage": "fetch"},
+                     "run_id": 7, "created_at": at}]
+
+
 # --- layering -----------------------------------------------------------------------------------------
 
 PACKAGE = Path(__file__).resolve().parent.parent / "service" / "linkfold"

@@ -40,7 +40,7 @@ from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
 from ..web import Chain, ClientConfig, Resolver, State, explain_refusal
-from ..web.runner import due_again, never_follow_check, run_chains, tally
+from ..web.runner import due_again, hop_links, never_follow_check, run_chains, tally
 from .mediatype import is_html
 from .pages import keep_headers
 
@@ -155,17 +155,7 @@ class _Writer:
             sp.record_fetch_outcomes(conn, outcomes, run_id=self.run_id)
 
     def _links(self, got: Chain, ids: dict[str, ev.UrlIds]) -> list[dict[str, Any]]:
-        rows = []
-        for hop in got.hops:
-            src, dst = ids.get(hop.src), ids.get(hop.dst)
-            if src is None or dst is None or src.canonical_id == dst.canonical_id:
-                continue
-            rows.append({"kind": "redirect", "src_id": src.canonical_id, "dst_id": dst.canonical_id,
-                         "status": hop.status, "hop": hop.number, "source": "fetched",
-                         "detail": {"method": hop.method, "src_raw_id": src.raw_id, "dst_raw_id": dst.raw_id,
-                                    "stage": "fetch"},
-                         "run_id": self.run_id, "created_at": hop.at})
-        return rows
+        return hop_links(got, ids, run_id=self.run_id, detail={"stage": "fetch"})[0]
 
     def _page_row(self, item: sp.FetchPending, got: Chain, ids: dict[str, ev.UrlIds]) -> dict[str, Any]:
         assert got.reply is not None

@@ -42,7 +42,7 @@ from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
 from ..web import Chain, ClientConfig, Failure, Resolver, State, explain_refusal
-from ..web.runner import due_again, never_follow_check, run_chains, tally
+from ..web.runner import due_again, hop_links, never_follow_check, run_chains, tally
 
 log = logging.getLogger("linkfold")
 
@@ -177,18 +177,8 @@ class _Writer:
             finals.refresh_finals(conn, touched, edges_before=before)
 
     def _links(self, chain: Chain, ids: dict[str, ev.UrlIds]) -> list[dict[str, Any]]:
-        rows = []
-        for hop in chain.hops:
-            src, dst = ids.get(hop.src), ids.get(hop.dst)
-            if src is None or dst is None:
-                continue
-            if src.canonical_id == dst.canonical_id:
-                self.summary.same_url_hops += 1
-                continue
-            rows.append({"kind": "redirect", "src_id": src.canonical_id, "dst_id": dst.canonical_id,
-                         "status": hop.status, "hop": hop.number, "source": "fetched",
-                         "detail": {"method": hop.method, "src_raw_id": src.raw_id, "dst_raw_id": dst.raw_id},
-                         "run_id": self.run_id, "created_at": hop.at})
+        rows, same = hop_links(chain, ids, run_id=self.run_id)
+        self.summary.same_url_hops += same
         return rows
 
     def _outcome(self, conn, item: ev.Pending, chain: Chain, ids: dict[str, ev.UrlIds]) -> ev.Outcome:

@@ -15,9 +15,9 @@ from __future__ import annotations
 
 import asyncio
 from collections import Counter
-from collections.abc import Awaitable, Callable, Sequence
+from collections.abc import Awaitable, Callable, Mapping, Sequence
 from datetime import datetime
-from typing import Protocol, TypeVar
+from typing import Any, Protocol, TypeVar
 from urllib.parse import urlsplit
 
 import httpcore
@@ -39,6 +39,16 @@ class PendingURL(Protocol):
 
     @property
     def raw(self) -> str | None: ...
+
+
+class StoredIds(Protocol):
+    """The ids a URL was stored under (``store.evidence.UrlIds``)."""
+
+    @property
+    def canonical_id(self) -> int: ...
+
+    @property
+    def raw_id(self) -> int: ...
 
 
 class OutcomeCounts(Protocol):
@@ -105,6 +115,28 @@ def due_again(chain: Chain, attempts: int) -> datetime | None:
     if chain.state is not State.FAILED or chain.failure is None:
         return None
     return next_attempt(chain.failure, attempts, chain.at, chain.retry_after)
+
+
+def hop_links(chain: Chain, ids: Mapping[str, StoredIds], *, run_id: int,
+              detail: Mapping[str, Any] | None = None) -> tuple[list[dict[str, Any]], int]:
+    """The ``links`` rows (kind ``redirect``, source ``fetched``) for a chain's observed redirects, and the
+    number of hops left out because both ends are one canonical URL (http→https, a trailing slash: no
+    evidence). A hop with an end that could not be stored (not in ``ids``) is left out too. ``detail``
+    adds keys to each row's detail (the fetch stage names itself)."""
+    rows, same = [], 0
+    for hop in chain.hops:
+        src, dst = ids.get(hop.src), ids.get(hop.dst)
+        if src is None or dst is None:
+            continue
+        if src.canonical_id == dst.canonical_id:
+            same += 1
+            continue
+        rows.append({"kind": "redirect", "src_id": src.canonical_id, "dst_id": dst.canonical_id,
+                     "status": hop.status, "hop": hop.number, "source": "fetched",
+                     "detail": {"method": hop.method, "src_raw_id": src.raw_id, "dst_raw_id": dst.raw_id,
+                                **(detail or {})},
+                     "run_id": run_id, "created_at": hop.at})
+    return rows, same
 
 
 async def _drain(client: SafeClient, items: Sequence[T], *, parallel: int,
@@ -175,5 +207,5 @@ def run_chains(items: Sequence[P], *, config: ClientConfig, keep_body: bool, max
                  batch_size=batch_size, progress=progress, on_skip=on_skip)
 
 
-__all__ = ["OutcomeCounts", "PendingURL", "due_again", "never_follow_check", "request_url", "run_chains",
-           "run_requests", "tally"]
+__all__ = ["OutcomeCounts", "PendingURL", "StoredIds", "due_again", "hop_links", "never_follow_check",
+           "request_url", "run_chains", "run_requests", "tally"]
