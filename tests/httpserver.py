@@ -251,3 +251,24 @@ def load_url_list(engine, tmp_path, name: str, urls: list[str]):
     path = tmp_path / f"{name}.txt"
     path.write_text("\n".join(urls) + "\n", encoding="utf-8")
     return ingest_dump(engine, [path], dataset=name)
+
+
+def walk_chain(url: str, *, config, names, max_hops: int = 10, **kw):
+    """One chain through the one redirect loop (``kw``: ``keep_body``, ``never_follow``), names pinned by a
+    static resolver, sleeping faked, and nothing but loopback ever connected to."""
+    import asyncio
+
+    from linkfold.web import SafeClient, StaticResolver, follow_chain
+
+    backend = LoopbackOnlyBackend()
+
+    async def no_sleep(_seconds):
+        await asyncio.sleep(0)
+
+    async def go():
+        async with SafeClient(config, resolver=StaticResolver(names), sleep=no_sleep, backend=backend) as c:
+            return await follow_chain(c, url, max_hops=max_hops, **kw)
+
+    chain = asyncio.run(go())
+    assert all(host.startswith("127.") for host, _port in backend.connected)
+    return chain

@@ -2,16 +2,14 @@
 
 from __future__ import annotations
 
-import asyncio
 import dataclasses
 
 import pytest
 
-from httpserver import LoopbackOnlyBackend
+from httpserver import walk_chain
 from linkfold.errors import InvalidURL
-from linkfold.web import ClientConfig, Failure, SafeClient
-from linkfold.web.guard import StaticResolver
-from linkfold.web.redirects import State, follow_chain, next_url
+from linkfold.web import ClientConfig, Failure
+from linkfold.web.redirects import State, next_url
 
 CONFIG = ClientConfig(contact="mailto:lab@university.example", timeout=2.0, max_bytes=64 * 1024,
                       host_delay=0.0, retries=1, max_wait=5.0, allow_networks=("127.0.0.0/8",))
@@ -19,19 +17,7 @@ NAMES = {"short.test": ["127.0.0.1"], "news.test": ["127.0.0.1"], "private.test"
 
 
 def follow(url, *, max_hops=10, **config):
-    backend = LoopbackOnlyBackend()
-
-    async def no_sleep(_seconds):
-        await asyncio.sleep(0)
-
-    async def go():
-        cfg = dataclasses.replace(CONFIG, **config)
-        async with SafeClient(cfg, resolver=StaticResolver(NAMES), sleep=no_sleep, backend=backend) as c:
-            return await follow_chain(c, url, max_hops=max_hops)
-
-    chain = asyncio.run(go())
-    assert all(host.startswith("127.") for host, _port in backend.connected)
-    return chain
+    return walk_chain(url, config=dataclasses.replace(CONFIG, **config), names=NAMES, max_hops=max_hops)
 
 
 @pytest.mark.parametrize("status", [301, 302, 303, 307, 308])  # RFC 9110 §15.4.2–§15.4.9

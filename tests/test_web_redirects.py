@@ -10,15 +10,14 @@ Disallow rule refuses the GET). The package's layering is checked against the fl
 from __future__ import annotations
 
 import ast
-import asyncio
 import dataclasses
 from pathlib import Path
 
 import pytest
 
-from httpserver import PAGE, LoopbackOnlyBackend
-from linkfold.web import ClientConfig, Failure, SafeClient, StaticResolver
-from linkfold.web.redirects import State, defragment, follow_chain, next_url
+from httpserver import PAGE, walk_chain
+from linkfold.web import ClientConfig, Failure
+from linkfold.web.redirects import State, defragment, next_url
 
 CONFIG = ClientConfig(contact="mailto:lab@university.example", timeout=2.0, max_bytes=64 * 1024,
                       host_delay=0.0, retries=1, max_wait=5.0, allow_networks=("127.0.0.0/8",))
@@ -27,19 +26,8 @@ MODES = pytest.mark.parametrize("keep_body", [False, True], ids=["follow", "fetc
 
 
 def walk(url, *, keep_body, max_hops=10, never_follow=None, **config):
-    backend = LoopbackOnlyBackend()
-
-    async def no_sleep(_seconds):
-        await asyncio.sleep(0)
-
-    async def go():
-        cfg = dataclasses.replace(CONFIG, **config)
-        async with SafeClient(cfg, resolver=StaticResolver(NAMES), sleep=no_sleep, backend=backend) as c:
-            return await follow_chain(c, url, max_hops=max_hops, keep_body=keep_body, never_follow=never_follow)
-
-    chain = asyncio.run(go())
-    assert all(host.startswith("127.") for host, _port in backend.connected)  # nothing but loopback
-    return chain
+    return walk_chain(url, config=dataclasses.replace(CONFIG, **config), names=NAMES, max_hops=max_hops,
+                      keep_body=keep_body, never_follow=never_follow)
 
 
 # --- the two modes ----------------------------------------------------------------------------------
