@@ -79,7 +79,7 @@ def test_bad_lines_are_reported_with_numbers_and_skipped(engine, tmp_path):
         + b"https://short.test/same,https://short.test/same\n"  # 9: one URL, nothing to link
     )
     summary = import_redirects(engine, path)
-    assert summary.links == 2 and summary.same_url == 1 and summary.lines == 9
+    assert summary.links == 2 and summary.same_url == 1 and summary.lines_read == 9
     assert [(p.line, p.reason) for p in summary.problems] == [
         (3, "missing_value"), (4, "not_utf8"), (5, "bad_csv"), (6, "short_not_http")]
     assert sum(summary.problem_counts.values()) == 4

@@ -24,12 +24,12 @@ log = logging.getLogger("linkfold")
 # script loop does not pay for the extraction library, numpy or the web framework at every start.
 COMMANDS: dict[str, str] = {
     "db": "db", "settings": "db",
-    "canonicalize": "canon", "rules": "canon",
+    "canonicalize": "canon", "rules": "canon", "recanonicalize": "canon",
     "ingest": "ingest", "rejects": "ingest", "lookup": "ingest", "export": "ingest", "datasets": "ingest",
     "follow": "follow", "follow-report": "follow",
     "fetch": "content", "import-pages": "content", "documents": "content", "extract": "content",
     "dedupe": "dedupe", "decide": "dedupe", "clusters": "dedupe", "thresholds": "dedupe",
-    "nightly": "dedupe", "runs": "dedupe",
+    "nightly": "jobs", "runs": "jobs",
     "outlets": "outlets",
     "exposure": "exposure", "pseudonymise": "exposure",
     "network": "network",

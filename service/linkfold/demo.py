@@ -182,7 +182,7 @@ def run_demo(workdir: Path, *, settings: Settings | None = None, progress: Progr
                                   **options)
             report.notes.extend(summary.lines())
         imported = import_redirects(engine, fx / "short_links.csv", progress=progress)
-        report.notes.extend(imported.lines_for_people())
+        report.notes.extend(imported.lines())
         pages = import_pages(engine, [fx / "pages"], settings=settings, progress=progress)
         report.notes.extend(pages.lines())
         # The nightly job runs every stage with pending work. With no contact address the stages that

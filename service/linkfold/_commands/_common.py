@@ -128,3 +128,19 @@ def write_table(rows: Sequence[Mapping[str, Any]], columns: Sequence[str]) -> No
 def format_option(choices: tuple[str, ...] = ("table", "jsonl"), default: str = "table") -> Callable:
     return click.option("--format", "fmt", type=click.Choice(choices), default=default, show_default=True,
                         help="Output format: a table for people, JSON lines for scripts.")
+
+
+def summary_option(func: Callable) -> Callable:
+    """``--summary text|json`` on every command that runs a stage: one option, one meaning."""
+    return click.option("--summary", "summary_format", type=click.Choice(["text", "json"]), default="text",
+                        show_default=True, help="text: the summary on stderr for people; json: one JSON object "
+                                                "on stdout for scripts.")(func)
+
+
+def report_summary(obj: Context, summary: Any, summary_format: str) -> None:
+    """A stage's summary as every stage command gives it: ``as_dict()`` as one JSON object on stdout with
+    ``--summary json``, and ``lines()`` on stderr unless ``-q`` (the API answers the same ``as_dict()``)."""
+    if summary_format == "json":
+        click.echo(to_json(summary.as_dict()))
+    for line in summary.lines():
+        obj.message(line)

@@ -1,4 +1,4 @@
-"""``linkfold canonicalize`` and ``linkfold rules …``."""
+"""``linkfold canonicalize``, ``linkfold rules …`` and ``linkfold recanonicalize``."""
 
 from __future__ import annotations
 
@@ -14,7 +14,17 @@ from ..canon.records import Tally, records
 from ..errors import InputError
 from ..progress import Progress
 from ..store import rulesets as registry
-from ._common import Context, common_options, format_option, pass_ctx, to_json, write_jsonl, write_table
+from ._common import (
+    Context,
+    common_options,
+    format_option,
+    pass_ctx,
+    report_summary,
+    summary_option,
+    to_json,
+    write_jsonl,
+    write_table,
+)
 
 
 def _lines(stream: BinaryIO, name: str, obj: Context) -> Iterator[str]:
@@ -195,6 +205,31 @@ def rules_show(obj: Context, version: int | None) -> None:
     click.echo(ruleset.source, nl=not ruleset.source.endswith("\n"))
 
 
+@click.command("recanonicalize")
+@summary_option
+@common_options
+@pass_ctx
+def recanonicalize_command(obj: Context, summary_format: str) -> None:
+    """Canonicalise again every stored raw URL that is under an older ruleset than the newest.
+
+    After `linkfold rules add` stores a new ruleset version, raw URLs canonicalised under older versions
+    are pending; each gets its canonical URL under the new rules (a new canonical row when the form is
+    new; old rows are kept) and the move is recorded (old -> new, ruleset, run), so an earlier canonical
+    URL can be traced forward. Resumable: a second run continues where an interrupted one stopped. The
+    nightly job runs this step first.
+
+    \b
+    Example:
+      linkfold rules add lab-rules.toml && linkfold recanonicalize
+      linkfold recanonicalize -q --summary json
+    """
+    from ..ingest.recanon import recanonicalize
+
+    summary = recanonicalize(obj.engine(), settings=obj.settings, progress=obj.progress())
+    report_summary(obj, summary, summary_format)
+
+
 def register(cli: click.Group) -> None:
     cli.add_command(canonicalize_command)
     cli.add_command(rules_group)
+    cli.add_command(recanonicalize_command)

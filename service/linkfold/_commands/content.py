@@ -7,23 +7,20 @@ from pathlib import Path
 import click
 
 from ..canon import canonicalize
-from ..content.stage import extract_pages, fetch_pages, import_pages, load_documents
+from ..content.extracting import extract_pages
+from ..content.fetching import fetch_pages
+from ..content.loading import load_documents
+from ..content.page_import import import_pages
 from ..errors import InvalidURL, NotFound
 from ..store import pages as store_pages
 from ..store import tables as t
-from ._common import Context, common_options, pass_ctx, to_json, write_jsonl
+from ._common import Context, common_options, pass_ctx, report_summary, summary_option, write_jsonl
 
 #: Problems printed one by one; the rest are counted in the summary.
 SHOWN_PROBLEMS = 50
 
-_summary_option = click.option(
-    "--summary", "summary_format", type=click.Choice(["text", "json"]), default="text", show_default=True,
-    help="text: the summary on stderr for people; json: one JSON object on stdout for scripts.")
-
-
 def _report(obj: Context, summary, summary_format: str) -> None:
-    if summary_format == "json":
-        click.echo(to_json(summary.counts()))
+    # The bad records first, one by one (even under -q: they are what a person has to fix).
     problems = getattr(summary, "problems", None)
     if problems is not None:
         for problem in problems.kept[:SHOWN_PROBLEMS]:
@@ -31,8 +28,7 @@ def _report(obj: Context, summary, summary_format: str) -> None:
         hidden = problems.total - min(len(problems.kept), SHOWN_PROBLEMS)
         if hidden > 0:
             obj.problem(f"… and {hidden:,} more problems (counted in the summary; run without -q to see it)")
-    for line in summary.lines():
-        obj.message(line)
+    report_summary(obj, summary, summary_format)
 
 
 @click.command("fetch")
@@ -43,7 +39,7 @@ def _report(obj: Context, summary, summary_format: str) -> None:
 @click.option("--retry-refused", is_flag=True,
               help="Fetch again the URLs that were refused (after changing allow_networks, or when a site's "
                    "robots.txt changed).")
-@_summary_option
+@summary_option
 @common_options
 @pass_ctx
 def fetch_command(obj: Context, dataset: str | None, only_articles: bool, limit: int | None,
@@ -68,7 +64,7 @@ def fetch_command(obj: Context, dataset: str | None, only_articles: bool, limit:
 
 @click.command("import-pages")
 @click.argument("paths", nargs=-1, required=True, type=click.Path(path_type=Path))
-@_summary_option
+@summary_option
 @common_options
 @pass_ctx
 def import_pages_command(obj: Context, paths: tuple[Path, ...], summary_format: str) -> None:
@@ -101,7 +97,7 @@ def documents_group() -> None:
 
 @documents_group.command("load")
 @click.argument("file", type=click.Path(dir_okay=False, path_type=Path))
-@_summary_option
+@summary_option
 @common_options
 @pass_ctx
 def documents_load_command(obj: Context, file: Path, summary_format: str) -> None:
@@ -166,7 +162,7 @@ def documents_show_command(obj: Context, url: str, all_documents: bool, without_
               help="Also redo pages whose documents come from an older extractor version (after upgrading "
                    "trafilatura or linkfold); older documents are kept.")
 @click.option("--limit", type=click.IntRange(min=1), metavar="N", help="At most N pages in this run.")
-@_summary_option
+@summary_option
 @common_options
 @pass_ctx
 def extract_command(obj: Context, reextract: bool, limit: int | None, summary_format: str) -> None:

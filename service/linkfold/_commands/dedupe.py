@@ -1,4 +1,4 @@
-"""``linkfold dedupe``, ``decide``, ``clusters``, ``thresholds``, ``nightly`` and ``runs``."""
+"""``linkfold dedupe``, ``decide``, ``clusters`` and ``thresholds``."""
 
 from __future__ import annotations
 
@@ -18,10 +18,17 @@ from ..dedupe.stage import (
     show_cluster,
     thresholds_report,
 )
-from ..errors import StageFailed
-from ..jobs.nightly import list_runs, run_nightly, show_run
-from ..store.locks import hold_lock
-from ._common import Context, common_options, format_option, pass_ctx, to_json, write_jsonl, write_table
+from ._common import (
+    Context,
+    common_options,
+    format_option,
+    pass_ctx,
+    report_summary,
+    summary_option,
+    to_json,
+    write_jsonl,
+    write_table,
+)
 
 
 def _table(rows: list[dict[str, Any]]) -> list[Mapping[str, Any]]:
@@ -32,8 +39,7 @@ def _table(rows: list[dict[str, Any]]) -> list[Mapping[str, Any]]:
 @click.option("--full", is_flag=True,
               help="Match every current document again and recluster the whole registry (after lowering a "
                    "threshold or changing the banding). Without it only pending work is done.")
-@click.option("--summary", "summary_format", type=click.Choice(["text", "json"]), default="text",
-              show_default=True, help="text: the summary on stderr; json: one JSON object on stdout.")
+@summary_option
 @common_options
 @pass_ctx
 def dedupe_command(obj: Context, full: bool, summary_format: str) -> None:
@@ -49,13 +55,8 @@ def dedupe_command(obj: Context, full: bool, summary_format: str) -> None:
       linkfold dedupe
       linkfold dedupe --full --summary json
     """
-    engine = obj.engine()
-    with hold_lock(engine):
-        summary = run_dedupe(engine, settings=obj.settings, full=full, progress=obj.progress())
-    if summary_format == "json":
-        click.echo(to_json(summary.as_dict()))
-    for line in summary.lines():
-        obj.message(line)
+    summary = run_dedupe(obj.engine(), settings=obj.settings, full=full, progress=obj.progress())
+    report_summary(obj, summary, summary_format)
 
 
 @click.group("decide")
@@ -280,85 +281,6 @@ def thresholds_command(obj: Context) -> None:
     click.echo(thresholds_report(obj.engine(), settings=obj.settings))
 
 
-@click.command("nightly")
-@click.option("--summary", "summary_format", type=click.Choice(["text", "json"]), default="text",
-              show_default=True, help="text: the summary on stderr; json: one JSON object on stdout.")
-@common_options
-@pass_ctx
-def nightly_command(obj: Context, summary_format: str) -> None:
-    """Run every stage that has pending work, in order, under the registry lock.
-
-    recanonicalize → follow (shortener hosts) → fetch → extract → dedupe. Follow and fetch are skipped
-    when no contact is set. A second nightly job started while one runs says who holds the lock and
-    exits with status 8. A killed job is resumed by the next one. Exit status 10 when a stage failed.
-
-    \b
-    Example:
-      LINKFOLD_CONTACT=mailto:lab@university.example linkfold nightly
-      linkfold runs
-    """
-    summary = run_nightly(obj.engine(), settings=obj.settings, progress=obj.progress())
-    if summary_format == "json":
-        click.echo(to_json({"run_id": summary.run_id, "status": summary.status} | summary.as_dict()))
-    for line in summary.lines():
-        obj.message(line)
-    if not summary.ok:
-        # Said even under -q: a cron job's mail must say which stage failed and why.
-        failed = "; ".join(f"{s.name}: {s.reason}" for s in summary.stages if s.status == "failed")
-        raise StageFailed(f"nightly run {summary.run_id} {summary.status}" + (f" ({failed})" if failed else "")
-                          + f"; see linkfold runs show {summary.run_id}")
-
-
-def _run_row(r: dict[str, Any]) -> dict[str, Any]:
-    return {"id": r["id"], "stage": r["stage"], "status": r["status"], "started_at": r["started_at"],
-            "seconds": r.get("seconds"), "children": r.get("children"), "host": r["host"], "pid": r["pid"],
-            "counts": r["counts"], "error": r["error"]}
-
-
-@click.group("runs", invoke_without_command=True)
-@click.option("--limit", type=click.IntRange(min=1), default=20, show_default=True, metavar="N")
-@click.option("--stage", metavar="NAME", help="Only runs of this stage (nightly, dedupe, follow, ingest…).")
-@click.option("--all", "all_runs", is_flag=True, help="Include the stages of nightly runs (child runs).")
-@format_option()
-@common_options
-@click.pass_context
-def runs_group(ctx: click.Context, limit: int, stage: str | None, all_runs: bool, fmt: str) -> None:
-    """The run log: each run's stage, status, times and counts, newest first.
-
-    \b
-    Example:
-      linkfold runs --limit 5
-      linkfold runs --stage dedupe --all --format jsonl
-      linkfold runs show 42
-    """
-    if ctx.invoked_subcommand is not None:
-        return
-    obj: Context = ctx.ensure_object(Context)
-    rows = [_run_row(r) for r in list_runs(obj.engine(), limit=limit, stage=stage, top_level=not all_runs)]
-    if fmt == "jsonl":
-        write_jsonl(rows)
-        return
-    for r in rows:
-        r["started_at"] = r["started_at"].strftime("%Y-%m-%d %H:%M:%S") if r["started_at"] else ""
-        r["error"] = (r["error"] or "")[:60]
-    write_table(_table(rows), ["id", "stage", "status", "started_at", "seconds", "children", "error"])
-
-
-@runs_group.command("show")
-@click.argument("run_id", type=int)
-@common_options
-@pass_ctx
-def runs_show(obj: Context, run_id: int) -> None:
-    """One run with its child runs (a nightly run's stages), their counts and errors, as JSON.
-
-    \b
-    Example:
-      linkfold runs show 42
-    """
-    click.echo(to_json(show_run(obj.engine(), run_id)))
-
-
 def register(cli: click.Group) -> None:
-    for command in (dedupe_command, decide_group, clusters_group, thresholds_command, nightly_command,
-                    runs_group):
+    for command in (dedupe_command, decide_group, clusters_group, thresholds_command):
         cli.add_command(command)

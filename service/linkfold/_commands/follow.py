@@ -11,7 +11,16 @@ import click
 from ..dedupe.stage import list_sinks
 from ..follow import follow_links, follow_report, import_redirects
 from ..follow.imports import FORMATS
-from ._common import Context, common_options, format_option, pass_ctx, to_json, write_jsonl, write_table
+from ._common import (
+    Context,
+    common_options,
+    format_option,
+    pass_ctx,
+    report_summary,
+    summary_option,
+    write_jsonl,
+    write_table,
+)
 
 #: Problems printed one by one after an import; the rest are counted in the summary.
 SHOWN_PROBLEMS = 50
@@ -49,9 +58,7 @@ def _hosts(value: str | None) -> list[str] | None:
               help="Column (or JSON key) of the short URL in the --import file.")
 @click.option("--expanded-column", default="expanded", show_default=True, metavar="NAME",
               help="Column (or JSON key) of the expanded URL in the --import file.")
-@click.option("--summary", "summary_format", type=click.Choice(["text", "json"]), default="text",
-              show_default=True, help="text: the summary on stderr for people; json: one JSON object on "
-                                      "stdout for scripts.")
+@summary_option
 @common_options
 @pass_ctx
 def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_urls: bool, limit: int | None,
@@ -84,15 +91,12 @@ def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_url
         summary = import_redirects(obj.engine(), import_file, fmt=import_format, short_column=short_column,
                                    expanded_column=expanded_column, batch_size=obj.settings.batch_size,
                                    progress=obj.progress())
-        if summary_format == "json":
-            click.echo(to_json(summary.as_dict()))
         for problem in summary.problems[:SHOWN_PROBLEMS]:
             obj.problem(f"{import_file}:{problem.line}: {problem.reason}: {problem.detail}")
         hidden = sum(summary.problem_counts.values()) - min(len(summary.problems), SHOWN_PROBLEMS)
         if hidden > 0:
             obj.problem(f"… and {hidden:,} more skipped lines (counted in the summary; run without -q to see it)")
-        for line in summary.lines_for_people():
-            obj.message(line)
+        report_summary(obj, summary, summary_format)
         return
     if import_format is not None:
         raise click.UsageError("--format applies to --import only")
@@ -103,10 +107,7 @@ def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_url
     result = follow_links(obj.engine(), settings=obj.settings, dataset=dataset, hosts=_hosts(hosts),
                           all_urls=all_urls, limit=limit, retry_failed=retry_failed or retry_failed_now,
                           due_only=not retry_failed_now, retry_refused=retry_refused, progress=obj.progress())
-    if summary_format == "json":
-        click.echo(to_json(result.as_dict()))
-    for line in result.lines():
-        obj.message(line)
+    report_summary(obj, result, summary_format)
 
 
 #: Sinks shown under the outcome table; --sinks lists them all.

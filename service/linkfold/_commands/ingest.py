@@ -11,7 +11,16 @@ import click
 from ..ingest import EXPORT_FORMATS, DumpFormat, export_dataset, ingest_dump, lookup
 from ..pseudonyms import key_from_settings
 from ..store import registry
-from ._common import Context, common_options, format_option, pass_ctx, to_json, write_jsonl, write_table
+from ._common import (
+    Context,
+    common_options,
+    format_option,
+    pass_ctx,
+    report_summary,
+    summary_option,
+    write_jsonl,
+    write_table,
+)
 
 TABLE_LIMIT = 1000
 
@@ -37,9 +46,7 @@ TABLE_LIMIT = 1000
 @click.option("--rules", "rules_file", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE",
               help="Canonicalise under this rules file (stored as a new ruleset version if new).")
 @click.option("--description", metavar="TEXT", help="What the dataset is (stored with it).")
-@click.option("--summary", "summary_format", type=click.Choice(["text", "json"]), default="text",
-              show_default=True, help="text: the summary on stderr for people; json: one JSON object on "
-                                      "stdout for scripts.")
+@summary_option
 @common_options
 @pass_ctx
 def ingest_command(obj: Context, files: tuple[Path, ...], dataset: str, dump_format: str | None,
@@ -71,10 +78,7 @@ def ingest_command(obj: Context, files: tuple[Path, ...], dataset: str, dump_for
         ruleset=version if version is not None else rules_file, description=description,
         batch_size=settings.ingest_batch_size, max_line_bytes=settings.max_line_bytes,
         cache_size=settings.canon_cache_size, progress=obj.progress())
-    if summary_format == "json":
-        click.echo(to_json(summary.as_dict()))
-    for line in summary.lines():
-        obj.message(line)
+    report_summary(obj, summary, summary_format)
 
 
 @click.command("rejects")

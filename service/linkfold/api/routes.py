@@ -13,8 +13,8 @@ from fastapi.responses import StreamingResponse
 from .. import __version__
 from ..errors import LinkfoldError
 from ..ingest import lookup
-from ..jobs.nightly import list_runs, show_run
 from ..store import current_revision, registry
+from ..store.runs import list_runs, show_run
 from .auth import Access, read_access
 from .errors import ApiError, envelope, error_responses
 from .models import (

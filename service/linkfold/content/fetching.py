@@ -52,6 +52,9 @@ WRITE_BATCH = 100
 #: The ``source`` of a fetched page.
 FETCH_SOURCE = "fetch"
 
+#: The run log's name of this stage.
+STAGE = "fetch"
+
 
 def _stored_state(chain: Chain) -> str:
     """``fetch_results.state``: a chain that resolved is a page ``fetched``; the others keep their name."""
@@ -75,7 +78,7 @@ class FetchSummary:
     requests: int = 0
     run_id: int | None = None
 
-    def counts(self) -> dict[str, Any]:
+    def as_dict(self) -> dict[str, Any]:
         return {"selected": self.selected, "fetched": self.fetched, "pages_stored": self.pages_stored,
                 "not_html": self.not_html, "truncated": self.truncated,
                 "failed": dict(sorted(self.failed.items())), "refused": dict(sorted(self.refused.items())),
@@ -174,17 +177,25 @@ class _Writer:
                            fetched_at=got.at, run_id=self.run_id)
 
 
+def count_pending(engine: Engine, *, settings: Any = None, now: datetime | None = None) -> int:
+    """Canonical URLs to fetch: without a page, never tried or failed with the next attempt due (``now``
+    overrides the clock for that)."""
+    with engine.connect() as conn:
+        return sp.count_fetch_pending(conn, now=now)
+
+
 def fetch_pages(engine: Engine, *, settings: Any, dataset: str | None = None, only_articles: bool = False,
                 limit: int | None = None, retry_refused: bool = False, resolver: Resolver | None = None,
                 progress: Progress = SILENT, now: datetime | None = None,
                 backend: httpcore.AsyncNetworkBackend | None = None,
-                parent_id: int | None = None) -> FetchSummary:
+                parent_run: int | None = None) -> FetchSummary:
     """Fetch pending canonical URLs (see :func:`linkfold.store.pages.select_fetch_pending`) and store pages.
 
     ``dataset`` keeps URLs sighted in that dataset; ``only_articles`` those matching the ruleset's article
     patterns; ``limit`` stops after that many URLs; ``retry_refused`` fetches the refused ones again (after
     ``allow_networks`` or a site's robots.txt changed). ``now`` overrides the clock for choosing failed URLs
     that are due; ``resolver`` and ``backend`` replace DNS and the socket layer (tests, lab pinning).
+    ``parent_run`` is the run this one is a step of (a job's), recorded as its parent.
     """
     if limit is not None and limit <= 0:
         raise ConfigError(f"--limit must be a positive number (got {limit})")
@@ -203,13 +214,13 @@ def fetch_pages(engine: Engine, *, settings: Any, dataset: str | None = None, on
     canon = Canonicaliser(rules, cache_size=settings.canon_cache_size)
     batch_size = max(1, min(settings.batch_size, WRITE_BATCH))
     progress.start("fetch", total=len(items))
-    with recording_run(engine, "fetch", parent_id=parent_id) as run:
+    with recording_run(engine, STAGE, parent_id=parent_run) as run:
         summary.run_id = run.id
         writer = _Writer(engine, canon, ruleset_id=ruleset_id, run_id=run.id, summary=summary)
 
         def write(batch: list[tuple[sp.FetchPending, Chain]]) -> None:
             writer.write(batch)
-            run.counts = summary.counts()
+            run.counts = summary.as_dict()
 
         def skip(_item: sp.FetchPending) -> None:
             summary.skipped += 1
@@ -219,11 +230,11 @@ def fetch_pages(engine: Engine, *, settings: Any, dataset: str | None = None, on
                        write=write, batch_size=batch_size, progress=progress, on_skip=skip, resolver=resolver,
                        backend=backend)
         finally:
-            run.counts = summary.counts()
+            run.counts = summary.as_dict()
             progress.finish()
     refresh_statistics(engine, ["canonical_urls", "links"], changed={"pages": summary.pages_stored,
                                                                    "fetch_results": summary.selected})
     return summary
 
 
-__all__ = ["FETCH_SOURCE", "FetchSummary", "fetch_pages"]
+__all__ = ["FETCH_SOURCE", "STAGE", "FetchSummary", "count_pending", "fetch_pages"]

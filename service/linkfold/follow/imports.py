@@ -45,6 +45,9 @@ GZIP_MAGIC = b"\x1f\x8b"  # RFC 1952 §2.3.1
 MAX_PROBLEMS_KEPT = 1000  # reported one by one; beyond this only counted by reason
 SOURCE_MAX = 255  # links.source width
 
+#: The run log's name of this stage.
+STAGE = "follow_import"
+
 
 @dataclass(frozen=True)
 class Problem:
@@ -56,7 +59,7 @@ class Problem:
 @dataclass
 class ImportSummary:
     file: str
-    lines: int = 0
+    lines_read: int = 0
     pairs: int = 0
     links: int = 0
     already_linked: int = 0
@@ -72,12 +75,12 @@ class ImportSummary:
             self.problems.append(Problem(line, reason, detail))
 
     def as_dict(self) -> dict[str, Any]:
-        return {"file": self.file, "lines": self.lines, "pairs": self.pairs, "links": self.links,
+        return {"file": self.file, "lines": self.lines_read, "pairs": self.pairs, "links": self.links,
                 "already_linked": self.already_linked, "same_url": self.same_url, "settled": self.settled,
                 "problems": dict(sorted(self.problem_counts.items())), "run_id": self.run_id}
 
-    def lines_for_people(self) -> list[str]:
-        out = [f"{self.file}: {self.lines:,} lines, {self.pairs:,} pairs, {self.links:,} redirect links written "
+    def lines(self) -> list[str]:
+        out = [f"{self.file}: {self.lines_read:,} lines, {self.pairs:,} pairs, {self.links:,} redirect links written "
                f"(run {self.run_id})"]
         if self.already_linked:
             out.append(f"  already stored: {self.already_linked:,}")
@@ -140,7 +143,7 @@ def _records(path: Path, fmt: str, short_col: str, expanded_col: str,
     header: list[str] | None = None
     delimiter = "\t" if fmt == "tsv" else ","
     for number, raw in _physical_lines(path):
-        summary.lines = number
+        summary.lines_read = number
         if raw is None:
             summary.add_problem(number, "line_too_long", f"longer than {MAX_LINE_BYTES:,} bytes")
             continue
@@ -196,10 +199,16 @@ def _records(path: Path, fmt: str, short_col: str, expanded_col: str,
                               "is needed)")
 
 
+def count_pending(engine: Engine, *, settings: Any = None) -> int:
+    """Always 0: an import's work is the file it is given; nothing in the registry waits for it."""
+    return 0
+
+
 def import_redirects(engine: Engine, path: str | Path, *, fmt: str | None = None, short_column: str = "short",
                      expanded_column: str = "expanded", batch_size: int = 5000,
-                     progress: Progress = SILENT) -> ImportSummary:
-    """Store the (short, expanded) pairs of ``path`` as redirect links (see the module doc)."""
+                     progress: Progress = SILENT, parent_run: int | None = None) -> ImportSummary:
+    """Store the (short, expanded) pairs of ``path`` as redirect links (see the module doc). ``parent_run``
+    is the run this one is a step of (a job's), recorded as its parent."""
     path = Path(path)
     kind = _format_of(path, fmt)
     summary = ImportSummary(file=path.name)
@@ -211,7 +220,7 @@ def import_redirects(engine: Engine, path: str | Path, *, fmt: str | None = None
     # Read the header (and fail on a missing column) before a run is recorded or anything written.
     first = next(records, None)
     progress.start(f"import {path.name}")
-    with recording_run(engine, "follow_import") as run:
+    with recording_run(engine, STAGE, parent_id=parent_run) as run:
         summary.run_id = run.id
         batch: list[tuple[int, str, Canonical, str, Canonical]] = []
         for item in ([first] if first else []), records:
@@ -281,4 +290,4 @@ def _write(engine: Engine, batch: list[tuple[int, str, Canonical, str, Canonical
     summary.settled += settled
 
 
-__all__ = ["FORMATS", "ImportSummary", "Problem", "import_redirects"]
+__all__ = ["FORMATS", "STAGE", "ImportSummary", "Problem", "count_pending", "import_redirects"]

@@ -49,6 +49,9 @@ log = logging.getLogger("linkfold")
 #: Chains written per transaction (at most ``batch_size`` from the settings).
 WRITE_BATCH = 200
 
+#: The run log's name of this stage.
+STAGE = "follow"
+
 
 @dataclass
 class FollowSummary:
@@ -221,13 +224,25 @@ class _Writer:
         return out
 
 
+def count_pending(engine: Engine, *, settings: Any = None, hosts: Iterable[str] | None = None) -> int:
+    """Canonical URLs never followed on ``hosts`` (default: the ruleset's shortener hosts; 0 when it lists
+    none), as :func:`follow_links` would choose them by default."""
+    with engine.connect() as conn:
+        if hosts is None:
+            _version, rules = latest_ruleset(conn)
+            chosen = frozenset(rules.shortener_hosts)
+        else:
+            chosen = canonical_hosts(hosts)
+        return ev.count_pending(conn, hosts=chosen) if chosen else 0
+
+
 def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
                  hosts: Iterable[str] | None = None, all_urls: bool = False, limit: int | None = None,
                  retry_failed: bool = False, retry_refused: bool = False, due_only: bool = True,
                  resolver: Resolver | None = None, progress: Progress = SILENT,
                  now: datetime | None = None,
                  backend: httpcore.AsyncNetworkBackend | None = None,
-                 parent_id: int | None = None) -> FollowSummary:
+                 parent_run: int | None = None) -> FollowSummary:
     """Follow pending canonical URLs (see the module doc) and return the counts.
 
     Which URLs: without ``all_urls``, those on ``hosts`` or, when ``hosts`` is not given, on the
@@ -235,7 +250,8 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
     ``retry_failed`` only the failed ones that are due (``now`` overrides the clock for that choice; with
     ``due_only=False`` every failed one, now, whatever its schedule), or with ``retry_refused`` only the
     refused ones.
-    ``resolver`` and ``backend`` replace DNS and the socket layer (tests, lab pinning).
+    ``resolver`` and ``backend`` replace DNS and the socket layer (tests, lab pinning). ``parent_run`` is
+    the run this one is a step of (a job's), recorded as its parent.
     """
     if all_urls and hosts:
         raise ConfigError("give either --all or --hosts, not both")
@@ -270,7 +286,7 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
     refuse = never_follow_check(rules)
     batch_size = max(1, min(settings.batch_size, WRITE_BATCH))
     progress.start("follow", total=len(items))
-    with recording_run(engine, "follow", parent_id=parent_id) as run:
+    with recording_run(engine, STAGE, parent_id=parent_run) as run:
         summary.run_id = run.id
         writer = _Writer(engine, canon, ruleset_id=ruleset_id, run_id=run.id, summary=summary)
 
@@ -293,4 +309,4 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
     return summary
 
 
-__all__ = ["FollowSummary", "canonical_hosts", "follow_links"]
+__all__ = ["STAGE", "FollowSummary", "canonical_hosts", "count_pending", "follow_links"]

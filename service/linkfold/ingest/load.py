@@ -57,6 +57,9 @@ from .writer import BatchWriter
 log = logging.getLogger("linkfold")
 
 DEFAULT_BATCH_SIZE = 20000
+
+#: The run log's name of this stage.
+STAGE = "ingest"
 #: Raw URL ids kept between batches (``rows.RawIds``: raw text -> id), per entry of the canonical-form
 #: memo (``cache_size``), per generation (two at most). The ids are what most rows need, and an entry
 #: costs about a quarter of a memo entry; the bound keeps the load's memory flat once the caches are full.
@@ -144,13 +147,23 @@ def _resolve_ruleset(conn: Connection, ruleset: int | str | Path | Ruleset | Non
     return store_ruleset(conn, rules), rules
 
 
+def count_pending(engine: Engine, *, settings: Any = None) -> int:
+    """Files whose load was interrupted: loading the same file into the same dataset again resumes it.
+
+    An ingest's work is otherwise the files it is given; nothing else in the registry waits for it.
+    """
+    with engine.connect() as conn:
+        return registry.count_unfinished_files(conn)
+
+
 def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
                 fmt: str | DumpFormat | None = None, url_column: str | Sequence[str] | None = None,
                 key_column: str | None = None, time_column: str | None = None, unit_column: str | None = None,
                 pseudonym_key: bytes | None = None,
                 ruleset: int | str | Path | Ruleset | None = None, description: str | None = None,
                 batch_size: int = DEFAULT_BATCH_SIZE, max_line_bytes: int = DEFAULT_MAX_LINE_BYTES,
-                cache_size: int = 65536, progress: Progress = SILENT) -> IngestSummary:
+                cache_size: int = 65536, progress: Progress = SILENT,
+                parent_run: int | None = None) -> IngestSummary:
     """Load dump files into ``dataset``; return what was added.
 
     ``url_column`` is a column name (CSV/TSV) or dotted path (JSON lines; see ``linkfold.ingest.paths``),
@@ -159,7 +172,8 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
     or account of each row, stored only as its HMAC-SHA256 pseudonym under ``pseudonym_key``
     (``linkfold.pseudonyms``; needed with a unit column, refused before anything is written without one,
     and refused when the registry's units were pseudonymised under another key). Raises ``InputError`` (and its subclasses) before writing anything when a
-    file cannot be read as asked; single bad rows never raise, they become rejects.
+    file cannot be read as asked; single bad rows never raise, they become rejects. ``parent_run`` is the
+    run this one is a step of (a job's), recorded as its parent.
     """
     name = (dataset or "").strip()
     if not name:
@@ -198,7 +212,7 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
         summary = IngestSummary(dataset=name, ruleset_version=version)
         canonicalisers: dict[int, Canonicaliser] = {}
         raw_ids = RawIds(RAW_IDS_PER_MEMO_ENTRY * cache_size)  # shared by the files, as raw URLs are
-        with recording_run(engine, "ingest") as run:
+        with recording_run(engine, STAGE, parent_id=parent_run) as run:
             summary.run_id = run.id
             with conn.begin():
                 dataset_id = registry.ensure_dataset(conn, name, description=description, ruleset_id=version)
@@ -422,4 +436,4 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
     return summary
 
 
-__all__ = ["DEFAULT_BATCH_SIZE", "ingest_dump", "plan_file"]
+__all__ = ["DEFAULT_BATCH_SIZE", "STAGE", "count_pending", "ingest_dump", "plan_file"]

@@ -23,9 +23,7 @@ while a load reads units: a broken line's text holds the raw unit ID, which must
 
 from __future__ import annotations
 
-import hashlib
 import json
-import re
 from collections import Counter, deque
 from collections.abc import Callable, Iterable, Mapping
 from datetime import UTC, datetime
@@ -34,6 +32,7 @@ from typing import Any
 from ..canon import Canonical
 from ..errors import InvalidURL
 from ..pseudonyms import Pseudonymiser, unit_text
+from ..store.text import raw_hash, storable
 from .readers import MISSING, DumpRow, Reason, RowBlock
 from .times import BadTime, parse_time
 
@@ -41,7 +40,6 @@ ROW_POSITION = -1  # the row itself: a row that could not be read, or a problem 
 TIME_POSITION = -2  # the row's time
 UNIT_POSITION = -3  # the row's unit
 
-_UNSTORABLE = re.compile("[\x00\ud800-\udfff]")
 _fromisoformat = datetime.fromisoformat
 
 # What a batch hands the writer, in the column order of the tables it goes into (registry.SIGHTING_COLUMNS,
@@ -53,16 +51,6 @@ _REASON = 4
 # A staging raw URL: one per distinct raw URL of a batch that the load has no id for, with its canonical
 # form if it has one (registry.RAW_COLUMNS).
 RAW_FIELDS = ("raw_hash", "raw", "raw_error", "url_key", "url", "host", "domain", "outlet", "is_article")
-
-
-def storable(text: str) -> str:
-    """``text`` with what PostgreSQL text cannot hold (NUL, lone surrogates) replaced by U+FFFD."""
-    return _UNSTORABLE.sub("\ufffd", text) if not text.isascii() or "\x00" in text else text
-
-
-def raw_hash(text: str) -> str:
-    """The raw URL's identity: SHA-256 (hex) of the stored text in UTF-8."""
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
 def _key(value: Any, line_no: int) -> tuple[str, tuple[str, str] | None]:

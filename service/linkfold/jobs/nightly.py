@@ -16,11 +16,11 @@ have work of their own); the nightly run is then ``failed``.
 
 from __future__ import annotations
 
+import importlib
 import logging
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from datetime import UTC
 from typing import Any
 
 import sqlalchemy as sa
@@ -28,9 +28,16 @@ from sqlalchemy.engine import Engine
 
 from ..errors import LinkfoldError
 from ..progress import SILENT, Progress
-from ..store import tables as t
 from ..store.locks import acquire_lock
-from ..store.runs import RunStatus, finish_run, observed, process_gone, recording_run, start_run
+from ..store.runs import (
+    RunStatus,
+    StageSummary,
+    child_run_id,
+    finish_run,
+    process_gone,
+    running_runs,
+    start_run,
+)
 
 log = logging.getLogger("linkfold")
 
@@ -64,7 +71,7 @@ class NightlySummary:
         return self.status == RunStatus.OK.value
 
     def as_dict(self) -> dict[str, Any]:
-        return {"stages": {s.name: s.as_dict() for s in self.stages},
+        return {"run_id": self.run_id, "status": self.status, "stages": {s.name: s.as_dict() for s in self.stages},
                 "interrupted_earlier": self.interrupted_earlier}
 
     def lines(self) -> list[str]:
@@ -83,8 +90,13 @@ class NightlySummary:
 BY_REASON = ("no_text", "failed", "refused", "refusals")
 
 
+#: Numbers in a stage's ``as_dict()`` that are not counts of work done.
+_NOT_COUNTS = frozenset({"run_id", "ruleset_version"})
+
+
 def _brief(counts: dict[str, Any]) -> str:
-    flat = [f"{k} {v:,}" for k, v in counts.items() if isinstance(v, int) and not isinstance(v, bool) and v]
+    flat = [f"{k} {v:,}" for k, v in counts.items()
+            if isinstance(v, int) and not isinstance(v, bool) and v and k not in _NOT_COUNTS]
     parts = [", ".join(flat[:6])] if flat else []
     for name in BY_REASON:
         by = counts.get(name)
@@ -96,88 +108,34 @@ def _brief(counts: dict[str, Any]) -> str:
 # --- the stages -----------------------------------------------------------------------------------------------
 @dataclass(frozen=True)
 class Stage:
+    """A stage as the job runs it: its module offers ``count_pending(engine, *, settings)`` and the run
+    function named ``run``, called as ``run(engine, settings=…, progress=…, parent_run=…)`` and returning a
+    :class:`~linkfold.store.runs.StageSummary`. ``network``: the stage sends requests (needs a contact).
+
+    Looked up when the job runs, not when this module is imported, so ``linkfold runs`` does not load
+    the extraction library, and a test can replace a stage's function in its module."""
+
     name: str
     network: bool
-    pending: Callable[[Engine, Any], int]
-    run: Callable[[Engine, Any, int, Progress], dict[str, Any]]
+    module: str
+    run: str
 
+    def _function(self, name: str) -> Callable[..., Any]:
+        return getattr(importlib.import_module(self.module), name)
 
-def _recanon_pending(engine: Engine, settings: Any) -> int:
-    from .recanon import count_pending
+    def pending(self, engine: Engine, settings: Any) -> int:
+        return int(self._function("count_pending")(engine, settings=settings))
 
-    return count_pending(engine)
-
-
-def _recanon_run(engine: Engine, settings: Any, parent: int, progress: Progress) -> dict[str, Any]:
-    from .recanon import recanonicalize
-
-    with recording_run(engine, "recanonicalize", parent_id=parent) as run:
-        summary = recanonicalize(engine, batch_size=settings.batch_size, cache_size=settings.canon_cache_size,
-                                 run_id=run.id, progress=progress)
-        run.counts = summary.counts()
-    return summary.counts()
-
-
-def _follow_pending(engine: Engine, settings: Any) -> int:
-    from ..store import evidence as ev
-    from ..store.rulesets import latest_ruleset
-
-    with engine.begin() as conn:
-        _version, rules = latest_ruleset(conn)
-        hosts = frozenset(rules.shortener_hosts)
-        if not hosts:
-            return 0
-        return ev.count_pending(conn, hosts=hosts)
-
-
-def _follow_run(engine: Engine, settings: Any, parent: int, progress: Progress) -> dict[str, Any]:
-    from ..follow import follow_links
-
-    return follow_links(engine, settings=settings, progress=progress, parent_id=parent).as_dict()
-
-
-def _fetch_pending(engine: Engine, settings: Any) -> int:
-    from ..content.stage import count_pending
-
-    return count_pending(engine)["fetch"]
-
-
-def _fetch_run(engine: Engine, settings: Any, parent: int, progress: Progress) -> dict[str, Any]:
-    from ..content.stage import fetch_pages
-
-    return fetch_pages(engine, settings=settings, progress=progress, parent_id=parent).counts()
-
-
-def _extract_pending(engine: Engine, settings: Any) -> int:
-    from ..content.stage import count_pending
-
-    return count_pending(engine)["extract"]
-
-
-def _extract_run(engine: Engine, settings: Any, parent: int, progress: Progress) -> dict[str, Any]:
-    from ..content.stage import extract_pages
-
-    return extract_pages(engine, settings=settings, progress=progress, parent_id=parent).counts()
-
-
-def _dedupe_pending(engine: Engine, settings: Any) -> int:
-    from ..dedupe.stage import count_pending
-
-    return count_pending(engine, settings=settings)
-
-
-def _dedupe_run(engine: Engine, settings: Any, parent: int, progress: Progress) -> dict[str, Any]:
-    from ..dedupe.stage import run_dedupe
-
-    return run_dedupe(engine, settings=settings, parent_id=parent, progress=progress).as_dict()
+    def start(self, engine: Engine, settings: Any, parent: int, progress: Progress) -> StageSummary:
+        return self._function(self.run)(engine, settings=settings, progress=progress, parent_run=parent)
 
 
 DEFAULT_STAGES = (
-    Stage("recanonicalize", False, _recanon_pending, _recanon_run),
-    Stage("follow", True, _follow_pending, _follow_run),
-    Stage("fetch", True, _fetch_pending, _fetch_run),
-    Stage("extract", False, _extract_pending, _extract_run),
-    Stage("dedupe", False, _dedupe_pending, _dedupe_run),
+    Stage("recanonicalize", False, "linkfold.ingest.recanon", "recanonicalize"),
+    Stage("follow", True, "linkfold.follow.stage", "follow_links"),
+    Stage("fetch", True, "linkfold.content.fetching", "fetch_pages"),
+    Stage("extract", False, "linkfold.content.extracting", "extract_pages"),
+    Stage("dedupe", False, "linkfold.dedupe.stage", "run_dedupe"),
 )
 
 
@@ -185,11 +143,7 @@ DEFAULT_STAGES = (
 def mark_interrupted(engine: Engine, *, own_run: int) -> list[int]:
     """Runs a killed job left ``running``: every nightly run (and its children) other than ours — we hold
     the lock, so no other nightly job is alive — and any run of a process on this host that is gone."""
-    r = t.runs
-    with engine.connect() as conn:
-        rows = [dict(x) for x in conn.execute(
-            sa.select(r.c.id, r.c.stage, r.c.status, r.c.parent_id, r.c.host, r.c.pid, r.c.started_at)
-            .where(r.c.status == RunStatus.RUNNING.value, r.c.id != own_run)).mappings()]
+    rows = running_runs(engine, other_than=own_run)
     nightly = {row["id"] for row in rows if row["stage"] == "nightly"}
     dead = [row["id"] for row in rows
             if row["id"] in nightly or row["parent_id"] in nightly or process_gone(row)]
@@ -234,7 +188,7 @@ def _one_stage(engine: Engine, settings: Any, stage: Stage, parent: int, progres
         log.info("nightly: %s skipped: %s", stage.name, reason)
         return StageOutcome(stage.name, "skipped", reason=reason)
     try:
-        pending = int(stage.pending(engine, settings))
+        pending = stage.pending(engine, settings)
     except (LinkfoldError, sa.exc.SQLAlchemyError) as exc:
         return StageOutcome(stage.name, "failed", reason=f"could not count pending work: {exc}")
     if pending == 0:
@@ -242,7 +196,8 @@ def _one_stage(engine: Engine, settings: Any, stage: Stage, parent: int, progres
     started = time.monotonic()
     outcome = StageOutcome(stage.name, "ok", pending=pending)
     try:
-        outcome.counts = stage.run(engine, settings, parent, progress)
+        summary = stage.start(engine, settings, parent, progress)
+        outcome.counts, outcome.run_id = summary.as_dict(), summary.run_id
     except KeyboardInterrupt:
         outcome.status = "interrupted"
         raise
@@ -253,72 +208,10 @@ def _one_stage(engine: Engine, settings: Any, stage: Stage, parent: int, progres
         outcome.status, outcome.reason = "failed", f"{type(exc).__name__}: {exc}"
     finally:
         outcome.seconds = time.monotonic() - started
-    outcome.run_id = _child_run(engine, parent, stage.name)
+    if outcome.run_id is None:
+        # A stage that failed returned no summary: its run, if it recorded one, is the newest child.
+        outcome.run_id = child_run_id(engine, parent, stage.name)
     return outcome
 
 
-def _child_run(engine: Engine, parent: int, name: str) -> int | None:
-    r = t.runs
-    with engine.connect() as conn:
-        return conn.execute(sa.select(sa.func.max(r.c.id)).where(r.c.parent_id == parent,
-                                                                  r.c.stage == name)).scalar()
-
-
-# --- the run log ------------------------------------------------------------------------------------------------
-def list_runs(engine: Engine, *, limit: int = 20, stage: str | None = None,
-              top_level: bool = True) -> list[dict[str, Any]]:
-    """Runs, newest first: by default the top-level ones (a nightly run's stages are its children)."""
-    r = t.runs
-    q = sa.select(r).order_by(r.c.id.desc()).limit(limit)
-    if top_level:
-        q = q.where(r.c.parent_id.is_(None))
-    if stage:
-        q = q.where(r.c.stage == stage)
-    with engine.connect() as conn:
-        rows = [dict(x) for x in conn.execute(q).mappings()]
-        ids = [x["id"] for x in rows]
-        children: dict[int, int] = {}
-        if ids:
-            children = {int(p): int(n) for p, n in conn.execute(
-                sa.select(r.c.parent_id, sa.func.count()).where(r.c.parent_id.in_(ids)).group_by(r.c.parent_id))}
-    for x in rows:
-        x["children"] = children.get(x["id"], 0)
-        _times(x)
-        observed(x)
-    return rows
-
-
-def _times(row: dict[str, Any]) -> None:
-    for key in ("started_at", "finished_at"):
-        if row.get(key) is not None and row[key].tzinfo is None:
-            row[key] = row[key].replace(tzinfo=UTC)
-    if row.get("started_at") and row.get("finished_at"):
-        row["seconds"] = round((row["finished_at"] - row["started_at"]).total_seconds(), 3)
-
-
-def show_run(engine: Engine, run_id: int) -> dict[str, Any]:
-    """One run with its children (and theirs), counts and errors."""
-    from ..errors import NotFound
-
-    r = t.runs
-    with engine.connect() as conn:
-        row = conn.execute(sa.select(r).where(r.c.id == run_id)).mappings().first()
-        if row is None:
-            raise NotFound(f"no run {run_id}")
-        out = observed(dict(row))
-        _times(out)
-
-        def children_of(pid: int) -> list[dict[str, Any]]:
-            kids = [dict(x) for x in conn.execute(sa.select(r).where(r.c.parent_id == pid).order_by(r.c.id)).mappings()]
-            for k in kids:
-                _times(k)
-                observed(k)
-                k["children"] = children_of(k["id"])
-            return kids
-
-        out["children"] = children_of(run_id)
-    return out
-
-
-__all__ = ["DEFAULT_STAGES", "STAGES", "NightlySummary", "Stage", "StageOutcome", "list_runs", "mark_interrupted",
-           "run_nightly", "show_run"]
+__all__ = ["DEFAULT_STAGES", "STAGES", "NightlySummary", "Stage", "StageOutcome", "mark_interrupted", "run_nightly"]

@@ -8,8 +8,6 @@ and a crash loses at most the batch in flight. Nothing here deletes: links and a
 
 from __future__ import annotations
 
-import hashlib
-import re
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
@@ -22,24 +20,9 @@ from ..canon import Canonical
 from . import tables as t
 from .bulk import insert_new_rows
 from .registry import ids_by_hash, utc
+from .text import raw_hash, storable
 
 _IN_CHUNK = 500  # ids per IN (…) list, well under SQLite's limit of bound parameters
-_UNSTORABLE = re.compile("[\x00\ud800-\udfff]")  # what PostgreSQL text cannot hold
-
-
-def raw_hash(text: str) -> str:
-    """A raw URL's identity as ``raw_urls.raw_hash`` defines it: SHA-256 (hex) of the UTF-8 text.
-
-    Ingest computes the same; a test checks the two agree, so a URL met by both is one raw URL.
-    """
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
-
-
-def storable(text: str) -> str:
-    """``text`` with NUL and lone surrogates replaced by U+FFFD, as ingest stores raw URLs."""
-    return _UNSTORABLE.sub("\ufffd", text)
-
-
 def _chunks(items: Sequence[Any]) -> Iterator[Sequence[Any]]:
     for i in range(0, len(items), _IN_CHUNK):
         yield items[i:i + _IN_CHUNK]

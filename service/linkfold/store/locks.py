@@ -7,6 +7,10 @@ job can say *who* is in the way. A row alone would outlive a killed holder, so:
   holder's connection dies (kill -9 included); a row without its advisory lock is stale and is taken over;
 * on SQLite (one machine) a row whose holder is on this host and no longer alive, or whose heartbeat is
   older than ``stale_after`` seconds, is stale and is taken over.
+
+A stage that must run alone (dedupe) takes the lock itself, with ``hold_lock(..., reentrant=True)``: run
+on its own it takes the lock, run by a job of the same process that already holds it (the nightly job) it
+runs under that job's lock; any other holder makes it refuse with :class:`LockHeld`.
 """
 
 from __future__ import annotations
@@ -65,6 +69,14 @@ def pid_alive(pid: int) -> bool:
     return True
 
 
+#: The locks this process holds, by (database, lock name): what a reentrant hold finds already held.
+_HELD: dict[tuple[str, str], RegistryLock] = {}
+
+
+def _held_key(engine: Engine, name: str) -> tuple[str, str]:
+    return engine.url.render_as_string(hide_password=True), name
+
+
 def _advisory_key(name: str) -> int:
     return zlib.crc32(f"linkfold:{name}".encode()) & 0x7FFFFFFF
 
@@ -97,6 +109,8 @@ class RegistryLock:
                          .where(t.job_locks.c.pid == self.pid).values(**values))
 
     def release(self) -> None:
+        if _HELD.get(_held_key(self.engine, self.name)) is self:
+            del _HELD[_held_key(self.engine, self.name)]
         with self.engine.begin() as conn:
             conn.execute(t.job_locks.delete().where(t.job_locks.c.name == self.name)
                          .where(t.job_locks.c.pid == self.pid).where(t.job_locks.c.host == self.host))
@@ -167,11 +181,21 @@ def acquire_lock(engine: Engine, name: str = "registry", *, run_id: int | None =
         if pg_conn is not None:
             pg_conn.close()
         raise
-    return RegistryLock(engine, name, pg_conn)
+    lock = RegistryLock(engine, name, pg_conn)
+    _HELD[_held_key(engine, name)] = lock
+    return lock
 
 
 @contextmanager
-def hold_lock(engine: Engine, name: str = "registry", **kwargs) -> Iterator[RegistryLock]:
+def hold_lock(engine: Engine, name: str = "registry", *, reentrant: bool = False,
+              **kwargs) -> Iterator[RegistryLock]:
+    """Hold the lock for the block. ``reentrant``: when this process already holds it (a job running its
+    stages), run under that hold, and leave releasing it to its holder."""
+    if reentrant:
+        mine = _HELD.get(_held_key(engine, name))
+        if mine is not None:
+            yield mine
+            return
     lock = acquire_lock(engine, name, **kwargs)
     try:
         yield lock

@@ -327,6 +327,12 @@ def complete_file(conn: Connection, file_id: int, *, lines_done: int) -> None:
         status="complete", loaded_at=now(), lines_done=lines_done))
 
 
+def count_unfinished_files(conn: Connection) -> int:
+    """Dataset files whose load has not completed (interrupted, or running now): a new load resumes them."""
+    f = t.dataset_files
+    return int(conn.execute(sa.select(sa.func.count()).select_from(f).where(f.c.status != "complete")).scalar_one())
+
+
 def file_reject_counts(conn: Connection, file_id: int) -> dict[str, int]:
     rows = conn.execute(sa.select(t.rejects.c.reason, sa.func.count())
                         .where(t.rejects.c.file_id == file_id).group_by(t.rejects.c.reason))

@@ -173,5 +173,81 @@ def _finish_quietly(engine: Engine, record: RunRecord, status: RunStatus, error:
         log.warning("could not record the end of run %d (%s)", record.id, status.value, exc_info=True)
 
 
-__all__ = ["RunRecord", "RunStatus", "finish_run", "get_run", "observed", "process_gone", "recording_run",
-           "start_run"]
+# --- reading the run log ---------------------------------------------------------------------------------------
+def _times(row: dict[str, Any]) -> None:
+    for key in ("started_at", "finished_at"):
+        if row.get(key) is not None and row[key].tzinfo is None:
+            row[key] = row[key].replace(tzinfo=UTC)
+    if row.get("started_at") and row.get("finished_at"):
+        row["seconds"] = round((row["finished_at"] - row["started_at"]).total_seconds(), 3)
+
+
+def list_runs(engine: Engine, *, limit: int = 20, stage: str | None = None,
+              top_level: bool = True) -> list[dict[str, Any]]:
+    """Runs, newest first: by default the top-level ones (a nightly run's stages are its children)."""
+    r = t.runs
+    q = sa.select(r).order_by(r.c.id.desc()).limit(limit)
+    if top_level:
+        q = q.where(r.c.parent_id.is_(None))
+    if stage:
+        q = q.where(r.c.stage == stage)
+    with engine.connect() as conn:
+        rows = [dict(x) for x in conn.execute(q).mappings()]
+        ids = [x["id"] for x in rows]
+        children: dict[int, int] = {}
+        if ids:
+            children = {int(p): int(n) for p, n in conn.execute(
+                sa.select(r.c.parent_id, sa.func.count()).where(r.c.parent_id.in_(ids)).group_by(r.c.parent_id))}
+    for x in rows:
+        x["children"] = children.get(x["id"], 0)
+        _times(x)
+        observed(x)
+    return rows
+
+
+def show_run(engine: Engine, run_id: int) -> dict[str, Any]:
+    """One run with its children (and theirs), counts and errors."""
+    from ..errors import NotFound
+
+    r = t.runs
+    with engine.connect() as conn:
+        row = conn.execute(sa.select(r).where(r.c.id == run_id)).mappings().first()
+        if row is None:
+            raise NotFound(f"no run {run_id}")
+        out = observed(dict(row))
+        _times(out)
+
+        def children_of(pid: int) -> list[dict[str, Any]]:
+            kids = [dict(x) for x in conn.execute(sa.select(r).where(r.c.parent_id == pid).order_by(r.c.id)).mappings()]
+            for k in kids:
+                _times(k)
+                observed(k)
+                k["children"] = children_of(k["id"])
+            return kids
+
+        out["children"] = children_of(run_id)
+    return out
+
+
+def running_runs(engine: Engine, *, other_than: int | None = None) -> list[dict[str, Any]]:
+    """The runs recorded as ``running`` (id, stage, parent, host, pid, start), as stored: no
+    :func:`observed` applied, so a caller can tell a dead process's run from a live one itself."""
+    r = t.runs
+    q = (sa.select(r.c.id, r.c.stage, r.c.status, r.c.parent_id, r.c.host, r.c.pid, r.c.started_at)
+         .where(r.c.status == RunStatus.RUNNING.value))
+    if other_than is not None:
+        q = q.where(r.c.id != other_than)
+    with engine.connect() as conn:
+        return [dict(x) for x in conn.execute(q).mappings()]
+
+
+def child_run_id(engine: Engine, parent: int, stage: str) -> int | None:
+    """The newest run of ``stage`` recorded under run ``parent``, if any."""
+    r = t.runs
+    with engine.connect() as conn:
+        return conn.execute(sa.select(sa.func.max(r.c.id)).where(r.c.parent_id == parent,
+                                                                  r.c.stage == stage)).scalar()
+
+
+__all__ = ["RunRecord", "RunStatus", "StageSummary", "child_run_id", "finish_run", "get_run", "list_runs", "observed",
+           "process_gone", "recording_run", "running_runs", "show_run", "start_run"]

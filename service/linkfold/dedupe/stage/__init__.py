@@ -5,6 +5,10 @@ stage"): signing and matching move their marks batch by batch, clustering recomp
 seeds one transaction at a time and moves its marks at the end, so a killed run is picked up by the next
 one and gives the same result. The maths lives in the pure modules of :mod:`linkfold.dedupe`; this
 package only reads and writes rows around it.
+
+Two dedupe runs at once would mint IDs for one cluster twice, so :func:`run_dedupe` holds the registry
+lock (:mod:`linkfold.store.locks`), called from the CLI, the API or a script alike; inside the nightly
+job, which holds the lock already, it runs under the job's hold.
 """
 
 from __future__ import annotations
@@ -18,6 +22,7 @@ from sqlalchemy.engine import Engine
 
 from ...progress import SILENT, Progress
 from ...store import pending as pq
+from ...store.locks import hold_lock
 from ...store.runs import recording_run
 from ...store.stats import refresh_statistics
 from .. import SignatureParams, Thresholds
@@ -46,6 +51,9 @@ from .sinks import Sink, list_sinks, policy_changed, policy_seeds, record_policy
 
 log = logging.getLogger("linkfold")
 
+#: The run log's name of this stage.
+STAGE = "dedupe"
+
 
 @dataclass
 class DedupeSummary:
@@ -58,7 +66,7 @@ class DedupeSummary:
     seconds: float = 0.0
 
     def as_dict(self) -> dict[str, Any]:
-        return {"full": self.full, "signing": vars(self.signing), "matching": vars(self.matching),
+        return {"run_id": self.run_id, "full": self.full, "signing": vars(self.signing), "matching": vars(self.matching),
                 "articles": self.articles.as_dict(), "stories": self.stories.as_dict(),
                 "seconds": round(self.seconds, 3)}
 
@@ -94,15 +102,25 @@ def count_pending(engine: Engine, *, settings: Any | None = None) -> int:
         return n
 
 
-def run_dedupe(engine: Engine, *, settings: Any, full: bool = False, parent_id: int | None = None,
+def run_dedupe(engine: Engine, *, settings: Any, full: bool = False, parent_run: int | None = None,
                progress: Progress = SILENT) -> DedupeSummary:
     """Sign, match, verify and cluster everything pending; with ``full``, match every current document
-    again and recluster the whole registry (after lowering a threshold; also the benchmark baseline)."""
+    again and recluster the whole registry (after lowering a threshold; also the benchmark baseline).
+
+    Holds the registry lock for the run: raises :class:`~linkfold.errors.LockHeld`, naming the holder,
+    while another process holds it. ``parent_run`` is the run this one is a step of (a job's).
+    """
+    with hold_lock(engine, reentrant=True):
+        return _run_dedupe(engine, settings=settings, full=full, parent_run=parent_run, progress=progress)
+
+
+def _run_dedupe(engine: Engine, *, settings: Any, full: bool, parent_run: int | None,
+                progress: Progress) -> DedupeSummary:
     params = SignatureParams.from_settings(settings)
     thresholds = Thresholds.from_settings(settings)
     summary = DedupeSummary(full=full)
     started = time.monotonic()
-    with recording_run(engine, "dedupe", parent_id=parent_id) as run:
+    with recording_run(engine, STAGE, parent_id=parent_run) as run:
         summary.run_id = run.id
         with engine.connect() as conn:
             changed = settings_changed(conn, params)
@@ -147,6 +165,7 @@ def run_dedupe(engine: Engine, *, settings: Any, full: bool = False, parent_id: 
 
 
 __all__ = [
+    "STAGE",
     "ClusterCounts",
     "ClusterDetail",
     "ClusterRow",
