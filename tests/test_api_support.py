@@ -152,7 +152,7 @@ def build_world(engine, tmp_path: Path, settings) -> dict[str, str]:
     """
     import numpy as np
 
-    from linkfold.content.stage import load_documents
+    from linkfold.content.loading import load_documents
     from linkfold.dedupe.stage import run_dedupe
     from linkfold.dedupe.synthetic import edited_copy, invented_vocabulary
 

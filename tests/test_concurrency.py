@@ -296,7 +296,7 @@ def test_a_run_whose_process_was_killed_shows_as_interrupted_everywhere(db_url, 
     import json
 
     from linkfold.api.app import create_app
-    from linkfold.jobs.nightly import list_runs, show_run
+    from linkfold.store.runs import list_runs, show_run
     from linkfold.store.tokens import create_token
     from test_api_support import AsgiClient, settings_for
 

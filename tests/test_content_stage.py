@@ -26,7 +26,10 @@ from warcio.warcwriter import WARCWriter
 from linkfold.canon import canonicalize
 from linkfold.content import MANIFEST_NAME, normalise_text
 from linkfold.content import extract as extract_module
-from linkfold.content.stage import count_pending, extract_pages, import_pages, load_documents
+from linkfold.content.extracting import extract_pages
+from linkfold.content.loading import load_documents
+from linkfold.content.page_import import import_pages
+from linkfold.content.stage import count_pending  # the per-stage counts by name, kept for one release
 from linkfold.errors import ConfigError, InputError
 from linkfold.store import pages as sp
 from linkfold.store import tables as t
@@ -354,7 +357,7 @@ def test_loaded_text_the_database_cannot_hold_is_stored_replaced(engine, tmp_pat
 
 
 def test_an_interrupted_extract_keeps_its_batches_and_resumes(engine, tmp_path, monkeypatch):
-    from linkfold.content import stage
+    from linkfold.content import extracting as stage
 
     import_pages(engine, [_page_dir(tmp_path)])
     real = stage.extract_document

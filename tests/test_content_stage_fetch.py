@@ -19,7 +19,9 @@ from httpserver import PAGE, LoopbackOnlyBackend
 from httpserver import load_url_list as load
 from httpserver import loopback_settings as settings_for
 from linkfold.canon import canonicalize, parse_rules
-from linkfold.content.stage import count_pending, extract_pages, fetch_pages
+from linkfold.content.extracting import extract_pages
+from linkfold.content.fetching import fetch_pages
+from linkfold.content.stage import count_pending  # the per-stage counts by name, kept for one release
 from linkfold.errors import ConfigError, NotFound
 from linkfold.store import pages as sp
 from linkfold.store import tables as t

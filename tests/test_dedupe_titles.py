@@ -21,7 +21,7 @@ import sqlalchemy as sa
 from rapidfuzz import fuzz
 
 from dedupe_world import Texts, add_document, ids_of, load_urls, settings
-from linkfold.content.stage import load_documents
+from linkfold.content.loading import load_documents
 from linkfold.dedupe import MIN_TITLE_WORDS, normalise_words, title_keys
 from linkfold.dedupe.stage import count_pending, run_dedupe
 from linkfold.dedupe.stage.signing import TITLES

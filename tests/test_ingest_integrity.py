@@ -99,7 +99,7 @@ def test_binary_copy_types_follow_the_columns_and_fall_back_to_text():
 
 def test_references_hold_after_a_recanonicalisation(engine, tmp_path):
     from linkfold.canon import parse_rules
-    from linkfold.jobs.recanon import recanonicalize
+    from linkfold.ingest.recanon import recanonicalize
     from linkfold.store.rulesets import store_ruleset
 
     urls = [f"https://www.harbour-{i % 3}.example/story/{i}?utm_source=x&ref=side" for i in range(20)]

@@ -21,10 +21,11 @@ import sqlalchemy as sa
 from dedupe_world import bulk_world, registry_snapshot, settings
 from linkfold.cli import main
 from linkfold.errors import LockHeld
-from linkfold.jobs.nightly import list_runs, run_nightly, show_run
+from linkfold.jobs.nightly import run_nightly
 from linkfold.store import make_engine
 from linkfold.store import tables as t
 from linkfold.store.locks import hold_lock
+from linkfold.store.runs import list_runs, show_run
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -137,7 +138,7 @@ def test_killed_nightly_then_rerun_equals_an_uninterrupted_run(db_url, engine, t
 def test_extract_is_a_child_run_of_the_nightly_run(engine):
     # Pages imported from the invented fixtures give the extract stage work; its run hangs under the
     # nightly run (passed down as parent_id, not found afterwards).
-    from linkfold.content.stage import import_pages
+    from linkfold.content.page_import import import_pages
 
     import_pages(engine, [ROOT / "fixtures" / "pages"])
     summary = run_nightly(engine, settings=settings())

@@ -19,7 +19,7 @@ from pathlib import Path
 import pytest
 import sqlalchemy as sa
 
-from linkfold.content.stage import load_documents
+from linkfold.content.loading import load_documents
 from linkfold.dedupe.stage import list_clusters, record_decision, run_dedupe
 from linkfold.ingest import ingest_dump
 from linkfold.store import tables as t

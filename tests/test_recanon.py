@@ -8,7 +8,7 @@ from datetime import UTC, datetime
 import sqlalchemy as sa
 
 from linkfold.canon import parse_rules
-from linkfold.jobs.recanon import count_pending, recanonicalize
+from linkfold.ingest.recanon import count_pending, recanonicalize
 from linkfold.store import tables as t
 from linkfold.store.rulesets import latest_ruleset, store_ruleset
 

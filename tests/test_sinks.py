@@ -392,7 +392,7 @@ def test_never_follow_hosts_are_not_asked(engine, db_url, tmp_path, server):
 
 def test_never_follow_hosts_are_not_fetched_either(engine, db_url, tmp_path, server):
     from httpserver import LoopbackOnlyBackend, load_url_list, loopback_settings
-    from linkfold.content.stage import fetch_pages
+    from linkfold.content.fetching import fetch_pages
     from linkfold.web.guard import StaticResolver
 
     _store_rules(engine)

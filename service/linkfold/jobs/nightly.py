@@ -165,9 +165,11 @@ def run_nightly(engine: Engine, *, settings: Any, progress: Progress = SILENT,
         lock.heartbeat(run_id)
         summary.interrupted_earlier = mark_interrupted(engine, own_run=run_id)
         try:
-            for stage in stages:
-                summary.stages.append(_one_stage(engine, settings, stage, run_id, progress))
-                lock.heartbeat(run_id)
+            # The stages run under the job's hold: a stage that takes the lock itself (dedupe) is not refused.
+            with lock.lend():
+                for stage in stages:
+                    summary.stages.append(_one_stage(engine, settings, stage, run_id, progress))
+                    lock.heartbeat(run_id)
         except KeyboardInterrupt:
             summary.status = RunStatus.INTERRUPTED.value
             finish_run(engine, run_id, status=RunStatus.INTERRUPTED, counts=summary.as_dict(),

@@ -9,8 +9,9 @@ job can say *who* is in the way. A row alone would outlive a killed holder, so:
   older than ``stale_after`` seconds, is stale and is taken over.
 
 A stage that must run alone (dedupe) takes the lock itself, with ``hold_lock(..., reentrant=True)``: run
-on its own it takes the lock, run by a job of the same process that already holds it (the nightly job) it
-runs under that job's lock; any other holder makes it refuse with :class:`LockHeld`.
+on its own it takes the lock; run by a job that holds the lock and lends it to its stages
+(:meth:`RegistryLock.lend`, the nightly job) it runs under the job's hold; any other holder — another
+process, or another hold in this one — makes it refuse with :class:`LockHeld`.
 """
 
 from __future__ import annotations
@@ -22,6 +23,7 @@ import time
 import zlib
 from collections.abc import Iterator
 from contextlib import contextmanager
+from contextvars import ContextVar
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 
@@ -69,12 +71,8 @@ def pid_alive(pid: int) -> bool:
     return True
 
 
-#: The locks this process holds, by (database, lock name): what a reentrant hold finds already held.
-_HELD: dict[tuple[str, str], RegistryLock] = {}
-
-
-def _held_key(engine: Engine, name: str) -> tuple[str, str]:
-    return engine.url.render_as_string(hide_password=True), name
+#: The lock a job lends to the stages it runs (in this thread or task): see :meth:`RegistryLock.lend`.
+_LENT: ContextVar[RegistryLock | None] = ContextVar("linkfold_lent_lock", default=None)
 
 
 def _advisory_key(name: str) -> int:
@@ -108,9 +106,21 @@ class RegistryLock:
             conn.execute(t.job_locks.update().where(t.job_locks.c.name == self.name)
                          .where(t.job_locks.c.pid == self.pid).values(**values))
 
+    @contextmanager
+    def lend(self) -> Iterator[RegistryLock]:
+        """Inside the block, a stage asking for this lock reentrantly runs under this hold (a job lends
+        its lock to the stages it runs) instead of being refused."""
+        token = _LENT.set(self)
+        try:
+            yield self
+        finally:
+            _LENT.reset(token)
+
+    def covers(self, engine: Engine, name: str) -> bool:
+        """Whether this hold is the lock ``name`` of the database ``engine`` opens."""
+        return self.name == name and self.engine.url == engine.url
+
     def release(self) -> None:
-        if _HELD.get(_held_key(self.engine, self.name)) is self:
-            del _HELD[_held_key(self.engine, self.name)]
         with self.engine.begin() as conn:
             conn.execute(t.job_locks.delete().where(t.job_locks.c.name == self.name)
                          .where(t.job_locks.c.pid == self.pid).where(t.job_locks.c.host == self.host))
@@ -181,21 +191,18 @@ def acquire_lock(engine: Engine, name: str = "registry", *, run_id: int | None =
         if pg_conn is not None:
             pg_conn.close()
         raise
-    lock = RegistryLock(engine, name, pg_conn)
-    _HELD[_held_key(engine, name)] = lock
-    return lock
+    return RegistryLock(engine, name, pg_conn)
 
 
 @contextmanager
 def hold_lock(engine: Engine, name: str = "registry", *, reentrant: bool = False,
               **kwargs) -> Iterator[RegistryLock]:
-    """Hold the lock for the block. ``reentrant``: when this process already holds it (a job running its
-    stages), run under that hold, and leave releasing it to its holder."""
-    if reentrant:
-        mine = _HELD.get(_held_key(engine, name))
-        if mine is not None:
-            yield mine
-            return
+    """Hold the lock for the block. ``reentrant``: when a job lends its hold of this lock to the stages it
+    runs (:meth:`RegistryLock.lend`), run under that hold and leave releasing it to the job."""
+    lent = _LENT.get() if reentrant else None
+    if lent is not None and lent.covers(engine, name):
+        yield lent
+        return
     lock = acquire_lock(engine, name, **kwargs)
     try:
         yield lock

@@ -88,7 +88,7 @@ def apply_recanon(conn: Connection, outcomes: Sequence[Recanonicalised], *, vers
     for i in range(0, len(keys), _IN_CHUNK):
         chunk = keys[i:i + _IN_CHUNK]
         ids.update(conn.execute(sa.select(t.canonical_urls.c.url_key, t.canonical_urls.c.id)
-                                .where(t.canonical_urls.c.url_key.in_(chunk))).tuples().all())
+                                .where(t.canonical_urls.c.url_key.in_(chunk))).all())
     updates, changes = [], []
     for o in outcomes:
         new_id = ids[o.canonical["url_key"]] if o.canonical is not None else None
