@@ -16,11 +16,11 @@ have work of their own); the nightly run is then ``failed``.
 
 from __future__ import annotations
 
-import importlib
 import logging
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from types import ModuleType
 from typing import Any
 
 import sqlalchemy as sa
@@ -108,34 +108,64 @@ def _brief(counts: dict[str, Any]) -> str:
 # --- the stages -----------------------------------------------------------------------------------------------
 @dataclass(frozen=True)
 class Stage:
-    """A stage as the job runs it: its module offers ``count_pending(engine, *, settings)`` and the run
-    function named ``run``, called as ``run(engine, settings=…, progress=…, parent_run=…)`` and returning a
-    :class:`~linkfold.store.runs.StageSummary`. ``network``: the stage sends requests (needs a contact).
+    """A stage as the job runs it, through the surface every stage module offers: ``count_pending(engine,
+    *, settings)`` and a run function (named ``run``) called as ``run(engine, settings=…, progress=…,
+    parent_run=…)`` that returns a :class:`~linkfold.store.runs.StageSummary`. ``network``: the stage
+    sends requests (it needs a contact).
 
-    Looked up when the job runs, not when this module is imported, so ``linkfold runs`` does not load
-    the extraction library, and a test can replace a stage's function in its module."""
+    ``module`` imports the stage's module when the job runs, not when this one is imported (so ``linkfold
+    runs`` does not load the extraction library), and the functions are looked up in it then, so a test
+    can replace one in its module."""
 
     name: str
     network: bool
-    module: str
+    module: Callable[[], ModuleType]
     run: str
 
-    def _function(self, name: str) -> Callable[..., Any]:
-        return getattr(importlib.import_module(self.module), name)
-
     def pending(self, engine: Engine, settings: Any) -> int:
-        return int(self._function("count_pending")(engine, settings=settings))
+        return int(self.module().count_pending(engine, settings=settings))
 
     def start(self, engine: Engine, settings: Any, parent: int, progress: Progress) -> StageSummary:
-        return self._function(self.run)(engine, settings=settings, progress=progress, parent_run=parent)
+        run = getattr(self.module(), self.run)
+        return run(engine, settings=settings, progress=progress, parent_run=parent)
+
+
+def _recanon() -> ModuleType:
+    from ..ingest import recanon
+
+    return recanon
+
+
+def _follow() -> ModuleType:
+    from ..follow import stage
+
+    return stage
+
+
+def _fetch() -> ModuleType:
+    from ..content import fetching
+
+    return fetching
+
+
+def _extract() -> ModuleType:
+    from ..content import extracting
+
+    return extracting
+
+
+def _dedupe() -> ModuleType:
+    from ..dedupe import stage
+
+    return stage
 
 
 DEFAULT_STAGES = (
-    Stage("recanonicalize", False, "linkfold.ingest.recanon", "recanonicalize"),
-    Stage("follow", True, "linkfold.follow.stage", "follow_links"),
-    Stage("fetch", True, "linkfold.content.fetching", "fetch_pages"),
-    Stage("extract", False, "linkfold.content.extracting", "extract_pages"),
-    Stage("dedupe", False, "linkfold.dedupe.stage", "run_dedupe"),
+    Stage("recanonicalize", False, _recanon, "recanonicalize"),
+    Stage("follow", True, _follow, "follow_links"),
+    Stage("fetch", True, _fetch, "fetch_pages"),
+    Stage("extract", False, _extract, "extract_pages"),
+    Stage("dedupe", False, _dedupe, "run_dedupe"),
 )
 
 
