@@ -12,6 +12,7 @@ import time
 from datetime import UTC, datetime, timedelta
 
 import pytest
+import sqlalchemy as sa
 
 from linkfold.errors import LockHeld
 from linkfold.store import tables as t
@@ -75,3 +76,50 @@ def test_killed_holder_releases_the_lock(db_url, engine):
             if time.monotonic() > deadline:
                 raise
             time.sleep(0.2)
+
+
+def _settings(db_url):
+    from linkfold.settings import load_settings
+
+    return load_settings({"database_url": db_url}, environ={})
+
+
+def test_run_dedupe_from_python_refuses_while_another_process_holds_the_lock(db_url, engine):
+    # The library takes the lock, not the CLI: a script calling linkfold.run_dedupe is refused too, with
+    # the holder named, and nothing is recorded as a dedupe run.
+    import linkfold
+
+    script = textwrap.dedent(f"""
+        import sys
+        from linkfold.store import make_engine
+        from linkfold.store.locks import acquire_lock
+        lock = acquire_lock(make_engine({db_url!r}))
+        print("held", flush=True)
+        sys.stdin.read()
+        lock.release()
+    """)
+    holder = subprocess.Popen([sys.executable, "-c", script], stdin=subprocess.PIPE, stdout=subprocess.PIPE,
+                              text=True)
+    try:
+        assert holder.stdout.readline().strip() == "held"
+        with pytest.raises(LockHeld, match=f"pid {holder.pid}"):
+            linkfold.run_dedupe(engine, settings=_settings(db_url))
+    finally:
+        holder.communicate("", timeout=30)
+    with engine.connect() as conn:
+        assert conn.execute(sa.select(sa.func.count()).select_from(t.runs)
+                            .where(t.runs.c.stage == "dedupe")).scalar_one() == 0
+    assert linkfold.run_dedupe(engine, settings=_settings(db_url)).run_id is not None  # released: it runs
+    assert read_lock(engine) is None  # and lets go of the lock after
+
+
+def test_run_dedupe_refuses_another_hold_in_the_same_process_but_runs_under_a_lent_one(db_url, engine):
+    from linkfold.dedupe.stage import run_dedupe
+
+    with hold_lock(engine) as lock:
+        with pytest.raises(LockHeld):
+            run_dedupe(engine, settings=_settings(db_url))  # a hold it was not lent
+        with lock.lend():
+            assert run_dedupe(engine, settings=_settings(db_url)).run_id is not None  # a job's stage
+        assert read_lock(engine).pid == os.getpid()  # the job still holds it
+    assert read_lock(engine) is None
