@@ -161,3 +161,12 @@ def test_openapi_document_is_served_and_lists_the_routes(api):
     for path in ("/v1/lookup", "/v1/datasets", "/v1/datasets/{name}", "/v1/runs/{run_id}", "/v1/health"):
         assert path in doc["paths"], path
     assert "application/x-ndjson" in doc["paths"]["/v1/lookup"]["post"]["responses"]["200"]["content"]
+
+
+def test_a_stage_run_reads_the_same_from_the_library_and_the_api(api, engine):
+    # The run's counts that the API answers are the stage summary's as_dict(), as the CLI prints it.
+    from linkfold.ingest.recanon import recanonicalize
+
+    summary = recanonicalize(engine)
+    got = api.get(f"/v1/runs/{summary.run_id}").json()
+    assert got["stage"] == "recanonicalize" and got["counts"] == json.loads(json.dumps(summary.as_dict()))

@@ -50,6 +50,10 @@ def test_stages_run_in_order_as_child_runs(engine, tmp_path):
     assert shown["status"] == "ok" and [c["stage"] for c in shown["children"]] == ["dedupe"]
     assert shown["children"][0]["counts"]["signing"]["signed"] == 30
     assert shown["counts"]["stages"]["follow"]["status"] == "skipped"
+    # The job keeps each stage's as_dict() as that stage's counts, the same as the stage's own run says.
+    assert shown["counts"]["stages"]["dedupe"]["counts"] == shown["children"][0]["counts"]
+    assert shown["counts"]["stages"]["dedupe"]["run_id"] == shown["children"][0]["id"]
+    assert shown["counts"]["run_id"] == summary.run_id and shown["counts"]["status"] == "ok"
     # A second night with nothing new runs nothing.
     again = run_nightly(engine, settings=settings())
     assert {s.name: s.status for s in again.stages}["dedupe"] == "skipped"

@@ -66,3 +66,25 @@ def test_new_ruleset_moves_raw_urls_and_records_the_mapping(engine):
     # A rerun with nothing new changes nothing.
     third = recanonicalize(engine)
     assert third.examined == 0 and count_pending(engine) == 0
+
+
+def test_the_command_prints_the_summary_the_run_log_keeps(db_url, engine, capsys):
+    import json
+
+    from linkfold.cli import main
+    from linkfold.store.runs import show_run
+
+    _insert_raw(engine, RAWS)
+    assert main(["--db", db_url, "recanonicalize", "--summary", "json"]) == 0
+    out, err = capsys.readouterr()
+    printed = json.loads(out)
+    assert printed["examined"] == 4 and printed["invalid_by_reason"] == {"not_http": 1}
+    assert show_run(engine, printed["run_id"])["counts"] == printed  # the CLI's JSON is the run's counts
+    assert "re-canonicalised under ruleset 1: 4 raw URLs" in err  # the summary's lines, on stderr
+
+    # Quiet: nothing on stderr, and a second run finds nothing pending but still says so in its summary.
+    assert main(["--db", db_url, "-q", "recanonicalize"]) == 0
+    out, err = capsys.readouterr()
+    assert out == "" and err == ""
+    assert main(["--db", db_url, "recanonicalize"]) == 0
+    assert "nothing pending" in capsys.readouterr().err
