@@ -22,10 +22,10 @@ import sqlalchemy as sa
 from httpserver import LoopbackOnlyBackend
 from httpserver import loopback_settings as settings_for
 from linkfold.canon import parse_rules
-from linkfold.follow.guard import StaticResolver
 from linkfold.store import tables as t
 from linkfold.store.rulesets import store_ruleset
 from linkfold.store.runs import StageSummary, finish_run, start_run
+from linkfold.web.guard import StaticResolver
 
 NAMES = {"short.test": ["127.0.0.1"], "news.test": ["127.0.0.1"]}
 

@@ -16,7 +16,7 @@ from typing import Any
 import sqlalchemy as sa
 
 from .canon import load_rules
-from .content.stage import import_pages
+from .content.page_import import import_pages
 from .dedupe.stage import list_clusters
 from .errors import InputError
 from .exposure import write_exposure
