@@ -25,8 +25,8 @@ import sqlalchemy as sa
 from linkfold.errors import DumpFormatError
 from linkfold.ingest import FileOutcome, ingest_dump
 from linkfold.ingest import load as load_module
-from linkfold.ingest.formats import foreign_encoding, inspect_file
-from linkfold.ingest.readers import _JsonLines
+from linkfold.inputs import foreign_encoding, inspect_file
+from linkfold.inputs.jsonlines import JsonLines
 from linkfold.store import tables as t
 from test_ingest_load import counts, rejects
 
@@ -54,7 +54,7 @@ def _reject_details(engine) -> dict[int, tuple[str, str]]:
 
 @pytest.mark.parametrize("fast_lane", [True, False], ids=["block-lane", "line-lane"])
 def test_json_past_the_readers_limits_is_a_reject_of_that_line(engine, tmp_path, monkeypatch, fast_lane):
-    monkeypatch.setattr(_JsonLines, "fast_lane", fast_lane)
+    monkeypatch.setattr(JsonLines, "fast_lane", fast_lane)
     # Line 1 is read by the format check, lines 1203 and 1204 after it (the check looks at 1000 lines).
     lines = [DEEP] + [_good(i) for i in range(2, 1203)] + [DEEP, LONG_INT] + [_good(i) for i in range(1205, 1301)]
     path = tmp_path / "posts.jsonl"
@@ -307,8 +307,8 @@ def test_gzip_members_and_zero_padding_read_as_gzip_open_reads_them(tmp_path):
 
 def test_the_line_reader_never_holds_more_than_a_piece_and_the_line_limit(tmp_path):
     # The reading side on its own: whatever a gzip'd line inflates to, no read returns more than a piece
-    # plus the line limit (formats.PhysicalLines' documented bound).
-    from linkfold.ingest.formats import open_binary, physical_lines
+    # plus the line limit (inputs.PhysicalLines' documented bound).
+    from linkfold.inputs import open_binary, physical_lines
 
     path = tmp_path / "long.txt.gz"
     path.write_bytes(gzip.compress(b"x" * (64 << 20) + b"\nhttps://a.example/\n" + b"y" * (3 << 20)))

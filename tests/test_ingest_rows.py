@@ -12,7 +12,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from linkfold.canon import Canonicaliser
-from linkfold.ingest.readers import MISSING, DumpRow, RowBlock
+from linkfold.inputs import MISSING, DumpRow, RowBlock
 from linkfold.ingest.rows import TIME_POSITION, Batch, RawIds, _key, _time
 from linkfold.pseudonyms import Pseudonymiser
 

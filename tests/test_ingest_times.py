@@ -6,7 +6,7 @@ from datetime import UTC, datetime
 
 import pytest
 
-from linkfold.ingest.times import BadTime, parse_time
+from linkfold.inputs import BadTime, parse_time
 
 
 @pytest.mark.parametrize(("text", "expected"), [

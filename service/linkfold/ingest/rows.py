@@ -33,9 +33,8 @@ from typing import Any
 
 from ..canon import Canonical
 from ..errors import InvalidURL
+from ..inputs import MISSING, BadTime, DumpRow, Reason, RowBlock, parse_time
 from ..pseudonyms import Pseudonymiser, unit_text
-from .readers import MISSING, DumpRow, Reason, RowBlock
-from .times import BadTime, parse_time
 
 ROW_POSITION = -1  # the row itself: a row that could not be read, or a problem with its key
 TIME_POSITION = -2  # the row's time
@@ -309,7 +308,7 @@ class Batch:
                 continue
             seen_at = None
             if times is not None:
-                if type(t) is str and len(t) > 10 and t[-1] == "Z" and t[4] == "-":
+                if type(t) is str and len(t) > 10 and t[-1] == "Z" and t[4] == "-" and t[10] in "Tt ":
                     try:
                         seen_at = _fromisoformat(t)
                     except ValueError:
@@ -347,7 +346,7 @@ class Batch:
         if row.reject is not None:
             rej = row.reject
             # A broken row's text holds its raw unit ID when the load reads units: no excerpt then.
-            self.rejects.append((ds, fid, n, ROW_POSITION, rej.reason, rej.detail,
+            self.rejects.append((ds, fid, n, ROW_POSITION, rej.reason, rej.message,
                                  rej.excerpt if self.units is None else None, None))
             return
         urls = row.urls
@@ -374,7 +373,7 @@ class Batch:
         if self.timed:
             t = row.time
             # parse_time's own first case (RFC 3339 in UTC, "…Z"), inline: it is met on nearly every row.
-            if type(t) is str and len(t) > 10 and t[-1] == "Z" and t[4] == "-":
+            if type(t) is str and len(t) > 10 and t[-1] == "Z" and t[4] == "-" and t[10] in "Tt ":
                 try:
                     seen_at = _fromisoformat(t)
                 except ValueError:
