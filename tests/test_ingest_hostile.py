@@ -252,7 +252,7 @@ def test_redirect_pairs_past_the_json_limits_are_problems_of_their_lines(engine,
     assert summary.links == 1
     problems = [(p.line, p.reason) for p in summary.problems]
     assert problems == [(1, "bad_json"), (2, "bad_json"), (3, "line_too_long")]
-    assert "nested deeper" in summary.problems[0].detail and "digits" in summary.problems[1].detail
+    assert "nested deeper" in summary.problems[0].message and "digits" in summary.problems[1].message
 
 
 def test_documents_past_the_json_limits_are_problems_of_their_lines(tmp_path):

@@ -33,6 +33,7 @@ from sqlalchemy.engine import Engine
 from ..canon import Canonical, Canonicaliser, Ruleset
 from ..errors import ConfigError, InputError, InvalidURL
 from ..ingest.rows import storable
+from ..inputs import DumpFormat, LineProblem, RecordProblem, read_records
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import pages as sp
@@ -40,13 +41,12 @@ from ..store.conflicts import retrying
 from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
-from ._files import LineProblem, json_objects
 from .canonical_link import DeclaredLink, Relation, declared_link
 from .documents import DOCUMENT_FIELDS, MAX_LINE_BYTES, document_from_record
 from .extract import Document, extract_document, extractor_version
 from .fetching import FetchSummary, fetch_pages
 from .mediatype import is_html
-from .pages import DEFAULT_MAX_BYTES, MANIFEST_NAME, Page, PageProblem, ReadTally, read_pages
+from .pages import DEFAULT_MAX_BYTES, MANIFEST_NAME, Page, ReadTally, read_pages
 from .text import text_hash
 from .usable import DEFAULT_RULES, Unusable, UsableTextRules
 
@@ -62,18 +62,8 @@ DECLARED_CROSS = "declared_cross"
 LINK_SOURCE = "extract"
 
 
-@dataclass(frozen=True)
-class Problem:
-    """One input record that was not stored: where (the file as given, a line or record number), why."""
-
-    file: str
-    line: int | None
-    reason: str
-    detail: str = ""
-
-    def __str__(self) -> str:
-        where = f"{self.file}:{self.line}" if self.line is not None else self.file
-        return f"{where}: {self.reason}" + (f": {self.detail}" if self.detail else "")
+#: One input record that was not stored: the one problem shape of every input (linkfold.inputs).
+Problem = LineProblem
 
 
 @dataclass
@@ -205,8 +195,8 @@ def import_pages(engine: Engine, paths: Iterable[str | Path], *, settings: Any =
             try:
                 for item in read_pages(path, max_bytes=cap, tally=tally):
                     progress.advance(1)
-                    if isinstance(item, PageProblem):
-                        summary.problems.add(Problem(str(path), item.line, item.reason, item.detail))
+                    if isinstance(item, LineProblem):
+                        summary.problems.add(item)
                         continue
                     summary.read += 1
                     bad = next((c for c in (_canonical(canon, item.url), _canonical(canon, item.final_url))
@@ -358,14 +348,16 @@ def load_documents(engine: Engine, path: str | Path, *, settings: Any = None, ba
             batch.clear()
 
         try:
-            for number, obj in json_objects(path, line_cap=MAX_LINE_BYTES):
+            for item in read_records(path, DumpFormat.JSONL, max_line_bytes=MAX_LINE_BYTES):
                 progress.advance(1)
+                if isinstance(item, LineProblem):
+                    summary.problems.add(item)
+                    continue
+                number = item.line
                 try:
-                    if isinstance(obj, LineProblem):
-                        raise obj
-                    doc = document_from_record(_storable_record(obj), now=moment, rules=rules)
-                except LineProblem as bad:
-                    summary.problems.add(Problem(str(path), number, bad.reason, bad.detail))
+                    doc = document_from_record(_storable_record(item.values), now=moment, rules=rules)
+                except RecordProblem as bad:
+                    summary.problems.add(bad.at(str(path), number))
                     continue
                 found = _canonical(canon, doc.url)
                 if isinstance(found, InvalidURL):

@@ -86,7 +86,8 @@ class JsonLines(Lane):
         self.r.columns = list(members)
         if nonblank and not objects and not unholdable:
             raise DumpFormatError(f"{self.r.name}: none of the first {nonblank} non-blank lines is a JSON "
-                                  "object; is this JSON lines?", hint="pass --format to say what it is")
+                                  "object; is this JSON lines?",
+                                  hint=None if self.opt.whole_records else "pass --format to say what it is")
         if self.opt.whole_records:
             for (column, option), count in zip(self.opt.required, reached_each, strict=True):
                 if objects and not count:

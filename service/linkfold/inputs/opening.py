@@ -16,7 +16,7 @@ import zlib
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
-from typing import BinaryIO
+from typing import Any, BinaryIO
 
 from ..errors import DumpFormatError, InputError
 
@@ -285,25 +285,90 @@ def _open_raw(path: Path) -> BinaryIO:
         raise InputError(f"{path}: cannot read ({exc.strerror or exc})") from None
 
 
+class _InflatingFile(io.RawIOBase):
+    """A gzip file's decompressed bytes, through :class:`_Inflater` (bounded, members, padding).
+
+    Unlike ``gzip.GzipFile`` it hands out everything that inflated before a truncation, then ends as if
+    the stream were complete and sets ``truncated``: the reader of its lines reports every whole line and
+    then raises (``reading.RecordReader``). A corrupt stream raises ``zlib.error`` where it breaks.
+    """
+
+    def __init__(self, path: Path) -> None:
+        self._fh = _open_raw(path)
+        self._inflater = _Inflater()
+        self._outputs: Iterator[bytes] = iter(())
+        self._pending = memoryview(b"")
+        # Bytes after the last line end inflated so far, held back so that a cut-off last line is never
+        # handed out as if it were whole (bounded: a longer run without a line end goes out anyway).
+        self._tail = b""
+        self._done = False
+        self.truncated = False
+
+    def readable(self) -> bool:
+        return True
+
+    def _next_output(self) -> bytes | None:
+        while True:
+            out = next(self._outputs, None)
+            if out is not None:
+                data = self._tail + out
+                cut = data.rfind(b"\n") + 1
+                if len(data) - cut > _CHUNK:
+                    cut = len(data)
+                self._tail = data[cut:]
+                if cut:
+                    return data[:cut]
+                continue
+            if self._done:
+                return None
+            data = self._fh.read(_CHUNK)
+            if not data:
+                self._done = True
+                self.truncated = not self._inflater.complete
+                tail, self._tail = self._tail, b""
+                return tail if tail and not self.truncated else None
+            self._outputs = self._inflater.feed(data)
+
+    def readinto(self, buffer) -> int:  # type: ignore[override]
+        if not self._pending:
+            out = self._next_output()
+            if out is None:
+                return 0
+            self._pending = memoryview(out)
+        n = min(len(buffer), len(self._pending))
+        buffer[:n] = self._pending[:n]
+        self._pending = self._pending[n:]
+        return n
+
+    def close(self) -> None:
+        self._fh.close()
+        super().close()
+
+
+def truncated(stream: BinaryIO) -> bool:
+    """Whether ``stream`` (from :func:`open_input`) was a gzip stream that ended before its last member."""
+    raw = getattr(stream, "raw", None)
+    return bool(getattr(raw, "truncated", False))
+
+
 def open_input(path: Path, *, text: bool = True) -> BinaryIO:
     """Open ``path`` for reading its bytes, decompressed when it starts with the gzip magic number.
 
     With ``text`` (an input table, JSON lines, a manifest), a file in another encoding than UTF-8 is
     refused first, as :func:`inspect_file` refuses it (``DumpFormatError``). Without it (a page body,
-    whose charset is the page's business) the bytes are handed on as they are. A broken gzip stream
-    raises while it is read (``gzip.BadGzipFile``, ``EOFError``, ``zlib.error``: :data:`GZIP_ERRORS`);
-    reading it through :class:`~linkfold.inputs.lines.PhysicalLines` turns those into ``InputError``.
-    Read it in bounded pieces: ``gzip`` inflates no more than each read asks for.
+    whose charset is the page's business) the bytes are handed on as they are. A corrupt gzip stream
+    raises ``zlib.error`` where it breaks (:data:`GZIP_ERRORS`; reading it through
+    :class:`~linkfold.inputs.lines.PhysicalLines` turns that into ``InputError``); a truncated one ends
+    early, everything before the cut handed out, and :func:`truncated` says so. Inflating is bounded as in
+    :func:`inspect_file`: no read returns more than a piece, whatever the data inflates to.
     """
     with _open_raw(path) as probe:
         gz = probe.read(2) == GZIP_MAGIC
-    # gzip.open owns the file it opens, so closing the stream closes the file too.
-    stream: BinaryIO = gzip.open(path, "rb") if gz else _open_raw(path)  # type: ignore[assignment]  # noqa: SIM115 (returned open)
+    # The buffered reader owns the raw file, so closing the stream closes the file too.
+    stream: Any = io.BufferedReader(_InflatingFile(path), buffer_size=_CHUNK) if gz else _open_raw(path)
     if text:
         try:
-            head = stream.read(_SNIFF_BYTES)
-            _refuse_encoding(path, head)
-            stream.seek(0)  # a GzipFile seeks back by reading from the start again: 4 KiB, once
+            _refuse_encoding(path, stream.peek(_SNIFF_BYTES)[:_SNIFF_BYTES])
         except GZIP_ERRORS as exc:
             stream.close()
             raise InputError(f"{path}: not a readable gzip file ({exc})") from None
@@ -332,4 +397,5 @@ __all__ = [
     "open_binary",
     "open_input",
     "parse_format",
+    "truncated",
 ]

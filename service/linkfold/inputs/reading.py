@@ -26,8 +26,8 @@ from typing import Any
 from ..errors import InputError
 from .delimited import Delimited
 from .jsonlines import JsonLines
-from .lines import PhysicalLine, physical_lines
-from .opening import DEFAULT_MAX_LINE_BYTES, TABLE_FORMATS, DumpFormat, open_input
+from .lines import PhysicalLine, PhysicalLines, physical_lines
+from .opening import DEFAULT_MAX_LINE_BYTES, TABLE_FORMATS, DumpFormat, open_input, truncated
 from .problems import LineProblem
 from .records import DumpRow, Lane, ReadOptions, RowBlock
 
@@ -128,11 +128,17 @@ class RecordReader:
         self.comments = comments
         self._stream: Any = None
         self._reader: DumpReader | None = None
+        self._physical: PhysicalLines | None = None
         self.last_line = 0
 
     @property
     def columns(self) -> list[str]:
         return self._reader.columns if self._reader is not None else []
+
+    @property
+    def lines_read(self) -> int:
+        """Physical lines read so far (blank and comment lines included)."""
+        return self._physical.number if self._physical is not None else 0
 
     @property
     def blank_lines(self) -> int:
@@ -141,7 +147,8 @@ class RecordReader:
     def check(self) -> None:
         if self._reader is None:
             self._stream = open_input(self.path)
-            lines: Iterator[PhysicalLine] = physical_lines(self._stream, self.options.max_line_bytes)
+            self._physical = physical_lines(self._stream, self.options.max_line_bytes)
+            lines: Iterator[PhysicalLine] = self._physical
             if self.comments:
                 lines = _without_comments(lines)
             self._reader = DumpReader(lines, self.options, name=self.name)
@@ -162,7 +169,12 @@ class RecordReader:
                         yield row.reject
                     else:
                         yield Record(row.line_no, row.end_line, row.record)
+                if truncated(self._stream):
+                    raise InputError(f"{self.name}: the gzip stream is truncated: compressed data ends or "
+                                     f"breaks after line {self.lines_read}; the lines before it were read")
             except InputError as exc:
+                if str(exc).startswith(f"{self.name}: "):
+                    raise
                 # The stream broke after it was checked (a truncated gzip): say which file.
                 raise InputError(f"{self.name}: {exc}") from exc
 
