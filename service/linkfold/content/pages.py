@@ -22,7 +22,7 @@ from __future__ import annotations
 import logging
 from collections import Counter
 from collections.abc import Iterator, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import datetime
 from pathlib import Path, PurePosixPath
 from typing import IO, Any
@@ -388,7 +388,7 @@ def read_page_dir(path: str | Path, *, max_bytes: int = DEFAULT_MAX_BYTES,
     for item in reader:
         if isinstance(item, LineProblem):
             tally.problems[item.reason] += 1
-            yield item
+            yield replace(item, file=str(path))  # every problem names the input as given
             continue
         number = item.line
         source = f"dir:{manifest}:{number}"
@@ -399,7 +399,7 @@ def read_page_dir(path: str | Path, *, max_bytes: int = DEFAULT_MAX_BYTES,
             continue
         except _Reject as bad:
             tally.problems[bad.reason] += 1
-            yield bad.at(str(manifest), number)
+            yield bad.at(str(path), number)
             continue
         tally.pages += 1
         yield page
