@@ -263,7 +263,7 @@ def test_documents_past_the_json_limits_are_problems_of_their_lines(tmp_path):
     path = tmp_path / "docs.jsonl"
     path.write_text("\n".join([good, DEEP, LONG_INT]) + "\n")
     out = list(read_documents(path))
-    problems = [(p.line, p.reason, p.detail) for p in out if not hasattr(p, "status")]
+    problems = [(p.line, p.reason, p.message) for p in out if not hasattr(p, "status")]
     assert [(n, r) for n, r, _ in problems] == [(2, "bad_json"), (3, "bad_json")]
     assert "nested deeper" in problems[0][2] and "digits" in problems[1][2]
 
