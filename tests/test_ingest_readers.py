@@ -370,7 +370,7 @@ _PIECES = ["https://a.example/p", "k1", "2031-05-04T08:00:00Z", ",", ",", "\t", 
 
 
 def _both_lanes(data: bytes, fmt: str, monkeypatch, chunk: int = 1 << 20, keyed: bool = True) -> tuple[list, list]:
-    from linkfold.inputs import delimited, jsonlines
+    from linkfold.inputs import delimited
 
     def rows(fast: bool) -> list:
         monkeypatch.setattr(delimited.Delimited, "fast_lane", fast)
@@ -449,7 +449,7 @@ def test_quoted_and_awkward_lines_read_alike_on_both_lanes(header, line, monkeyp
 
 
 def test_fast_lane_takes_the_usual_lines():
-    from linkfold.inputs import delimited, jsonlines
+    from linkfold.inputs import delimited
 
     calls = {"csv": 0}
     real = delimited._Feed.__next__
@@ -559,7 +559,7 @@ def test_json_lines_blocks_give_what_reading_line_by_line_gives(monkeypatch):
     from hypothesis import given, settings
     from hypothesis import strategies as st
 
-    from linkfold.inputs import delimited, jsonlines
+    from linkfold.inputs import jsonlines
 
     value = st.one_of(st.sampled_from(['"https://a.example/p"', '"k1"', '"2031-05-04T08:00:00Z"', "7", "null",
                                        '""', '" "', "[]", "{}", '"\\u00e9"']))

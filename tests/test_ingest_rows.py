@@ -12,8 +12,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from linkfold.canon import Canonicaliser
-from linkfold.inputs import MISSING, DumpRow, RowBlock
 from linkfold.ingest.rows import TIME_POSITION, Batch, RawIds, _key, _time
+from linkfold.inputs import MISSING, DumpRow, RowBlock
 from linkfold.pseudonyms import Pseudonymiser
 
 _TIMES = st.one_of(

@@ -23,7 +23,7 @@ def _records(path, fmt, **kw):
 
 def test_a_problem_keeps_an_excerpt_only_for_a_line_never_parsed():
     # Issue 15's rule: excerpts for malformed_csv, invalid_utf8, line_too_long and non-JSON bad_json only.
-    assert UNPARSED == {"malformed_csv", "invalid_utf8", "line_too_long", "bad_json"}
+    assert {"malformed_csv", "invalid_utf8", "line_too_long", "bad_json"} == UNPARSED
     assert LineProblem("f.csv", 3, Reason.MALFORMED_CSV, "quote", excerpt='"a,b').excerpt == '"a,b'
     for reason in (Reason.BAD_TIME, Reason.FIELD_COUNT, Reason.MISSING_COLUMN, "missing_field"):
         with pytest.raises(ValueError, match="keeps no excerpt"):

@@ -6,7 +6,9 @@ Three input formats are read (see docs/content.md for each in full):
 * a **directory of HTML files** described by a tab-separated manifest (our format, ``pages.tsv``);
 * **JSONL** with one ``{"url": …, "html": …}`` object per line (gzip'd or not).
 
-Every reader is a generator of :class:`Page` and :class:`PageProblem` values. A problem with one record
+The manifest and JSONL are read through the shared input readers (``linkfold.inputs``: opener, lines,
+reason codes, the one time rule); WARC through warcio. Every reader is a generator of :class:`Page` and
+:class:`PageProblem` values. A problem with one record
 (bad JSON, missing field, body over the size cap…) is yielded and reading goes on; a problem with the
 file as a whole (missing, not the format it claims, truncated archive) raises :class:`InputError` after
 everything before it has been yielded, so what a caller already stored stays stored. Records that are

@@ -17,8 +17,8 @@ The rules, in one place for every format:
 
 A reject of a row that was parsed keeps its reason, line and position but never an excerpt: the other
 fields of a parsed record (a bad time, a key that is an object, a JSON value where a URL should be) can
-be personal data. Only a line that could not be parsed at all brings an excerpt (``readers``), and not
-while a load reads units: a broken line's text holds the raw unit ID, which must never be stored.
+be personal data. Only a line that could not be parsed at all brings an excerpt (``linkfold.inputs``),
+and not while a load reads units: a broken line's text holds the raw unit ID, which must never be stored.
 """
 
 from __future__ import annotations
