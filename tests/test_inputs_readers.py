@@ -116,3 +116,38 @@ def test_a_gzip_bomb_costs_a_piece_and_a_line_not_what_it_inflates_to(tmp_path):
         tracemalloc.stop()
     assert got == [(1, {"url": "https://n.example/a"}), (2, "line_too_long"), (3, {"url": "https://n.example/b"})]
     assert peak < 32 << 20, f"peak {peak / 2**20:.0f} MiB"
+
+
+def test_the_four_commands_report_one_broken_line_alike(engine, tmp_path):
+    # One reject style (issue 17): the same bytes that are not UTF-8 (RFC 3629 §3: 0xFF never appears in
+    # UTF-8) give the same reason, line and excerpt rule in ingest, redirect import, page manifest and
+    # documents load.
+    import sqlalchemy as sa
+
+    from linkfold import load_documents  # public: survives the split of content/stage.py
+    from linkfold.content.pages import read_page_dir
+    from linkfold.follow import import_redirects
+    from linkfold.ingest import ingest_dump
+    from linkfold.store import tables as t
+
+    bad = b"https://s.test/\xff"
+    dump = tmp_path / "visits.csv"
+    dump.write_bytes(b"url\nhttps://n.example/a\n" + bad + b"\n")
+    ingest_dump(engine, [dump], dataset="panel")
+    with engine.connect() as conn:
+        (row,) = conn.execute(sa.select(t.rejects.c.line_no, t.rejects.c.reason)).all()
+    pairs = tmp_path / "pairs.csv"
+    pairs.write_bytes(b"short,expanded\n" + bad + b",https://n.example/a\n")
+    imported = import_redirects(engine, pairs)
+    docs = tmp_path / "docs.jsonl"
+    docs.write_bytes(json.dumps({"url": "https://n.example/a", "title": "T", "text": "x " * 80}).encode()
+                     + b"\n{\"url\": \"" + bad + b"\"}\n")
+    loaded = load_documents(engine, docs)
+    pages = tmp_path / "pages"
+    pages.mkdir()
+    (pages / "pages.tsv").write_bytes(b"file\turl\nx.html\t" + bad + b"\n")
+    (from_manifest,) = list(read_page_dir(pages))
+    got = [tuple(row), (imported.problems[0].line, imported.problems[0].reason),
+           (loaded.problems.kept[0].line, loaded.problems.kept[0].reason), (from_manifest.line, from_manifest.reason)]
+    assert got == [(3, "invalid_utf8"), (2, "invalid_utf8"), (2, "invalid_utf8"), (2, "invalid_utf8")]
+    assert all("0xff" in p.message for p in (imported.problems[0], loaded.problems.kept[0], from_manifest))
