@@ -151,3 +151,22 @@ def test_the_four_commands_report_one_broken_line_alike(engine, tmp_path):
            (loaded.problems.kept[0].line, loaded.problems.kept[0].reason), (from_manifest.line, from_manifest.reason)]
     assert got == [(3, "invalid_utf8"), (2, "invalid_utf8"), (2, "invalid_utf8"), (2, "invalid_utf8")]
     assert all("0xff" in p.message for p in (imported.problems[0], loaded.problems.kept[0], from_manifest))
+
+
+def test_the_input_layer_looks_only_down():
+    # DESIGN.md "Layout": shared layers sit below the stages; reading files needs no database either.
+    import ast
+    from pathlib import Path
+
+    import linkfold
+
+    package = Path(linkfold.__file__).parent
+    allowed = {"linkfold._json", "linkfold.errors"}
+    for path in sorted((package / "inputs").glob("*.py")):
+        tree = ast.parse(path.read_text(encoding="utf-8"))
+        for node in ast.walk(tree):
+            if isinstance(node, ast.ImportFrom) and node.level == 2:
+                assert f"linkfold.{node.module}" in allowed, f"inputs/{path.name} imports linkfold.{node.module}"
+            if isinstance(node, ast.Import):
+                assert not any(a.name.startswith("linkfold") for a in node.names), path.name
+        assert len(path.read_text(encoding="utf-8").splitlines()) <= 500, path.name
