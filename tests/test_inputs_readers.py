@@ -98,6 +98,10 @@ def test_a_truncated_gzip_hands_on_every_whole_line_then_raises(tmp_path):
         seen.extend(read_records(path, DumpFormat.JSONL))
     assert len(seen) > 100 and all(not isinstance(r, LineProblem) for r in seen)
     assert [r.values["url"] for r in seen] == [f"https://n.example/{i}" for i in range(len(seen))]
+    tiny = tmp_path / "tiny.csv.gz"
+    tiny.write_bytes(gzip.compress(b"short,expanded\nhttps://s.test/a,https://n.example/a\n")[:20])
+    with pytest.raises(InputError, match=r"tiny\.csv\.gz: the gzip stream is truncated before its first whole line"):
+        list(read_records(tiny, DumpFormat.CSV))
 
 
 def test_a_gzip_bomb_costs_a_piece_and_a_line_not_what_it_inflates_to(tmp_path):

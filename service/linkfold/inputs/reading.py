@@ -154,6 +154,14 @@ class RecordReader:
             self._reader = DumpReader(lines, self.options, name=self.name)
             try:
                 self._reader.check()
+            except InputError as exc:
+                # A gzip cut before its first whole line reads as empty: say what is really wrong.
+                cut = truncated(self._stream)
+                self.close()
+                if cut:
+                    raise InputError(f"{self.name}: the gzip stream is truncated before its first whole line; "
+                                     "nothing was read from it") from exc
+                raise
             except BaseException:
                 self.close()
                 raise
