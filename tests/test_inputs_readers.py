@@ -47,6 +47,13 @@ def test_csv_records_span_lines_and_bad_ones_cost_one_line(tmp_path):
         (6, {"short": 'https://s.test/"d"', "expanded": "https://n.example/d"})]
 
 
+def test_whole_records_trim_the_header_names(tmp_path):
+    path = tmp_path / "pairs.csv"
+    path.write_text("short, expanded \nhttps://s.test/a,https://n.example/a\n")
+    assert _records(path, "csv", required=(("expanded", "--expanded-column"),)) == [
+        (2, {"short": "https://s.test/a", "expanded": "https://n.example/a"})]
+
+
 def test_a_missing_required_column_names_its_option(tmp_path):
     path = tmp_path / "pairs.tsv"
     path.write_text("from\tto\nhttps://s.test/a\thttps://n.example/a\n")

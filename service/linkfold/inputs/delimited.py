@@ -124,6 +124,9 @@ class Delimited(Lane):
             break
         self.r.columns = header
         if self.opt.whole_records:
+            # Whole records are read by name: a header cell's surrounding spaces ("short, expanded" from
+            # a spreadsheet) are not part of the name. Ingest's projected reading keeps names exact.
+            header = self.r.columns = [h.strip() for h in header]
             for column, option in self.opt.required:
                 self._index(header, column, option)
             return
