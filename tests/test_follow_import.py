@@ -146,3 +146,12 @@ def test_whole_file_problems(engine, tmp_path, name, content, error):
         path.write_text(content, encoding="utf-8")
     with pytest.raises(error, match=name.replace(".", r"\.")):
         import_redirects(engine, path)
+
+
+def test_jsonl_columns_are_paths_as_in_ingest(engine, tmp_path):
+    # The shared readers' paths (docs/ingest.md, "Paths into JSON records") name the pair's two URLs.
+    lines = [json.dumps({"link": {"short": a, "long": b}}) for a, b in PAIRS]
+    path = tmp_path / "posts.jsonl"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    summary = import_redirects(engine, path, short_column="link.short", expanded_column="link.long")
+    assert summary.links == 3 and not summary.problems

@@ -29,7 +29,7 @@ from sqlalchemy.engine import Engine
 
 from ..canon import Canonical, Canonicaliser
 from ..errors import DumpFormatError, InputError, InvalidURL
-from ..inputs import TABLE_FORMATS, DumpFormat, LineProblem, parse_format, read_records
+from ..inputs import TABLE_FORMATS, DumpFormat, LineProblem, parse_format, parse_path, read_records, resolve
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import finals
@@ -99,12 +99,22 @@ def _records(path: Path, fmt: DumpFormat, short_col: str, expanded_col: str,
     """(line, short, expanded) for each good line; problems go to ``summary``."""
     reader = read_records(path, fmt, required=((short_col, "--short-column"), (expanded_col, "--expanded-column")),
                           max_line_bytes=MAX_LINE_BYTES)
+    # In JSON lines a column is a path (``linkfold.inputs.paths``), as the reader checked it and as ingest
+    # reads it; a path that reaches several values names no single URL.
+    paths = {c: parse_path(c) for c in (short_col, expanded_col)} if fmt is DumpFormat.JSONL else None
+
+    def value(values: dict[str, Any], column: str) -> Any:
+        if paths is None:
+            return values.get(column)
+        got = resolve(paths[column], values).values
+        return got[0] if len(got) == 1 else None
+
     for item in reader:
         summary.lines = reader.lines_read
         if isinstance(item, LineProblem):
             summary.add(item)
             continue
-        short, expanded = item.values.get(short_col), item.values.get(expanded_col)
+        short, expanded = value(item.values, short_col), value(item.values, expanded_col)
         if not isinstance(short, str) or not short.strip() or not isinstance(expanded, str) or not expanded.strip():
             which = short_col if not (isinstance(short, str) and short.strip()) else expanded_col
             summary.add_problem(item.line, "missing_value", f"no text in {which!r}")
