@@ -104,10 +104,10 @@ def test_bad_records_are_numbered_problems(tmp_path):
     tally = ReadTally()
     out = list(read_documents(path, now=NOW, tally=tally))
     problems = [(p.line, p.reason) for p in out if not hasattr(p, "status")]
-    assert problems == [(3, "bad_json"), (4, "not_object"), (5, "missing_field"), (6, "missing_field"),
-                        (7, "missing_field"), (8, "bad_field"), (9, "bad_url"), (10, "bad_date"),
-                        (11, "bad_date"), (12, "bad_field"), (13, "bad_field")]
-    assert str(out[1]).startswith(f"docs:{path}:3: bad_json: ")
+    assert problems == [(3, "bad_json"), (4, "bad_json"), (5, "missing_field"), (6, "missing_field"),
+                        (7, "missing_field"), (8, "bad_field"), (9, "bad_url"), (10, "bad_time"),
+                        (11, "bad_time"), (12, "bad_field"), (13, "bad_field")]
+    assert str(out[1]).startswith(f"{path}:3: bad_json: ")
     docs = [d for d in out if hasattr(d, "status")]
     assert len(docs) == 2 and docs[1].unusable_reason is Unusable.TOO_SHORT and docs[1].text_hash is None
     assert tally.pages == 2 and sum(tally.problems.values()) == 11
@@ -116,7 +116,7 @@ def test_bad_records_are_numbered_problems(tmp_path):
 def test_a_file_that_is_not_jsonl(tmp_path):
     path = tmp_path / "docs.jsonl"
     path.write_text("url,title,text\nhttps://riverton-daily.test/x,T,body\n")
-    with pytest.raises(InputError, match=r"docs\.jsonl:1: not a JSON-lines file"):
+    with pytest.raises(InputError, match=r"docs\.jsonl: none of the first 2 non-blank lines is a JSON object"):
         list(read_documents(path))
     with pytest.raises(InputError, match="no such file"):
         list(read_documents(tmp_path / "missing.jsonl"))

@@ -29,7 +29,7 @@ from linkfold.content import (
     read_pages,
     read_warc,
 )
-from linkfold.errors import InputError, MissingColumnError
+from linkfold.errors import DumpFormatError, InputError, MissingColumnError
 
 PAGES = Path(__file__).resolve().parent.parent / "fixtures" / "pages"
 BRIDGE = (PAGES / "lakeside-wire-old-mill-bridge.html").read_bytes()
@@ -127,7 +127,7 @@ def test_warc_body_over_the_cap_is_a_problem_and_reading_goes_on(tmp_path):
     assert len(BRIDGE) < 20_000
     out = list(read_warc(path, max_bytes=20_000))
     assert isinstance(out[0], PageProblem) and out[0].reason == "too_large" and out[0].line == 1
-    assert str(out[0]).startswith(f"warc:{path}#0: too_large: body over the cap of 20,000 bytes")
+    assert str(out[0]).startswith(f"{path}:1: too_large: body over the cap of 20,000 bytes")
     assert isinstance(out[1], Page) and out[1].url == BRIDGE_URL
 
 
@@ -140,7 +140,7 @@ def test_warc_record_with_bad_url_or_date_is_a_numbered_problem(tmp_path):
         _response(w, BRIDGE_URL, BRIDGE, headers=[("Content-Type", "text/html")])
     out = list(read_warc(path))
     assert [(type(p).__name__, getattr(p, "reason", None), getattr(p, "line", None)) for p in out] == [
-        ("PageProblem", "bad_url", 1), ("PageProblem", "bad_date", 2), ("Page", None, None)]
+        ("LineProblem", "bad_url", 1), ("LineProblem", "bad_time", 2), ("Page", None, None)]
 
 
 @pytest.mark.parametrize("gz", [True, False], ids=["warc.gz", "warc"])
@@ -207,8 +207,9 @@ def test_manifest_directory(tmp_path):
     assert pages[0].source == f"dir:{d / MANIFEST_NAME}:3"
     assert pages[0].headers == {"content-type": "text/html"}  # from the suffix; charset left to sniffing
     assert pages[1].body == LATIN1  # gzip'd file decompressed
-    assert problems == [(8, "missing_file"), (9, "outside_dir"), (10, "bad_date"), (11, "bad_status"),
-                        (12, "bad_url"), (13, "bad_line")]
+    # The shared readers' reason codes (docs/ingest.md): bad_time, and missing_column for a short line.
+    assert problems == [(8, "missing_file"), (9, "outside_dir"), (10, "bad_time"), (11, "bad_status"),
+                        (12, "bad_url"), (13, "missing_column")]
     assert tally.skipped == {"not_html": 1}
     assert tally.pages == 3
 
@@ -220,8 +221,8 @@ def test_manifest_can_be_named_directly_and_gives_content_type(tmp_path):
 
 
 @pytest.mark.parametrize("manifest,error,match", [
-    ("", MissingColumnError, "empty manifest"),
-    ("# only a comment\n", MissingColumnError, "empty manifest"),
+    ("", DumpFormatError, "the file is empty; a TSV file needs a header line"),
+    ("# only a comment\n", DumpFormatError, "the file is empty; a TSV file needs a header line"),
     ("file\n", MissingColumnError, r":1: manifest header lacks url"),
     ("file\turl\tpublished\n", InputError, r":1: unknown manifest column\(s\): published"),
     ("file\turl\turl\n", InputError, r":1: repeated manifest column\(s\): url"),
@@ -232,10 +233,13 @@ def test_bad_manifest_header_is_an_error_with_its_line(tmp_path, manifest, error
         list(read_page_dir(d))
 
 
-def test_manifest_not_utf8_names_the_line(tmp_path):
+def test_manifest_line_not_utf8_is_a_problem_of_its_line(tmp_path):
     d = _page_dir(tmp_path, "")
     (d / MANIFEST_NAME).write_bytes(b"file\turl\nbridge.html\thttps://x.example/caf\xe9\n")
-    with pytest.raises(InputError, match=r"pages\.tsv:2: manifest is not UTF-8"):
+    (problem,) = list(read_page_dir(d))
+    assert (problem.line, problem.reason) == (2, "invalid_utf8") and "0xe9" in problem.message
+    (d / MANIFEST_NAME).write_bytes(b"file\turl\xe9\n")
+    with pytest.raises(InputError, match=r"pages\.tsv: the header is not UTF-8"):
         list(read_page_dir(d))
 
 
@@ -278,7 +282,7 @@ def test_jsonl_pages(tmp_path, gz):
     assert page.headers == {"content-type": "text/html; charset=utf-8"}
     assert page.source == f"jsonl:{path}:1"
     assert [(p.line, p.reason) for p in out[1:]] == [
-        (3, "bad_json"), (4, "not_object"), (5, "missing_field"), (6, "bad_field"), (7, "bad_field"),
+        (3, "bad_json"), (4, "bad_json"), (5, "missing_field"), (6, "bad_field"), (7, "bad_field"),
         (8, "bad_url"), (10, "bad_url")]
     assert tally.skipped == {"http_status": 1}
 
@@ -286,7 +290,7 @@ def test_jsonl_pages(tmp_path, gz):
 def test_jsonl_that_is_not_jsonl_at_all(tmp_path):
     path = tmp_path / "visits.jsonl"
     path.write_text("visit_id,panelist,url\nv1,p-1,https://riverton-daily.test/\n")
-    with pytest.raises(InputError, match=r"visits\.jsonl:1: not a JSON-lines file"):
+    with pytest.raises(DumpFormatError, match=r"visits\.jsonl: none of the first 2 non-blank lines is a JSON object"):
         list(read_page_jsonl(path))
 
 
@@ -296,7 +300,8 @@ def test_jsonl_runaway_line_is_skipped_without_reading_it_whole(tmp_path):
         json.dumps({"url": LATIN1_URL, "html": "<html><body><p>small</p></body></html>"}),
     ])
     out = list(read_page_jsonl(path, max_bytes=1000))
-    assert isinstance(out[0], PageProblem) and out[0].reason == "too_large" and out[0].line == 1
+    assert isinstance(out[0], PageProblem) and out[0].reason == "line_too_long" and out[0].line == 1
+    assert out[0].excerpt is not None and len(out[0].excerpt) <= 200
     assert isinstance(out[1], Page)
 
 

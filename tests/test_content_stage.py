@@ -315,7 +315,7 @@ def test_load_documents(engine, tmp_path):
     summary = load_documents(engine, path)
     assert (summary.read, summary.stored, summary.usable) == (2, 2, 1)
     assert dict(summary.no_text) == {"too_short": 1}
-    assert [(p.line, p.reason) for p in summary.problems.kept] == [(3, "bad_date"), (5, "missing_field")]
+    assert [(p.line, p.reason) for p in summary.problems.kept] == [(3, "bad_time"), (5, "missing_field")]
     with engine.connect() as conn:
         # utm_source is a literal analytics parameter the canonicaliser drops (common practice).
         cid = _cid(conn, "https://northvale-herald.example/news/2026/11/ferry-timetable")
@@ -328,7 +328,7 @@ def test_load_documents(engine, tmp_path):
         short = sp.documents_of(conn, _cid(conn, "https://northvale-herald.example/news/2026/11/short"))[0]
         assert short["status"] == "no_text" and short["unusable_reason"] == "too_short"
         run = conn.execute(sa.select(t.runs).where(t.runs.c.id == summary.run_id)).mappings().one()
-        assert run["stage"] == "load_documents" and run["counts"]["problems"] == {"bad_date": 1, "missing_field": 1}
+        assert run["stage"] == "load_documents" and run["counts"]["problems"] == {"bad_time": 1, "missing_field": 1}
     again = load_documents(engine, path)
     assert (again.read, again.stored, again.already_stored) == (2, 0, 2)
     with engine.connect() as conn:

@@ -81,13 +81,13 @@ def test_bad_lines_are_reported_with_numbers_and_skipped(engine, tmp_path):
     summary = import_redirects(engine, path)
     assert summary.links == 2 and summary.same_url == 1 and summary.lines_read == 9
     assert [(p.line, p.reason) for p in summary.problems] == [
-        (3, "missing_value"), (4, "not_utf8"), (5, "bad_csv"), (6, "short_not_http")]
+        (3, "missing_value"), (4, "invalid_utf8"), (5, "malformed_csv"), (6, "short_not_http")]
     assert sum(summary.problem_counts.values()) == 4
 
 
 def test_missing_column_fails_before_writing(engine, tmp_path):
     path = write_csv(tmp_path / "pairs.csv", PAIRS, header="from,to")
-    with pytest.raises(MissingColumnError, match=r"pairs\.csv:1: no column 'short' or 'expanded'.*'from', 'to'"):
+    with pytest.raises(MissingColumnError, match=r"pairs\.csv: no column 'short' for --short-column; columns found: 'from', 'to'"):
         import_redirects(engine, path)
     with engine.connect() as conn:
         assert count(conn, t.runs) == 0 and count(conn, t.links) == 0
@@ -110,7 +110,7 @@ def test_jsonl_and_gzip(engine, tmp_path):
     summary = import_redirects(engine, path)
     assert summary.links == 3
     assert [(p.line, p.reason) for p in summary.problems] == [
-        (2, "not_an_object"), (3, "bad_json"), (4, "missing_value")]
+        (2, "bad_json"), (3, "bad_json"), (4, "missing_value")]
     with engine.connect() as conn:
         assert ev.links_of(conn, cid(conn, PAIRS[0][0]))[0]["source"] == "import:posts.jsonl.gz"
 
@@ -146,3 +146,12 @@ def test_whole_file_problems(engine, tmp_path, name, content, error):
         path.write_text(content, encoding="utf-8")
     with pytest.raises(error, match=name.replace(".", r"\.")):
         import_redirects(engine, path)
+
+
+def test_jsonl_columns_are_paths_as_in_ingest(engine, tmp_path):
+    # The shared readers' paths (docs/ingest.md, "Paths into JSON records") name the pair's two URLs.
+    lines = [json.dumps({"link": {"short": a, "long": b}}) for a, b in PAIRS]
+    path = tmp_path / "posts.jsonl"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    summary = import_redirects(engine, path, short_column="link.short", expanded_column="link.long")
+    assert summary.links == 3 and not summary.problems

@@ -25,8 +25,8 @@ import sqlalchemy as sa
 from linkfold.errors import DumpFormatError
 from linkfold.ingest import FileOutcome, ingest_dump
 from linkfold.ingest import load as load_module
-from linkfold.ingest.formats import foreign_encoding, inspect_file
-from linkfold.ingest.readers import _JsonLines
+from linkfold.inputs import foreign_encoding, inspect_file
+from linkfold.inputs.jsonlines import JsonLines
 from linkfold.store import tables as t
 from test_ingest_load import counts, rejects
 
@@ -54,7 +54,7 @@ def _reject_details(engine) -> dict[int, tuple[str, str]]:
 
 @pytest.mark.parametrize("fast_lane", [True, False], ids=["block-lane", "line-lane"])
 def test_json_past_the_readers_limits_is_a_reject_of_that_line(engine, tmp_path, monkeypatch, fast_lane):
-    monkeypatch.setattr(_JsonLines, "fast_lane", fast_lane)
+    monkeypatch.setattr(JsonLines, "fast_lane", fast_lane)
     # Line 1 is read by the format check, lines 1203 and 1204 after it (the check looks at 1000 lines).
     lines = [DEEP] + [_good(i) for i in range(2, 1203)] + [DEEP, LONG_INT] + [_good(i) for i in range(1205, 1301)]
     path = tmp_path / "posts.jsonl"
@@ -252,7 +252,7 @@ def test_redirect_pairs_past_the_json_limits_are_problems_of_their_lines(engine,
     assert summary.links == 1
     problems = [(p.line, p.reason) for p in summary.problems]
     assert problems == [(1, "bad_json"), (2, "bad_json"), (3, "line_too_long")]
-    assert "nested deeper" in summary.problems[0].detail and "digits" in summary.problems[1].detail
+    assert "nested deeper" in summary.problems[0].message and "digits" in summary.problems[1].message
 
 
 def test_documents_past_the_json_limits_are_problems_of_their_lines(tmp_path):
@@ -263,7 +263,7 @@ def test_documents_past_the_json_limits_are_problems_of_their_lines(tmp_path):
     path = tmp_path / "docs.jsonl"
     path.write_text("\n".join([good, DEEP, LONG_INT]) + "\n")
     out = list(read_documents(path))
-    problems = [(p.line, p.reason, p.detail) for p in out if not hasattr(p, "status")]
+    problems = [(p.line, p.reason, p.message) for p in out if not hasattr(p, "status")]
     assert [(n, r) for n, r, _ in problems] == [(2, "bad_json"), (3, "bad_json")]
     assert "nested deeper" in problems[0][2] and "digits" in problems[1][2]
 
@@ -307,8 +307,8 @@ def test_gzip_members_and_zero_padding_read_as_gzip_open_reads_them(tmp_path):
 
 def test_the_line_reader_never_holds_more_than_a_piece_and_the_line_limit(tmp_path):
     # The reading side on its own: whatever a gzip'd line inflates to, no read returns more than a piece
-    # plus the line limit (formats.PhysicalLines' documented bound).
-    from linkfold.ingest.formats import open_binary, physical_lines
+    # plus the line limit (inputs.PhysicalLines' documented bound).
+    from linkfold.inputs import open_binary, physical_lines
 
     path = tmp_path / "long.txt.gz"
     path.write_bytes(gzip.compress(b"x" * (64 << 20) + b"\nhttps://a.example/\n" + b"y" * (3 << 20)))

@@ -13,15 +13,19 @@ from pathlib import Path
 import pytest
 
 from linkfold.errors import DumpFormatError, InputError, MissingColumnError
-from linkfold.ingest.formats import (
+from linkfold.inputs import (
+    MISSING,
     DumpFormat,
+    DumpReader,
+    ReadOptions,
+    Reason,
     guess_format,
     inspect_file,
     open_binary,
+    parse_path,
     physical_lines,
+    resolve,
 )
-from linkfold.ingest.paths import parse_path, resolve
-from linkfold.ingest.readers import MISSING, DumpReader, ReadOptions, Reason
 
 
 def read(data: bytes | str, fmt: str, *, limit: int = 1 << 20, **opts) -> list:
@@ -218,7 +222,7 @@ def test_too_few_fields_is_missing_column_too_many_is_field_count():
 def test_invalid_utf8_rejects_the_record_with_its_line():
     rows = read(b"url\nhttps://a.example/\xff\nhttps://a.example/ok\n", "csv")
     assert bad(rows) == [(2, Reason.INVALID_UTF8)]
-    assert "0xff" in rows[0].reject.detail
+    assert "0xff" in rows[0].reject.message
     assert good(rows) == [(3, ["https://a.example/ok"], MISSING, MISSING)]
 
 
@@ -280,7 +284,7 @@ def test_the_quick_walk_of_a_path_gives_what_the_full_walk_gives():
     from hypothesis import given, settings
     from hypothesis import strategies as st
 
-    from linkfold.ingest import paths
+    from linkfold.inputs import paths
 
     names = st.sampled_from(["a", "b", "0", "1", "*"])
     leaf = st.one_of(st.none(), st.booleans(), st.integers(), st.text(max_size=3))
@@ -366,10 +370,10 @@ _PIECES = ["https://a.example/p", "k1", "2031-05-04T08:00:00Z", ",", ",", "\t", 
 
 
 def _both_lanes(data: bytes, fmt: str, monkeypatch, chunk: int = 1 << 20, keyed: bool = True) -> tuple[list, list]:
-    from linkfold.ingest import readers
+    from linkfold.inputs import delimited
 
     def rows(fast: bool) -> list:
-        monkeypatch.setattr(readers._Delimited, "fast_lane", fast)
+        monkeypatch.setattr(delimited.Delimited, "fast_lane", fast)
         # The unit reads the time column a second time (readers do not mind; the loader refuses it): the
         # lanes must hand it on beside the others.
         options = ReadOptions(fmt=DumpFormat(fmt), key_column="key" if keyed else None,
@@ -378,7 +382,7 @@ def _both_lanes(data: bytes, fmt: str, monkeypatch, chunk: int = 1 << 20, keyed:
         # The fast lane reads pieces of ``chunk`` bytes, so that runs of plain lines start and end anywhere.
         reader = DumpReader(physical_lines(io.BytesIO(data), 40, chunk), options, name="dump")
         out = [(r.line_no, r.end_line, r.urls, r.key, r.time, r.unit,
-                None if r.reject is None else (r.reject.reason, r.reject.detail, r.reject.excerpt)) for r in reader]
+                None if r.reject is None else (r.reject.reason, r.reject.message, r.reject.excerpt)) for r in reader]
         return [*out, ("blank lines", reader.blank_lines)]
 
     return rows(True), rows(False)
@@ -445,10 +449,10 @@ def test_quoted_and_awkward_lines_read_alike_on_both_lanes(header, line, monkeyp
 
 
 def test_fast_lane_takes_the_usual_lines():
-    from linkfold.ingest import readers
+    from linkfold.inputs import delimited
 
     calls = {"csv": 0}
-    real = readers._Feed.__next__
+    real = delimited._Feed.__next__
 
     def counting(self):
         calls["csv"] += 1
@@ -457,7 +461,7 @@ def test_fast_lane_takes_the_usual_lines():
     data = b"url,key\n" + b"".join(b"https://a.example/%d,k%d\n" % (i, i) for i in range(50))
     options = ReadOptions(fmt=DumpFormat.CSV, key_column="key")
     with pytest.MonkeyPatch.context() as mp:
-        mp.setattr(readers._Feed, "__next__", counting)
+        mp.setattr(delimited._Feed, "__next__", counting)
         rows = list(DumpReader(physical_lines(io.BytesIO(data), 1 << 20), options, name="d"))
     assert len(rows) == 50 and rows[-1].key == "k49"
     assert calls["csv"] == 1  # the header only
@@ -555,7 +559,7 @@ def test_json_lines_blocks_give_what_reading_line_by_line_gives(monkeypatch):
     from hypothesis import given, settings
     from hypothesis import strategies as st
 
-    from linkfold.ingest import readers
+    from linkfold.inputs import jsonlines
 
     value = st.one_of(st.sampled_from(['"https://a.example/p"', '"k1"', '"2031-05-04T08:00:00Z"', "7", "null",
                                        '""', '" "', "[]", "{}", '"\\u00e9"']))
@@ -574,10 +578,10 @@ def test_json_lines_blocks_give_what_reading_line_by_line_gives(monkeypatch):
         # The reader's check holds the first lines and they are read line by line; with one line held
         # (a record that has the path), everything after it can reach the block lane.
         data = b'{"id": 0, "post": {"links": [{"url": "https://a.example/0"}]}}\n' + data
-        monkeypatch.setattr(readers, "JSONL_PEEK_LINES", 1)
+        monkeypatch.setattr(jsonlines, "JSONL_PEEK_LINES", 1)
 
         def rows(fast: bool) -> list:
-            monkeypatch.setattr(readers._JsonLines, "fast_lane", fast)
+            monkeypatch.setattr(jsonlines.JsonLines, "fast_lane", fast)
             options = ReadOptions(fmt=DumpFormat.JSONL, url_columns=("post.links.*.url",), key_column="id",
                                   time_column="at", unit_column="who.panel", max_line_bytes=150)
             reader = DumpReader(physical_lines(io.BytesIO(data), 150, chunk), options, name="dump")

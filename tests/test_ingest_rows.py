@@ -12,15 +12,16 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from linkfold.canon import Canonicaliser
-from linkfold.ingest.readers import MISSING, DumpRow, RowBlock
 from linkfold.ingest.rows import TIME_POSITION, Batch, RawIds, _key, _time
+from linkfold.inputs import MISSING, DumpRow, RowBlock
 from linkfold.pseudonyms import Pseudonymiser
 
 _TIMES = st.one_of(
     st.datetimes(timezones=st.just(__import__("datetime").UTC)).map(lambda d: d.isoformat().replace("+00:00", "Z")),
     st.sampled_from(["2031-05-04T08:00:00Z", "2031-02-30T08:00:00Z", "2031-05-04T08:00:60Z", "2031-05-04 08:00Z",
                      "2031-05-04T08:00:00+02:00", "2031-05-04T08:00:00.123456Z", "1999-12-31T23:59:59z",
-                     "  2031-05-04T08:00:00Z", "20310504T080000Z", "2031-05-04", "", " ", "1715000000", "Z" * 11]),
+                     "  2031-05-04T08:00:00Z", "20310504T080000Z", "2031-05-04", "", " ", "1715000000", "Z" * 11,
+                     "2031-05-04x08:00:00Z", "1990-12-31T23:59:60Z", "2031-W18-1T08:00:00Z"]),
     st.text(max_size=25), st.integers(), st.none(), st.just(MISSING))
 _UNITS = st.one_of(st.sampled_from(["p1", " p1", "", " ", "é", "\ud800", "p\x00"]), st.text(max_size=8),
                    st.integers(), st.floats(allow_nan=False), st.none(), st.just(MISSING), st.just({"a": 1}))

@@ -218,5 +218,5 @@ def test_quiet_still_names_the_bad_lines_of_an_input(tmp_path, capsys):
     capsys.readouterr()
     assert main(["-q", "--db", db, "documents", "load", str(docs)]) == 0
     err = capsys.readouterr().err
-    assert "texts.jsonl:1: bad_date" in err and "texts.jsonl:2:" in err
+    assert "texts.jsonl:1: bad_time" in err and "texts.jsonl:2:" in err
     assert "loaded" not in err  # the summary stays quiet

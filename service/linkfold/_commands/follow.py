@@ -92,7 +92,7 @@ def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_url
                                    expanded_column=expanded_column, batch_size=obj.settings.batch_size,
                                    progress=obj.progress())
         for problem in summary.problems[:SHOWN_PROBLEMS]:
-            obj.problem(f"{import_file}:{problem.line}: {problem.reason}: {problem.detail}")
+            obj.problem(str(problem))
         hidden = sum(summary.problem_counts.values()) - min(len(summary.problems), SHOWN_PROBLEMS)
         if hidden > 0:
             obj.problem(f"… and {hidden:,} more skipped lines (counted in the summary; run without -q to see it)")

@@ -13,6 +13,7 @@ from typing import Any
 
 from ..canon import Canonical, Canonicaliser
 from ..errors import InvalidURL
+from ..inputs import LineProblem
 from ..store.text import storable
 from .extract import Document
 from .text import text_hash
@@ -21,18 +22,8 @@ from .text import text_hash
 KEPT_PROBLEMS = 200
 
 
-@dataclass(frozen=True)
-class Problem:
-    """One input record that was not stored: where (the file as given, a line or record number), why."""
-
-    file: str
-    line: int | None
-    reason: str
-    detail: str = ""
-
-    def __str__(self) -> str:
-        where = f"{self.file}:{self.line}" if self.line is not None else self.file
-        return f"{where}: {self.reason}" + (f": {self.detail}" if self.detail else "")
+#: One input record that was not stored: the one problem shape of every input (linkfold.inputs).
+Problem = LineProblem
 
 
 @dataclass

@@ -19,6 +19,7 @@ from sqlalchemy.engine import Engine
 
 from ..canon import Canonical, Canonicaliser
 from ..errors import InvalidURL
+from ..inputs import DumpFormat, LineProblem, RecordProblem, read_records
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import pages as sp
@@ -27,7 +28,6 @@ from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
 from ..store.text import storable
-from ._files import LineProblem, json_objects
 from ._records import Problem, Problems, by_class, canonical_or_error, document_row
 from .documents import DOCUMENT_FIELDS, MAX_LINE_BYTES, document_from_record
 from .extract import Document
@@ -135,14 +135,16 @@ def load_documents(engine: Engine, path: str | Path, *, settings: Any = None, ba
             batch.clear()
 
         try:
-            for number, obj in json_objects(path, line_cap=MAX_LINE_BYTES):
+            for item in read_records(path, DumpFormat.JSONL, max_line_bytes=MAX_LINE_BYTES):
                 progress.advance(1)
+                if isinstance(item, LineProblem):
+                    summary.problems.add(item)
+                    continue
+                number = item.line
                 try:
-                    if isinstance(obj, LineProblem):
-                        raise obj
-                    doc = document_from_record(_storable_record(obj), now=moment, rules=rules)
-                except LineProblem as bad:
-                    summary.problems.add(Problem(str(path), number, bad.reason, bad.detail))
+                    doc = document_from_record(_storable_record(item.values), now=moment, rules=rules)
+                except RecordProblem as bad:
+                    summary.problems.add(bad.at(str(path), number))
                     continue
                 found = canonical_or_error(canon, doc.url)
                 if isinstance(found, InvalidURL):

@@ -18,6 +18,7 @@ from sqlalchemy.engine import Engine
 
 from ..canon import Canonical, Canonicaliser
 from ..errors import ConfigError, InputError, InvalidURL
+from ..inputs import LineProblem
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import pages as sp
@@ -27,7 +28,7 @@ from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
 from ..store.text import storable
 from ._records import Problem, Problems, by_class, canonical_or_error
-from .pages import DEFAULT_MAX_BYTES, MANIFEST_NAME, Page, PageProblem, ReadTally, read_pages
+from .pages import DEFAULT_MAX_BYTES, MANIFEST_NAME, Page, ReadTally, read_pages
 
 #: The run log's name of this stage.
 STAGE = "import_pages"
@@ -141,8 +142,8 @@ def import_pages(engine: Engine, paths: Iterable[str | Path], *, settings: Any =
             try:
                 for item in read_pages(path, max_bytes=cap, tally=tally):
                     progress.advance(1)
-                    if isinstance(item, PageProblem):
-                        summary.problems.add(Problem(str(path), item.line, item.reason, item.detail))
+                    if isinstance(item, LineProblem):
+                        summary.problems.add(item)
                         continue
                     summary.read += 1
                     bad = next((c for c in (canonical_or_error(canon, item.url), canonical_or_error(canon, item.final_url))

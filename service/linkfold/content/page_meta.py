@@ -14,7 +14,7 @@ from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
-from ._time import parse_declared
+from ..inputs import BadTime, is_bare_date, parse_time
 
 log = logging.getLogger("linkfold")
 
@@ -138,8 +138,9 @@ def read_page_meta(tree: Any, headers: dict[str, str] | None = None) -> PageMeta
         if not isinstance(raw, str) or not raw.strip():
             return
         try:
-            value, date_only = parse_declared(raw)
-        except ValueError:
+            # The one time rule of every input (linkfold.inputs.times); a bare date says the day only.
+            value, date_only = parse_time(raw), is_bare_date(raw)
+        except BadTime:
             notes.append(f"unreadable {source} date {raw[:60]!r}")
             return
         dates.append(DateCandidate(value, date_only, source, raw.strip()))

@@ -6,7 +6,9 @@ Three input formats are read (see docs/content.md for each in full):
 * a **directory of HTML files** described by a tab-separated manifest (our format, ``pages.tsv``);
 * **JSONL** with one ``{"url": …, "html": …}`` object per line (gzip'd or not).
 
-Every reader is a generator of :class:`Page` and :class:`PageProblem` values. A problem with one record
+The manifest and JSONL are read through the shared input readers (``linkfold.inputs``: opener, lines,
+reason codes, the one time rule); WARC through warcio. Every reader is a generator of :class:`Page` and
+:class:`PageProblem` values. A problem with one record
 (bad JSON, missing field, body over the size cap…) is yielded and reading goes on; a problem with the
 file as a whole (missing, not the format it claims, truncated archive) raises :class:`InputError` after
 everything before it has been yielded, so what a caller already stored stays stored. Records that are
@@ -19,11 +21,10 @@ person whose browsing an archive came from, and extraction does not need them.
 
 from __future__ import annotations
 
-import csv
 import logging
 from collections import Counter
 from collections.abc import Iterator, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import datetime
 from pathlib import Path, PurePosixPath
 from typing import IO, Any
@@ -31,8 +32,17 @@ from typing import IO, Any
 import ada_url
 
 from ..errors import InputError, MissingColumnError
-from ._files import GZIP_ERRORS, LineProblem, json_objects, open_maybe_gzip
-from ._time import parse_utc
+from ..inputs import (
+    GZIP_ERRORS,
+    BadTime,
+    DumpFormat,
+    LineProblem,
+    Reason,
+    RecordProblem,
+    open_input,
+    parse_time,
+    read_records,
+)
 from .mediatype import is_html, parse_content_type
 
 log = logging.getLogger("linkfold")
@@ -72,22 +82,12 @@ class Page:
         return self.headers.get("content-type")
 
 
-@dataclass(frozen=True)
-class PageProblem:
-    """One record that could not be read as a page. ``reason`` is a short stable code.
-
-    Reasons: ``bad_json``, ``not_object``, ``missing_field``, ``bad_field``, ``bad_url``, ``bad_date``,
-    ``bad_status``, ``too_large``, ``bad_body``, ``missing_file``, ``outside_dir``, ``bad_line``.
-    ``line`` is the 1-based line (manifest, JSONL) or record number (WARC).
-    """
-
-    source: str
-    line: int | None
-    reason: str
-    detail: str = ""
-
-    def __str__(self) -> str:
-        return f"{self.source}: {self.reason}" + (f": {self.detail}" if self.detail else "")
+#: A record that could not be read as a page: the one problem shape of every input (file, line, reason,
+#: message; ``line`` is the 1-based line of a manifest or JSONL, a WARC record's number). Reasons: those
+#: of the shared readers (``bad_json``, ``invalid_utf8``, ``line_too_long``, ``field_count``,
+#: ``missing_column``, ``bad_time``; docs/ingest.md) and the page's own: ``missing_field``, ``bad_field``,
+#: ``bad_url``, ``bad_status``, ``too_large``, ``bad_body``, ``missing_file``, ``outside_dir``.
+PageProblem = LineProblem
 
 
 @dataclass
@@ -127,11 +127,7 @@ def check_page_url(url: Any) -> str | None:
     return None
 
 
-class _Reject(Exception):
-    def __init__(self, reason: str, detail: str = "") -> None:
-        super().__init__(detail)
-        self.reason = reason
-        self.detail = detail
+_Reject = RecordProblem
 
 
 class _Skip(Exception):
@@ -153,14 +149,12 @@ def _status(value: Any) -> int | None:
 
 
 def _fetched_at(value: Any) -> datetime | None:
-    if value is None or value == "":
+    if value is None or (isinstance(value, str) and not value.strip()):
         return None
-    if not isinstance(value, str):
-        raise _Reject("bad_date", f"fetched_at must be an ISO 8601 string, not {type(value).__name__}")
     try:
-        return parse_utc(value)
-    except ValueError as exc:
-        raise _Reject("bad_date", str(exc)) from None
+        return parse_time(value)  # the one time rule of every input (linkfold.inputs.times)
+    except BadTime as exc:
+        raise _Reject(Reason.BAD_TIME, f"fetched_at: {exc}") from None
 
 
 def _finish(*, url: Any, final_url: Any, status: Any, headers: dict[str, str], body: bytes,
@@ -246,7 +240,7 @@ def read_warc(path: str | Path, *, max_bytes: int = DEFAULT_MAX_BYTES,
                     tally.skipped[outcome.reason] += 1
                 elif isinstance(outcome, _Reject):
                     tally.problems[outcome.reason] += 1
-                    yield PageProblem(source, number, outcome.reason, outcome.detail)
+                    yield LineProblem(str(path), number, outcome.reason, outcome.message)
                 else:
                     tally.pages += 1
                     yield outcome
@@ -323,18 +317,21 @@ def read_page_jsonl(path: str | Path, *, max_bytes: int = DEFAULT_MAX_BYTES,
     path = Path(path)
     tally = tally if tally is not None else ReadTally()
     # A JSON-escaped body can be up to six times its size ("\\u00e9").
-    for number, obj in json_objects(path, line_cap=6 * max_bytes + 65536):
+    for item in read_records(path, DumpFormat.JSONL, max_line_bytes=6 * max_bytes + 65536):
+        if isinstance(item, LineProblem):
+            tally.problems[item.reason] += 1
+            yield item
+            continue
+        number = item.line
         source = f"jsonl:{path}:{number}"
         try:
-            if isinstance(obj, LineProblem):
-                raise _Reject(obj.reason, obj.detail)
-            page = _jsonl_page(obj, source=source, max_bytes=max_bytes)
+            page = _jsonl_page(item.values, source=source, max_bytes=max_bytes)
         except _Skip as skip:
             tally.skipped[skip.reason] += 1
             continue
         except _Reject as bad:
             tally.problems[bad.reason] += 1
-            yield PageProblem(source, number, bad.reason, bad.detail)
+            yield bad.at(str(path), number)
             continue
         tally.pages += 1
         yield page
@@ -383,39 +380,35 @@ def read_page_dir(path: str | Path, *, max_bytes: int = DEFAULT_MAX_BYTES,
                          hint=f"a page directory needs a {MANIFEST_NAME} listing file<TAB>url")
     base = manifest.parent
     tally = tally if tally is not None else ReadTally()
+    reader = read_records(manifest, DumpFormat.TSV, comments=True)
     try:
-        text = manifest.read_bytes().decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        where = manifest.read_bytes()[:exc.start].count(b"\n") + 1
-        raise InputError(f"{manifest}:{where}: manifest is not UTF-8 ({exc.reason})") from None
-    columns: tuple[str, ...] | None = None
-    # Split on LF only (CR LF tolerated), so line numbers are the ones an editor shows; str.splitlines
-    # would also break at U+2028 and other characters that may occur inside a field.
-    for number, line in enumerate((ln.rstrip("\r") for ln in text.split("\n")), start=1):
-        if not line.strip() or line.lstrip().startswith("#"):
+        reader.check()
+        names = _manifest_header(reader.columns, manifest, reader.lines_read)
+    except BaseException:
+        reader.close()  # iterating closes it; a refused header must too
+        raise
+    for item in reader:
+        if isinstance(item, LineProblem):
+            tally.problems[item.reason] += 1
+            yield replace(item, file=str(path))  # every problem names the input as given
             continue
-        cells = next(csv.reader([line], delimiter="\t", quoting=csv.QUOTE_NONE))
-        if columns is None:
-            columns = _manifest_header(cells, manifest, number)
-            continue
+        number = item.line
         source = f"dir:{manifest}:{number}"
         try:
-            page = _dir_page(cells, columns, base=base, source=source, max_bytes=max_bytes)
+            page = _dir_page(item.values, names, base=base, source=source, max_bytes=max_bytes)
         except _Skip as skip:
             tally.skipped[skip.reason] += 1
             continue
         except _Reject as bad:
             tally.problems[bad.reason] += 1
-            yield PageProblem(source, number, bad.reason, bad.detail)
+            yield bad.at(str(path), number)
             continue
         tally.pages += 1
         yield page
-    if columns is None:
-        raise MissingColumnError(f"{manifest}: empty manifest, no header line",
-                                 hint="first line: file<TAB>url")
 
 
-def _manifest_header(cells: list[str], manifest: Path, number: int) -> tuple[str, ...]:
+def _manifest_header(cells: list[str], manifest: Path, number: int) -> dict[str, str]:
+    """Our name of each column (its header cell, trimmed, in lower case) -> the cell as written."""
     names = tuple(c.strip().lower() for c in cells)
     unknown = [n for n in names if n not in MANIFEST_COLUMNS]
     if unknown:
@@ -428,14 +421,13 @@ def _manifest_header(cells: list[str], manifest: Path, number: int) -> tuple[str
     if missing:
         raise MissingColumnError(f"{manifest}:{number}: manifest header lacks {', '.join(missing)}",
                                  hint="first line: file<TAB>url")
-    return names
+    return dict(zip(names, cells, strict=True))
 
 
-def _dir_page(cells: list[str], columns: tuple[str, ...], *, base: Path, source: str,
+def _dir_page(values: dict[str, str], names: dict[str, str], *, base: Path, source: str,
               max_bytes: int) -> Page:
-    if len(cells) != len(columns):
-        raise _Reject("bad_line", f"{len(cells)} fields, the header has {len(columns)}")
-    row = dict(zip(columns, (c.strip() for c in cells), strict=True))
+    # The shared reader refused a line of the wrong width already (field_count / missing_column).
+    row = {name: values[cell].strip() for name, cell in names.items()}
     name = row["file"]
     if not name:
         raise _Reject("missing_field", "no file")
@@ -444,7 +436,7 @@ def _dir_page(cells: list[str], columns: tuple[str, ...], *, base: Path, source:
         raise _Reject("outside_dir", f"{name!r} is not a path inside the manifest's directory")
     file = base.joinpath(*rel.parts)
     try:
-        with open_maybe_gzip(file) as fh:
+        with open_input(file, text=False) as fh:
             body = _read_capped(fh, max_bytes)
     except InputError:
         raise _Reject("missing_file", f"{name}: no such file or not readable") from None
@@ -471,7 +463,7 @@ def detect_page_format(path: str | Path) -> str:
         return "dir"
     if not path.exists():
         raise InputError(f"{path}: no such file or directory")
-    with open_maybe_gzip(path) as fh:
+    with open_input(path, text=False) as fh:
         try:
             head = fh.read(512)
         except GZIP_ERRORS as exc:

@@ -7,18 +7,17 @@ line becomes a ``redirect`` link from the short URL's canonical form to the expa
 was. Both URLs are stored as raw and canonical URLs. The short URL then stands for the expanded one, or for
 wherever that leads in turn (``store/finals.py``), from the same transaction on.
 
-A bad line (not UTF-8, a CSV quote left open, not a JSON object, a missing value, a URL the
-canonicaliser refuses) is skipped and reported with its line number and reason in the summary; it never
-stops the import. Whole-file problems (no such file, no such column) stop it before anything is written.
-Every line is parsed on its own, so line numbers are physical lines of the file (a quoted field spanning
-lines is therefore refused as an open quote, which a file of two URLs a row never needs).
+The file is read by the shared input readers (``linkfold.inputs``), with their rules and reason codes:
+a bad line (``invalid_utf8``, ``malformed_csv``, ``field_count``/``missing_column``, ``bad_json``,
+``line_too_long``), a missing value (``missing_value``) or a URL the canonicaliser refuses
+(``short_<reason>``, ``expanded_<reason>``) is skipped and reported as a ``LineProblem`` in the summary; it
+never stops the import. Whole-file problems (no such file, another encoding than UTF-8, no such column,
+not JSON lines) stop it before anything is written. A quoted CSV field may span lines (RFC 4180); a
+record is numbered by its first line.
 """
 
 from __future__ import annotations
 
-import csv
-import gzip
-import json
 from collections import Counter
 from collections.abc import Iterator
 from dataclasses import dataclass, field
@@ -28,9 +27,9 @@ from typing import Any
 
 from sqlalchemy.engine import Engine
 
-from .._json import JSON_LIMITS, json_problem
 from ..canon import Canonical, Canonicaliser
-from ..errors import DumpFormatError, InputError, InvalidURL, MissingColumnError
+from ..errors import DumpFormatError, InputError, InvalidURL
+from ..inputs import TABLE_FORMATS, DumpFormat, LineProblem, parse_format, parse_path, read_records, resolve
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import finals
@@ -39,21 +38,14 @@ from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
 
-FORMATS = ("csv", "tsv", "jsonl")
-_SUFFIXES = {".csv": "csv", ".tsv": "tsv", ".tab": "tsv", ".jsonl": "jsonl", ".ndjson": "jsonl"}
-GZIP_MAGIC = b"\x1f\x8b"  # RFC 1952 §2.3.1
+FORMATS = tuple(f.value for f in TABLE_FORMATS)
 MAX_PROBLEMS_KEPT = 1000  # reported one by one; beyond this only counted by reason
 SOURCE_MAX = 255  # links.source width
+#: A line of a redirect table holds two URLs; a longer one is a problem of its line, read no further.
+MAX_LINE_BYTES = 1 << 20
 
 #: The run log's name of this stage.
 STAGE = "follow_import"
-
-
-@dataclass(frozen=True)
-class Problem:
-    line: int
-    reason: str
-    detail: str
 
 
 @dataclass
@@ -65,14 +57,18 @@ class ImportSummary:
     already_linked: int = 0
     same_url: int = 0  # both URLs have one canonical form: nothing to link
     settled: int = 0  # short URLs whose follow result the import set
-    problems: list[Problem] = field(default_factory=list)
+    problems: list[LineProblem] = field(default_factory=list)
     problem_counts: Counter[str] = field(default_factory=Counter)
     run_id: int | None = None
+    path: str = ""  # the file as given, as problems name it
+
+    def add(self, problem: LineProblem) -> None:
+        self.problem_counts[problem.reason] += 1
+        if len(self.problems) < MAX_PROBLEMS_KEPT:
+            self.problems.append(problem)
 
     def add_problem(self, line: int, reason: str, detail: str) -> None:
-        self.problem_counts[reason] += 1
-        if len(self.problems) < MAX_PROBLEMS_KEPT:
-            self.problems.append(Problem(line, reason, detail))
+        self.add(LineProblem(self.path or self.file, line, reason, detail))
 
     def as_dict(self) -> dict[str, Any]:
         return {"file": self.file, "lines": self.lines_read, "pairs": self.pairs, "links": self.links,
@@ -94,109 +90,40 @@ class ImportSummary:
         return out
 
 
-def _format_of(path: Path, fmt: str | None) -> str:
-    if fmt is not None:
-        if fmt not in FORMATS:
-            raise DumpFormatError(f"{path}: unknown format {fmt!r} (use one of {', '.join(FORMATS)})")
-        return fmt
-    name = path.name.lower().removesuffix(".gz")
-    for suffix, found in _SUFFIXES.items():
-        if name.endswith(suffix):
-            return found
-    raise DumpFormatError(f"{path}: cannot tell the format from the name (known endings: "
-                          f"{', '.join(sorted(_SUFFIXES))}, optionally followed by .gz)",
-                          hint="pass --format csv|tsv|jsonl")
-
-
-#: A line of a redirect table holds two URLs; a longer one is a problem of its line, read no further.
-MAX_LINE_BYTES = 1 << 20
-
-
-def _physical_lines(path: Path) -> Iterator[tuple[int, bytes | None]]:
-    """(number, line without its end) for each line; ``None`` for a line past ``MAX_LINE_BYTES``, of which
-    no more than that is ever held (a gzip'd line can inflate without end)."""
+def _format_of(path: Path, fmt: str | None) -> DumpFormat:
     try:
-        with path.open("rb") as probe:
-            gz = probe.read(2) == GZIP_MAGIC
-        opener = gzip.open if gz else open
-        with opener(path, "rb") as fh:
-            number = 0
-            while line := fh.readline(MAX_LINE_BYTES + 1):
-                number += 1
-                if len(line) > MAX_LINE_BYTES and not line.endswith(b"\n"):
-                    while (rest := fh.readline(MAX_LINE_BYTES)) and not rest.endswith(b"\n"):
-                        pass
-                    yield number, None
-                    continue
-                yield number, line.rstrip(b"\r\n")
-    except FileNotFoundError:
-        raise InputError(f"{path}: no such file") from None
-    except IsADirectoryError:
-        raise InputError(f"{path}: is a folder, not a file") from None
-    except (OSError, EOFError) as exc:  # unreadable, or a truncated gzip stream
-        raise InputError(f"{path}: cannot be read ({exc})") from None
+        return parse_format(fmt, path, TABLE_FORMATS)
+    except InputError as exc:
+        raise DumpFormatError(str(exc), hint=exc.hint) from None
 
 
-def _records(path: Path, fmt: str, short_col: str, expanded_col: str,
+def _records(path: Path, fmt: DumpFormat, short_col: str, expanded_col: str,
              summary: ImportSummary) -> Iterator[tuple[int, str, str]]:
     """(line, short, expanded) for each good line; problems go to ``summary``."""
-    header: list[str] | None = None
-    delimiter = "\t" if fmt == "tsv" else ","
-    for number, raw in _physical_lines(path):
-        summary.lines_read = number
-        if raw is None:
-            summary.add_problem(number, "line_too_long", f"longer than {MAX_LINE_BYTES:,} bytes")
+    reader = read_records(path, fmt, required=((short_col, "--short-column"), (expanded_col, "--expanded-column")),
+                          max_line_bytes=MAX_LINE_BYTES)
+    # In JSON lines a column is a path (``linkfold.inputs.paths``), as the reader checked it and as ingest
+    # reads it; a path that reaches several values names no single URL.
+    paths = {c: parse_path(c) for c in (short_col, expanded_col)} if fmt is DumpFormat.JSONL else None
+
+    def value(values: dict[str, Any], column: str) -> Any:
+        if paths is None:
+            return values.get(column)
+        got = resolve(paths[column], values).values
+        return got[0] if len(got) == 1 else None
+
+    for item in reader:
+        summary.lines_read = reader.lines_read
+        if isinstance(item, LineProblem):
+            summary.add(item)
             continue
-        if number == 1 and raw.startswith(b"\xef\xbb\xbf"):
-            raw = raw[3:]  # a UTF-8 byte order mark written by spreadsheet programs
-        try:
-            text = raw.decode("utf-8")
-        except UnicodeDecodeError as exc:
-            if header is None and fmt != "jsonl":
-                raise DumpFormatError(f"{path}:{number}: the header is not UTF-8 ({exc.reason})") from None
-            summary.add_problem(number, "not_utf8", f"byte {exc.start + 1} is not UTF-8 ({exc.reason})")
-            continue
-        if not text.strip():
-            continue
-        if fmt == "jsonl":
-            try:
-                obj = json.loads(text)
-            except json.JSONDecodeError as exc:
-                summary.add_problem(number, "bad_json", exc.msg)
-                continue
-            except JSON_LIMITS as exc:  # too deep, a number too long: this line's problem
-                summary.add_problem(number, "bad_json", json_problem(exc))
-                continue
-            if not isinstance(obj, dict):
-                summary.add_problem(number, "not_an_object", f"a JSON {type(obj).__name__}, not an object")
-                continue
-            values = [obj.get(short_col), obj.get(expanded_col)]
-        else:
-            try:
-                fields = next(csv.reader([text], delimiter=delimiter, strict=True))
-            except csv.Error as exc:
-                summary.add_problem(number, "bad_csv", str(exc))
-                continue
-            if header is None:
-                header = [f.strip() for f in fields]
-                missing = [c for c in (short_col, expanded_col) if c not in header]
-                if missing:
-                    raise MissingColumnError(
-                        f"{path}:{number}: no column {' or '.join(repr(m) for m in missing)} in the header "
-                        f"(found: {', '.join(repr(h) for h in header) or 'nothing'})",
-                        hint="name them with --short-column / --expanded-column")
-                continue
-            row = dict(zip(header, fields, strict=False))
-            values = [row.get(short_col), row.get(expanded_col)]
-        short, expanded = values
+        short, expanded = value(item.values, short_col), value(item.values, expanded_col)
         if not isinstance(short, str) or not short.strip() or not isinstance(expanded, str) or not expanded.strip():
             which = short_col if not (isinstance(short, str) and short.strip()) else expanded_col
-            summary.add_problem(number, "missing_value", f"no text in {which!r}")
+            summary.add_problem(item.line, "missing_value", f"no text in {which!r}")
             continue
-        yield number, short.strip(), expanded.strip()
-    if header is None and fmt != "jsonl":
-        raise DumpFormatError(f"{path}: empty file (a header row naming {short_col!r} and {expanded_col!r} "
-                              "is needed)")
+        yield item.line, short.strip(), expanded.strip()
+    summary.lines_read = reader.lines_read
 
 
 def count_pending(engine: Engine, *, settings: Any = None) -> int:
@@ -211,7 +138,7 @@ def import_redirects(engine: Engine, path: str | Path, *, fmt: str | None = None
     is the run this one is a step of (a job's), recorded as its parent."""
     path = Path(path)
     kind = _format_of(path, fmt)
-    summary = ImportSummary(file=path.name)
+    summary = ImportSummary(file=path.name, path=str(path))
     source = f"import:{path.name}"[:SOURCE_MAX]
     with engine.begin() as conn:
         ruleset_id, rules = latest_ruleset(conn)
@@ -290,4 +217,4 @@ def _write(engine: Engine, batch: list[tuple[int, str, Canonical, str, Canonical
     summary.settled += settled
 
 
-__all__ = ["FORMATS", "STAGE", "ImportSummary", "Problem", "count_pending", "import_redirects"]
+__all__ = ["FORMATS", "STAGE", "ImportSummary", "count_pending", "import_redirects"]

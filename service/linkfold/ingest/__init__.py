@@ -7,14 +7,11 @@ dataset's linkage table. The reference is docs/ingest.md.
 
 from __future__ import annotations
 
+from ..inputs import DEFAULT_MAX_LINE_BYTES, DumpFormat, Reason, guess_format, parse_path, parse_time
 from .export import EXPORT_FORMATS, ExportSummary, export_dataset
-from .formats import DEFAULT_MAX_LINE_BYTES, DumpFormat, guess_format
 from .load import DEFAULT_BATCH_SIZE, ingest_dump
 from .lookup import LOOKUP_FIELDS, is_url_key, lookup
-from .paths import parse_path
-from .readers import Reason
 from .summary import FileOutcome, FileSummary, IngestSummary
-from .times import parse_time
 
 __all__ = [
     "DEFAULT_BATCH_SIZE",

@@ -32,6 +32,18 @@ from sqlalchemy.engine import Connection, Engine
 
 from ..canon import Canonicaliser, Ruleset, load_rules
 from ..errors import ConfigError, InputError
+from ..inputs import (
+    DEFAULT_MAX_LINE_BYTES,
+    DumpFormat,
+    DumpReader,
+    FileFacts,
+    ReadOptions,
+    RowBlock,
+    inspect_file,
+    open_binary,
+    parse_format,
+    physical_lines,
+)
 from ..progress import SILENT, Progress
 from ..pseudonyms import SCHEME, Pseudonymiser
 from ..store import registry
@@ -40,16 +52,6 @@ from ..store.pseudonym_keys import check_key
 from ..store.rulesets import get_ruleset, latest_ruleset, store_ruleset
 from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
-from .formats import (
-    DEFAULT_MAX_LINE_BYTES,
-    DumpFormat,
-    FileFacts,
-    inspect_file,
-    open_binary,
-    parse_format,
-    physical_lines,
-)
-from .readers import DumpReader, ReadOptions, RowBlock
 from .rows import Batch, RawIds
 from .summary import FileOutcome, FileSummary, IngestSummary
 from .writer import BatchWriter
@@ -166,7 +168,7 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
                 parent_run: int | None = None) -> IngestSummary:
     """Load dump files into ``dataset``; return what was added.
 
-    ``url_column`` is a column name (CSV/TSV) or dotted path (JSON lines; see ``linkfold.ingest.paths``),
+    ``url_column`` is a column name (CSV/TSV) or dotted path (JSON lines; see ``linkfold.inputs.paths``),
     or several of them; ``ruleset`` is a stored version, a rules file, a :class:`Ruleset`, or ``None``
     for the newest stored one. ``unit_column`` (a column or path, like ``key_column``) names the person
     or account of each row, stored only as its HMAC-SHA256 pseudonym under ``pseudonym_key``

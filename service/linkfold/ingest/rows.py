@@ -17,8 +17,8 @@ The rules, in one place for every format:
 
 A reject of a row that was parsed keeps its reason, line and position but never an excerpt: the other
 fields of a parsed record (a bad time, a key that is an object, a JSON value where a URL should be) can
-be personal data. Only a line that could not be parsed at all brings an excerpt (``readers``), and not
-while a load reads units: a broken line's text holds the raw unit ID, which must never be stored.
+be personal data. Only a line that could not be parsed at all brings an excerpt (``linkfold.inputs``),
+and not while a load reads units: a broken line's text holds the raw unit ID, which must never be stored.
 """
 
 from __future__ import annotations
@@ -31,10 +31,9 @@ from typing import Any
 
 from ..canon import Canonical
 from ..errors import InvalidURL
+from ..inputs import MISSING, BadTime, DumpRow, Reason, RowBlock, parse_time
 from ..pseudonyms import Pseudonymiser, unit_text
 from ..store.text import raw_hash, storable
-from .readers import MISSING, DumpRow, Reason, RowBlock
-from .times import BadTime, parse_time
 
 ROW_POSITION = -1  # the row itself: a row that could not be read, or a problem with its key
 TIME_POSITION = -2  # the row's time
@@ -297,7 +296,7 @@ class Batch:
                 continue
             seen_at = None
             if times is not None:
-                if type(t) is str and len(t) > 10 and t[-1] == "Z" and t[4] == "-":
+                if type(t) is str and len(t) > 10 and t[-1] == "Z" and t[4] == "-" and t[10] in "Tt ":
                     try:
                         seen_at = _fromisoformat(t)
                     except ValueError:
@@ -335,7 +334,7 @@ class Batch:
         if row.reject is not None:
             rej = row.reject
             # A broken row's text holds its raw unit ID when the load reads units: no excerpt then.
-            self.rejects.append((ds, fid, n, ROW_POSITION, rej.reason, rej.detail,
+            self.rejects.append((ds, fid, n, ROW_POSITION, rej.reason, rej.message,
                                  rej.excerpt if self.units is None else None, None))
             return
         urls = row.urls
@@ -362,7 +361,7 @@ class Batch:
         if self.timed:
             t = row.time
             # parse_time's own first case (RFC 3339 in UTC, "…Z"), inline: it is met on nearly every row.
-            if type(t) is str and len(t) > 10 and t[-1] == "Z" and t[4] == "-":
+            if type(t) is str and len(t) > 10 and t[-1] == "Z" and t[4] == "-" and t[10] in "Tt ":
                 try:
                     seen_at = _fromisoformat(t)
                 except ValueError:

@@ -1,7 +1,9 @@
-"""The byte layer of a dump: which format it is, gzip or not, its digest, and its physical lines.
+"""Opening an input file: which format it is, gzip or not, its encoding, its digest.
 
-Everything here streams: a file is read in bounded pieces whatever its size (a piece and at most the line
-limit more), and a line longer than the limit is never held whole beyond its piece.
+Everything here streams: a file is read in bounded pieces whatever its size or what it inflates to. A
+gzip'd file is recognised by its magic number (RFC 1952 §2.3.1), whatever it is called; a file in
+another encoding than UTF-8 (UTF-16 or UTF-32 text, binary data) is refused as a whole before any of it
+is read as lines (:func:`foreign_encoding`), so that one wrong export never becomes a problem per line.
 """
 
 from __future__ import annotations
@@ -22,6 +24,8 @@ GZIP_MAGIC = b"\x1f\x8b"  # RFC 1952 §2.3.1: ID1 = 31, ID2 = 139
 UTF8_BOM = b"\xef\xbb\xbf"
 DEFAULT_MAX_LINE_BYTES = 1 << 20
 _CHUNK = 1 << 20
+#: The piece a stream is read in (and the bound on what one read inflates to).
+CHUNK_BYTES = _CHUNK
 _SNIFF_BYTES = 4096  # of the decompressed start: enough to tell UTF-16 from UTF-8 text
 
 # Byte order marks of the encodings a dump must not be read as UTF-8 in (Unicode §23.8, Table 23-5; the
@@ -55,27 +59,37 @@ _SUFFIXES = {
 }
 
 
-def guess_format(path: Path) -> DumpFormat:
-    """The format a file's name announces; ``InputError`` when it announces none."""
+#: Formats of tables with a header (or one object a line): what a reader of named columns can read.
+TABLE_FORMATS = (DumpFormat.CSV, DumpFormat.TSV, DumpFormat.JSONL)
+
+
+def guess_format(path: Path, allowed: tuple[DumpFormat, ...] = tuple(DumpFormat)) -> DumpFormat:
+    """The format a file's name announces; ``InputError`` when it announces none of ``allowed``."""
     name = path.name.lower()
     if name.endswith(".gz"):
         name = name[:-3]
     for suffix, fmt in _SUFFIXES.items():
-        if name.endswith(suffix):
+        if name.endswith(suffix) and fmt in allowed:
             return fmt
-    known = ", ".join(sorted(_SUFFIXES))
+    known = ", ".join(sorted(s for s, f in _SUFFIXES.items() if f in allowed))
     raise InputError(f"{path}: cannot tell the format from the name (known endings: {known}, "
-                     "each optionally followed by .gz)", hint="pass --format csv|tsv|jsonl|lines")
+                     "each optionally followed by .gz)",
+                     hint=f"pass --format {'|'.join(f.value for f in allowed)}")
 
 
-def parse_format(text: str | DumpFormat | None, path: Path) -> DumpFormat:
+def parse_format(text: str | DumpFormat | None, path: Path,
+                 allowed: tuple[DumpFormat, ...] = tuple(DumpFormat)) -> DumpFormat:
+    """``text`` as a format (any case), or the one ``path``'s name announces when ``text`` is None."""
     if text is None:
-        return guess_format(path)
+        return guess_format(path, allowed)
     try:
-        return DumpFormat(str(text).lower())
+        fmt = DumpFormat(str(text).lower())
     except ValueError:
-        raise InputError(f"unknown dump format {text!r}: use one of "
-                         f"{', '.join(f.value for f in DumpFormat)}") from None
+        fmt = None
+    if fmt is None or fmt not in allowed:
+        raise InputError(f"unknown input format {text!r}: use one of "
+                         f"{', '.join(f.value for f in allowed)}")
+    return fmt
 
 
 @dataclass(frozen=True)
@@ -260,164 +274,128 @@ def open_binary(path: Path, gzipped: bool) -> DumpStream:
         raise InputError(f"{path}: cannot read ({exc.strerror or exc})") from exc
 
 
-@dataclass(slots=True)
-class PhysicalLine:
-    """One line of the file as bytes, without its terminator; ``too_long`` lines carry a prefix only."""
+def _open_raw(path: Path) -> BinaryIO:
+    try:
+        return path.open("rb")
+    except FileNotFoundError:
+        raise InputError(f"{path}: no such file") from None
+    except IsADirectoryError:
+        raise InputError(f"{path}: is a directory, not a file") from None
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read ({exc.strerror or exc})") from None
 
-    number: int  # 1-based
-    data: bytes
-    terminator: bytes  # b"\n", b"\r\n" or b"" (last line without newline, or a cut-off long line)
-    too_long: bool = False
 
+class _InflatingFile(io.RawIOBase):
+    """A gzip file's decompressed bytes, through :class:`_Inflater` (bounded, members, padding).
 
-class PhysicalLines:
-    """Every line of a stream as a :class:`PhysicalLine`. A line longer than ``max_line_bytes`` comes out
-    once, flagged ``too_long`` with its first bytes; the rest of it is read and dropped, so the next line
-    still starts at the right place and keeps its true line number.
-
-    The stream is read a piece at a time: ``chunk_bytes``, completed to its last line end but by no more
-    than ``max_line_bytes``, so memory is bounded by the two whatever a line's length. Besides one line
-    at a time, a reader's fast lane can take the rest of the piece at once as text (:meth:`plain_run`),
-    when every line in it is ordinary: a line object costs more than the reading of most rows.
+    Unlike ``gzip.GzipFile`` it hands out everything that inflated before a truncation, then ends as if
+    the stream were complete and sets ``truncated``: the reader of its lines reports every whole line and
+    then raises (``reading.RecordReader``). A corrupt stream raises ``zlib.error`` where it breaks.
     """
 
-    def __init__(self, stream: BinaryIO, max_line_bytes: int, chunk_bytes: int = _CHUNK) -> None:
-        self._stream: Any = (stream if isinstance(stream, io.BufferedIOBase | gzip.GzipFile)
-                             else io.BufferedReader(stream))  # type: ignore[arg-type]
-        self._max = max_line_bytes
-        self._chunk = max(chunk_bytes, 1)
-        self.number = 0  # lines handed out so far (the number of the last one)
-        self._items: list[Any] = []  # the piece: bytes (a line without its "\n") or a ready PhysicalLine
-        self._i = 0  # next item to hand out
-        self._clean = 0  # items[:_clean] are all bytes (no over-long or unterminated line among them)
-        self._texts: list[str] | None = None  # items[:_clean] as text, once asked for (plain_run)
-        self._texts_for: bytes | None = None  # the quote byte _texts was checked against
-        self._checked = False  # whether _texts says something about this piece (None: not plain)
-        self._eof = False
-        self._first = True
+    def __init__(self, path: Path) -> None:
+        self._fh = _open_raw(path)
+        self._inflater = _Inflater()
+        self._outputs: Iterator[bytes] = iter(())
+        self._pending = memoryview(b"")
+        # Bytes after the last line end inflated so far, held back so that a cut-off last line is never
+        # handed out as if it were whole (bounded: a longer run without a line end goes out anyway).
+        self._tail = b""
+        self._done = False
+        self.truncated = False
 
-    def __iter__(self) -> PhysicalLines:
-        return self
-
-    def __next__(self) -> PhysicalLine:
-        if self._i >= len(self._items) and not self._fill():
-            raise StopIteration
-        item = self._items[self._i]
-        self._i += 1
-        self.number += 1
-        if type(item) is bytes:
-            if item.endswith(b"\r"):
-                return PhysicalLine(self.number, item[:-1], b"\r\n")
-            return PhysicalLine(self.number, item, b"\n")
-        item.number = self.number
-        return item
-
-    def plain_run(self, quote: bytes | None) -> tuple[list[str], int] | None:
-        """The rest of the current piece as text lines and the index of the next one in that list (its line
-        number is ``number + 1``), if all of it is plain: complete lines within the limit, valid UTF-8, no NUL,
-        no CR but in a CRLF line end, and no ``quote`` byte. Else None (read it line by line). Hand out what
-        was used with :meth:`skip`."""
-        if self._i >= len(self._items) and not self._fill():
-            return None
-        if self._i >= self._clean:
-            return None
-        if not self._checked or self._texts_for != quote:
-            self._texts = self._plain_texts(quote)
-            self._texts_for, self._checked = quote, True
-        if self._texts is None:
-            return None
-        return self._texts, self._i
-
-    def skip(self, count: int) -> None:
-        """Hand out ``count`` lines of the current piece's plain run (see :meth:`plain_run`)."""
-        self._i += count
-        self.number += count
-
-    def _plain_texts(self, quote: bytes | None) -> list[str] | None:
-        region = b"\n".join(self._items[:self._clean])
-        if b"\x00" in region or (quote is not None and quote in region):
-            return None
-        crs = region.count(b"\r")
-        # With CRs, only CRLF files: every line ends in CR and no other CR appears.
-        if crs and (crs != self._clean or region.count(b"\r\n") != crs - 1 or not region.endswith(b"\r")):
-            return None
-        try:
-            text = region.decode("utf-8")
-        except UnicodeDecodeError:
-            return None
-        if crs:
-            return text[:-1].split("\r\n")
-        return text.split("\n")
-
-    def _fill(self) -> bool:
-        """Read the next piece; False at the end of the stream."""
-        self._items, self._i, self._clean, self._texts, self._checked = [], 0, 0, None, False
-        while not self._items:
-            if self._eof:
-                return False
-            try:
-                self._read_piece()
-            except (OSError, EOFError, zlib.error) as exc:
-                # A truncated or corrupt gzip stream shows up only when it is read this far.
-                raise InputError(f"cannot read past line {self.number}: {exc}") from exc
+    def readable(self) -> bool:
         return True
 
-    def _read_piece(self) -> None:
-        stream, limit = self._stream, self._max
-        if self._first:
-            self._first = False
-            data = stream.read(max(self._chunk, len(UTF8_BOM)))
-            if data.startswith(UTF8_BOM):
-                # A byte order mark is how some spreadsheet exports say "UTF-8"; it is not content.
-                data = data[len(UTF8_BOM):] or stream.read(self._chunk)
-        else:
-            data = stream.read(self._chunk)
-        if not data:
-            self._eof = True
-            return
-        if not data.endswith(b"\n"):
-            # Complete the piece's last line, reading no more of it than the limit allows.
-            budget = limit + 1 - (len(data) - data.rfind(b"\n") - 1)
-            if budget > 0:
-                data += stream.readline(budget)
-        items: list[Any] = data.split(b"\n")
-        tail = items.pop()  # b"" when the piece ends with a line end
-        clean = len(items)
-        if len(data) > limit:
-            for k, line in enumerate(items):
-                if len(line) > limit:
-                    items[k] = PhysicalLine(0, line[:limit + 1][:512], b"", too_long=True)
-                    clean = min(clean, k)
-        if tail:
-            if len(tail) > limit:
-                # An over-long line: keep its first bytes, read the rest and drop it.
-                while True:
-                    rest = stream.readline(_CHUNK)
-                    if not rest or rest.endswith(b"\n"):
-                        break
-                items.append(PhysicalLine(0, tail[:limit + 1][:512], b"", too_long=True))
-            else:
-                items.append(PhysicalLine(0, tail, b""))  # the last line, without a line end
-                self._eof = True
-        self._items, self._clean = items, clean
+    def _next_output(self) -> bytes | None:
+        while True:
+            out = next(self._outputs, None)
+            if out is not None:
+                data = self._tail + out
+                cut = data.rfind(b"\n") + 1
+                if len(data) - cut > _CHUNK:
+                    cut = len(data)
+                self._tail = data[cut:]
+                if cut:
+                    return data[:cut]
+                continue
+            if self._done:
+                return None
+            data = self._fh.read(_CHUNK)
+            if not data:
+                self._done = True
+                self.truncated = not self._inflater.complete
+                tail, self._tail = self._tail, b""
+                return tail if tail and not self.truncated else None
+            self._outputs = self._inflater.feed(data)
+
+    def readinto(self, buffer) -> int:  # type: ignore[override]
+        if not self._pending:
+            out = self._next_output()
+            if out is None:
+                return 0
+            self._pending = memoryview(out)
+        n = min(len(buffer), len(self._pending))
+        buffer[:n] = self._pending[:n]
+        self._pending = self._pending[n:]
+        return n
+
+    def close(self) -> None:
+        self._fh.close()
+        super().close()
 
 
-def physical_lines(stream: BinaryIO, max_line_bytes: int, chunk_bytes: int = _CHUNK) -> PhysicalLines:
-    """The lines of ``stream`` (see :class:`PhysicalLines`)."""
-    return PhysicalLines(stream, max_line_bytes, chunk_bytes)
+def truncated(stream: BinaryIO) -> bool:
+    """Whether ``stream`` (from :func:`open_input`) was a gzip stream that ended before its last member."""
+    raw = getattr(stream, "raw", None)
+    return bool(getattr(raw, "truncated", False))
+
+
+def open_input(path: Path, *, text: bool = True) -> BinaryIO:
+    """Open ``path`` for reading its bytes, decompressed when it starts with the gzip magic number.
+
+    With ``text`` (an input table, JSON lines, a manifest), a file in another encoding than UTF-8 is
+    refused first, as :func:`inspect_file` refuses it (``DumpFormatError``). Without it (a page body,
+    whose charset is the page's business) the bytes are handed on as they are. A corrupt gzip stream
+    raises ``zlib.error`` where it breaks (:data:`GZIP_ERRORS`; reading it through
+    :class:`~linkfold.inputs.lines.PhysicalLines` turns that into ``InputError``); a truncated one ends
+    early, everything before the cut handed out, and :func:`truncated` says so. Inflating is bounded as in
+    :func:`inspect_file`: no read returns more than a piece, whatever the data inflates to.
+    """
+    with _open_raw(path) as probe:
+        gz = probe.read(2) == GZIP_MAGIC
+    # The buffered reader owns the raw file, so closing the stream closes the file too.
+    stream: Any = io.BufferedReader(_InflatingFile(path), buffer_size=_CHUNK) if gz else _open_raw(path)
+    if text:
+        try:
+            _refuse_encoding(path, stream.peek(_SNIFF_BYTES)[:_SNIFF_BYTES])
+        except GZIP_ERRORS as exc:
+            stream.close()
+            raise InputError(f"{path}: not a readable gzip file ({exc})") from None
+        except BaseException:
+            stream.close()
+            raise
+    return stream
+
+
+#: What a broken or truncated gzip stream raises while it is read.
+GZIP_ERRORS = (EOFError, zlib.error, gzip.BadGzipFile)
 
 
 __all__ = [
+    "CHUNK_BYTES",
     "DEFAULT_MAX_LINE_BYTES",
+    "GZIP_ERRORS",
+    "GZIP_MAGIC",
+    "TABLE_FORMATS",
     "DumpFormat",
     "DumpStream",
     "FileFacts",
-    "PhysicalLine",
-    "PhysicalLines",
     "foreign_encoding",
     "guess_format",
     "inspect_file",
     "open_binary",
+    "open_input",
     "parse_format",
-    "physical_lines",
+    "truncated",
 ]

@@ -1,12 +1,16 @@
-"""Sighting times: RFC 3339 §5.8 examples, POSIX epoch values, and our documented conventions."""
+"""The one time rule of every input (linkfold.inputs.times): RFC 3339 §5.6-5.8, ISO 8601 forms, POSIX
+epoch values and our documented conventions; tests/cases/times.tsv holds the table, with a source each."""
 
 from __future__ import annotations
 
+import csv
+import json
 from datetime import UTC, datetime
+from pathlib import Path
 
 import pytest
 
-from linkfold.ingest.times import BadTime, parse_time
+from linkfold.inputs import BadTime, parse_time
 
 
 @pytest.mark.parametrize(("text", "expected"), [
@@ -63,3 +67,38 @@ def test_result_is_always_utc():
 def test_bad_times(value):
     with pytest.raises(BadTime):
         parse_time(value)
+
+
+def _cases() -> list:
+    with (Path(__file__).parent / "cases" / "times.tsv").open(encoding="utf-8", newline="") as fh:
+        rows = list(csv.DictReader(fh, delimiter="\t", quoting=csv.QUOTE_NONE))
+    return [pytest.param(r["input"], r["type"], r["expected"], id=f"{r['type']}:{r['input'] or 'empty'}")
+            for r in rows]
+
+
+@pytest.mark.parametrize(("raw", "kind", "expected"), _cases())
+def test_the_time_table(raw, kind, expected):
+    value = json.loads(raw) if kind == "json" else raw
+    if kind == "json" and raw == "NaN":
+        value = float("nan")
+    if expected == "error":
+        with pytest.raises(BadTime):
+            parse_time(value)
+    else:
+        got = parse_time(value)
+        assert got.tzinfo is UTC and got.isoformat() == expected
+
+
+def test_every_case_names_its_source():
+    with (Path(__file__).parent / "cases" / "times.tsv").open(encoding="utf-8") as fh:
+        rows = list(csv.DictReader(fh, delimiter="\t", quoting=csv.QUOTE_NONE))
+    assert len(rows) >= 40 and all(r["source"].strip() for r in rows)
+
+
+def test_a_bad_time_never_repeats_the_value():
+    # docs/ingest.md, "What is stored": a reject keeps no field of a parsed record.
+    for value in ["panel-person-0042", "2031-05-04T08:00:60Z", "2031-05-04x08:00", "1985-13-12"]:
+        with pytest.raises(BadTime) as caught:
+            parse_time(value)
+        assert value not in str(caught.value)
+
