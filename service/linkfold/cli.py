@@ -33,6 +33,7 @@ COMMANDS: dict[str, str] = {
     "outlets": "outlets",
     "exposure": "exposure", "pseudonymise": "exposure",
     "network": "network",
+    "corpus": "corpus", "compare": "corpus",
     "serve": "api", "tokens": "api",
     "demo": "demo",
 }

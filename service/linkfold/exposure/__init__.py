@@ -8,7 +8,15 @@ docs/exposure.md.
 
 from __future__ import annotations
 
-from .query import COVERAGE_FIELDS, LEVELS, PERIODS, TARGET_COLUMN, coverage_select, exposure_select
+from .query import (
+    COVERAGE_FIELDS,
+    LEVELS,
+    PERIODS,
+    TARGET_COLUMN,
+    coverage_select,
+    exposure_select,
+    sighting_targets,
+)
 from .tables import (
     DEFAULT_MIN_UNITS,
     EXPOSURE_FORMATS,
@@ -36,5 +44,6 @@ __all__ = [
     "exposure_select",
     "outlet_attributes",
     "outlet_exposure",
+    "sighting_targets",
     "write_exposure",
 ]

@@ -62,6 +62,14 @@ def _parts(*, dataset_ids: Sequence[int], level: str) -> _Parts:
     return _Parts(source, s.c.unit, target, fj.column("is_article"), s.c.seen_at, where)
 
 
+def sighting_targets(*, dataset_ids: Sequence[int], level: str) -> _Parts:
+    """What each sighting of ``dataset_ids`` counts for at ``level``, as exposure counts it: the FROM
+    clause (sightings with their URL and what it stands for), the unit, the target (outlet, article or
+    story ID; NULL when there is none yet), whether the final URL is an article, the time and the WHERE
+    clause of the datasets. The corpus and the comparison of datasets count sightings the same way."""
+    return _parts(dataset_ids=dataset_ids, level=level)
+
+
 def period_of(seen_at: sa.ColumnElement[Any], by: str, dialect: str) -> sa.ColumnElement[str]:
     """The first day (``YYYY-MM-DD``, UTC) of the day, ISO week or month ``seen_at`` falls in."""
     if by not in PERIODS:
@@ -133,4 +141,4 @@ def coverage_select(dialect: str, *, dataset_ids: Sequence[int], level: str = "o
 
 
 __all__ = ["COVERAGE_FIELDS", "LEVELS", "PERIODS", "TARGET_COLUMN", "coverage_select", "exposure_select",
-           "period_of"]
+           "period_of", "sighting_targets"]
