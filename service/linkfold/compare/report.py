@@ -82,10 +82,14 @@ def _floored(units: int, min_units: int) -> int | None:
 
 
 def _outlet_rows(conn: Connection, ids: dict[int, str], totals: dict[int, dict[str, int]], *, all_urls: bool,
-                 min_units: int, key: sa.ColumnElement[Any] | None = None) -> tuple[list[dict[str, Any]], int]:
-    """Per dataset × outlet (or × ``key`` over the outlet): sightings, units and their shares."""
+                 min_units: int, values: dict[str, str] | None = None) -> tuple[list[dict[str, Any]], int]:
+    """Per dataset × outlet (or × the outlet's value in ``values``, outlets it lacks under
+    :data:`NOT_LISTED`): sightings, units and their shares."""
     source, target, unit, where = _counted(list(ids), "outlet", all_urls)
-    group = target if key is None else key
+    group: sa.ColumnElement[Any] = target
+    if values is not None:
+        cases = [(target == o, v) for o, v in sorted(values.items())]
+        group = sa.case(*cases, else_=sa.literal(NOT_LISTED)) if cases else sa.literal(NOT_LISTED)
     ds = t.sightings.c.dataset_id
     q = (sa.select(ds, group.label("g"), sa.func.count(), sa.func.count(sa.distinct(unit)))
          .select_from(source).where(*where).group_by(ds, group))
@@ -110,10 +114,10 @@ def compare_datasets(engine: Engine, *, datasets: Sequence[str], level: str = "s
         raise ConfigError(f"unknown level {level!r}: use one of {', '.join(LEVELS)}")
     if min_units < 1 or top < 1:
         raise ConfigError("min_units and top must be at least 1")
+    if len(dict.fromkeys(datasets)) < 2:
+        raise ConfigError("compare needs at least two different datasets")
     with engine.connect() as conn:
         ids = dataset_ids(conn, datasets)
-        if len(ids) < 2:
-            raise ConfigError("compare needs at least two different datasets")
         order = list(ids)
         # Totals per dataset, at outlet level (what has an outlet) and at the story level (the shares there).
         source, _target, unit, where = _counted(order, "outlet", all_urls)
@@ -131,12 +135,10 @@ def compare_datasets(engine: Engine, *, datasets: Sequence[str], level: str = "s
         outlets, suppressed = _outlet_rows(conn, ids, totals, all_urls=all_urls, min_units=min_units)
         attrs = outlet_attributes(conn)
         attribute_rows: list[dict[str, Any]] = []
-        fj_outlet = sighting_targets(dataset_ids=order, level="outlet").target
         for column in outlet_columns(conn):
-            values = {o: a.get(column) for o, a in attrs.items()}
-            cases = [(fj_outlet == o, "" if v is None else str(v)) for o, v in sorted(values.items())]
-            key = sa.case(*cases, else_=sa.literal(NOT_LISTED)) if cases else sa.literal(NOT_LISTED)
-            rows, hidden = _outlet_rows(conn, ids, totals, all_urls=all_urls, min_units=min_units, key=key)
+            values = {o: "" if a.get(column) is None else str(a.get(column)) for o, a in attrs.items()}
+            rows, hidden = _outlet_rows(conn, ids, totals, all_urls=all_urls, min_units=min_units,
+                                        values=values)
             suppressed += hidden
             attribute_rows.extend({"attribute": str(column), **r} for r in rows)
 
