@@ -163,3 +163,30 @@ def test_bad_arguments_are_refused(engine):
         corpus_records(engine, datasets=["x"], level="outlet")
     with pytest.raises(ConfigError):
         write_corpus(engine, datasets=["x"], fmt="csv")
+
+
+# --- over HTTP and from the Python client -------------------------------------------------------------------
+def test_the_client_reads_the_corpus_and_the_comparison(db_url, engine, tmp_path):
+    from linkfold.client import ApiError, Client
+    from linkfold.compare import compare_datasets
+    from linkfold.store.tokens import create_token
+    from test_api_support import LiveServer
+
+    _world(engine, tmp_path)
+    read = create_token(engine, scope="read", note="corpus tests").secret
+    want = list(corpus_records(engine, datasets=DATASETS, preparation=Preparation(tokens=True)).records)
+    with LiveServer(db_url, cwd=tmp_path) as server, Client(server.url, token=read) as lf:
+        got = list(lf.corpus(DATASETS, tokens=True))
+        frame = lf.corpus_frame("posts", level="article")
+        comparison = lf.compare(DATASETS, top=3)
+        with pytest.raises(ApiError) as below:
+            list(lf.corpus(DATASETS, min_units=2))  # never below the documented minimum over HTTP
+        assert below.value.status == 422
+        with pytest.raises(ApiError) as unknown:
+            lf.compare(["panel", "no-such-dataset"])
+        assert unknown.value.status == 404
+    assert got == want
+    assert len(frame) == len(list(corpus_records(engine, datasets=["posts"], level="article").records))
+    assert "article_id" in frame.columns and "text" in frame.columns
+    lib = json.loads(json.dumps(compare_datasets(engine, datasets=DATASETS, top=3).as_dict()))
+    assert comparison == lib

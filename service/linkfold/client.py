@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import json
 from collections.abc import Iterable, Iterator
+from datetime import datetime
 from typing import Any
 
 import httpx
@@ -222,6 +223,50 @@ class Client:
         frame.attrs["min_units"] = answer["min_units"]
         return frame
 
+    # --- the corpus and the comparison of datasets (docs/corpus.md) -------------------------------------
+    def corpus(self, datasets: str | Iterable[str] | None = None, *, level: str = "story",
+               language: str | None = None, min_words: int = 0, all_urls: bool = False,
+               min_units: int | None = None, tokens: bool = False, lowercase: bool = False,
+               drop_stop_words: bool = False, ngrams: int = 1) -> Iterator[dict[str, Any]]:
+        """The corpus, one record (a dict, as ``linkfold corpus`` writes a JSON line, with times as aware
+        datetimes) per story or article seen in ``datasets`` (default: every dataset), streamed as the
+        server sends it. A read token is enough: unit counts below the server's minimum are None."""
+        names = [datasets] if isinstance(datasets, str) else list(datasets or [])
+        params = _params(dataset=names, level=level, language=language, min_words=min_words or None,
+                         all_urls="true" if all_urls else None, min_units=min_units,
+                         tokens="true" if tokens else None, lowercase="true" if lowercase else None,
+                         drop_stop_words="true" if drop_stop_words else None,
+                         ngrams=ngrams if ngrams > 1 else None)
+        n = 0
+        try:
+            with self._http.stream("GET", "/corpus", params=params,
+                                   headers={"Accept": "application/x-ndjson"}) as response:
+                self._check(response)
+                for line in response.iter_lines():
+                    if not line:
+                        continue
+                    record = json.loads(line)
+                    if "error" in record and isinstance(record["error"], dict):
+                        raise ApiError(response.status_code, record["error"]["code"], record["error"]["message"])
+                    n += 1
+                    yield _corpus_times(record)
+        except httpx.TransportError as exc:
+            raise NetworkError(f"the corpus from {self.base_url} broke off after {n:,} records: {exc}") from exc
+
+    def corpus_frame(self, datasets: str | Iterable[str] | None = None, **options: Any) -> Any:
+        """:meth:`corpus` as a pandas DataFrame: one row per record, ``datasets`` a column of lists of dicts
+        (``frame.explode("datasets")`` gives one row per record and dataset)."""
+        pd = _pandas("corpus_frame")
+        return pd.DataFrame(list(self.corpus(datasets, **options)))
+
+    def compare(self, datasets: Iterable[str], *, level: str = "story", top: int | None = None,
+                all_urls: bool = False, min_units: int | None = None) -> dict[str, Any]:
+        """Datasets side by side (``linkfold compare``) as the API's JSON: ``datasets``, ``outlets``,
+        ``attributes``, ``overlap``, ``top``, ``only`` (lists of dicts), ``level``, ``min_units``,
+        ``suppressed``."""
+        return self._get("/compare", dataset=list(datasets), level=level, top=top,
+                         all_urls="true" if all_urls else None, min_units=min_units)
+
     def _batch(self, batch: list[str]) -> Iterator[dict[str, Any]]:
         n = 0
         try:
@@ -252,6 +297,17 @@ def _frame(body: dict[str, Any], key: str, columns: list[str] | None) -> Any:
     frame = pd.DataFrame(body[key], columns=columns) if columns else pd.DataFrame(body[key])
     frame.attrs.update({k: v for k, v in body.items() if k != key})
     return frame
+
+
+def _corpus_times(record: dict[str, Any]) -> dict[str, Any]:
+    for key in ("published", "first_seen", "last_seen"):
+        if isinstance(record.get(key), str):
+            record[key] = datetime.fromisoformat(record[key])
+    for entry in record.get("datasets") or []:
+        for key in ("first_seen", "last_seen"):
+            if isinstance(entry.get(key), str):
+                entry[key] = datetime.fromisoformat(entry[key])
+    return record
 
 
 def _params(**params: Any) -> list[tuple[str, Any]]:

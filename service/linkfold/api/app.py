@@ -11,7 +11,7 @@ from sqlalchemy.engine import Engine
 from .. import __version__
 from ..settings import Settings, load_settings
 from ..store import ensure_schema, make_engine
-from . import pages, routes, routes_clusters, routes_exposure, routes_network, routes_outlets
+from . import pages, routes, routes_clusters, routes_corpus, routes_exposure, routes_network, routes_outlets
 from .errors import API_PREFIX, install_handlers
 from .limits import BodyLimit
 from .screen import SecurityHeaders, no_nul
@@ -50,6 +50,7 @@ def create_app(settings: Settings | None = None, *, engine: Engine | None = None
     app.include_router(routes_outlets.router, prefix=API_PREFIX)
     app.include_router(routes_network.router, prefix=API_PREFIX)
     app.include_router(routes_exposure.router, prefix=API_PREFIX)
+    app.include_router(routes_corpus.router, prefix=API_PREFIX)
     app.include_router(pages.router, include_in_schema=False)
     app.mount("/static", StaticFiles(directory=STATIC_DIR), name="static")
     return app
