@@ -48,7 +48,8 @@ READS = ["GET /v1/health", "GET /v1/lookup", "GET /v1/datasets", "GET /v1/datase
          "GET /v1/runs/{run_id}", "GET /v1/clusters", "GET /v1/articles/{cluster_id}",
          "GET /v1/stories/{cluster_id}", "GET /v1/ids/{cluster_id}/history", "GET /v1/decisions",
          "POST /v1/lookup", "GET /v1/outlets", "GET /v1/outlets/report", "GET /v1/network",
-         "GET /v1/exposure/outlets", "GET /v1/exposure"]  # with a read token, the unit-level rows are a documented 403
+         "GET /v1/exposure/outlets", "GET /v1/exposure", "GET /v1/corpus",
+         "GET /v1/compare"]  # with a read token, the unit-level rows are a documented 403
 
 
 def test_the_document_lists_every_read_endpoint(world):

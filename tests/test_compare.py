@@ -11,7 +11,7 @@ import pytest
 
 from linkfold.cli import main
 from linkfold.compare import Overlap, compare_datasets, jaccard, weighted_jaccard
-from linkfold.errors import ConfigError
+from linkfold.errors import ConfigError, InputError
 from network_world import load_outlet_list, load_with_units
 
 # The hand example. Three articles, each its own story: s1 = x.example/a/1, s2 = x.example/a/2,
@@ -106,7 +106,7 @@ def test_the_command_prints_a_table_and_json_lines(db_url, tmp_path, capsys):
     assert out.err == ""
     rows = [json.loads(line) for line in out.out.splitlines()]
     assert {r["section"] for r in rows} == {"dataset", "outlet", "attribute", "overlap", "top", "only"}
-    assert main(["--db", db_url, "compare", "A"]) == 3          # one dataset is no comparison
+    assert main(["--db", db_url, "compare", "A"]) == 6          # one dataset is no comparison (bad input)
     assert main(["--db", db_url, "compare", "A", "nope"]) == 7  # an unknown dataset
 
 
@@ -129,5 +129,7 @@ def test_weighted_jaccard_by_its_definition():
 
 
 def test_bad_arguments(engine):
-    with pytest.raises(ConfigError):
+    with pytest.raises(InputError):
         compare_datasets(engine, datasets=["A", "A"])
+    with pytest.raises(ConfigError):
+        compare_datasets(engine, datasets=["A", "B"], level="outlet")

@@ -147,8 +147,9 @@ class CompareOut(BaseModel):
             summary="Datasets side by side: outlet shares, attributes, story overlap, top stories",
             responses={**READ_ERRORS, **error_responses(404)})
 def compare(request: Request, _access: ReadAccess,
-            dataset: Annotated[list[DatasetName], Query(min_length=2, max_length=20,
-                                                        description="A dataset name; give two or more")],
+            dataset: Annotated[list[DatasetName], Query(
+                min_length=2, max_length=20, json_schema_extra={"uniqueItems": True},
+                description="A dataset name; give two or more different ones (else 400)")],
             level: Level = "story", top: Annotated[int, Query(ge=1, le=1000)] = DEFAULT_TOP,
             all_urls: AllUrls = False, min_units: MinUnits = DEFAULT_MIN_UNITS) -> dict[str, Any]:
     return compare_datasets(api_state(request).engine, datasets=dataset, level=level, top=top, all_urls=all_urls,

@@ -15,7 +15,7 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
 from ..corpus import LEVELS, dataset_ids, representatives, seen_select
-from ..errors import ConfigError
+from ..errors import ConfigError, InputError
 from ..exposure import DEFAULT_MIN_UNITS, sighting_targets
 from ..outlets import outlet_attributes, outlet_columns
 from ..store import tables as t
@@ -115,7 +115,8 @@ def compare_datasets(engine: Engine, *, datasets: Sequence[str], level: str = "s
     if min_units < 1 or top < 1:
         raise ConfigError("min_units and top must be at least 1")
     if len(dict.fromkeys(datasets)) < 2:
-        raise ConfigError("compare needs at least two different datasets")
+        # Bad input, not a setting: over HTTP a 400 (RFC 9110 §15.5.1), on the command line exit 6.
+        raise InputError(f"compare needs at least two different datasets, not {', '.join(datasets) or 'none'}")
     with engine.connect() as conn:
         ids = dataset_ids(conn, datasets)
         order = list(ids)
