@@ -17,14 +17,16 @@ from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from fastapi.templating import Jinja2Templates
 
 from .. import __version__
+from ..compare import DEFAULT_TOP, compare_datasets
 from ..dedupe.stage import list_clusters, record_decision, resolve_cluster_id, show_cluster, similarity_values
 from ..errors import InputError
+from ..exposure import DEFAULT_MIN_UNITS as UNIT_FLOOR
 from ..ingest import lookup
 from ..network import DEFAULT_MIN_UNITS, bucket_labels, co_exposure, exposure_distribution
 from ..store import registry
 from ..store.pages import current_document
 from ..store.tokens import TokenState, check_token
-from . import charts, network_svg
+from . import charts, compare_svg, network_svg
 from .auth import COOKIE_NAME, may_write, read_access, write_access
 from .screen import refuse_nul, same_origin
 from .textdiff import side_by_side
@@ -234,3 +236,28 @@ def network_page(request: Request, dataset: Annotated[list[str] | None, Query(ma
                        distribution=network_svg.distribution_svg(dist, bucket_labels(), min_units=min_units),
                        top_edges=sorted(net.edges, key=lambda e: -e[weight])[:25])
     return render(request, "network.html", context)
+
+
+@router.get("/compare", response_class=HTMLResponse)
+def compare_page(request: Request, dataset: Annotated[list[str] | None, Query(max_length=20)] = None,
+                 level: Annotated[str, Query(pattern="^(story|article)$")] = "story",
+                 min_units: Annotated[int, Query(ge=UNIT_FLOOR, le=1_000_000)] = UNIT_FLOOR,
+                 top: Annotated[int, Query(ge=1, le=100)] = DEFAULT_TOP,
+                 all_urls: bool = False) -> HTMLResponse:
+    # Counts only, under the read token, with the API's floor of units: exposure's, which is stricter than
+    # the network's, as for /v1/compare (docs/corpus.md).
+    read_access(request)
+    engine = request.app.state.linkfold.engine
+    with engine.connect() as conn:
+        names = [d["dataset"] for d in registry.list_datasets(conn)]
+    chosen = list(dict.fromkeys(d for d in (dataset or []) if d.strip())) or names[:2]
+    context: dict[str, Any] = {"names": names, "chosen": chosen, "level": level, "min_units": min_units,
+                               "floor": UNIT_FLOOR, "top": top, "all_urls": all_urls}
+    if len(chosen) >= 2:
+        found = compare_datasets(engine, datasets=chosen, level=level, top=top, all_urls=all_urls,
+                                 min_units=min_units).as_dict()
+        context.update(c=found, id_col="story_id" if level == "story" else "article_id",
+                       shares=compare_svg.shares_svg(found, measure="sightings"),
+                       unit_shares=compare_svg.shares_svg(found, measure="units"),
+                       overlap=compare_svg.overlap_svg(found))
+    return render(request, "compare.html", context)
