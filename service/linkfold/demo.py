@@ -16,7 +16,9 @@ from typing import Any
 import sqlalchemy as sa
 
 from .canon import load_rules
+from .compare import compare_datasets
 from .content.page_import import import_pages
+from .corpus import write_corpus
 from .dedupe.stage import list_clusters
 from .errors import InputError
 from .exposure import write_exposure
@@ -76,6 +78,7 @@ class DemoReport:
     examples: list[dict] = field(default_factory=list)
     clusters: dict[str, list[dict]] = field(default_factory=dict)
     outlets: list[str] = field(default_factory=list)
+    comparison: list[str] = field(default_factory=list)
 
     def lines(self) -> list[str]:
         out = [f"registry: {self.database}", *self.notes]
@@ -96,6 +99,7 @@ class DemoReport:
                        f"article {ex.get('article_id')}, story {ex.get('story_id')}, seen {ex['seen']})"
                        + (f"\n    stands for {ex['final_url']}" if ex.get("final_url") not in (None, ex["canonical"])
                           else ""))
+        out.extend(self.comparison)
         return out
 
 
@@ -204,6 +208,13 @@ def run_demo(workdir: Path, *, settings: Settings | None = None, progress: Progr
         network = write_network(engine, datasets=["northvale-panel"], out=workdir / "network-edges.csv",
                                 nodes_out=workdir / "network-nodes.csv")
         report.notes.extend(network.lines())
+        # One text per story the two datasets saw, for topic models (docs/corpus.md), and the datasets side
+        # by side: what panellists read against what accounts shared.
+        corpus = write_corpus(engine, datasets=[name for name, _p, _o in DEMO_DUMPS], level="story",
+                              out=workdir / "corpus-stories.jsonl")
+        report.notes.extend(corpus.lines())
+        comparison = compare_datasets(engine, datasets=[name for name, _p, _o in DEMO_DUMPS], top=5)
+        report.comparison = ["", *comparison.table().rstrip("\n").splitlines()]
         return report
     finally:
         engine.dispose()

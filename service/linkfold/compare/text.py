@@ -36,7 +36,7 @@ def _side_by_side(rows: Sequence[dict[str, Any]], key: str, names: Sequence[str]
     ordered = sorted(by_key.items(), key=lambda kv: -sum(r["sightings"] for r in kv[1].values()))[:SHOWN]
     out = []
     for value, per in ordered:
-        cells = [str(value)]
+        cells = [str(value) if value not in (None, "") else "(none)"]
         for name in names:
             got = per.get(name)
             cells += [_pct(got["sightings_share"]) if got else "—", _pct(got["units_share"]) if got else "—"]
