@@ -45,29 +45,38 @@ def _json_outlets(dialect: str, column: sa.ColumnElement[Any]) -> sa.ColumnEleme
 def seen_select(*, dataset_ids: Sequence[int], level: str, all_urls: bool = False) -> sa.Select[Any]:
     """Per cluster of ``level`` seen in the datasets: ``cluster_id``; ``sightings``, ``units`` (distinct),
     ``first_seen``, ``last_seen`` over all of them; then ``sightings_i``, ``units_i``, ``first_i``,
-    ``last_i`` for the i-th of ``dataset_ids``."""
+    ``last_i`` for the i-th of ``dataset_ids``.
+
+    Grouped twice: first per cluster × dataset × unit (one hash aggregate over the sightings), then per
+    cluster, where a dataset's distinct units are its rows with a unit. Counting distinct values straight
+    from the sightings made PostgreSQL sort each group once per distinct count, a third slower."""
     if level not in LEVELS:
         raise ValueError(f"unknown corpus level {level!r}: one of {', '.join(LEVELS)}")
     p = sighting_targets(dataset_ids=dataset_ids, level=level)
     ds = t.sightings.c.dataset_id
-    cols: list[sa.ColumnElement[Any]] = [
-        p.target.label("cluster_id"), sa.func.count().label("sightings"),
-        sa.func.count(sa.distinct(p.unit)).label("units"),
-        sa.type_coerce(sa.func.min(p.seen_at), _UTC).label("first_seen"),
-        sa.type_coerce(sa.func.max(p.seen_at), _UTC).label("last_seen"),
-    ]
-    for i, dataset_id in enumerate(dataset_ids):
-        mine = ds == dataset_id
-        cols += [
-            sa.func.coalesce(sa.func.sum(sa.case((mine, 1), else_=0)), 0).label(f"sightings_{i}"),
-            sa.func.count(sa.distinct(sa.case((mine, p.unit), else_=sa.null()))).label(f"units_{i}"),
-            sa.type_coerce(sa.func.min(sa.case((mine, p.seen_at), else_=sa.null())), _UTC).label(f"first_{i}"),
-            sa.type_coerce(sa.func.max(sa.case((mine, p.seen_at), else_=sa.null())), _UTC).label(f"last_{i}"),
-        ]
     conditions = [p.where, p.target.is_not(None)]
     if not all_urls:
         conditions.append(p.is_article.is_(True))
-    return sa.select(*cols).select_from(p.source).where(*conditions).group_by(p.target)
+    per_unit = (sa.select(p.target.label("cluster_id"), ds.label("dataset_id"), p.unit.label("unit"),
+                          sa.func.count().label("n"), sa.func.min(p.seen_at).label("lo"),
+                          sa.func.max(p.seen_at).label("hi"))
+                .select_from(p.source).where(*conditions).group_by(p.target, ds, p.unit).subquery("per_unit"))
+    u = per_unit.c
+    cols: list[sa.ColumnElement[Any]] = [
+        u.cluster_id.label("cluster_id"), sa.func.sum(u.n).label("sightings"),
+        sa.func.count(sa.distinct(u.unit)).label("units"),
+        sa.type_coerce(sa.func.min(u.lo), _UTC).label("first_seen"),
+        sa.type_coerce(sa.func.max(u.hi), _UTC).label("last_seen"),
+    ]
+    for i, dataset_id in enumerate(dataset_ids):
+        mine = u.dataset_id == dataset_id
+        cols += [
+            sa.func.coalesce(sa.func.sum(sa.case((mine, u.n), else_=0)), 0).label(f"sightings_{i}"),
+            sa.func.count(sa.case((sa.and_(mine, u.unit.is_not(None)), 1), else_=sa.null())).label(f"units_{i}"),
+            sa.type_coerce(sa.func.min(sa.case((mine, u.lo), else_=sa.null())), _UTC).label(f"first_{i}"),
+            sa.type_coerce(sa.func.max(sa.case((mine, u.hi), else_=sa.null())), _UTC).label(f"last_{i}"),
+        ]
+    return sa.select(*cols).group_by(u.cluster_id)
 
 
 def _language_matches(column: sa.ColumnElement[Any], language: str) -> sa.ColumnElement[bool]:
