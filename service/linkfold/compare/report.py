@@ -17,6 +17,7 @@ from sqlalchemy.engine import Connection, Engine
 from ..corpus import LEVELS, dataset_ids, representatives, seen_select
 from ..errors import ConfigError, InputError
 from ..exposure import DEFAULT_MIN_UNITS, sighting_targets
+from ..network.query import plan_for_all_rows
 from ..outlets import outlet_attributes, outlet_columns
 from ..store import tables as t
 from .figures import Overlap, share
@@ -119,6 +120,7 @@ def compare_datasets(engine: Engine, *, datasets: Sequence[str], level: str = "s
         raise InputError(f"compare needs at least two different datasets, not {', '.join(datasets) or 'none'}")
     with engine.connect() as conn:
         ids = dataset_ids(conn, datasets)
+        plan_for_all_rows(conn)  # every sighting is grouped: hash joins (network.query says why)
         order = list(ids)
         # Totals per dataset, at outlet level (what has an outlet) and at the story level (the shares there).
         source, _target, unit, where = _counted(order, "outlet", all_urls)

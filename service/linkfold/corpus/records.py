@@ -20,6 +20,7 @@ from sqlalchemy.engine import Connection, Engine
 
 from ..errors import ConfigError
 from ..exposure import DEFAULT_MIN_UNITS
+from ..network.query import plan_for_all_rows
 from ..store import registry
 from .prepare import RAW, Preparation, prepare
 from .query import ID_COLUMN, LEVELS, corpus_select
@@ -114,6 +115,9 @@ def corpus_records(engine: Engine, *, datasets: Sequence[str] | None = None, lev
         q = corpus_select(engine.dialect.name, dataset_ids=list(ids), level=level, all_urls=all_urls,
                           language=language, min_words=min_words)
         with engine.connect() as conn:
+            # Every sighting of the datasets is grouped: hash joins, not an index lookup per sighting
+            # (the planner misjudges the number of groups, as for the network; bench/corpus_bench.py).
+            plan_for_all_rows(conn)
             result = conn.execute(q.execution_options(yield_per=yield_per, stream_results=True)).mappings()
             for row in result:
                 tally.seen += 1
