@@ -65,6 +65,10 @@ _LAZY = {
     "exposure_rows": "linkfold.exposure",
     "write_exposure": "linkfold.exposure",
     "outlet_exposure": "linkfold.exposure",
+    "corpus_records": "linkfold.corpus",
+    "write_corpus": "linkfold.corpus",
+    "read_corpus": "linkfold.corpus",
+    "compare_datasets": "linkfold.compare",
 }
 
 
@@ -101,6 +105,8 @@ __all__ = [
     "__version__",
     "canonicalize",
     "co_exposure",
+    "compare_datasets",
+    "corpus_records",
     "export_dataset",
     "exposure_rows",
     "extract_pages",
@@ -121,11 +127,13 @@ __all__ = [
     "outlet_exposure",
     "outlet_report",
     "outlet_table",
+    "read_corpus",
     "recanonicalize",
     "record_decision",
     "run_dedupe",
     "run_nightly",
     "url_key",
+    "write_corpus",
     "write_exposure",
     "write_network",
 ]
