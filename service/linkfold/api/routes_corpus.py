@@ -80,7 +80,7 @@ def corpus(request: Request, _access: ReadAccess,
     # The datasets are checked before the first byte, so an unknown name is a plain 404.
     found = corpus_records(api_state(request).engine, datasets=dataset, level=level, language=language,
                            min_words=min_words, all_urls=all_urls, min_units=min_units, preparation=how)
-    return StreamingResponse(_stream(found.records), media_type=NDJSON)
+    return StreamingResponse(_stream(found.records, "corpus"), media_type=NDJSON)
 
 
 class CompareDataset(BaseModel):

@@ -100,7 +100,7 @@ def exposure(request: Request, _access: UnitsAccess, dataset: Datasets,
     return StreamingResponse(_stream(table.rows), media_type=NDJSON)
 
 
-def _stream(rows: Iterator[dict[str, Any]]) -> Iterator[bytes]:
+def _stream(rows: Iterator[dict[str, Any]], what: str = "exposure") -> Iterator[bytes]:
     # As POST /v1/lookup: a failure after the first line is told in-band, as a last line holding the envelope.
     try:
         buffer: list[bytes] = []
@@ -112,8 +112,8 @@ def _stream(rows: Iterator[dict[str, Any]]) -> Iterator[bytes]:
         if buffer:
             yield b"".join(buffer)
     except LinkfoldError as exc:
-        log.error("exposure stream failed: %s", exc)
+        log.error("%s stream failed: %s", what, exc)
         yield json_line(envelope(exc.code, str(exc)))
     except Exception:
-        log.exception("exposure stream failed")
+        log.exception("%s stream failed", what)
         yield json_line(envelope("internal", "internal error (logged on the server)"))
