@@ -49,6 +49,8 @@ LAYERS: dict[str, tuple[int, str]] = {
     "outlets": (STAGES, "analysis"),
     "exposure": (STAGES, "analysis"),
     "network": (STAGES, "analysis"),
+    "corpus": (STAGES, "analysis"),
+    "compare": (STAGES, "analysis"),
     # Orchestration.
     "jobs": (JOBS, "jobs"),
     # The interfaces: the command, its modules, the HTTP API and pages, the demo, the Python client.
