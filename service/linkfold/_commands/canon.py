@@ -113,6 +113,7 @@ def rules_group() -> None:
       linkfold rules check fixtures/rules/demo.toml
       linkfold rules add fixtures/rules/demo.toml --name "demo outlets"
       linkfold rules list
+      linkfold rules suggest --out suggested.toml --diff
     """
 
 
@@ -227,6 +228,41 @@ def recanonicalize_command(obj: Context, summary_format: str) -> None:
 
     summary = recanonicalize(obj.engine(), settings=obj.settings, progress=obj.progress())
     report_summary(obj, summary, summary_format)
+
+
+@rules_group.command("suggest")
+@click.option("--outlet", metavar="O", help="Only this outlet (its name, a host or a registered domain).")
+@click.option("--min-support", type=click.IntRange(min=1), default=None, metavar="N",
+              help="Least evidence for any proposal: URLs with text, URL pairs, followed URLs (default 10).")
+@click.option("--out", "out", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE",
+              help="Write the proposed rules file here (never over a file this command did not write).")
+@click.option("--diff", is_flag=True, help="Show what would change against the ruleset in force: the rules, "
+                                           "and how many stored URLs would change canonical form or article status.")
+@common_options
+@pass_ctx
+def rules_suggest(obj: Context, outlet: str | None, min_support: int | None, out: Path | None, diff: bool) -> None:
+    """Propose site rules from the stored evidence: article patterns, parameters to drop or keep,
+    shortener, never-article and alias hosts, each with its evidence in a comment. Writes nothing to
+    the registry: review the file, then `linkfold rules add FILE` and `linkfold nightly`.
+
+    \b
+    Example:
+      linkfold rules suggest --out suggested.toml --diff
+      linkfold rules suggest --outlet northvale-herald.example --min-support 20 --out herald.toml
+    """
+    from ..suggest import DEFAULT_MIN_SUPPORT, suggest_rules_file
+
+    if out is None and not diff:
+        raise click.UsageError("give --out FILE, --diff, or both")
+    result = suggest_rules_file(obj.engine(), out=out, outlet=outlet,
+                                min_support=min_support or DEFAULT_MIN_SUPPORT, diff=diff,
+                                sink_fan_in=obj.settings.sink_fan_in, cache_size=obj.settings.canon_cache_size,
+                                progress=obj.progress())
+    if result.diff is not None:
+        for line in result.diff.lines():
+            click.echo(line)
+    for line in result.lines():
+        obj.message(line)
 
 
 def register(cli: click.Group) -> None:

@@ -15,6 +15,7 @@ docs/outlets.md describes the file format, the precedence rule and every column.
 
 from __future__ import annotations
 
+from ..canon.shapes import path_shape, segment_shape
 from .counts import COUNT_COLUMNS, OutletTable, outlet_table
 from .listfile import OutletEntry, OutletList, RuleConflict, parse_outlet_list, rule_conflicts
 from .lists import (
@@ -31,7 +32,6 @@ from .lists import (
     outlet_matches,
 )
 from .report import REPORT_COLUMNS, OutletReport, outlet_report
-from .shapes import path_shape, segment_shape
 
 __all__ = [
     "COUNT_COLUMNS",

@@ -11,7 +11,7 @@ counts.py), over the sightings in scope:
 * ``urls``: distinct final URLs; ``fetched``: those with a stored page (fetched or imported, either as
   the URL asked for or where a fetch ended); ``usable_text``: those with a usable document; and the
   shares of both;
-* ``shapes``: the most frequent path shapes (shapes.py) of the final URLs that are *not* articles by the
+* ``shapes``: the most frequent path shapes (canon/shapes.py) of the final URLs that are *not* articles by the
   rules, with their sightings and distinct URLs: the page templates the lab's article patterns miss, or
   that are rightly not articles.
 
@@ -30,11 +30,11 @@ from typing import Any
 import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
+from ..canon.shapes import path_shape
 from ..progress import SILENT, Progress
 from ..store import tables as t
 from .counts import dataset_ids, final_sightings
 from .lists import OutletJoin, list_in_force, outlet_attributes
-from .shapes import path_shape
 
 #: The per-outlet columns of the report, in output order (``shapes`` comes last, nested).
 REPORT_COLUMNS = ("outlet", "listed", "sightings", "articles", "not_articles", "unknown", "article_share",

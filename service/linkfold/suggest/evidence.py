@@ -1,0 +1,201 @@
+"""The stored evidence rule suggestions read: canonical URLs with what their pages held, follow outcomes by
+host, texts shared across hosts, and sinks. Every query streams or groups in the database, so memory
+stays flat however many URLs are stored (one registered domain's shapes at a time at most).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from dataclasses import dataclass
+
+import sqlalchemy as sa
+from sqlalchemy.engine import Connection
+
+from ..canon import Ruleset
+from ..dedupe.sinks import End, SinkKind, fan_in, is_home_page, sink_kind
+from ..store import evidence as ev
+from ..store import tables as t
+from .templates import Label
+
+#: Reasons a stored page held no article (content/usable.py) that say the page is not one. A paywall or a
+#: consent wall hides an article; a broken page says nothing: those URLs are left unlabelled.
+NOT_ARTICLE_REASONS = ("not_html", "empty", "too_short", "video")
+_BATCH = 10_000
+
+
+@dataclass(frozen=True, slots=True)
+class UrlRow:
+    url: str
+    host: str
+    domain: str
+    label: Label
+    text_hash: str | None  # the one usable text's hash; None when none, or when the URL had two different
+
+
+def _retired() -> sa.Select:
+    """Canonical URLs a re-canonicalisation moved every raw URL away from: old forms, not evidence now."""
+    cc, r = t.canon_changes, t.raw_urls
+    return (sa.select(cc.c.old_canonical_id).where(cc.c.old_canonical_id.is_not(None))
+            .where(~sa.exists().where(r.c.canonical_id == cc.c.old_canonical_id)))
+
+
+def _per_url_documents() -> sa.Subquery:
+    d = t.documents
+    usable = d.c.status == "usable"
+    return (sa.select(d.c.canonical_id.label("cid"),
+                      sa.func.max(sa.case((usable, 1), else_=0)).label("usable"),
+                      sa.func.max(sa.case((sa.and_(~usable, d.c.unusable_reason.in_(NOT_ARTICLE_REASONS)), 1),
+                                          else_=0)).label("negative"),
+                      sa.func.min(sa.case((usable, d.c.text_hash))).label("h_lo"),
+                      sa.func.max(sa.case((usable, d.c.text_hash))).label("h_hi"))
+            .group_by(d.c.canonical_id).subquery("docs"))
+
+
+def label_of(url: str, usable: int | None, negative: int | None) -> Label:
+    # A site's root is never an article, whatever text it yields (RFC 6596 §3, as in dedupe/sinks.py).
+    if is_home_page(url):
+        return Label.NEGATIVE
+    if usable:
+        return Label.POSITIVE
+    if negative:
+        return Label.NEGATIVE
+    return Label.UNKNOWN
+
+
+def stream_urls(conn: Connection, *, domains: list[str] | None = None) -> Iterator[UrlRow]:
+    """Every current canonical URL with a registered domain, ordered by domain and host, labelled."""
+    c, docs = t.canonical_urls, _per_url_documents()
+    q = (sa.select(c.c.url, c.c.host, c.c.domain, docs.c.usable, docs.c.negative, docs.c.h_lo, docs.c.h_hi)
+         .select_from(c.outerjoin(docs, docs.c.cid == c.c.id))
+         .where(c.c.domain.is_not(None), c.c.id.not_in(_retired()))
+         .order_by(c.c.domain, c.c.host, c.c.id))
+    if domains is not None:
+        q = q.where(c.c.domain.in_(domains))
+    for row in conn.execution_options(yield_per=_BATCH).execute(q):
+        label = label_of(row.url, row.usable, row.negative)
+        same = row.h_lo is not None and row.h_lo == row.h_hi
+        yield UrlRow(row.url, row.host, row.domain, label, row.h_lo if same and label is Label.POSITIVE else None)
+
+
+def domains_of_outlet(conn: Connection, outlet: str) -> list[str]:
+    """The registered domains whose URLs belong to ``outlet`` (an outlet name, a host or a domain)."""
+    c = t.canonical_urls
+    q = (sa.select(c.c.domain).where(c.c.domain.is_not(None))
+         .where(sa.or_(c.c.outlet == outlet, c.c.host == outlet, c.c.domain == outlet)).distinct())
+    return sorted(str(d) for d in conn.execute(q).scalars())
+
+
+@dataclass
+class HostCounts:
+    host: str
+    domain: str | None
+    urls: int = 0
+    followed: int = 0      # URLs whose follow resolved
+    off_domain: int = 0    # of those, how many ended on another registered domain
+    documents: int = 0     # URLs with a stored document
+    usable: int = 0        # URLs with a usable text
+
+
+def host_counts(conn: Connection, *, domains: list[str] | None = None) -> dict[str, HostCounts]:
+    """Per host: stored URLs, follow outcomes (on or off the registered domain), documents and usable texts."""
+    c, fr, d = t.canonical_urls, t.follow_results, t.documents
+    where = [c.c.domain.in_(domains)] if domains is not None else []
+    out: dict[str, HostCounts] = {}
+    for host, domain, n in conn.execute(sa.select(c.c.host, c.c.domain, sa.func.count()).where(*where)
+                                        .group_by(c.c.host, c.c.domain)):
+        out.setdefault(host, HostCounts(host, domain)).urls += int(n)
+    f = t.canonical_urls.alias("f")
+    off = sa.and_(f.c.id.is_not(None), f.c.id != c.c.id, f.c.domain.is_distinct_from(c.c.domain))
+    q = (sa.select(c.c.host, sa.func.count(), sa.func.sum(sa.case((off, 1), else_=0)))
+         .select_from(fr.join(c, c.c.id == fr.c.canonical_id).outerjoin(f, f.c.id == fr.c.final_id))
+         .where(fr.c.state == "resolved", *where).group_by(c.c.host))
+    for host, n, n_off in conn.execute(q):
+        if host in out:
+            out[host].followed, out[host].off_domain = int(n), int(n_off or 0)
+    usable = sa.case((d.c.status == "usable", d.c.canonical_id))
+    q = (sa.select(c.c.host, sa.func.count(sa.distinct(d.c.canonical_id)), sa.func.count(sa.distinct(usable)))
+         .select_from(d.join(c, c.c.id == d.c.canonical_id)).where(*where).group_by(c.c.host))
+    for host, n_docs, n_usable in conn.execute(q):
+        if host in out:
+            out[host].documents, out[host].usable = int(n_docs), int(n_usable)
+    return out
+
+
+def shared_texts(conn: Connection, *, domains: list[str] | None = None) -> Iterator[list[tuple[str, str]]]:
+    """Groups of (host, path and query) that hold one usable text on more than one host, one group per
+    text, streamed: the evidence for host aliases (same text at the same path) and syndication (not)."""
+    c, d = t.canonical_urls, t.documents
+    base = (sa.select(d.c.text_hash, c.c.host, c.c.url).select_from(d.join(c, c.c.id == d.c.canonical_id))
+            .where(d.c.status == "usable", d.c.text_hash.is_not(None), c.c.id.not_in(_retired())))
+    if domains is not None:
+        base = base.where(c.c.domain.in_(domains))
+    shared = (sa.select(d.c.text_hash).select_from(d.join(c, c.c.id == d.c.canonical_id))
+              .where(d.c.status == "usable", d.c.text_hash.is_not(None))
+              .group_by(d.c.text_hash).having(sa.func.count(sa.distinct(c.c.host)) > 1))
+    q = base.where(d.c.text_hash.in_(shared)).order_by(d.c.text_hash, c.c.host)
+    group: list[tuple[str, str]] = []
+    last = None
+    for text_hash, host, url in conn.execution_options(yield_per=_BATCH).execute(q):
+        if text_hash != last and group:
+            yield group
+            group = []
+        last = text_hash
+        group.append((host, path_of(url)))
+    if group:
+        yield group
+
+
+def path_of(url: str) -> str:
+    """The path and query of a canonical URL (which has no fragment but a hashbang)."""
+    rest = url.split("://", 1)[-1]
+    slash = rest.find("/")
+    return rest[slash:] if slash >= 0 else "/"
+
+
+def same_path_texts(conn: Connection, host_a: str, host_b: str) -> tuple[int, int]:
+    """(paths on both hosts with the same usable text, with different usable texts)."""
+    c, d = t.canonical_urls, t.documents
+    texts: dict[str, dict[str, set[str]]] = {host_a: {}, host_b: {}}
+    q = (sa.select(c.c.host, c.c.url, d.c.text_hash).select_from(d.join(c, c.c.id == d.c.canonical_id))
+         .where(d.c.status == "usable", d.c.text_hash.is_not(None), c.c.host.in_((host_a, host_b))))
+    for host, url, text_hash in conn.execution_options(yield_per=_BATCH).execute(q):
+        texts[host].setdefault(path_of(url), set()).add(text_hash)
+    same = differ = 0
+    for path, hashes in texts[host_a].items():
+        other = texts[host_b].get(path)
+        if other is not None:
+            if hashes & other:
+                same += 1
+            else:
+                differ += 1
+    return same, differ
+
+
+@dataclass(frozen=True)
+class SinkRow:
+    url: str
+    host: str
+    kind: SinkKind
+    fan_in: int
+    sources: int
+
+
+def sinks(conn: Connection, rules: Ruleset, *, limit: int) -> list[SinkRow]:
+    """The redirect and declared-canonical sinks, by the pure rule of dedupe/sinks.py over the same stored
+    evidence the dedupe stage reads (store/evidence.py), with ``limit`` the ``sink_fan_in`` setting."""
+    targets = ev.pointed_targets(conn, min_sources=limit)
+    facts = ev.url_facts(conn, targets)
+    sources = ev.pointing_sources(conn, targets) if targets else {}
+    out = []
+    for cid, f in facts.items():
+        target = End(f.url, f.host, f.is_article, rules.never_article(f.host))
+        srcs = [End(s.url, s.host, s.is_article, rules.never_article(s.host)) for s in sources.get(cid, ())]
+        n = fan_in(srcs, target, shortener_hosts=rules.shortener_hosts)
+        kind = sink_kind(target, n, limit=limit)
+        if kind is not None:
+            out.append(SinkRow(f.url, f.host, kind, n, len(srcs)))
+    return sorted(out, key=lambda s: (-s.fan_in, -s.sources, s.url))
+
+
+__all__ = ["NOT_ARTICLE_REASONS", "HostCounts", "SinkRow", "UrlRow", "domains_of_outlet", "host_counts",
+           "label_of", "path_of", "same_path_texts", "shared_texts", "sinks", "stream_urls"]
