@@ -28,7 +28,7 @@ from ..progress import SILENT, Progress
 from ..store.rulesets import current_ruleset, list_rulesets
 from . import evidence as ev
 from .params import ParamTable, ParamVerdict, judge_params, param_evidence
-from .templates import DEFAULT_MIN_PRECISION, Learned, Proposal, ShapeTable, learn_templates
+from .templates import DEFAULT_MIN_PRECISION, Learned, Proposal, ShapeTable, covers, learn_templates
 
 DEFAULT_MIN_SUPPORT = 10
 #: "Redirect off-domain nearly always": common practice for a link shortener or click redirector.
@@ -198,8 +198,8 @@ def _finish_domain(out: Suggestions, shapes: dict[str, ShapeTable], texts: dict[
         s = SiteSuggestion(key, site is not None, learned)
         in_force = site.article if site is not None else ()
         for p in learned.proposals:
-            sample = table.samples.get(p.template)
-            if in_force and sample is not None and any(rx.search(sample) for rx in in_force):
+            samples = [table.samples[t] for t, st in table.stats.items() if st.positive and covers(p.template, t)]
+            if in_force and all(any(rx.search(x) for rx in in_force) for x in samples):
                 s.covered.append(p)
             else:
                 s.patterns.append(p)

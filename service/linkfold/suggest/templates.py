@@ -105,6 +105,9 @@ class ShapeTable:
         if s is None:
             s = self.stats[tokens] = Stats()
             self.samples[tokens] = path + ("?" + query if query else "")
+        elif not query and "?" in self.samples[tokens]:
+            # The plainest spelling is the sample, whatever order the URLs came in (both backends alike).
+            self.samples[tokens] = path
         if label is Label.POSITIVE:
             s.positive += 1
         elif label is Label.NEGATIVE:
