@@ -8,7 +8,6 @@ from collections import defaultdict
 import pytest
 import sqlalchemy as sa
 from click.testing import CliRunner
-from suggest_world import ARCHIVE, IMAGE_HOST, SCHEMES, SHORTENER, build_world, held_out
 
 from linkfold.canon import Canonicaliser, canonicalize, load_rules, parse_rules
 from linkfold.cli import cli
@@ -17,6 +16,7 @@ from linkfold.store import tables as t
 from linkfold.store.rulesets import latest_ruleset, store_ruleset
 from linkfold.suggest import suggest_rules_file
 from linkfold.suggest.write import MARK
+from suggest_world import ARCHIVE, IMAGE_HOST, SCHEMES, SHORTENER, build_world, held_out
 
 MIN_SUPPORT = 5
 

@@ -7,7 +7,6 @@ import re
 from urllib.parse import parse_qsl, urlsplit
 
 import pytest
-from suggest_world import SCHEMES, article_path, other_path
 
 from linkfold.suggest.evidence import label_of, path_of
 from linkfold.suggest.params import ParamTable, judge_params, param_evidence
@@ -19,6 +18,7 @@ from linkfold.suggest.templates import (
     template_regex,
     url_tokens,
 )
+from suggest_world import SCHEMES, article_path, other_path
 
 
 @pytest.mark.parametrize("url", [

@@ -50,20 +50,22 @@ class RecanonSummary:
     moved: int = 0
     unchanged: int = 0
     new_canonical: int = 0
+    restated: int = 0  # stored canonical URLs with a new is_article or outlet under the new rules
     errors: Counter[str] = field(default_factory=Counter)
     run_id: int | None = None
 
     def as_dict(self) -> dict[str, Any]:
         return {"run_id": self.run_id, "ruleset_version": self.ruleset_version, "examined": self.examined,
                 "moved": self.moved, "unchanged": self.unchanged, "new_canonical": self.new_canonical,
-                "invalid": sum(self.errors.values()), "invalid_by_reason": dict(sorted(self.errors.items()))}
+                "restated": self.restated, "invalid": sum(self.errors.values()), "invalid_by_reason": dict(sorted(self.errors.items()))}
 
     def lines(self) -> list[str]:
         if not self.examined:
             return [f"recanonicalize: nothing pending; every raw URL is under ruleset {self.ruleset_version}"]
         out = [f"re-canonicalised under ruleset {self.ruleset_version}: {self.examined:,} raw URLs, "
                f"{self.moved:,} moved to another canonical URL, {self.unchanged:,} unchanged, "
-               f"{self.new_canonical:,} new canonical URLs (run {self.run_id})"]
+               f"{self.new_canonical:,} new canonical URLs, {self.restated:,} with a new article status or "
+               f"outlet (run {self.run_id})"]
         if self.errors:
             out.append("  invalid: " + ", ".join(f"{k} {v:,}" for k, v in sorted(self.errors.items())))
         return out
@@ -108,6 +110,7 @@ def recanonicalize(engine: Engine, *, settings: Any = None, batch_size: int | No
                 summary.moved += moved.moved
                 summary.unchanged += moved.unchanged
                 summary.new_canonical += moved.new_canonical
+                summary.restated += moved.restated
                 run.counts = summary.as_dict()
                 progress.advance(len(rows))
         finally:

@@ -71,12 +71,14 @@ class MoveCounts:
     new_canonical: int = 0
     moved: int = 0
     unchanged: int = 0
+    restated: int = 0  # stored canonical URLs whose is_article or outlet the new ruleset changed
 
 
 def apply_recanon(conn: Connection, outcomes: Sequence[Recanonicalised], *, version: int, run_id: int | None,
                   at: datetime) -> MoveCounts:
-    """Store a batch of outcomes under ``version``: new canonical rows, the raw URLs' pointers and
-    errors, and a ``canon_changes`` row for each raw URL whose canonical URL changed."""
+    """Store a batch of outcomes under ``version``: new canonical rows, ``is_article`` and ``outlet`` of
+    stored ones restated under the new rules, the raw URLs' pointers and errors, and a ``canon_changes``
+    row for each raw URL whose canonical URL changed."""
     counts = MoveCounts()
     new_rows: dict[str, dict[str, Any]] = {}
     for o in outcomes:
@@ -84,11 +86,23 @@ def apply_recanon(conn: Connection, outcomes: Sequence[Recanonicalised], *, vers
             new_rows.setdefault(o.canonical["url_key"], {**o.canonical, "ruleset_id": version, "created_at": at})
     counts.new_canonical = insert_new_rows(conn, t.canonical_urls, list(new_rows.values()), ["url_key"])
     ids: dict[str, int] = {}
+    restate: list[dict[str, Any]] = []
     keys = list(new_rows)
+    c = t.canonical_urls
     for i in range(0, len(keys), _IN_CHUNK):
         chunk = keys[i:i + _IN_CHUNK]
-        ids.update(conn.execute(sa.select(t.canonical_urls.c.url_key, t.canonical_urls.c.id)
-                                .where(t.canonical_urls.c.url_key.in_(chunk))).all())
+        for key, cid, is_article, outlet in conn.execute(
+                sa.select(c.c.url_key, c.c.id, c.c.is_article, c.c.outlet).where(c.c.url_key.in_(chunk))):
+            ids[key] = cid
+            # A row already stored keeps its form, but the new rules may say something else of it (a new
+            # article pattern, a site's outlet name): verdicts follow the ruleset in force (issue 19).
+            want = new_rows[key]
+            if (is_article, outlet) != (want["is_article"], want["outlet"]):
+                restate.append({"b_cid": cid, "b_is_article": want["is_article"], "b_outlet": want["outlet"]})
+    if restate:
+        conn.execute(c.update().where(c.c.id == sa.bindparam("b_cid"))
+                     .values(is_article=sa.bindparam("b_is_article"), outlet=sa.bindparam("b_outlet")), restate)
+    counts.restated = len(restate)
     updates, changes = [], []
     for o in outcomes:
         new_id = ids[o.canonical["url_key"]] if o.canonical is not None else None
