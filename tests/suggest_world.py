@@ -117,9 +117,17 @@ def _doc(cid: int, status: str, reason: str | None, text_hash: str | None, now: 
             "extractor_version": "world", "source": "world", "created_at": now}
 
 
-def _rows(per_outlet: int, rng: random.Random) -> Iterator[tuple[str, str | None, str | None]]:
+def outlet_hosts(copies: int) -> Iterator[tuple[str, str]]:
+    """(scheme, host) of every outlet: the eight of SCHEMES, and with ``copies`` > 1 more outlets of the same
+    schemes under other invented names (``o2-ashford-ledger.example`` …), for the benchmark's sizes."""
+    for k in range(copies):
+        for scheme, host in SCHEMES.items():
+            yield scheme, host if k == 0 else f"o{k + 1}-{host}"
+
+
+def _rows(per_outlet: int, rng: random.Random, copies: int) -> Iterator[tuple[str, str | None, str | None]]:
     """(URL, document status or None when not fetched, text key) for the stored world."""
-    for scheme, host in SCHEMES.items():
+    for scheme, host in outlet_hosts(copies):
         for i in range(per_outlet):
             path = article_path(scheme, rng)
             url = f"https://{host}{path}"
@@ -141,7 +149,7 @@ def _rows(per_outlet: int, rng: random.Random) -> Iterator[tuple[str, str | None
 
 
 def build_world(engine: Engine, *, per_outlet: int = 120, seed: int = 7, batch: int = 5000,
-                tmp: Path | None = None) -> dict[str, int]:
+                tmp: Path | None = None, copies: int = 1) -> dict[str, int]:
     """Store the world (see the module doc) through the registry's own writers; returns counts."""
     rng = random.Random(seed)
     now = datetime.now(UTC)
@@ -169,7 +177,7 @@ def build_world(engine: Engine, *, per_outlet: int = 120, seed: int = 7, batch: 
         counts["documents"] += len(docs)
         pending.clear()
 
-    for row in _rows(per_outlet, rng):
+    for row in _rows(per_outlet, rng, copies):
         pending.append(row)
         url, status, text = row
         if status == "usable" and url.startswith(f"https://{SCHEMES['numeric_id']}/") and "?" not in url \
@@ -207,4 +215,4 @@ def _short_links(engine: Engine, tmp: Path, per_outlet: int, rng: random.Random)
     return n
 
 
-__all__ = ["ARCHIVE", "IMAGE_HOST", "SCHEMES", "SHORTENER", "Truth", "build_world", "held_out"]
+__all__ = ["ARCHIVE", "IMAGE_HOST", "SCHEMES", "SHORTENER", "Truth", "build_world", "held_out", "outlet_hosts"]
