@@ -177,3 +177,19 @@ def test_a_file_not_written_by_suggest_is_never_overwritten(world, tmp_path):
 def test_the_cli_needs_out_or_diff(world, db_url):
     got = CliRunner().invoke(cli, ["--db", db_url, "rules", "suggest"])
     assert got.exit_code != 0 and "--out FILE, --diff" in got.output
+
+
+def test_the_coverage_report_links_each_outlet_to_its_suggestions(world, db_url, tmp_path):
+    from linkfold.outlets import load_outlet_list, outlet_report
+
+    listing = tmp_path / "outlets.csv"
+    listing.write_text(f"domain,outlet\n{SCHEMES['section_id']},Elmbrook Courier\n", encoding="utf-8")
+    load_outlet_list(world, listing)
+    with world.connect() as conn:
+        rows = {r["outlet"]: r for r in outlet_report(conn, shapes=0).rows}
+    # The world has no sightings, so the report lists only the outlet the list names, with its command.
+    command = rows["Elmbrook Courier"]["suggest"]
+    assert command.startswith("linkfold rules suggest --outlet 'Elmbrook Courier' --out ")
+    # The outlet list's name reaches the outlet's URLs.
+    result = suggest_rules_file(world, outlet="Elmbrook Courier", min_support=MIN_SUPPORT)
+    assert set(result.suggestions.sites) == {SCHEMES["section_id"]}

@@ -183,6 +183,10 @@ def outlets_report(obj: Context, datasets: tuple[str, ...], outlets: tuple[str, 
             click.echo("")
             click.echo("most frequent path shapes that are not articles:")
             write_table(shaped, ["outlet", "shape", "sightings", "urls"])
+        click.echo("")
+        click.echo("site rules proposed from the evidence, per outlet:")
+        for r in rows:
+            click.echo(f"  {r['suggest']}")
     s = report.summary
     short = s["short_links"]
     share = "n/a" if s["article_share"] is None else f"{s['article_share']:.1%}"

@@ -70,6 +70,7 @@ class OutletCoverage(_Open):
     usable_text: int
     usable_share: float | None
     shapes: list[ShapeOut] = Field(description="Most frequent path shapes of the outlet's non-article URLs")
+    suggest: str = Field(description="The command that proposes this outlet's site rules from the evidence")
 
 
 class OutletReportOut(BaseModel):

@@ -13,7 +13,9 @@ counts.py), over the sightings in scope:
   shares of both;
 * ``shapes``: the most frequent path shapes (canon/shapes.py) of the final URLs that are *not* articles by the
   rules, with their sightings and distinct URLs: the page templates the lab's article patterns miss, or
-  that are rightly not articles.
+  that are rightly not articles;
+* ``suggest``: the command that proposes the outlet's site rules from the stored evidence (article
+  patterns for those shapes, parameters, hosts: docs/rule-suggestions.md).
 
 The summary counts short links over the whole scope — resolved, failed, refused, not followed yet —
 since a short link that was not resolved has no outlet to be reported under. Counts are set-based SQL;
@@ -22,6 +24,8 @@ the shapes are computed over the distinct non-article URLs, streamed.
 
 from __future__ import annotations
 
+import re
+import shlex
 from collections import Counter
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -107,8 +111,16 @@ def outlet_report(conn: Connection, *, datasets: Sequence[str] | None = None, sh
         _add_shapes(conn, pu, rows, shapes, progress)
     progress.finish()
     ordered = sorted(rows.values(), key=lambda r: (-r["sightings"], str(r["outlet"])))
-    out = [{k: r[k] for k in (*REPORT_COLUMNS, "shapes")} for r in ordered]
+    out = [{**{k: r[k] for k in (*REPORT_COLUMNS, "shapes")}, "suggest": suggest_command(r["outlet"])}
+           for r in ordered]
     return OutletReport(out, _short_link_summary(conn, ids, out), version)
+
+
+def suggest_command(outlet: str) -> str:
+    """The command line that proposes ``outlet``'s site rules (the report's link to its suggestions)."""
+    name = shlex.quote(outlet)
+    file = re.sub(r"[^\w.-]+", "-", outlet).strip("-").lower() or "outlet"
+    return f"linkfold rules suggest --outlet {name} --out {file}-rules.toml --diff"
 
 
 def _add_shapes(conn: Connection, pu: sa.Subquery, rows: dict[str, dict[str, Any]], top: int,
@@ -150,4 +162,4 @@ def _short_link_summary(conn: Connection, ids: list[int] | None, rows: list[dict
             "short_links": short}
 
 
-__all__ = ["DEFAULT_SHAPES", "REPORT_COLUMNS", "OutletReport", "outlet_report"]
+__all__ = ["DEFAULT_SHAPES", "REPORT_COLUMNS", "OutletReport", "outlet_report", "suggest_command"]

@@ -15,6 +15,7 @@ from ..canon import Ruleset
 from ..dedupe.sinks import End, SinkKind, fan_in, is_home_page, sink_kind
 from ..store import evidence as ev
 from ..store import tables as t
+from ..store.finals import list_in_force
 from .templates import Label
 
 #: Reasons a stored page held no article (content/usable.py) that say the page is not one. A paywall or a
@@ -78,10 +79,13 @@ def stream_urls(conn: Connection, *, domains: list[str] | None = None) -> Iterat
 
 
 def domains_of_outlet(conn: Connection, outlet: str) -> list[str]:
-    """The registered domains whose URLs belong to ``outlet`` (an outlet name, a host or a domain)."""
-    c = t.canonical_urls
+    """The registered domains whose URLs belong to ``outlet``: an outlet name (the site rules' or the
+    outlet list's in force, as the coverage report names it), a host or a registered domain."""
+    c, oe = t.canonical_urls, t.outlet_entries
+    listed = sa.select(oe.c.match).where(oe.c.list_id == list_in_force(), oe.c.outlet == outlet)
     q = (sa.select(c.c.domain).where(c.c.domain.is_not(None))
-         .where(sa.or_(c.c.outlet == outlet, c.c.host == outlet, c.c.domain == outlet)).distinct())
+         .where(sa.or_(c.c.outlet == outlet, c.c.host == outlet, c.c.domain == outlet,
+                       c.c.host.in_(listed), c.c.domain.in_(listed))).distinct())
     return sorted(str(d) for d in conn.execute(q).scalars())
 
 
