@@ -32,6 +32,7 @@ from .settings import Settings, load_settings
 from .store import ensure_schema, make_engine
 from .store import tables as t
 from .store.rulesets import store_ruleset
+from .suggest import suggest_rules_file
 
 log = logging.getLogger("linkfold")
 
@@ -215,6 +216,13 @@ def run_demo(workdir: Path, *, settings: Settings | None = None, progress: Progr
         report.notes.extend(corpus.lines())
         comparison = compare_datasets(engine, datasets=[name for name, _p, _o in DEMO_DUMPS], top=5)
         report.comparison = ["", *comparison.table().rstrip("\n").splitlines()]
+        # Site rules proposed from what the registry now holds (docs/rule-suggestions.md); the fixtures are
+        # small, so the least support is lowered to show the method, and thin outlets are named as such.
+        suggested = suggest_rules_file(engine, out=workdir / "suggested-rules.toml", min_support=2, diff=True,
+                                       progress=progress)
+        report.notes.extend(suggested.lines())
+        if suggested.diff is not None:
+            report.notes.extend(suggested.diff.lines()[-1 - len(suggested.diff.examples):])
         return report
     finally:
         engine.dispose()

@@ -100,7 +100,7 @@ def render(s: Suggestions) -> str:
         lines.append(f"# too little evidence for an article pattern: {key} — {reason}")
     for site in sorted(s.sites.values(), key=lambda x: x.key):
         for pattern, neg, pos in site.doubtful:
-            lines.append(f"# doubtful: the pattern in force {pattern!r} of {site.key} matches {neg:,} stored pages "
+            lines.append(f"# doubtful: the pattern in force '{pattern}' of {site.key} matches {neg:,} stored pages "
                          f"without article text (and {pos:,} with)")
     if s.sinks:
         lines.append("# Sinks (redirect or canonical targets the dedupe stage keeps apart), largest fan-in first:")
