@@ -193,3 +193,11 @@ def test_the_coverage_report_links_each_outlet_to_its_suggestions(world, db_url,
     # The outlet list's name reaches the outlet's URLs.
     result = suggest_rules_file(world, outlet="Elmbrook Courier", min_support=MIN_SUPPORT)
     assert set(result.suggestions.sites) == {SCHEMES["section_id"]}
+
+
+def test_an_unknown_outlet_is_a_clear_error(world, db_url, capsys):
+    from linkfold.cli import main
+
+    code = main(["--db", db_url, "rules", "suggest", "--outlet", "nowhere.example", "--diff"])
+    assert code == 7  # NotFound (errors.py)
+    assert "no stored URL belongs to outlet 'nowhere.example'" in capsys.readouterr().err

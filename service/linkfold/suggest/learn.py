@@ -24,6 +24,7 @@ from typing import Any
 from sqlalchemy.engine import Connection
 
 from ..canon import Ruleset
+from ..errors import NotFound
 from ..progress import SILENT, Progress
 from ..store.rulesets import current_ruleset, list_rulesets
 from . import evidence as ev
@@ -98,8 +99,11 @@ class Suggestions:
     @property
     def thin(self) -> list[tuple[str, str]]:
         """Sites with usable texts but too little evidence for an article pattern, and why."""
+        # A host seen once with no page is not worth a line; one with some text, or many URLs, is.
         return [(k, s.learned.thin) for k, s in sorted(self.sites.items())
-                if s.learned.thin and s.learned.totals.positive > 0 and not s.patterns and not s.covered]
+                if s.learned.thin and not s.patterns and not s.covered
+                and (s.learned.totals.positive > 0 or s.learned.totals.labelled + s.learned.totals.unknown
+                     >= self.min_support)]
 
     def counts(self) -> dict[str, int]:
         return {"urls": self.urls, "sites": len(self.sites),
@@ -144,6 +148,9 @@ def suggest_rules(conn: Connection, *, outlet: str | None = None, min_support: i
         base = (stored[-1]["version"] if stored else None, current_ruleset(conn))
     version, rules = base
     domains = ev.domains_of_outlet(conn, outlet) if outlet else None
+    if domains == []:
+        raise NotFound(f"no stored URL belongs to outlet {outlet!r}",
+                       hint="give an outlet name as `linkfold outlets` shows it, a host or a registered domain")
     out = Suggestions(version, rules, min_support, outlet)
     counts = ev.host_counts(conn, domains=domains)
     _hosts(out, counts, rules, min_support)

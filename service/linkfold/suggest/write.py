@@ -27,6 +27,7 @@ from .templates import Proposal
 MARK = "# Site rules proposed by `linkfold rules suggest`"
 _LITERAL_OK = re.compile(r"^[^'\x00-\x1f\x7f]*$")
 _HOST_LISTS = ("shortener_hosts", "never_follow_hosts", "never_article_hosts")
+_LISTED = 50
 
 
 def toml_string(text: str) -> str:
@@ -96,8 +97,11 @@ def render(s: Suggestions) -> str:
              f"# Minimum support: {s.min_support}. Counts are stored canonical URLs; \"usable text\" is an extracted",
              "# article text; \"pages without\" are stored pages that held none (empty, too short, not HTML, video).",
              f"# Scope: {'outlet ' + s.outlet if s.outlet else 'every outlet'}; {s.urls:,} URLs read."]
-    for key, reason in s.thin:
+    thin = s.thin
+    for key, reason in thin[:_LISTED]:
         lines.append(f"# too little evidence for an article pattern: {key} — {reason}")
+    if len(thin) > _LISTED:
+        lines.append(f"#   … and {len(thin) - _LISTED} more sites (each section below says why)")
     for site in sorted(s.sites.values(), key=lambda x: x.key):
         for pattern, neg, pos in site.doubtful:
             lines.append(f"# doubtful: the pattern in force '{pattern}' of {site.key} matches {neg:,} stored pages "
