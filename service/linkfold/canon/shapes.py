@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import re
 from datetime import date
+from functools import lru_cache
 from urllib.parse import parse_qsl, urlsplit
 
 _DIGITS = re.compile(r"^\d+$")
@@ -42,8 +43,10 @@ def _is_date(y: str, m: str, d: str) -> bool:
         return False
 
 
+@lru_cache(maxsize=1 << 16)
 def segment_shape(segment: str) -> str:
-    """The shape of one path segment (or query value)."""
+    """The shape of one path segment (or query value). Cached: fixed words (``news``, ``tag``) repeat in
+    almost every URL of a site, and the report and rule suggestions shape every stored URL."""
     if not segment:
         return segment
     found = _DASHED_DATE.match(segment)

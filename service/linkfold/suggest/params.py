@@ -36,7 +36,7 @@ class ParamTable:
     texts: dict[str, str] = field(default_factory=dict)
 
     def add(self, path: str, query: str, text_hash: str) -> None:
-        self.texts[_key(path, parse_qsl(query, keep_blank_values=True))] = text_hash
+        self.texts[_key(path, parse_qsl(query, keep_blank_values=True)) if query else path] = text_hash
 
 
 def _key(path: str, pairs: list[tuple[str, str]]) -> str:
