@@ -144,3 +144,41 @@ def test_a_protected_parameter_is_never_dropped():
         table.add(f"/n/{i}", "", f"t{i}")
         table.add(f"/n/{i}", "ed=1", f"t{i}")
     assert judge_params(param_evidence(table), min_support=5, protected=frozenset({"ed"}))[0].action == "undecided"
+
+
+def _fixtures_rules():
+    from pathlib import Path
+
+    return (Path(__file__).resolve().parents[1] / "fixtures" / "rules" / "demo.toml").read_text(encoding="utf-8")
+
+
+TRICKY = r'''
+name = "lab's rules \"v2\""
+shortener_hosts = ["s.test"]
+[steps]
+trailing_slash = false
+[amp]
+name_suffixes = [".amp.htm"]
+[site."b.example"]
+outlet = "O'Hara \\ Sons"
+article = ['^/a/\d+$', "^/it's/\\d+$"]
+drop_unlisted_params = true
+keep_params = ["id"]
+print_view = false
+[[site."b.example".rewrite]]
+pattern = '^/x/(\d+)$'
+replace = '/a/\1'
+'''
+
+
+@pytest.mark.parametrize("text", [_fixtures_rules(), TRICKY, ""], ids=["demo", "tricky", "empty"])
+def test_with_nothing_proposed_the_file_is_the_ruleset_in_force(text):
+    # TOML 1.0 (strings, arrays, tables) as Python's tomllib reads it is the reference: writing the lab's
+    # rules again must give the same digest (docs/canonical-form.md, "Rulesets").
+    from linkfold.canon import default_rules, parse_rules
+    from linkfold.suggest.learn import Suggestions
+    from linkfold.suggest.write import render
+
+    base = parse_rules(text, source="lab.toml") if text else default_rules()
+    written = render(Suggestions(1, base, 5, None))
+    assert parse_rules(written, source="out.toml").digest == base.digest
