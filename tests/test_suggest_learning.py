@@ -182,3 +182,13 @@ def test_with_nothing_proposed_the_file_is_the_ruleset_in_force(text):
     base = parse_rules(text, source="lab.toml") if text else default_rules()
     written = render(Suggestions(1, base, 5, None))
     assert parse_rules(written, source="out.toml").digest == base.digest
+
+
+def test_a_template_another_expression_already_matches_is_not_proposed_twice():
+    table = ShapeTable()
+    for i in range(60):
+        table.add(f"/a/{i:04x}beef{i:04x}", "", Label.POSITIVE)   # {hex}
+    for i in range(12):
+        table.add(f"/a/{100000000000 + i}", "", Label.POSITIVE)  # twelve digits: {n12} by shape
+    learned = learn_templates(table, min_support=5)
+    assert [p.text for p in learned.proposals] == ["/a/{hex}"] and learned.uncovered == 0

@@ -260,6 +260,18 @@ def _merge_at(pos: int, tokens: list[str], step: int) -> str | None:
     return None
 
 
+def _without_redundant(proposals: list[Proposal], table: ShapeTable) -> list[Proposal]:
+    """Leave out a proposal whose URLs with text a larger one's expression already matches (an all-digit
+    hex ID is ``{n12}`` by shape, and ``[0-9a-fA-F]{8,}`` matches it)."""
+    kept: list[Proposal] = []
+    for p in proposals:
+        samples = [table.samples[t] for t, s in table.stats.items() if s.positive and covers(p.template, t)]
+        if kept and samples and all(any(re.search(k.regex, x) for k in kept) for x in samples):
+            continue
+        kept.append(p)
+    return kept
+
+
 def learn_templates(table: ShapeTable, *, min_support: int,
                     min_precision: float = DEFAULT_MIN_PRECISION) -> Learned:
     """The article templates of one outlet (see the module doc)."""
@@ -285,7 +297,10 @@ def learn_templates(table: ShapeTable, *, min_support: int,
             continue
         proposals.append(Proposal(template, regex, checked, checked.positive / totals.positive))
     proposals.sort(key=lambda p: (-p.stats.positive, p.regex))
-    covered = sum(s.positive for t, s in table.stats.items() if any(covers(p.template, t) for p in proposals))
+    proposals = _without_redundant(proposals, table)
+    expressions = [re.compile(p.regex) for p in proposals]
+    covered = sum(s.positive for t, s in table.stats.items()
+                  if any(covers(p.template, t) for p in proposals) or matches_any(expressions, table.samples[t]))
     thin = None if proposals else (f"no template covers {min_support} URLs with usable text at precision "
                                    f"{min_precision}")
     return Learned(proposals, totals, thin=thin, uncovered=totals.positive - covered)
