@@ -40,18 +40,6 @@ def _retired() -> sa.Select:
             .where(~sa.exists().where(r.c.canonical_id == cc.c.old_canonical_id)))
 
 
-def _per_url_documents() -> sa.Subquery:
-    d = t.documents
-    usable = d.c.status == "usable"
-    return (sa.select(d.c.canonical_id.label("cid"),
-                      sa.func.max(sa.case((usable, 1), else_=0)).label("usable"),
-                      sa.func.max(sa.case((sa.and_(~usable, d.c.unusable_reason.in_(NOT_ARTICLE_REASONS)), 1),
-                                          else_=0)).label("negative"),
-                      sa.func.min(sa.case((usable, d.c.text_hash))).label("h_lo"),
-                      sa.func.max(sa.case((usable, d.c.text_hash))).label("h_hi"))
-            .group_by(d.c.canonical_id).subquery("docs"))
-
-
 def label_of(url: str, usable: int | None, negative: int | None) -> Label:
     # A site's root is never an article, whatever text it yields (RFC 6596 §3, as in dedupe/sinks.py).
     if is_home_page(url):
@@ -64,18 +52,38 @@ def label_of(url: str, usable: int | None, negative: int | None) -> Label:
 
 
 def stream_urls(conn: Connection, *, domains: list[str] | None = None) -> Iterator[UrlRow]:
-    """Every current canonical URL with a registered domain, ordered by domain and host, labelled."""
-    c, docs = t.canonical_urls, _per_url_documents()
-    q = (sa.select(c.c.url, c.c.host, c.c.domain, docs.c.usable, docs.c.negative, docs.c.h_lo, docs.c.h_hi)
-         .select_from(c.outerjoin(docs, docs.c.cid == c.c.id))
+    """Every current canonical URL with a registered domain, ordered by domain and host, labelled.
+
+    One row per (URL, document) comes from the database, the documents of a URL together, and is folded
+    here: a grouped subquery over all documents would be materialised whole (SQLite builds it, with an
+    index, before the first row), which made memory grow with the registry."""
+    c, d = t.canonical_urls, t.documents
+    q = (sa.select(c.c.id, c.c.url, c.c.host, c.c.domain, d.c.status, d.c.unusable_reason, d.c.text_hash)
+         .select_from(c.outerjoin(d, d.c.canonical_id == c.c.id))
          .where(c.c.domain.is_not(None), c.c.id.not_in(_retired()))
          .order_by(c.c.domain, c.c.host, c.c.id))
     if domains is not None:
         q = q.where(c.c.domain.in_(domains))
+    current: list = []
     for row in conn.execution_options(yield_per=_BATCH).execute(q):
-        label = label_of(row.url, row.usable, row.negative)
-        same = row.h_lo is not None and row.h_lo == row.h_hi
-        yield UrlRow(row.url, row.host, row.domain, label, row.h_lo if same and label is Label.POSITIVE else None)
+        if current and row.id != current[0].id:
+            yield _folded(current)
+            current = []
+        current.append(row)
+    if current:
+        yield _folded(current)
+
+
+def _folded(rows: list) -> UrlRow:
+    """One URL's rows (one per stored document, or one without any) as a labelled URL."""
+    first = rows[0]
+    hashes = {r.text_hash for r in rows if r.status == "usable"}
+    usable = bool(hashes) or any(r.status == "usable" for r in rows)
+    negative = any(r.status is not None and r.status != "usable" and r.unusable_reason in NOT_ARTICLE_REASONS
+                   for r in rows)
+    label = label_of(first.url, usable, negative)
+    text_hash = next(iter(hashes)) if len(hashes) == 1 and label is Label.POSITIVE else None
+    return UrlRow(first.url, first.host, first.domain, label, text_hash)
 
 
 def domains_of_outlet(conn: Connection, outlet: str) -> list[str]:
