@@ -192,3 +192,22 @@ def test_a_template_another_expression_already_matches_is_not_proposed_twice():
         table.add(f"/a/{100000000000 + i}", "", Label.POSITIVE)  # twelve digits: {n12} by shape
     learned = learn_templates(table, min_support=5)
     assert [p.text for p in learned.proposals] == ["/a/{hex}"] and learned.uncovered == 0
+
+
+def test_slugs_in_other_scripts_arrive_percent_encoded_and_still_generalise():
+    # RFC 3986 §2.1 and the WHATWG path percent-encode set: non-ASCII path characters travel as UTF-8
+    # escapes (upper-case hex after canonicalisation, RFC 3986 §6.2.2.1); urllib.parse.quote is the reference.
+    from urllib.parse import quote
+
+    rng = random.Random(5)
+    words = ["été", "marché", "pêche", "fenêtre", "rivière", "forêt", "château", "île"]
+    table = ShapeTable()
+    for _ in range(40):
+        slug = "-".join(rng.choice(words) for _ in range(rng.randint(3, 6)))
+        table.add(f"/actualites/{quote(slug)}", "", Label.POSITIVE)
+        table.add(f"/theme/{quote(rng.choice(words))}", "", Label.NEGATIVE)
+    learned = learn_templates(table, min_support=5)
+    assert [p.text for p in learned.proposals] == ["/actualites/{slug}"]
+    rx = re.compile(learned.proposals[0].regex)
+    assert rx.search("/actualites/" + quote("forêt-île-été-marché"))
+    assert not rx.search("/actualites/" + quote("forêt"))

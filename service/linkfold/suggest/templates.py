@@ -31,7 +31,7 @@ import re
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 from enum import IntEnum
-from urllib.parse import parse_qsl
+from urllib.parse import parse_qsl, unquote
 
 from ..canon.shapes import segment_shape
 
@@ -46,7 +46,7 @@ DEFAULT_MIN_PRECISION = 0.95
 _ID_VALUE = re.compile(r"^\{(?:n\d+|hex|uuid|id)\}$")
 _NUM = re.compile(r"^\{n(\d+)(?:-(\d+))?\}$")
 _WORD = "{word}"
-_SLUG_REGEX = r"[^\W_]+(?:[-_][^\W_]+){2,}"
+_SLUG_REGEX = r"(?:[^\W_]|%[0-9A-F]{2})+(?:[-_](?:[^\W_]|%[0-9A-F]{2})+){2,}"
 _WORD_REGEX = r"[A-Za-z][\w-]*"
 
 
@@ -62,13 +62,24 @@ Tokens = tuple[str, ...]
 def url_tokens(path: str, query: str) -> Tokens:
     """The token tuple of a canonical URL's path and query (see the module doc). A query key that carries
     the ID is appended as ``?name={shape}``."""
-    tokens = tuple(segment_shape(s) for s in path.split("/"))
+    tokens = tuple(_segment_token(s) for s in path.split("/"))
     if query and not any("{" in tok for tok in tokens):
         for name, value in sorted(parse_qsl(query, keep_blank_values=True)):
             shape = segment_shape(value)
             if _ID_VALUE.match(shape):
                 return (*tokens, f"?{name}={shape}")
     return tokens
+
+
+def _segment_token(segment: str) -> str:
+    shape = segment_shape(segment)
+    if shape == segment and "%" in segment:
+        # A slug in another script arrives percent-encoded as UTF-8 (RFC 3986 §2.1, WHATWG path encoding);
+        # it is shaped as the words it encodes, and the slug expression accepts the escapes.
+        decoded = segment_shape(unquote(segment))
+        if decoded.startswith("{slug}"):
+            return decoded
+    return shape
 
 
 @dataclass
