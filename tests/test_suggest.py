@@ -138,7 +138,7 @@ def test_diff_counts_the_stored_urls_that_would_change(world, tmp_path):
             sa.or_(t.raw_urls.c.raw.like("%src=%"), t.raw_urls.c.raw.like("%via=%")))).scalar_one()
     assert diff.canonical_changed >= variants
     assert diff.article_changed[(None, True)] > 0 and diff.article_changed[(None, False)] > 0
-    assert all("?" not in e.split(" → ")[1] or "page=" in e for e in diff.examples)
+    assert diff.examples and all("=" not in e for e in diff.examples)  # parameter names only, never values
 
 
 def test_cli_diff_without_out_prints_the_diff(world, db_url):

@@ -53,6 +53,15 @@ class RulesDiff:
         return out
 
 
+def _shown(host: str, url: str) -> str:
+    """A URL for people as its host and path shape, its query as parameter names only: values can be
+    anything a person's browsing put there."""
+    shape = path_shape(url)
+    path, _, query = shape.partition("?")
+    names = [part.split("=", 1)[0] for part in query.split("&")] if query else []
+    return host + path + ("?" + "&".join(names) if names else "")
+
+
 def _word(v: bool | None) -> str:
     return "unknown" if v is None else str(v).lower()
 
@@ -122,7 +131,7 @@ def diff_rules(conn: Connection, old: Ruleset, new: Ruleset, *, cache_size: int 
             if a.url_key not in touched:
                 touched.add(a.url_key)
                 if len(out.examples) < _EXAMPLES:
-                    out.examples.append(f"{a.host}{path_shape(a.url)} → {b.host}{path_shape(b.url)}")
+                    out.examples.append(f"{_shown(a.host, a.url)} → {_shown(b.host, b.url)}")
         if a.is_article != b.is_article:
             out.article_changed[(a.is_article, b.is_article)] += 1
     progress.finish()
