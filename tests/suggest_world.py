@@ -6,7 +6,8 @@ registry would hold about them: most were fetched, and an article's page yielded
 failed extraction or sat behind a paywall: realistic noise), a non-article page yielded none. Some
 articles are stored again with a parameter that never changes the page (``src``, ``via``) and some with
 one that does (``page``). A shortener host redirects to articles elsewhere, an image host never has text,
-and an archive host serves one outlet's texts at the same paths. Held-out URLs (:func:`held_out`) are
+an archive host serves one outlet's texts at the same paths, and withdrawn articles of one outlet redirect
+to its home page (a sink). Held-out URLs (:func:`held_out`) are
 generated from another random stream with their truth, for measuring precision and recall.
 """
 
@@ -211,6 +212,9 @@ def _short_links(engine: Engine, tmp: Path, per_outlet: int, rng: random.Random)
             scheme, host = schemes[i % len(schemes)]
             code = "".join(rng.choice("abcdefghjkmnpqrstuvwxyzABCDEFGHJKLMNPQRSTUVWXYZ23456789") for _ in range(7))
             w.writerow([f"https://{SHORTENER}/{code}", f"https://{host}{article_path(scheme, rng)}"])
+        # Withdrawn articles of one outlet redirected to its home page: a sink (docs/dedupe.md §10).
+        for i in range(12):
+            w.writerow([f"https://{SCHEMES['date_path']}/withdrawn/{i}", f"https://{SCHEMES['date_path']}/"])
     import_redirects(engine, path)
     return n
 

@@ -62,6 +62,8 @@ def test_hosts_are_found_shortener_never_article_and_alias(world, tmp_path):
     # Nothing real is declared a shortener or never-article: only the hosts the world made so.
     assert rules.shortener_hosts == frozenset({SHORTENER})
     assert rules.never_article_hosts == frozenset({IMAGE_HOST})
+    # The home page withdrawn articles redirect to is listed as a sink, by the dedupe stage's rule.
+    assert f"#   {SCHEMES['date_path']}/: home_page, fan-in 12, 12 sources" in (tmp_path / "s.toml").read_text()
 
 
 def test_no_proposed_drop_ever_joins_two_different_texts(world, tmp_path):

@@ -17,10 +17,10 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
 from ..canon import Canonicaliser, Ruleset
-from ..canon.shapes import path_shape
 from ..errors import InvalidURL
 from ..progress import SILENT, Progress
 from ..store import tables as t
+from .evidence import shown_url
 
 _EXAMPLES = 5
 
@@ -51,15 +51,6 @@ class RulesDiff:
             out.append(f"  is_article {_word(a)} → {_word(b)}: {n:,}")
         out += [f"  e.g. {e}" for e in self.examples]
         return out
-
-
-def _shown(host: str, url: str) -> str:
-    """A URL for people as its host and path shape, its query as parameter names only: values can be
-    anything a person's browsing put there."""
-    shape = path_shape(url)
-    path, _, query = shape.partition("?")
-    names = [part.split("=", 1)[0] for part in query.split("&")] if query else []
-    return host + path + ("?" + "&".join(names) if names else "")
 
 
 def _word(v: bool | None) -> str:
@@ -131,7 +122,7 @@ def diff_rules(conn: Connection, old: Ruleset, new: Ruleset, *, cache_size: int 
             if a.url_key not in touched:
                 touched.add(a.url_key)
                 if len(out.examples) < _EXAMPLES:
-                    out.examples.append(f"{_shown(a.host, a.url)} → {_shown(b.host, b.url)}")
+                    out.examples.append(f"{shown_url(a.host, a.url)} → {shown_url(b.host, b.url)}")
         if a.is_article != b.is_article:
             out.article_changed[(a.is_article, b.is_article)] += 1
     progress.finish()

@@ -12,6 +12,7 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
 from ..canon import Ruleset
+from ..canon.shapes import path_shape
 from ..dedupe.sinks import End, SinkKind, fan_in, is_home_page, sink_kind
 from ..store import evidence as ev
 from ..store import tables as t
@@ -157,6 +158,14 @@ def shared_texts(conn: Connection, *, domains: list[str] | None = None) -> Itera
         yield group
 
 
+def shown_url(host: str, url: str) -> str:
+    """A URL for people as its host and path shape (canon/shapes.py), its query as parameter names only:
+    values can be anything a person's browsing put there."""
+    path, _, query = path_shape(url).partition("?")
+    names = [part.split("=", 1)[0] for part in query.split("&")] if query else []
+    return host + path + ("?" + "&".join(names) if names else "")
+
+
 def path_of(url: str) -> str:
     """The path and query of a canonical URL (which has no fragment but a hashbang)."""
     rest = url.split("://", 1)[-1]
@@ -210,4 +219,4 @@ def sinks(conn: Connection, rules: Ruleset, *, limit: int) -> list[SinkRow]:
 
 
 __all__ = ["NOT_ARTICLE_REASONS", "HostCounts", "SinkRow", "UrlRow", "domains_of_outlet", "host_counts",
-           "label_of", "path_of", "same_path_texts", "shared_texts", "sinks", "stream_urls"]
+           "label_of", "path_of", "same_path_texts", "shared_texts", "shown_url", "sinks", "stream_urls"]

@@ -17,8 +17,8 @@ from typing import Any
 from .._tabular import atomic_path
 from ..canon import default_rules, parse_rules
 from ..canon.rules import normalise_rule_host
-from ..canon.shapes import path_shape
 from ..errors import InputError
+from .evidence import shown_url
 from .learn import SiteSuggestion, Suggestions
 from .params import ParamVerdict
 from .templates import Proposal
@@ -109,7 +109,7 @@ def render(s: Suggestions) -> str:
     if s.sinks:
         lines.append("# Sinks (redirect or canonical targets the dedupe stage keeps apart), largest fan-in first:")
         for sink in s.sinks[:20]:
-            lines.append(f"#   {sink.host}{path_shape(sink.url)}: {sink.kind.value}, fan-in {sink.fan_in:,}, "
+            lines.append(f"#   {shown_url(sink.host, sink.url)}: {sink.kind.value}, fan-in {sink.fan_in:,}, "
                          f"{sink.sources:,} sources")
         if len(s.sinks) > 20:
             lines.append(f"#   … {len(s.sinks) - 20} more (linkfold follow-report --sinks)")
