@@ -27,7 +27,6 @@ import subprocess
 import sys
 import tempfile
 import time
-from collections import defaultdict
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -68,26 +67,10 @@ def _run(mode: str, db: Path, out: Path) -> dict:
 
 
 def _quality(rules_path: Path) -> dict[str, tuple[float, float]]:
-    from linkfold.canon import canonicalize, load_rules
-    from suggest_world import held_out
+    from linkfold.canon import load_rules
+    from suggest_world import quality
 
-    rules = load_rules(rules_path)
-    per: dict[str, list[int]] = defaultdict(lambda: [0, 0, 0])
-    for truth in held_out(1000):
-        said = canonicalize(truth.url, rules).is_article is True
-        row = per[truth.scheme]
-        if said and truth.is_article:
-            row[0] += 1
-        elif said:
-            row[1] += 1
-        elif truth.is_article:
-            row[2] += 1
-    out = {}
-    for scheme, (tp, fp, fn) in per.items():
-        out[scheme] = (tp / (tp + fp) if tp + fp else 0.0, tp / (tp + fn) if tp + fn else 0.0)
-    tp, fp, fn = (sum(v[i] for v in per.values()) for i in range(3))
-    out["all"] = (tp / (tp + fp), tp / (tp + fn))
-    return out
+    return quality(load_rules(rules_path), 1000)
 
 
 def _build(db: Path, size: int, per_outlet: int) -> dict[str, int]:

@@ -24,7 +24,7 @@ from pathlib import Path
 import sqlalchemy as sa
 from sqlalchemy.engine import Engine
 
-from linkfold.canon import Canonicaliser
+from linkfold.canon import Canonicaliser, Ruleset, canonicalize
 from linkfold.store import tables as t
 from linkfold.store.evidence import register_urls
 from linkfold.store.rulesets import latest_ruleset
@@ -110,6 +110,19 @@ def held_out(per_outlet: int, *, seed: int = 99) -> list[Truth]:
             out.append(Truth(f"https://{host}{article_path(scheme, rng)}", scheme, True))
             out.append(Truth(f"https://{host}{other_path(rng)}", scheme, False))
     return out
+
+
+def quality(rules: Ruleset, per_outlet: int) -> dict[str, tuple[float, float]]:
+    """(precision, recall) of ``rules``' article verdicts on held-out URLs, per scheme and ``"all"``."""
+    counts: dict[str, list[int]] = {}  # scheme -> [true positives, false positives, false negatives]
+    for truth in held_out(per_outlet):
+        said = canonicalize(truth.url, rules).is_article is True
+        row = counts.setdefault(truth.scheme, [0, 0, 0])
+        if said or truth.is_article:
+            row[0 if said and truth.is_article else 1 if said else 2] += 1
+    counts["all"] = [sum(v[i] for v in counts.values()) for i in range(3)]
+    return {k: (tp / (tp + fp) if tp + fp else 0.0, tp / (tp + fn) if tp + fn else 0.0)
+            for k, (tp, fp, fn) in counts.items()}
 
 
 def _doc(cid: int, status: str, reason: str | None, text_hash: str | None, now: datetime) -> dict:
@@ -219,4 +232,4 @@ def _short_links(engine: Engine, tmp: Path, per_outlet: int, rng: random.Random)
     return n
 
 
-__all__ = ["ARCHIVE", "IMAGE_HOST", "SCHEMES", "SHORTENER", "Truth", "build_world", "held_out", "outlet_hosts"]
+__all__ = ["ARCHIVE", "IMAGE_HOST", "SCHEMES", "SHORTENER", "Truth", "build_world", "held_out", "outlet_hosts", "quality"]
