@@ -211,3 +211,16 @@ def test_slugs_in_other_scripts_arrive_percent_encoded_and_still_generalise():
     rx = re.compile(learned.proposals[0].regex)
     assert rx.search("/actualites/" + quote("forêt-île-été-marché"))
     assert not rx.search("/actualites/" + quote("forêt"))
+
+
+def test_one_off_short_titles_never_become_any_word():
+    # Slug-only paths with a handful of two-word titles and no labelled one-word page but the home page:
+    # "any word" at the top level would pass on the evidence and take in /about and /contact on URLs never
+    # seen (common practice: a section repeats across its articles, a title does not).
+    table = ShapeTable()
+    for title in ("flood-warning", "market-day", "ferry-strike", "winter-fair", "school-run", "pier-closed"):
+        table.add(f"/{title}", "", Label.POSITIVE)
+    table.add("/", "", Label.NEGATIVE)
+    learned = learn_templates(table, min_support=5)
+    assert learned.proposals == [] and learned.thin  # too little evidence, said so; not a guess
+

@@ -14,8 +14,9 @@ a step is taken only when the more general template is still precise on every la
 
 1. numbers of different lengths at one position, other tokens equal → a range (``\\d{5,6}``);
 2. ``{slug}-{nK}`` beside ``{slug}`` at one position → ``{slug}``;
-3. at least ``MIN_VARIANTS`` different fixed words at one position, other tokens equal → any word
-   (``/politics/{n6}``, ``/sport/{n6}``, ``/culture/{n6}`` → ``/{word}/{n6}``: section/ID paths).
+3. at least ``MIN_VARIANTS`` different fixed words at one position, each on at least two URLs with
+   text, other tokens equal → any word (``/politics/{n6}``, ``/sport/{n6}``, ``/culture/{n6}`` →
+   ``/{word}/{n6}``: section/ID paths; a word seen once is a short title, not a section).
 
 A template is proposed when it covers at least ``min_support`` URLs with usable text and its precision on
 the labelled URLs it covers is at least ``min_precision``; of two templates where one covers the other,
@@ -237,6 +238,11 @@ def _generalise(current: set[Tokens], table: ShapeTable, step: int, min_precisio
                 if pos < len(t):
                     groups.setdefault((*t[:pos], "*", *t[pos + 1:]), []).append(t)
             for key, members in groups.items():
+                if step == 3:
+                    # A section name repeats across its articles (/sport/…, /sport/…); a word seen on one
+                    # URL only is more likely a short title (/flood-warning) than a section: it does not
+                    # count towards "any word", which would also take in /about and /contact.
+                    members = [m for m in members if _stats_of(m, table).positive >= 2]
                 merged = _merge_at(pos, [m[pos] for m in members], step)
                 if merged is None:
                     continue
