@@ -6,7 +6,8 @@ registry would hold about them: most were fetched, and an article's page yielded
 failed extraction or sat behind a paywall: realistic noise), a non-article page yielded none. Some
 articles are stored again with a parameter that never changes the page (``src``, ``via``) and some with
 one that does (``page``). A shortener host redirects to articles elsewhere, an image host never has text,
-an archive host serves one outlet's texts at the same paths, and withdrawn articles of one outlet redirect
+an archive host serves one outlet's texts at the same paths, one outlet hides every article behind a
+paywall, and withdrawn articles of one outlet redirect
 to its home page (a sink). Held-out URLs (:func:`held_out`) are
 generated from another random stream with their truth, for measuring precision and recall.
 """
@@ -46,6 +47,7 @@ SCHEMES = {
 SHORTENER = "lnk.test"
 IMAGE_HOST = "img.pixhost.test"
 ARCHIVE = "ashford-ledger-archive.test"
+WALLED = "keswick-paywalled.example"
 
 
 def _slug(rng: random.Random) -> str:
@@ -203,6 +205,8 @@ def build_world(engine: Engine, *, per_outlet: int = 120, seed: int = 7, batch: 
         pending.append((url, "usable", text))
     for i in range(max(30, per_outlet // 4)):
         pending.append((f"https://{IMAGE_HOST}/p/{i:05d}.jpg", "not_html", None))
+        # An outlet whose every fetched article sat behind a paywall: no usable text, but an outlet.
+        pending.append((f"https://{WALLED}/premium/{70000 + i}", "paywall" if i % 3 else "too_short", None))
     flush()
     if tmp is not None:
         counts["short_links"] = _short_links(engine, tmp, per_outlet, rng)
@@ -232,4 +236,5 @@ def _short_links(engine: Engine, tmp: Path, per_outlet: int, rng: random.Random)
     return n
 
 
-__all__ = ["ARCHIVE", "IMAGE_HOST", "SCHEMES", "SHORTENER", "Truth", "build_world", "held_out", "outlet_hosts", "quality"]
+__all__ = ["ARCHIVE", "IMAGE_HOST", "SCHEMES", "SHORTENER", "WALLED", "Truth", "build_world", "held_out",
+           "outlet_hosts", "quality"]

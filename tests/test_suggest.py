@@ -47,7 +47,7 @@ def test_hosts_are_found_shortener_never_article_and_alias(world, tmp_path):
     assert ARCHIVE in rules.sites[SCHEMES["numeric_id"]].aliases
     # Nothing real is declared a shortener or never-article: only the hosts the world made so.
     assert rules.shortener_hosts == frozenset({SHORTENER})
-    assert rules.never_article_hosts == frozenset({IMAGE_HOST})
+    assert rules.never_article_hosts == frozenset({IMAGE_HOST})  # not WALLED: walled pages are articles
     # The home page withdrawn articles redirect to is listed as a sink, by the dedupe stage's rule.
     assert f"#   {SCHEMES['date_path']}/: home_page, fan-in 12, 12 sources" in (tmp_path / "s.toml").read_text()
 

@@ -22,6 +22,8 @@ from .templates import Label
 #: Reasons a stored page held no article (content/usable.py) that say the page is not one. A paywall or a
 #: consent wall hides an article; a broken page says nothing: those URLs are left unlabelled.
 NOT_ARTICLE_REASONS = ("not_html", "empty", "too_short", "video")
+#: Reasons that say a page hid an article: such a host is never proposed as a never-article host.
+HIDING_REASONS = ("paywall", "consent_wall")
 _BATCH = 10_000
 
 
@@ -107,6 +109,7 @@ class HostCounts:
     off_domain: int = 0    # of those, how many ended on another registered domain
     documents: int = 0     # URLs with a stored document
     usable: int = 0        # URLs with a usable text
+    hidden: int = 0        # URLs whose page hid an article (paywall, consent wall)
 
 
 def host_counts(conn: Connection, *, domains: list[str] | None = None) -> dict[str, HostCounts]:
@@ -126,11 +129,13 @@ def host_counts(conn: Connection, *, domains: list[str] | None = None) -> dict[s
         if host in out:
             out[host].followed, out[host].off_domain = int(n), int(n_off or 0)
     usable = sa.case((d.c.status == "usable", d.c.canonical_id))
-    q = (sa.select(c.c.host, sa.func.count(sa.distinct(d.c.canonical_id)), sa.func.count(sa.distinct(usable)))
+    hidden = sa.case((d.c.unusable_reason.in_(HIDING_REASONS), d.c.canonical_id))
+    q = (sa.select(c.c.host, sa.func.count(sa.distinct(d.c.canonical_id)), sa.func.count(sa.distinct(usable)),
+                   sa.func.count(sa.distinct(hidden)))
          .select_from(d.join(c, c.c.id == d.c.canonical_id)).where(*where).group_by(c.c.host))
-    for host, n_docs, n_usable in conn.execute(q):
+    for host, n_docs, n_usable, n_hidden in conn.execute(q):
         if host in out:
-            out[host].documents, out[host].usable = int(n_docs), int(n_usable)
+            out[host].documents, out[host].usable, out[host].hidden = int(n_docs), int(n_usable), int(n_hidden)
     return out
 
 
@@ -218,5 +223,5 @@ def sinks(conn: Connection, rules: Ruleset, *, limit: int) -> list[SinkRow]:
     return sorted(out, key=lambda s: (-s.fan_in, -s.sources, s.url))
 
 
-__all__ = ["NOT_ARTICLE_REASONS", "HostCounts", "SinkRow", "UrlRow", "domains_of_outlet", "host_counts",
+__all__ = ["HIDING_REASONS", "NOT_ARTICLE_REASONS", "HostCounts", "SinkRow", "UrlRow", "domains_of_outlet", "host_counts",
            "label_of", "path_of", "same_path_texts", "shared_texts", "shown_url", "sinks", "stream_urls"]

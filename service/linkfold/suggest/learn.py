@@ -6,8 +6,9 @@ What is proposed, and when (docs/rule-suggestions.md has the method and its limi
 * article patterns per site (templates.py) and parameter drops and keeps (params.py);
 * **shortener hosts**: at least ``min_support`` followed URLs, at least ``SHORTENER_SHARE`` of them ending
   on another registered domain, and no usable text on the host;
-* **never-article hosts**: at least ``min_support`` URLs with a stored document, none of them usable, and
-  not a shortener;
+* **never-article hosts**: at least ``min_support`` URLs with a stored document, none of them usable nor
+  behind a paywall or consent wall (an outlet whose every article is walled is still an outlet), and not
+  a shortener;
 * **aliases**: two hosts holding the same texts at the same paths (at least ``min_support`` paths, at least
   ``ALIAS_SHARE`` of their shared texts at the same path, and no path with different texts on the two);
 * **sinks** are listed with their kind and fan-in, as dedupe/sinks.py decides them: evidence for review.
@@ -172,7 +173,7 @@ def _hosts(out: Suggestions, counts: dict[str, ev.HostCounts], rules: Ruleset, m
             continue
         if c.followed >= min_support and c.off_domain >= SHORTENER_SHARE * c.followed and c.usable == 0:
             out.shorteners.append(HostProposal(host, "shortener", c))
-        elif c.documents >= min_support and c.usable == 0 and not rules.never_article(host):
+        elif c.documents >= min_support and c.usable == 0 and c.hidden == 0 and not rules.never_article(host):
             out.never_article.append(HostProposal(host, "never_article", c))
 
 
