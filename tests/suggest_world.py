@@ -7,7 +7,7 @@ failed extraction or sat behind a paywall: realistic noise), a non-article page 
 articles are stored again with a parameter that never changes the page (``src``, ``via``) and some with
 one that does (``page``). A shortener host redirects to articles elsewhere, an image host never has text,
 an archive host serves one outlet's texts at the same paths, one outlet hides every article behind a
-paywall, and withdrawn articles of one outlet redirect
+paywall, one outlet's old domain redirects path for path, and withdrawn articles of one outlet redirect
 to its home page (a sink). Held-out URLs (:func:`held_out`) are
 generated from another random stream with their truth, for measuring precision and recall.
 """
@@ -48,6 +48,7 @@ SHORTENER = "lnk.test"
 IMAGE_HOST = "img.pixhost.test"
 ARCHIVE = "ashford-ledger-archive.test"
 WALLED = "keswick-paywalled.example"
+MOVED = "ashford-ledger-old.test"
 
 
 def _slug(rng: random.Random) -> str:
@@ -229,6 +230,10 @@ def _short_links(engine: Engine, tmp: Path, per_outlet: int, rng: random.Random)
             scheme, host = schemes[i % len(schemes)]
             code = "".join(rng.choice("abcdefghjkmnpqrstuvwxyzABCDEFGHJKLMNPQRSTUVWXYZ23456789") for _ in range(7))
             w.writerow([f"https://{SHORTENER}/{code}", f"https://{host}{article_path(scheme, rng)}"])
+        # An outlet's old domain, every URL redirected to the same path on the new one: a move, not a shortener.
+        for i in range(20):
+            moved = f"/news/{500000 + i}"
+            w.writerow([f"https://{MOVED}{moved}", f"https://{SCHEMES['numeric_id']}{moved}"])
         # Withdrawn articles of one outlet redirected to its home page: a sink (docs/dedupe.md §10).
         for i in range(12):
             w.writerow([f"https://{SCHEMES['date_path']}/withdrawn/{i}", f"https://{SCHEMES['date_path']}/"])
@@ -236,5 +241,5 @@ def _short_links(engine: Engine, tmp: Path, per_outlet: int, rng: random.Random)
     return n
 
 
-__all__ = ["ARCHIVE", "IMAGE_HOST", "SCHEMES", "SHORTENER", "WALLED", "Truth", "build_world", "held_out",
+__all__ = ["ARCHIVE", "IMAGE_HOST", "MOVED", "SCHEMES", "SHORTENER", "WALLED", "Truth", "build_world", "held_out",
            "outlet_hosts", "quality"]

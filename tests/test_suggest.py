@@ -16,7 +16,7 @@ from linkfold.store import tables as t
 from linkfold.store.rulesets import latest_ruleset, store_ruleset
 from linkfold.suggest import suggest_rules_file
 from linkfold.suggest.write import MARK
-from suggest_world import ARCHIVE, IMAGE_HOST, SCHEMES, SHORTENER, build_world, quality
+from suggest_world import ARCHIVE, IMAGE_HOST, MOVED, SCHEMES, SHORTENER, build_world, quality
 
 MIN_SUPPORT = 5
 
@@ -45,6 +45,8 @@ def test_hosts_are_found_shortener_never_article_and_alias(world, tmp_path):
     assert SHORTENER in rules.shortener_hosts
     assert IMAGE_HOST in rules.never_article_hosts
     assert ARCHIVE in rules.sites[SCHEMES["numeric_id"]].aliases
+    # A host whose every URL redirects to the same path elsewhere moved there: an alias, not a shortener.
+    assert MOVED in rules.sites[SCHEMES["numeric_id"]].aliases and MOVED not in rules.shortener_hosts
     # Nothing real is declared a shortener or never-article: only the hosts the world made so.
     assert rules.shortener_hosts == frozenset({SHORTENER})
     assert rules.never_article_hosts == frozenset({IMAGE_HOST})  # not WALLED: walled pages are articles

@@ -5,6 +5,7 @@ stays flat however many URLs are stored (one registered domain's shapes at a tim
 
 from __future__ import annotations
 
+from collections import Counter
 from collections.abc import Iterator
 from dataclasses import dataclass
 
@@ -139,6 +140,28 @@ def host_counts(conn: Connection, *, domains: list[str] | None = None) -> dict[s
     return out
 
 
+def redirect_paths(conn: Connection, host: str) -> tuple[int, int, str | None]:
+    """Of ``host``'s resolved follows that left the registered domain: how many kept the path, how many in
+    all, and the host most of them led to."""
+    c, fr = t.canonical_urls, t.follow_results
+    f = t.canonical_urls.alias("f")
+    q = (sa.select(c.c.url, f.c.url, f.c.host)
+         .select_from(fr.join(c, c.c.id == fr.c.canonical_id).join(f, f.c.id == fr.c.final_id))
+         .where(fr.c.state == "resolved", c.c.host == host, f.c.domain.is_distinct_from(c.c.domain)))
+    same = total = 0
+    targets: Counter[str] = Counter()
+    for src, dst, dst_host in conn.execution_options(yield_per=_BATCH).execute(q):
+        total += 1
+        same += path_of(src) == path_of(dst)
+        targets[dst_host] += 1
+    return same, total, targets.most_common(1)[0][0] if targets else None
+
+
+def domain_of(conn: Connection, host: str) -> str | None:
+    c = t.canonical_urls
+    return conn.execute(sa.select(c.c.domain).where(c.c.host == host).limit(1)).scalar()
+
+
 def shared_texts(conn: Connection, *, domains: list[str] | None = None) -> Iterator[list[tuple[str, str]]]:
     """Groups of (host, path and query) that hold one usable text on more than one host, one group per
     text, streamed: the evidence for host aliases (same text at the same path) and syndication (not)."""
@@ -223,5 +246,6 @@ def sinks(conn: Connection, rules: Ruleset, *, limit: int) -> list[SinkRow]:
     return sorted(out, key=lambda s: (-s.fan_in, -s.sources, s.url))
 
 
-__all__ = ["HIDING_REASONS", "NOT_ARTICLE_REASONS", "HostCounts", "SinkRow", "UrlRow", "domains_of_outlet", "host_counts",
-           "label_of", "path_of", "same_path_texts", "shared_texts", "shown_url", "sinks", "stream_urls"]
+__all__ = ["HIDING_REASONS", "NOT_ARTICLE_REASONS", "HostCounts", "SinkRow", "UrlRow", "domain_of",
+           "domains_of_outlet", "host_counts", "label_of", "path_of", "redirect_paths", "same_path_texts",
+           "shared_texts", "shown_url", "sinks", "stream_urls"]

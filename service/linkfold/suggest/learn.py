@@ -11,6 +11,7 @@ What is proposed, and when (docs/rule-suggestions.md has the method and its limi
   a shortener;
 * **aliases**: two hosts holding the same texts at the same paths (at least ``min_support`` paths, at least
   ``ALIAS_SHARE`` of their shared texts at the same path, and no path with different texts on the two);
+  and a host that would be a shortener but whose redirects keep the path: an outlet that moved;
 * **sinks** are listed with their kind and fan-in, as dedupe/sinks.py decides them: evidence for review.
 """
 
@@ -76,11 +77,15 @@ class HostProposal:
 
 @dataclass(frozen=True)
 class AliasProposal:
+    """``same_path``/``other_path``: shared texts at the same path or not; for a ``moved`` host, its
+    followed URLs that redirected to the same path on the site, or elsewhere."""
+
     alias: str
     site_host: str
     same_path: int
     other_path: int
     conflicting: int
+    moved: bool = False
 
 
 @dataclass
@@ -160,6 +165,7 @@ def suggest_rules(conn: Connection, *, outlet: str | None = None, min_support: i
     _learn_sites(out, ev.stream_urls(conn, domains=domains), rules, skip, min_support, min_precision, progress)
     progress.finish()
     _aliases(out, conn, counts, rules, domains, min_support)
+    _moved_hosts(out, conn, rules)
     sink_rows = ev.sinks(conn, rules, limit=sink_fan_in)
     out.sinks = [s for s in sink_rows if domains is None or s.host in counts]
     by_host = Counter(s.host for s in out.sinks)
@@ -175,6 +181,23 @@ def _hosts(out: Suggestions, counts: dict[str, ev.HostCounts], rules: Ruleset, m
             out.shorteners.append(HostProposal(host, "shortener", c))
         elif c.documents >= min_support and c.usable == 0 and c.hidden == 0 and not rules.never_article(host):
             out.never_article.append(HostProposal(host, "never_article", c))
+
+
+def _moved_hosts(out: Suggestions, conn: Connection, rules: Ruleset) -> None:
+    """A shortener candidate whose redirects keep the path (``old.example/news/7`` → ``new.example/news/7``)
+    is an outlet that moved: it becomes an alias of the site it moved to (its URLs then fold without a
+    request), or nothing at all when that site is out of scope. A shortener's paths are its own codes."""
+    kept = []
+    for p in out.shorteners:
+        same, total, target = ev.redirect_paths(conn, p.host)
+        if not total or same < SHORTENER_SHARE * total:
+            kept.append(p)
+            continue
+        key = _site_key(rules, target, ev.domain_of(conn, target) or target) if target else None
+        site = out.sites.get(key) if key else None
+        if site is not None and p.host not in rules.site_hosts:
+            site.aliases.append(AliasProposal(p.host, site.key, same, total - same, 0, moved=True))
+    out.shorteners = kept
 
 
 def _learn_sites(out: Suggestions, rows: Iterable[ev.UrlRow], rules: Ruleset, skip: set[str], min_support: int,

@@ -162,7 +162,9 @@ def _site(host: str, body: dict[str, Any], site: SiteSuggestion | None) -> list[
     drops = [(p, "in force") for p in body.get("drop_params", [])]
     article = [(p, "in force") for p in body.get("article", [])]
     if site is not None:
-        aliases += [(a.alias, f"proposed: {a.same_path:,} paths hold the same text on both hosts, "
+        aliases += [(a.alias, f"proposed: moved here; {a.same_path:,} of its followed URLs redirected to the same "
+                              f"path on this site, {a.other_path:,} elsewhere" if a.moved else
+                              f"proposed: {a.same_path:,} paths hold the same text on both hosts, "
                               f"{a.conflicting} a different one; {a.other_path:,} shared texts at other paths")
                     for a in site.aliases]
         keeps += [(v.name, _param_comment(v)) for v in site.keeps]
