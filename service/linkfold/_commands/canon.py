@@ -243,7 +243,8 @@ def recanonicalize_command(obj: Context, summary_format: str) -> None:
 def rules_suggest(obj: Context, outlet: str | None, min_support: int | None, out: Path | None, diff: bool) -> None:
     """Propose site rules from the stored evidence: article patterns, parameters to drop or keep,
     shortener, never-article and alias hosts, each with its evidence in a comment. Writes nothing to
-    the registry: review the file, then `linkfold rules add FILE` and `linkfold nightly`.
+    the registry: review the file, then `linkfold rules add FILE` and `linkfold recanonicalize` (the
+    nightly job runs it first).
 
     \b
     Example:

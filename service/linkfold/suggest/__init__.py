@@ -4,7 +4,7 @@
 and redirects (learn.py, evidence.py), writes a rules file that keeps the ruleset in force and adds each
 proposal with its evidence beside it (write.py), and with ``diff`` measures what the file would change
 (diff.py). Nothing in the registry is written; applying is ``linkfold rules add FILE`` and the
-re-canonicalisation of the nightly job. The method and its limits: docs/rule-suggestions.md.
+re-canonicalisation stage (``linkfold recanonicalize``, which the nightly job runs first). The method and its limits: docs/rule-suggestions.md.
 """
 
 from __future__ import annotations
@@ -40,7 +40,8 @@ class SuggestResult:
     def lines(self) -> list[str]:
         out = self.suggestions.lines()
         if self.path is not None:
-            out.append(f"  written to {self.path}; review it, then: linkfold rules add {self.path} && linkfold nightly")
+            out.append(f"  written to {self.path}; review it, then: linkfold rules add {self.path} && "
+                       "linkfold recanonicalize")
         return out
 
 
