@@ -51,6 +51,7 @@ LAYERS: dict[str, tuple[int, str]] = {
     "network": (STAGES, "analysis"),
     "corpus": (STAGES, "analysis"),
     "compare": (STAGES, "analysis"),
+    "suggest": (STAGES, "analysis"),
     # Orchestration.
     "jobs": (JOBS, "jobs"),
     # The interfaces: the command, its modules, the HTTP API and pages, the demo, the Python client.
