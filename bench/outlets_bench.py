@@ -39,7 +39,8 @@ ROOT = Path(__file__).resolve().parents[1]
 
 def view_0012() -> str:
     """The view as migration 0012 created it, renamed, from the migration that keeps it for downgrades."""
-    spec = importlib.util.spec_from_file_location("m0021", ROOT / "migrations" / "versions" / "0021_listed_final_outlet.py")
+    migration = ROOT / "service" / "linkfold" / "migrations" / "versions" / "0021_listed_final_outlet.py"
+    spec = importlib.util.spec_from_file_location("m0021", migration)
     assert spec is not None and spec.loader is not None
     module = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(module)

@@ -19,7 +19,7 @@ import sqlalchemy as sa
 from linkfold.ingest import ingest_dump
 from linkfold.store import tables as t
 
-RULES = Path(__file__).resolve().parent.parent / "fixtures" / "rules" / "demo.toml"
+RULES = Path(__file__).resolve().parent.parent / "service" / "linkfold" / "demo_data" / "rules" / "demo.toml"
 KEY = b"an invented lab key for the network tests"
 
 # One article page and one page that is not an article per outlet of the demo rules.

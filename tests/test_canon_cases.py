@@ -31,7 +31,7 @@ trailing_slash = false
 sort_params = false
 """, source="syntax-only")
 
-RULES = {"": None, "syntax-only": SYNTAX_ONLY, "demo": load_rules(ROOT / "fixtures" / "rules" / "demo.toml")}
+RULES = {"": None, "syntax-only": SYNTAX_ONLY, "demo": load_rules(ROOT / "service" / "linkfold" / "demo_data" / "rules" / "demo.toml")}
 
 
 def _unescape(text: str) -> str:

@@ -12,7 +12,7 @@ from linkfold.canon import default_rules, url_key
 from linkfold.cli import main
 
 ROOT = Path(__file__).parent.parent
-DEMO_RULES = ROOT / "fixtures" / "rules" / "demo.toml"
+DEMO_RULES = ROOT / "service" / "linkfold" / "demo_data" / "rules" / "demo.toml"
 REQUIRED = {"input", "canonical", "url_key", "domain", "is_article", "error"}
 
 

@@ -13,7 +13,7 @@ from linkfold.canon import Canonicaliser, canonicalize, load_rules, parse_rules,
 from linkfold.canon.core import _engine
 from linkfold.errors import InvalidURL
 
-DEMO = load_rules(Path(__file__).parent.parent / "fixtures" / "rules" / "demo.toml")
+DEMO = load_rules(Path(__file__).parent.parent / "service" / "linkfold" / "demo_data" / "rules" / "demo.toml")
 SYNTAX_ONLY = parse_rules("[steps]\n" + "\n".join(f"{s} = false" for s in (
     "redirect_wrappers", "amp_cache", "host_prefixes", "https", "session_ids", "tracking_params", "amp",
     "print_view", "index_documents", "trailing_slash", "sort_params")), source="syntax-only")

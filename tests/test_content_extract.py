@@ -31,7 +31,7 @@ from linkfold.content import (
 )
 from linkfold.content.extract import possible_at, url_date
 
-PAGES = Path(__file__).resolve().parent.parent / "fixtures" / "pages"
+PAGES = Path(__file__).resolve().parent.parent / "service" / "linkfold" / "demo_data" / "pages"
 FETCHED = datetime(2026, 11, 1, 12, 0, tzinfo=UTC)
 
 BRIDGE_URL = "https://lakeside-wire.example/wire/20260910/old-mill-bridge-reopens"

@@ -31,7 +31,7 @@ from linkfold.content import (
 )
 from linkfold.errors import DumpFormatError, InputError, MissingColumnError
 
-PAGES = Path(__file__).resolve().parent.parent / "fixtures" / "pages"
+PAGES = Path(__file__).resolve().parent.parent / "service" / "linkfold" / "demo_data" / "pages"
 BRIDGE = (PAGES / "lakeside-wire-old-mill-bridge.html").read_bytes()
 BRIDGE_URL = "https://lakeside-wire.example/wire/20260910/old-mill-bridge-reopens"
 LATIN1 = (PAGES / "harbourview-news-science-fair-latin1.html").read_bytes()

@@ -34,7 +34,7 @@ from linkfold.errors import ConfigError, InputError
 from linkfold.store import pages as sp
 from linkfold.store import tables as t
 
-FIXTURES = Path(__file__).resolve().parent.parent / "fixtures" / "pages"
+FIXTURES = Path(__file__).resolve().parent.parent / "service" / "linkfold" / "demo_data" / "pages"
 
 BRIDGE_URL = "https://lakeside-wire.example/wire/20260910/old-mill-bridge-reopens"
 AMP_URL = "https://amp.lakeside-wire.example/wire/20260910/old-mill-bridge-reopens"

@@ -29,7 +29,7 @@ from linkfold.follow import import_redirects
 from linkfold.ingest import ingest_dump
 from linkfold.store import tables as t
 
-RULES = Path(__file__).resolve().parent.parent / "fixtures" / "rules" / "demo.toml"
+RULES = Path(__file__).resolve().parent.parent / "service" / "linkfold" / "demo_data" / "rules" / "demo.toml"
 KEY = b"an invented lab key for exposure tests, long enough"
 
 # Article pages by the demo rules, with the outlet, an article and a story each belongs to (truth).

@@ -144,7 +144,7 @@ def test_extract_is_a_child_run_of_the_nightly_run(engine):
     # nightly run (passed down as parent_id, not found afterwards).
     from linkfold.content.page_import import import_pages
 
-    import_pages(engine, [ROOT / "fixtures" / "pages"])
+    import_pages(engine, [ROOT / "service" / "linkfold" / "demo_data" / "pages"])
     summary = run_nightly(engine, settings=settings())
     shown = show_run(engine, summary.run_id)
     assert [c["stage"] for c in shown["children"]] == ["extract", "dedupe"]

@@ -140,7 +140,7 @@ def test_demo_loads_its_outlet_list(tmp_path: Path) -> None:
 
     report = run_demo(tmp_path / "demo")
     text = "\n".join(report.lines())
-    assert "outlet list: fixtures/outlets.csv stored as version 1 (6 entries, 5 outlets)" in text
+    assert "outlet list: demo_data/outlets.csv stored as version 1 (6 entries, 5 outlets)" in text
     header = report.outlets[1]
     assert header.split() == ["outlet", "type", "reach", "coding", "founded", "datasets", "sightings", "units",
                               "urls", "articles", "stories", "listed"]

@@ -22,7 +22,7 @@ from linkfold.outlets import (
 from linkfold.store import tables as t
 from linkfold.store.rulesets import store_ruleset
 
-RULES = Path(__file__).parent.parent / "fixtures" / "rules" / "demo.toml"
+RULES = Path(__file__).parent.parent / "service" / "linkfold" / "demo_data" / "rules" / "demo.toml"
 
 GOOD = """domain,outlet,type,reach,coding
 northvale-herald.example,Northvale Herald,regional daily,120000,A3

@@ -21,7 +21,7 @@ import pytest
 
 from linkfold.cli import main, setup_logging, teardown_logging
 from linkfold.content.extract import EXTRACTOR_LOGGERS
-from linkfold.demo import DEMO_DUMPS, fixtures_dir
+from linkfold.demo import DEMO_DUMPS, demo_data_dir
 from linkfold.store import make_engine
 from linkfold.store.locks import hold_lock
 
@@ -42,7 +42,7 @@ def _linkfold(db_url: str, *args: str, env: dict[str, str] | None = None) -> sub
 
 def _pages(tmp_path: Path) -> Path:
     pages = tmp_path / "pages"
-    shutil.copytree(fixtures_dir() / "pages", pages)
+    shutil.copytree(demo_data_dir() / "pages", pages)
     (pages / "blank.html").write_text(EMPTY_PAGE, encoding="utf-8")
     with (pages / "pages.tsv").open("a", encoding="utf-8") as fh:
         fh.write("blank.html\thttps://quiet-desk.example/news/blank-page\t2026-11-01T12:00:00Z\n")
@@ -50,7 +50,7 @@ def _pages(tmp_path: Path) -> Path:
 
 
 def _set_up(db_url: str, tmp_path: Path) -> None:
-    fx = fixtures_dir()
+    fx = demo_data_dir()
     steps = [("rules", "add", str(fx / "rules" / "demo.toml"))]
     for name, path, options in DEMO_DUMPS:
         step = ["ingest", str(fx / path), "--dataset", name, "--url-column", options["url_column"],

@@ -37,13 +37,12 @@ from .suggest import suggest_rules_file
 log = logging.getLogger("linkfold")
 
 
-def fixtures_dir() -> Path:
-    """``fixtures/`` at the top of the source tree."""
-    path = Path(__file__).resolve().parents[2] / "fixtures"
-    return path
+def demo_data_dir() -> Path:
+    """The demo's invented data, shipped inside the package (``linkfold/demo_data/``)."""
+    return Path(__file__).resolve().parent / "demo_data"
 
 
-# (dataset, file under fixtures/, ingest options): a browsing panel (CSV; the panellist column is stored
+# (dataset, file under demo_data/, ingest options): a browsing panel (CSV; the panellist column is stored
 # only as a keyed pseudonym) and a post archive (JSON lines, links nested in an array).
 DEMO_DUMPS: list[tuple[str, str, dict[str, Any]]] = [
     ("northvale-panel", "panel_visits.csv",
@@ -111,7 +110,7 @@ def demo_outlets(engine: sa.Engine, path: Path) -> list[str]:
         table = outlet_table(conn)
     cells = [[("" if r.get(c) is None else str(r[c])) for c in table.columns] for r in table.rows]
     widths = [max(len(c), *(len(row[i]) for row in cells)) for i, c in enumerate(table.columns)]
-    lines = [f"outlet list: fixtures/{path.name} stored as version {loaded.version} "
+    lines = [f"outlet list: demo_data/{path.name} stored as version {loaded.version} "
              f"({loaded.entries} entries, {loaded.outlets} outlets); by the outlet each sighting stands for:"]
     for row in [list(table.columns), *cells]:
         lines.append("  " + "  ".join(v.ljust(w) for v, w in zip(row, widths, strict=True)).rstrip())
@@ -172,7 +171,7 @@ def run_demo(workdir: Path, *, settings: Settings | None = None, progress: Progr
     """
     db_path = prepare_workdir(workdir)
     engine = make_engine(f"sqlite:///{db_path}")
-    fx = fixtures_dir()
+    fx = demo_data_dir()
     settings = settings or load_settings()
     try:
         say(f"creating a fresh registry at {db_path}")
@@ -180,7 +179,7 @@ def run_demo(workdir: Path, *, settings: Settings | None = None, progress: Progr
         report = DemoReport(database=str(db_path))
         with engine.begin() as conn:
             version = store_ruleset(conn, load_rules(fx / "rules" / "demo.toml"))
-        report.notes.append(f"site rules: fixtures/rules/demo.toml stored as ruleset version {version}")
+        report.notes.append(f"site rules: demo_data/rules/demo.toml stored as ruleset version {version}")
         for name, path, options in DEMO_DUMPS:
             key = DEMO_PSEUDONYM_KEY if "unit_column" in options else None
             summary = ingest_dump(engine, [fx / path], dataset=name, progress=progress, pseudonym_key=key,

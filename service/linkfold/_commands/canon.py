@@ -90,7 +90,7 @@ def canonicalize_command(obj: Context, files: tuple[Path, ...], rules_file: Path
     \b
     Example:
       printf 'http://www.daily.example/a/?utm_source=x\\n' | linkfold canonicalize --explain
-      linkfold canonicalize --rules fixtures/rules/demo.toml urls.txt
+      linkfold canonicalize --rules lab-rules.toml urls.txt
     """
     rules = _chosen_rules(obj, rules_file, version)
     canon = Canonicaliser(rules, cache_size=obj.settings.canon_cache_size)
@@ -110,8 +110,8 @@ def rules_group() -> None:
 
     \b
     Example:
-      linkfold rules check fixtures/rules/demo.toml
-      linkfold rules add fixtures/rules/demo.toml --name "demo outlets"
+      linkfold rules check lab-rules.toml
+      linkfold rules add lab-rules.toml --name "demo outlets"
       linkfold rules list
       linkfold rules suggest --out suggested.toml --diff
     """
@@ -127,7 +127,7 @@ def rules_check(obj: Context, file: Path) -> None:
 
     \b
     Example:
-      linkfold rules check fixtures/rules/demo.toml
+      linkfold rules check lab-rules.toml
     """
     ruleset = load_rules(file)
     click.echo(f"{file}: OK ({len(ruleset.sites)} sites, {len(ruleset.shortener_hosts)} shortener hosts, "
@@ -150,7 +150,7 @@ def rules_add(obj: Context, file: Path, name: str | None) -> None:
 
     \b
     Example:
-      linkfold rules add fixtures/rules/demo.toml --name "demo outlets"
+      linkfold rules add lab-rules.toml --name "demo outlets"
     """
     ruleset = load_rules(file)
     engine = obj.engine()

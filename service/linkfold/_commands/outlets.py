@@ -71,7 +71,7 @@ def outlets_group(ctx: click.Context, obj: Context, datasets: tuple[str, ...], l
     Example:
       linkfold outlets
       linkfold outlets --dataset northvale-panel --format csv > outlets.csv
-      linkfold outlets load fixtures/outlets.csv
+      linkfold outlets load lab-outlets.csv
       linkfold outlets report
     """
     if ctx.invoked_subcommand is not None:
@@ -117,7 +117,7 @@ def outlets_load(obj: Context, file: Path, prefer: str | None, name: str | None,
 
     \b
     Example:
-      linkfold outlets load fixtures/outlets.csv
+      linkfold outlets load lab-outlets.csv
       linkfold outlets load lab-outlets.csv --prefer rules
     """
     try:

@@ -19,13 +19,12 @@ log = logging.getLogger("linkfold")
 
 
 def migrations_dir() -> Path:
-    """The Alembic environment: ``migrations/`` beside ``service/`` in the source tree."""
-    here = Path(__file__).resolve()
-    candidate = here.parents[3] / "migrations"
+    """The Alembic environment: ``linkfold/migrations/``, shipped inside the package (a wheel has it too)."""
+    candidate = Path(__file__).resolve().parents[1] / "migrations"
     if (candidate / "env.py").is_file():
         return candidate
     raise SchemaError(f"cannot find the migrations folder (looked in {candidate})",
-                      hint="install linkfold from a source checkout with pip install -e .")
+                      hint="reinstall linkfold: its migrations ship inside the package")
 
 
 def _config(engine: Engine) -> Config:

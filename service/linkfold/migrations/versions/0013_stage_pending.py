@@ -83,7 +83,8 @@ def upgrade() -> None:
         op.execute(f"CREATE TRIGGER {_trigger(table)} AFTER INSERT ON {table} "
                    f"REFERENCING NEW TABLE AS lf_new_rows FOR EACH STATEMENT "
                    f"EXECUTE FUNCTION lf_note_pending('{topic}', '{column}')")
-    marks = dict(conn.execute(sa.text("SELECT name, value FROM stage_marks")).all())
+    marks: dict[str, int] = {name: value for name, value in conn.execute(
+        sa.text("SELECT name, value FROM stage_marks"))}
     for topic, table, column in WATCHED:
         mark = int(marks.get(topic) or 0)
         conn.execute(sa.text(f"INSERT INTO stage_pending (topic, lo, hi) SELECT :topic, min({column}), "
