@@ -7,7 +7,8 @@ indexing the URLs, with no parsing, hashing, canonicalising or provenance at all
 Measured, each in a fresh database and a fresh process (so peak memory is the load's own), (a) and (b)
 as ``--repeat`` pairs, one right after the other, reporting the pair with the median ratio:
   (a) the baseline on N rows;
-  (b) ``ingest_dump`` end to end on a generated N-row CSV panel export (visit id, URL, time and a
+  (b) ``ingest_dump`` end to end, with the interpreter tuned as the ``linkfold`` command tunes it
+      (``linkfold.cli.tuned_interpreter``), on a generated N-row CSV panel export (visit id, URL, time and a
       column that is not stored): reading, canonicalising, staging, set-wise inserts, provenance;
   (c) the same load on N/10 rows, for peak RSS (VmHWM) at two sizes, and the peak so far at each quarter
       of the N-row load: memory must not grow with N;
@@ -152,6 +153,7 @@ def schema_floor(url: str, urls_path: Path, rows: int) -> float:
 
 CHILD = r"""
 import json, sys, time
+from linkfold.cli import tuned_interpreter
 from linkfold.store import make_engine
 from linkfold.ingest import ingest_dump
 
@@ -177,8 +179,10 @@ quarters = Quarters()
 # An invented key, for the benchmark only.
 extra = {"unit_column": "person", "pseudonym_key": b"bench key, invented, 32 bytes long"} if units else {}
 t0 = time.perf_counter()
-s = ingest_dump(engine, [path], dataset="bench", key_column="visit_id", time_column="visited",
-                cache_size=cache, progress=quarters, **extra)
+# As the linkfold command runs it: the library leaves the interpreter's settings alone, the command tunes them.
+with tuned_interpreter():
+    s = ingest_dump(engine, [path], dataset="bench", key_column="visit_id", time_column="visited",
+                    cache_size=cache, progress=quarters, **extra)
 elapsed = time.perf_counter() - t0
 print(json.dumps({"seconds": elapsed, "rss_kib": status("VmHWM"), "quarters_kib": quarters.marks,
                   "rows": s.rows, "sightings": s.sightings, "new_raw_urls": s.new_raw_urls,

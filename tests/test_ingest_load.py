@@ -380,8 +380,8 @@ def test_in_memory_sqlite_registry_loads_on_one_thread(tmp_path):
         engine.dispose()
 
 
-def _load_reading_setting(engine, tmp_path, monkeypatch, read):
-    """Load a 30-row file in batches of 10; return ``read()`` as seen inside each batch's write."""
+def _spy_on_writes(monkeypatch, read):
+    """Record ``read()`` as seen inside each batch's write (on the writer thread when there is one)."""
     seen: list = []
     real = registry.write_batch
 
@@ -390,24 +390,26 @@ def _load_reading_setting(engine, tmp_path, monkeypatch, read):
         return real(conn, **kwargs)
 
     monkeypatch.setattr(registry, "write_batch", spy)
+    return seen
+
+
+def _interpreter_settings():
+    import gc
+    import sys
+
+    return gc.get_threshold(), sys.getswitchinterval()
+
+
+def test_the_library_leaves_the_interpreter_settings_alone(engine, tmp_path, monkeypatch):
+    # The collector's threshold and the thread switch interval are process-wide: a lab's script that
+    # calls ingest_dump keeps its own, during the load and after it, also when the load fails.
+    before = _interpreter_settings()
+    seen = _spy_on_writes(monkeypatch, _interpreter_settings)
     path = tmp_path / "a.csv"
     path.write_text("url\n" + "".join(f"https://a.example/{i}\n" for i in range(30)))
     ingest_dump(engine, [path], dataset="d", batch_size=10)
-    monkeypatch.setattr(registry, "write_batch", real)
-    return path, seen
-
-
-def test_the_switch_interval_is_lowered_only_while_a_writer_thread_runs(engine, tmp_path, monkeypatch):
-    # Behaviour test of writer.py's GIL hand-over setting (a measured tuning, see its docstring).
-    import sys
-
-    from linkfold.ingest import writer as writer_module
-
-    before = sys.getswitchinterval()
-    path, seen = _load_reading_setting(engine, tmp_path, monkeypatch, sys.getswitchinterval)
-    assert seen and sys.getswitchinterval() == before
-    if engine.url.database not in (None, "", ":memory:"):  # a file or a server: the writer has a thread
-        assert max(seen) == pytest.approx(min(before, writer_module.SWITCH_INTERVAL))  # stored in microseconds
+    assert seen and set(seen) == {before}
+    assert _interpreter_settings() == before
 
     def fails(conn, **kwargs):
         raise LockHeld("simulated")
@@ -415,15 +417,27 @@ def test_the_switch_interval_is_lowered_only_while_a_writer_thread_runs(engine, 
     monkeypatch.setattr(registry, "write_batch", fails)
     with pytest.raises(LockHeld):
         ingest_dump(engine, [path], dataset="e", batch_size=10)
-    assert sys.getswitchinterval() == before  # restored on failure too
+    assert _interpreter_settings() == before
 
 
-def test_the_collector_threshold_is_raised_only_while_a_file_is_read(engine, tmp_path, monkeypatch):
-    import gc
+def test_the_command_tunes_the_interpreter_for_its_own_run_only(db_url, tmp_path, monkeypatch):
+    # The linkfold command (cli.main) raises the collector's threshold and lowers the switch interval
+    # while it runs (measured tunings, see cli.py), and gives both back when it returns, failed or not.
+    from linkfold import cli
 
-    from linkfold.ingest import load as load_module
+    before = _interpreter_settings()
+    seen = _spy_on_writes(monkeypatch, _interpreter_settings)
+    path = tmp_path / "a.csv"
+    path.write_text("url\n" + "".join(f"https://a.example/{i}\n" for i in range(30)))
+    assert cli.main(["-q", "--db", db_url, "ingest", str(path), "--dataset", "d"]) == 0
+    tuned_gc, tuned_switch = seen[0]
+    assert tuned_gc == (max(before[0][0], cli.GC_THRESHOLD), *before[0][1:])
+    assert tuned_switch == pytest.approx(min(before[1], cli.SWITCH_INTERVAL))  # kept in microseconds
+    assert _interpreter_settings() == before
 
-    before = gc.get_threshold()
-    _path, seen = _load_reading_setting(engine, tmp_path, monkeypatch, gc.get_threshold)
-    assert gc.get_threshold() == before
-    assert seen[0][0] == max(before[0], load_module.GC_THRESHOLD_WHILE_LOADING)
+    def fails(conn, **kwargs):
+        raise LockHeld("simulated")
+
+    monkeypatch.setattr(registry, "write_batch", fails)
+    assert cli.main(["-q", "--db", db_url, "ingest", str(path), "--dataset", "e"]) == LockHeld.exit_code
+    assert _interpreter_settings() == before

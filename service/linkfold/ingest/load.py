@@ -18,12 +18,11 @@ the database's work with the reading of the next batch.
 
 from __future__ import annotations
 
-import gc
 import logging
 import time
 from collections import ChainMap, Counter
-from collections.abc import Iterator, Sequence
-from contextlib import closing, contextmanager
+from collections.abc import Sequence
+from contextlib import closing
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -66,22 +65,6 @@ STAGE = "ingest"
 #: memo (``cache_size``), per generation (two at most). The ids are what most rows need, and an entry
 #: costs about a quarter of a memo entry; the bound keeps the load's memory flat once the caches are full.
 RAW_IDS_PER_MEMO_ENTRY = 4
-
-
-#: The cyclic garbage collector's first threshold while a file is read (restored after). A load allocates
-#: millions of short-lived tuples, none in a cycle, and at the default (700) the collector ran every
-#: few dozen rows over caches of a quarter of a million entries: 4-7% of a 1M-row load's CPU.
-GC_THRESHOLD_WHILE_LOADING = 50000
-
-
-@contextmanager
-def _fewer_collections() -> Iterator[None]:
-    saved = gc.get_threshold()
-    gc.set_threshold(max(saved[0], GC_THRESHOLD_WHILE_LOADING), *saved[1:])
-    try:
-        yield
-    finally:
-        gc.set_threshold(*saved)
 
 
 @dataclass(frozen=True)
@@ -394,7 +377,7 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
     progress.start(f"ingest {plan.name} (lines)", total=plan.facts.lines)
     writer: BatchWriter[_Job] = BatchWriter(engine, write, committed)
     try:
-        with closing(open_binary(plan.path, plan.facts.gzipped)) as stream, _fewer_collections():
+        with closing(open_binary(plan.path, plan.facts.gzipped)) as stream:
             reader = DumpReader(physical_lines(stream.binary, plan.options.max_line_bytes), plan.options,
                                 name=plan.name)
             try:

@@ -10,17 +10,16 @@ batches already handed over, so what is committed is always "everything up to so
 A batch whose transaction loses a deadlock or serialization conflict to a concurrent writer is written
 again from the same job (``store.conflicts.retrying``): ``write`` must leave the job as it found it.
 
-While a writer thread runs, the interpreter's thread switch interval is lowered (``SWITCH_INTERVAL``):
-the writer thread needs the interpreter after every round trip and every piece of a COPY, and the reading
-thread, which never blocks, would otherwise keep it for the default 5 ms each time while the database
-waits. Measured on a 1M-row load (bench/ingest_bench.py): 0.2 ms gave 96-102k rows/s against 84-87k.
+The writer thread needs the interpreter after every round trip and every piece of a COPY, and the reading
+thread never blocks: at the default thread switch interval (5 ms) the database waits for it each time.
+The library leaves process-wide interpreter settings alone; the ``linkfold`` command lowers the interval
+for its own process (``linkfold.cli.tuned_interpreter``, where the measurement is).
 """
 
 from __future__ import annotations
 
 import logging
 import queue
-import sys
 import threading
 from collections.abc import Callable
 from typing import Any, Generic, TypeVar
@@ -33,28 +32,6 @@ log = logging.getLogger("linkfold")
 
 Job = TypeVar("Job")
 _STOP = object()
-SWITCH_INTERVAL = 0.0002  # seconds
-
-_switch_lock = threading.Lock()
-_switch_users = 0
-_switch_saved = 0.0
-
-
-def _lower_switch_interval() -> None:
-    global _switch_users, _switch_saved
-    with _switch_lock:
-        if _switch_users == 0:
-            _switch_saved = sys.getswitchinterval()
-            sys.setswitchinterval(min(_switch_saved, SWITCH_INTERVAL))
-        _switch_users += 1
-
-
-def _restore_switch_interval() -> None:
-    global _switch_users
-    with _switch_lock:
-        _switch_users -= 1
-        if _switch_users == 0:
-            sys.setswitchinterval(_switch_saved)
 
 
 class BatchWriter(Generic[Job]):
@@ -72,12 +49,10 @@ class BatchWriter(Generic[Job]):
         self._queue: queue.Queue = queue.Queue(maxsize=depth)
         self._error: BaseException | None = None
         self._thread = threading.Thread(target=self._run, name=name, daemon=True)
-        self._stopped = False
         # An in-memory SQLite database exists once per connection (per thread, in SQLAlchemy's pool): a
         # second thread would write into a database of its own. Write on the caller's thread instead.
         self._inline = engine.dialect.name == "sqlite" and engine.url.database in (None, "", ":memory:")
         if not self._inline:
-            _lower_switch_interval()
             self._thread.start()
 
     def _run(self) -> None:
@@ -132,18 +107,13 @@ class BatchWriter(Generic[Job]):
             log.warning("the batch writer failed as well: %s", self._error)
 
     def _put_stop(self) -> None:
-        try:
-            while self._thread.is_alive():
-                try:
-                    self._queue.put(_STOP, timeout=0.1)
-                    break
-                except queue.Full:
-                    continue
-            self._thread.join()
-        finally:
-            if not self._stopped:
-                self._stopped = True
-                _restore_switch_interval()
+        while self._thread.is_alive():
+            try:
+                self._queue.put(_STOP, timeout=0.1)
+                break
+            except queue.Full:
+                continue
+        self._thread.join()
 
 
 __all__ = ["BatchWriter"]
