@@ -29,7 +29,7 @@ from .network import write_network
 from .outlets import load_outlet_list, outlet_table
 from .progress import SILENT, Progress
 from .settings import Settings, load_settings
-from .store import ensure_schema, make_engine
+from .store import make_engine, upgrade_schema
 from .store import tables as t
 from .store.rulesets import store_ruleset
 from .suggest import suggest_rules_file
@@ -175,7 +175,7 @@ def run_demo(workdir: Path, *, settings: Settings | None = None, progress: Progr
     settings = settings or load_settings()
     try:
         say(f"creating a fresh registry at {db_path}")
-        ensure_schema(engine)
+        upgrade_schema(engine)
         report = DemoReport(database=str(db_path))
         with engine.begin() as conn:
             version = store_ruleset(conn, load_rules(fx / "rules" / "demo.toml"))

@@ -33,7 +33,7 @@ def db_upgrade(obj: Context, revision: str) -> None:
     """
     engine = obj.engine(check_schema=False)
     before = store.current_revision(engine)
-    after = store.upgrade(engine, revision)
+    after = store.upgrade_schema(engine, revision)
     obj.message(f"schema of {store.display_url(engine)}: {before or 'empty'} -> {after}")
 
 

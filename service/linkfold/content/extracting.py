@@ -22,6 +22,7 @@ from ..errors import ConfigError, InvalidURL
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import pages as sp
+from ..store.migrate import require_schema
 from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
@@ -185,6 +186,7 @@ def extract_pages(engine: Engine, *, settings: Any = None, reextract: bool = Fal
     the current extractor version (trafilatura's version and ``CONTENT_VERSION``), so after an upgrade one
     run brings every page up to date; the older documents are kept. ``limit`` stops after that many pages.
     """
+    require_schema(engine)
     if limit is not None and limit <= 0:
         raise ConfigError(f"--limit must be a positive number (got {limit})")
     version = extractor_version()

@@ -35,6 +35,7 @@ from ..errors import ConfigError, InvalidURL
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import pages as sp
+from ..store.migrate import require_schema
 from ..store.registry import get_dataset
 from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
@@ -197,6 +198,7 @@ def fetch_pages(engine: Engine, *, settings: Any, dataset: str | None = None, on
     that are due; ``resolver`` and ``backend`` replace DNS and the socket layer (tests, lab pinning).
     ``parent_run`` is the run this one is a step of (a job's), recorded as its parent.
     """
+    require_schema(engine)
     if limit is not None and limit <= 0:
         raise ConfigError(f"--limit must be a positive number (got {limit})")
     config = ClientConfig.from_settings(settings)

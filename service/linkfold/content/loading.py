@@ -24,6 +24,7 @@ from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import pages as sp
 from ..store.conflicts import retrying
+from ..store.migrate import require_schema
 from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
@@ -103,6 +104,7 @@ def load_documents(engine: Engine, path: str | Path, *, settings: Any = None, ba
     Documents get ``page_id`` NULL and ``source`` ``load:<file name>:<line>``. Raises
     :class:`~linkfold.errors.InputError` when the file cannot be read at all.
     """
+    require_schema(engine)
     path = Path(path)
     size = max(1, batch_size or (settings.batch_size if settings is not None else 1000))
     size = min(size, 1000)  # a batch holds texts in memory

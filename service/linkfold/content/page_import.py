@@ -23,6 +23,7 @@ from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import pages as sp
 from ..store.conflicts import retrying
+from ..store.migrate import require_schema
 from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
@@ -118,6 +119,7 @@ def import_pages(engine: Engine, paths: Iterable[str | Path], *, settings: Any =
     ``parent_run`` is the run this one is a step of (a job's), recorded as its parent.
     ``max_bytes`` (default: the ``http_max_bytes`` setting) is the body cap, as for fetched pages.
     """
+    require_schema(engine)
     inputs = [Path(p) for p in paths]
     if not inputs:
         raise ConfigError("give at least one WARC file, page directory or JSONL file")

@@ -34,6 +34,7 @@ from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import finals
 from ..store.conflicts import retrying
+from ..store.migrate import require_schema
 from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
@@ -136,6 +137,7 @@ def import_redirects(engine: Engine, path: str | Path, *, fmt: str | None = None
                      progress: Progress = SILENT, parent_run: int | None = None) -> ImportSummary:
     """Store the (short, expanded) pairs of ``path`` as redirect links (see the module doc). ``parent_run``
     is the run this one is a step of (a job's), recorded as its parent."""
+    require_schema(engine)
     path = Path(path)
     kind = _format_of(path, fmt)
     summary = ImportSummary(file=path.name, path=str(path))

@@ -37,6 +37,7 @@ from ..errors import ConfigError, InvalidURL
 from ..progress import SILENT, Progress
 from ..store import evidence as ev
 from ..store import finals
+from ..store.migrate import require_schema
 from ..store.registry import get_dataset
 from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
@@ -253,6 +254,7 @@ def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
     ``resolver`` and ``backend`` replace DNS and the socket layer (tests, lab pinning). ``parent_run`` is
     the run this one is a step of (a job's), recorded as its parent.
     """
+    require_schema(engine)
     if all_urls and hosts:
         raise ConfigError("give either --all or --hosts, not both")
     if retry_failed and retry_refused:

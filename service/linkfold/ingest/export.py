@@ -23,6 +23,7 @@ from .._tabular import atomic_path, csv_cell
 from ..errors import ConfigError
 from ..progress import SILENT, Progress
 from ..store import registry
+from ..store.migrate import require_schema
 from ..store.registry import LINK_COLUMNS
 
 EXPORT_FORMATS = ("csv", "jsonl", "parquet")
@@ -119,6 +120,7 @@ def export_dataset(engine: Engine, dataset: str, *, fmt: str = "csv", out: str |
     ``out`` is a path, an open text stream, or ``None`` for stdout (CSV and JSON lines only: Parquet is
     a binary file format and needs a path).
     """
+    require_schema(engine)
     if fmt not in EXPORT_FORMATS:
         raise ConfigError(f"unknown export format {fmt!r}: use one of {', '.join(EXPORT_FORMATS)}")
     if fmt == "parquet" and (out is None or not isinstance(out, str | Path)):

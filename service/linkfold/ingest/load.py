@@ -47,6 +47,7 @@ from ..progress import SILENT, Progress
 from ..pseudonyms import SCHEME, Pseudonymiser
 from ..store import registry
 from ..store.bulk import EncodedRows
+from ..store.migrate import require_schema
 from ..store.pseudonym_keys import check_key
 from ..store.rulesets import get_ruleset, latest_ruleset, store_ruleset
 from ..store.runs import recording_run
@@ -160,6 +161,7 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
     file cannot be read as asked; single bad rows never raise, they become rejects. ``parent_run`` is the
     run this one is a step of (a job's), recorded as its parent.
     """
+    require_schema(engine)
     name = (dataset or "").strip()
     if not name:
         raise ConfigError("a dataset needs a name (--dataset NAME)")

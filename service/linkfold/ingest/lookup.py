@@ -51,6 +51,7 @@ from ..errors import InvalidURL
 from ..store import clusters, finals, registry
 from ..store import tables as t
 from ..store.finals import FINAL_COLUMNS
+from ..store.migrate import require_schema
 from ..store.rulesets import latest_ruleset
 from .rows import raw_hash, storable
 
@@ -79,6 +80,7 @@ def _answer(text: str) -> dict[str, Any]:
 def lookup(engine: Engine, items: Iterable[str], *, rules: Ruleset | None = None,
            cache_size: int = 65536) -> Iterator[dict[str, Any]]:
     """One answer (a dict with :data:`LOOKUP_FIELDS`) per input, in input order, ``_CHUNK`` at a time."""
+    require_schema(engine)
     with engine.connect() as conn:
         canon = Canonicaliser(rules if rules is not None else _current_rules(conn), cache_size=cache_size)
         conn.rollback()

@@ -28,6 +28,7 @@ from sqlalchemy.engine import Engine
 from ..canon import Canonicaliser
 from ..errors import InvalidURL
 from ..progress import SILENT, Progress
+from ..store.migrate import require_schema
 from ..store.recanon import Recanonicalised, apply_recanon, count_recanon_pending, select_recanon_batch
 from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
@@ -86,6 +87,7 @@ def recanonicalize(engine: Engine, *, settings: Any = None, batch_size: int | No
     Records a run (a child of ``parent_run`` when given) even when nothing is pending, so the run log
     says the registry was checked.
     """
+    require_schema(engine)
     batch = batch_size or (settings.batch_size if settings is not None else DEFAULT_BATCH_SIZE)
     cache = cache_size or (settings.canon_cache_size if settings is not None else 65536)
     with engine.begin() as conn:

@@ -29,6 +29,7 @@ from sqlalchemy.engine import Engine
 from ..errors import LinkfoldError
 from ..progress import SILENT, Progress
 from ..store.locks import acquire_lock
+from ..store.migrate import require_schema
 from ..store.runs import (
     RunStatus,
     StageSummary,
@@ -187,6 +188,7 @@ def mark_interrupted(engine: Engine, *, own_run: int) -> list[int]:
 def run_nightly(engine: Engine, *, settings: Any, progress: Progress = SILENT,
                 stages: tuple[Stage, ...] = DEFAULT_STAGES, stale_after: float = 6 * 3600) -> NightlySummary:
     """Run every stage with pending work, in order, holding the registry lock (see the module doc)."""
+    require_schema(engine)
     lock = acquire_lock(engine, "registry", stale_after=stale_after)
     summary = NightlySummary()
     try:

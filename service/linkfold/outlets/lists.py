@@ -26,6 +26,7 @@ from sqlalchemy.engine import Connection, Engine
 
 from ..errors import InputError, OutletListError
 from ..store import tables as t
+from ..store.migrate import require_schema
 from ..store.rulesets import current_ruleset
 from .listfile import OutletEntry, OutletList, RuleConflict, parse_outlet_list, rule_conflicts
 
@@ -90,6 +91,7 @@ def load_outlet_list(engine: Engine, path: Path | str, *, prefer: Prefer | None 
     against the site outlet names of the ruleset in force: a disagreement refuses the load unless
     ``prefer`` says which name wins. A refused load writes nothing. ``check_only`` checks and writes nothing.
     """
+    require_schema(engine)
     path = Path(path)
     source = str(path)
     try:

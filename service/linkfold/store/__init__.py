@@ -2,7 +2,15 @@
 
 from .bulk import insert_new_rows, insert_rows
 from .engine import display_url, is_postgres, make_engine, normalise_database_url
-from .migrate import current_revision, downgrade, ensure_schema, head_revision, upgrade
+from .migrate import (
+    current_revision,
+    downgrade,
+    ensure_schema,
+    head_revision,
+    require_schema,
+    upgrade,
+    upgrade_schema,
+)
 from .tables import metadata
 
 __all__ = [
@@ -17,5 +25,7 @@ __all__ = [
     "make_engine",
     "metadata",
     "normalise_database_url",
+    "require_schema",
     "upgrade",
+    "upgrade_schema",
 ]

@@ -27,6 +27,7 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
 from . import tables as t
+from .migrate import require_schema
 
 _MAX_ERROR_CHARS = 4000
 
@@ -66,7 +67,12 @@ def _execute(bind: Bind, stmt: sa.Executable) -> sa.CursorResult:
 
 
 def start_run(bind: Bind, stage: str, *, parent_id: int | None = None) -> int:
-    """Record the start of ``stage`` and return the run id."""
+    """Record the start of ``stage`` and return the run id.
+
+    Every stage records a run before it works, so this is also where a stage that forgot to check the
+    schema (:func:`~linkfold.store.migrate.require_schema`) is refused with a clear error."""
+    if isinstance(bind, Engine):
+        require_schema(bind)
     stmt = sa.insert(t.runs).values(stage=stage[:40], status=RunStatus.RUNNING.value, parent_id=parent_id,
                                     started_at=datetime.now(UTC), host=socket.gethostname()[:255],
                                     pid=os.getpid()).returning(t.runs.c.id)

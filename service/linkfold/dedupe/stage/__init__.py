@@ -23,6 +23,7 @@ from sqlalchemy.engine import Engine
 from ...progress import SILENT, Progress
 from ...store import pending as pq
 from ...store.locks import hold_lock
+from ...store.migrate import require_schema
 from ...store.runs import recording_run
 from ...store.stats import refresh_statistics
 from .. import SignatureParams, Thresholds
@@ -110,6 +111,7 @@ def run_dedupe(engine: Engine, *, settings: Any, full: bool = False, parent_run:
     Holds the registry lock for the run: raises :class:`~linkfold.errors.LockHeld`, naming the holder,
     while another process holds it. ``parent_run`` is the run this one is a step of (a job's).
     """
+    require_schema(engine)
     with hold_lock(engine, reentrant=True):
         return _run_dedupe(engine, settings=settings, full=full, parent_run=parent_run, progress=progress)
 

@@ -27,6 +27,7 @@ from ...ingest.lookup import lookup
 from ...store import clusters as cs
 from ...store import tables as t
 from ...store.finals import finals_of
+from ...store.migrate import require_schema
 from ...store.registry import now, utc
 
 VERDICTS = ("same", "different")
@@ -185,6 +186,7 @@ def record_decision(engine: Engine, verdict: str, a_ref: str, b_ref: str, *, dec
     ``level`` (``article`` or ``story``) overrides the level that follows from the references; the result
     says which level was recorded and why, and whether the decision changes anything as clusters stand.
     """
+    require_schema(engine)
     if verdict not in VERDICTS:
         raise InputError(f"verdict must be one of {', '.join(VERDICTS)}, not {verdict!r}")
     who = (decided_by or "").strip()
