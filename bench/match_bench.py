@@ -71,7 +71,7 @@ def main(argv: list[str] | None = None) -> int:
 
     settings = load_settings(environ={})
     params = SignatureParams.from_settings(settings)
-    floor = settings["story_threshold"] + 0.05
+    floor = settings.story_threshold + 0.05
     sizes = [n for n in (10_000, 30_000, 100_000, 300_000, 1_000_000) if n <= args.max_docs] or [args.max_docs]
 
     t0 = time.perf_counter()

@@ -31,6 +31,7 @@ from linkfold.pseudonyms import (
     require_key,
     unit_text,
 )
+from linkfold.settings import load_settings
 from linkfold.store import tables as t
 
 KEY = b"an invented lab key, 32 bytes long or more"
@@ -89,21 +90,25 @@ def test_a_json_object_is_no_unit():
         unit_text({"id": 1})
 
 
+def _settings(**values):
+    return load_settings(overrides=values, environ={})
+
+
 def test_the_key_comes_from_one_setting_and_is_long_enough(tmp_path):
-    assert key_from_settings({}) is None
-    assert key_from_settings({"pseudonym_key": KEY.decode()}) == KEY
+    assert key_from_settings(_settings()) is None
+    assert key_from_settings(_settings(pseudonym_key=KEY.decode())) == KEY
     keyfile = tmp_path / "lab.key"
     keyfile.write_bytes(KEY + b"\n")
-    assert key_from_settings({"pseudonym_key_file": str(keyfile)}) == KEY  # one line end removed
+    assert key_from_settings(_settings(pseudonym_key_file=str(keyfile))) == KEY  # one line end removed
     with pytest.raises(ConfigError, match="give one"):
-        key_from_settings({"pseudonym_key": KEY.decode(), "pseudonym_key_file": str(keyfile)})
+        key_from_settings(_settings(pseudonym_key=KEY.decode(), pseudonym_key_file=str(keyfile)))
     with pytest.raises(ConfigError, match="at least 32") as short:
-        key_from_settings({"pseudonym_key": "short secret"})
+        key_from_settings(_settings(pseudonym_key="short secret"))
     assert "short secret" not in str(short.value)  # an error never shows the key
     with pytest.raises(ConfigError, match="pseudonym_key_file"):
-        key_from_settings({"pseudonym_key_file": str(tmp_path / "missing.key")})
+        key_from_settings(_settings(pseudonym_key_file=str(tmp_path / "missing.key")))
     with pytest.raises(ConfigError, match="LINKFOLD_PSEUDONYM_KEY"):
-        require_key({})
+        require_key(_settings())
 
 
 # --- loads ---------------------------------------------------------------------------------------------------

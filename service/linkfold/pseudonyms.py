@@ -23,11 +23,11 @@ import base64
 import hashlib
 import hmac
 import json
-from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
 from .errors import ConfigError
+from .settings import Settings
 
 SCHEME = "hs256"
 PREFIX = SCHEME + ":"
@@ -110,12 +110,12 @@ def fingerprint(key: bytes) -> str:
     return "kf1:" + base64.b32encode(hmac_sha256(key, FINGERPRINT_LABEL)[:20]).decode("ascii").lower()
 
 
-def key_from_settings(settings: Mapping[str, Any]) -> bytes | None:
+def key_from_settings(settings: Settings) -> bytes | None:
     """The lab's key from the settings ``pseudonym_key`` (text, UTF-8) or ``pseudonym_key_file`` (the file's
     bytes, one trailing line end removed); None when neither is set. Both set, an unreadable file or a key
     shorter than 32 bytes is a ``ConfigError`` that names the setting (never the key)."""
-    text = settings.get("pseudonym_key") or ""
-    path = settings.get("pseudonym_key_file") or ""
+    text = settings.pseudonym_key or ""
+    path = settings.pseudonym_key_file or ""
     if text and path:
         raise ConfigError("both pseudonym_key and pseudonym_key_file are set; give one of them")
     if text:
@@ -139,7 +139,7 @@ def key_from_settings(settings: Mapping[str, Any]) -> bytes | None:
     return key
 
 
-def require_key(settings: Mapping[str, Any]) -> bytes:
+def require_key(settings: Settings) -> bytes:
     """:func:`key_from_settings`, refusing when there is none."""
     key = key_from_settings(settings)
     if key is None:

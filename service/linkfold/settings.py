@@ -8,9 +8,10 @@ setting is documented all read this table; nothing else in the package reads ``o
 
 from __future__ import annotations
 
+import dataclasses
 import os
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 from typing import Any
 
 from .errors import ConfigError
@@ -153,32 +154,90 @@ SETTINGS: tuple[Setting, ...] = (
 _BY_NAME = {s.name: s for s in SETTINGS}
 
 
-class Settings(Mapping[str, Any]):
-    """Resolved settings: read like a mapping or by attribute (``settings.database_url``)."""
+@dataclass(frozen=True)
+class Settings:
+    """Resolved settings, one typed field per row of :data:`SETTINGS` (in the table's order).
 
-    def __init__(self, values: Mapping[str, Any]) -> None:
-        self._values = dict(values)
+    The table stays the one source of names, defaults, help and environment variables; this class adds
+    the types, and a test keeps the two in step (every row a field of the type its default has, and no
+    field without a row). Build it with :func:`load_settings`; change a copy with :meth:`replace`.
+    """
 
-    def __getitem__(self, key: str) -> Any:
-        return self._values[key]
+    database_url: str
+    batch_size: int
+    busy_timeout: float
+    ingest_batch_size: int
+    canon_cache_size: int
+    max_line_bytes: int
+    pseudonym_key: str
+    pseudonym_key_file: str
+    contact: str
+    allow_networks: tuple[str, ...]
+    ca_bundle: str
+    http_timeout: float
+    http_max_bytes: int
+    http_concurrency: int
+    http_host_concurrency: int
+    http_host_delay: float
+    http_retries: int
+    http_max_wait: float
+    max_hops: int
+    shingle_size: int
+    num_perm: int
+    minhash_seed: int
+    minhash_scheme: str
+    lsh_bands: int
+    lsh_rows: int
+    article_threshold: float
+    story_threshold: float
+    title_threshold: float
+    max_date_gap_days: int
+    min_words: int
+    lsh_max_bucket: int
+    sink_fan_in: int
+    open_reads: bool
+    api_max_batch: int
+    api_max_body_bytes: int
+    api_url: str
 
-    def __getattr__(self, key: str) -> Any:
-        try:
-            return self._values[key]
-        except KeyError:
-            raise AttributeError(key) from None
+    def __post_init__(self) -> None:
+        for f in fields(self):
+            value = getattr(self, f.name)
+            if isinstance(value, list) and f.type == "tuple[str, ...]":
+                object.__setattr__(self, f.name, tuple(value))  # a list from a caller: stored frozen
+            elif not _has_type(value, str(f.type)):
+                raise ConfigError(f"setting {f.name} must be {f.type}, not {value!r}")
+        if self.lsh_bands * self.lsh_rows > self.num_perm:
+            raise ConfigError(f"lsh_bands × lsh_rows ({self.lsh_bands} × {self.lsh_rows}) exceeds "
+                              f"num_perm ({self.num_perm})")
 
-    def __iter__(self):
-        return iter(self._values)
-
-    def __len__(self) -> int:
-        return len(self._values)
+    def __getitem__(self, name: str) -> Any:
+        """A setting by its name (``settings["num_perm"]``), for code that picks settings from a list
+        of names; typed code reads the attribute."""
+        if name not in _BY_NAME:
+            raise KeyError(name)
+        return getattr(self, name)
 
     def replace(self, **overrides: Any) -> Settings:
+        """A copy with ``overrides`` applied; an unknown name is a :class:`ConfigError`."""
         unknown = set(overrides) - set(_BY_NAME)
         if unknown:
             raise ConfigError(f"unknown setting(s): {', '.join(sorted(unknown))}")
-        return Settings({**self._values, **overrides})
+        return dataclasses.replace(self, **overrides)
+
+
+#: The annotation of a field -> what its values must be. An int is a float here (``http_timeout=2``).
+_TYPE_CHECKS: dict[str, Callable[[Any], bool]] = {
+    "str": lambda v: isinstance(v, str),
+    "int": lambda v: isinstance(v, int) and not isinstance(v, bool),
+    "float": lambda v: isinstance(v, int | float) and not isinstance(v, bool),
+    "bool": lambda v: isinstance(v, bool),
+    "tuple[str, ...]": lambda v: isinstance(v, tuple) and all(isinstance(x, str) for x in v),
+}
+
+
+def _has_type(value: Any, annotation: str) -> bool:
+    return _TYPE_CHECKS[annotation](value)
 
 
 def load_settings(overrides: Mapping[str, Any] | None = None,
@@ -203,10 +262,7 @@ def load_settings(overrides: Mapping[str, Any] | None = None,
             raise ConfigError(f"unknown setting: {key}")
         if value is not None:
             values[key] = value
-    if values["lsh_bands"] * values["lsh_rows"] > values["num_perm"]:
-        raise ConfigError(f"lsh_bands × lsh_rows ({values['lsh_bands']} × {values['lsh_rows']}) exceeds "
-                          f"num_perm ({values['num_perm']})")
-    return Settings(values)
+    return Settings(**values)
 
 
 def describe_settings() -> list[dict[str, Any]]:

@@ -20,6 +20,7 @@ from sqlalchemy.engine import Engine
 from ..canon import Canonical, Canonicaliser, Ruleset
 from ..errors import ConfigError, InvalidURL
 from ..progress import SILENT, Progress
+from ..settings import Settings
 from ..store import evidence as ev
 from ..store import pages as sp
 from ..store.migrate import require_schema
@@ -171,13 +172,13 @@ class _DocWriter:
         return link, raw, via, target
 
 
-def count_pending(engine: Engine, *, settings: Any = None, reextract: bool = False) -> int:
+def count_pending(engine: Engine, *, settings: Settings | None = None, reextract: bool = False) -> int:
     """Pages without a document (with ``reextract``: without one under the current extractor version)."""
     with engine.connect() as conn:
         return sp.count_extract_pending(conn, version=extractor_version(), reextract=reextract)
 
 
-def extract_pages(engine: Engine, *, settings: Any = None, reextract: bool = False, limit: int | None = None,
+def extract_pages(engine: Engine, *, settings: Settings | None = None, reextract: bool = False, limit: int | None = None,
                   batch_size: int | None = None, rules: UsableTextRules = DEFAULT_RULES,
                   progress: Progress = SILENT, parent_run: int | None = None) -> ExtractSummary:
     """Turn stored pages into documents (see the module doc); returns the counts.

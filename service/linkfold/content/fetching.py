@@ -33,6 +33,7 @@ from sqlalchemy.engine import Engine
 from ..canon import Canonical, Canonicaliser
 from ..errors import ConfigError, InvalidURL
 from ..progress import SILENT, Progress
+from ..settings import Settings
 from ..store import evidence as ev
 from ..store import pages as sp
 from ..store.migrate import require_schema
@@ -178,14 +179,14 @@ class _Writer:
                            fetched_at=got.at, run_id=self.run_id)
 
 
-def count_pending(engine: Engine, *, settings: Any = None, now: datetime | None = None) -> int:
+def count_pending(engine: Engine, *, settings: Settings | None = None, now: datetime | None = None) -> int:
     """Canonical URLs to fetch: without a page, never tried or failed with the next attempt due (``now``
     overrides the clock for that)."""
     with engine.connect() as conn:
         return sp.count_fetch_pending(conn, now=now)
 
 
-def fetch_pages(engine: Engine, *, settings: Any, dataset: str | None = None, only_articles: bool = False,
+def fetch_pages(engine: Engine, *, settings: Settings, dataset: str | None = None, only_articles: bool = False,
                 limit: int | None = None, retry_refused: bool = False, resolver: Resolver | None = None,
                 progress: Progress = SILENT, now: datetime | None = None,
                 backend: httpcore.AsyncNetworkBackend | None = None,

@@ -21,6 +21,7 @@ from ..canon import Canonical, Canonicaliser
 from ..errors import InvalidURL
 from ..inputs import DumpFormat, LineProblem, RecordProblem, read_records
 from ..progress import SILENT, Progress
+from ..settings import Settings
 from ..store import evidence as ev
 from ..store import pages as sp
 from ..store.conflicts import retrying
@@ -88,12 +89,12 @@ def record_hash(doc: Document) -> str:
     return hashlib.sha256(json.dumps(fields, ensure_ascii=False).encode("utf-8")).hexdigest()
 
 
-def count_pending(engine: Engine, *, settings: Any = None) -> int:
+def count_pending(engine: Engine, *, settings: Settings | None = None) -> int:
     """Always 0: a load's work is the file it is given; nothing in the registry waits for it."""
     return 0
 
 
-def load_documents(engine: Engine, path: str | Path, *, settings: Any = None, batch_size: int | None = None,
+def load_documents(engine: Engine, path: str | Path, *, settings: Settings | None = None, batch_size: int | None = None,
                    rules: UsableTextRules = DEFAULT_RULES, now: datetime | None = None,
                    progress: Progress = SILENT, parent_run: int | None = None) -> LoadSummary:
     """Load already-extracted documents from JSON lines (``url``, ``title``, ``text``; optional

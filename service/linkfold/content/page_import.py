@@ -20,6 +20,7 @@ from ..canon import Canonical, Canonicaliser
 from ..errors import ConfigError, InputError, InvalidURL
 from ..inputs import LineProblem
 from ..progress import SILENT, Progress
+from ..settings import Settings
 from ..store import evidence as ev
 from ..store import pages as sp
 from ..store.conflicts import retrying
@@ -102,12 +103,12 @@ class _PageWriter:
         return new, rows
 
 
-def count_pending(engine: Engine, *, settings: Any = None) -> int:
+def count_pending(engine: Engine, *, settings: Settings | None = None) -> int:
     """Always 0: an import's work is the files it is given; nothing in the registry waits for it."""
     return 0
 
 
-def import_pages(engine: Engine, paths: Iterable[str | Path], *, settings: Any = None,
+def import_pages(engine: Engine, paths: Iterable[str | Path], *, settings: Settings | None = None,
                  max_bytes: int | None = None, batch_size: int | None = None,
                  progress: Progress = SILENT, parent_run: int | None = None) -> ImportSummary:
     """Store the pages of WARC files, page directories (with a ``pages.tsv`` manifest) and page JSONL.

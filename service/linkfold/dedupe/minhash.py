@@ -14,7 +14,7 @@ on large sets, and nothing stored here predates 2.0.
 from __future__ import annotations
 
 import re
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterable
 from dataclasses import dataclass
 from typing import Any
 
@@ -22,6 +22,7 @@ import numpy as np
 
 from ..errors import ConfigError, SignatureError
 from ..progress import SILENT, Progress
+from ..settings import Settings
 from .shingle import HASH_NAME, WordHasher, batch_shingle_hashes
 
 SCHEMES = ("affine32", "affine64")
@@ -86,10 +87,10 @@ class SignatureParams:
                               f"({self.num_perm})")
 
     @classmethod
-    def from_settings(cls, settings: Mapping[str, Any]) -> SignatureParams:
-        return cls(shingle_size=settings["shingle_size"], num_perm=settings["num_perm"],
-                   seed=settings["minhash_seed"], scheme=settings["minhash_scheme"],
-                   bands=settings["lsh_bands"], rows=settings["lsh_rows"])
+    def from_settings(cls, settings: Settings) -> SignatureParams:
+        return cls(shingle_size=settings.shingle_size, num_perm=settings.num_perm,
+                   seed=settings.minhash_seed, scheme=settings.minhash_scheme,
+                   bands=settings.lsh_bands, rows=settings.lsh_rows)
 
     @property
     def width(self) -> int:

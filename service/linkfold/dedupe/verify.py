@@ -19,16 +19,16 @@ LSH candidates include false positives by design, so every candidate is checked 
 from __future__ import annotations
 
 import enum
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import date
-from typing import Any
 
 import numpy as np
 from rapidfuzz import fuzz
 
 from ..errors import ConfigError
 from ..progress import SILENT, Progress
+from ..settings import Settings
 from .minhash import estimate_jaccard
 from .shingle import exact_jaccard, normalise_words
 from .titles import MIN_TITLE_WORDS, title_word_count
@@ -62,10 +62,10 @@ class Thresholds:
             raise ConfigError("max_date_gap_days must be ≥ 0 and min_words ≥ 1")
 
     @classmethod
-    def from_settings(cls, settings: Mapping[str, Any]) -> Thresholds:
-        return cls(article=settings["article_threshold"], story=settings["story_threshold"],
-                   title=settings["title_threshold"], max_date_gap_days=settings["max_date_gap_days"],
-                   min_words=settings["min_words"])
+    def from_settings(cls, settings: Settings) -> Thresholds:
+        return cls(article=settings.article_threshold, story=settings.story_threshold,
+                   title=settings.title_threshold, max_date_gap_days=settings.max_date_gap_days,
+                   min_words=settings.min_words)
 
 
 @dataclass(frozen=True)

@@ -31,6 +31,7 @@ from ..canon import Canonical, Canonicaliser
 from ..errors import DumpFormatError, InputError, InvalidURL
 from ..inputs import TABLE_FORMATS, DumpFormat, LineProblem, parse_format, parse_path, read_records, resolve
 from ..progress import SILENT, Progress
+from ..settings import Settings
 from ..store import evidence as ev
 from ..store import finals
 from ..store.conflicts import retrying
@@ -127,7 +128,7 @@ def _records(path: Path, fmt: DumpFormat, short_col: str, expanded_col: str,
     summary.lines_read = reader.lines_read
 
 
-def count_pending(engine: Engine, *, settings: Any = None) -> int:
+def count_pending(engine: Engine, *, settings: Settings | None = None) -> int:
     """Always 0: an import's work is the file it is given; nothing in the registry waits for it."""
     return 0
 

@@ -35,6 +35,7 @@ from sqlalchemy.engine import Engine
 from ..canon import Canonical, Canonicaliser
 from ..errors import ConfigError, InvalidURL
 from ..progress import SILENT, Progress
+from ..settings import Settings
 from ..store import evidence as ev
 from ..store import finals
 from ..store.migrate import require_schema
@@ -225,7 +226,7 @@ class _Writer:
         return out
 
 
-def count_pending(engine: Engine, *, settings: Any = None, hosts: Iterable[str] | None = None) -> int:
+def count_pending(engine: Engine, *, settings: Settings | None = None, hosts: Iterable[str] | None = None) -> int:
     """Canonical URLs never followed on ``hosts`` (default: the ruleset's shortener hosts; 0 when it lists
     none), as :func:`follow_links` would choose them by default."""
     with engine.connect() as conn:
@@ -237,7 +238,7 @@ def count_pending(engine: Engine, *, settings: Any = None, hosts: Iterable[str] 
         return ev.count_pending(conn, hosts=chosen) if chosen else 0
 
 
-def follow_links(engine: Engine, *, settings: Any, dataset: str | None = None,
+def follow_links(engine: Engine, *, settings: Settings, dataset: str | None = None,
                  hosts: Iterable[str] | None = None, all_urls: bool = False, limit: int | None = None,
                  retry_failed: bool = False, retry_refused: bool = False, due_only: bool = True,
                  resolver: Resolver | None = None, progress: Progress = SILENT,

@@ -45,6 +45,7 @@ from ..inputs import (
 )
 from ..progress import SILENT, Progress
 from ..pseudonyms import SCHEME, Pseudonymiser
+from ..settings import Settings
 from ..store import registry
 from ..store.bulk import EncodedRows
 from ..store.migrate import require_schema
@@ -133,7 +134,7 @@ def _resolve_ruleset(conn: Connection, ruleset: int | str | Path | Ruleset | Non
     return store_ruleset(conn, rules), rules
 
 
-def count_pending(engine: Engine, *, settings: Any = None) -> int:
+def count_pending(engine: Engine, *, settings: Settings | None = None) -> int:
     """Files whose load was interrupted: loading the same file into the same dataset again resumes it.
 
     An ingest's work is otherwise the files it is given; nothing else in the registry waits for it.

@@ -28,6 +28,7 @@ from sqlalchemy.engine import Engine
 from ..canon import Canonicaliser
 from ..errors import InvalidURL
 from ..progress import SILENT, Progress
+from ..settings import Settings
 from ..store.migrate import require_schema
 from ..store.recanon import Recanonicalised, apply_recanon, count_recanon_pending, select_recanon_batch
 from ..store.rulesets import latest_ruleset
@@ -72,13 +73,13 @@ class RecanonSummary:
         return out
 
 
-def count_pending(engine: Engine, *, settings: Any = None) -> int:
+def count_pending(engine: Engine, *, settings: Settings | None = None) -> int:
     """Raw URLs not yet canonicalised under the newest ruleset (0 when no ruleset is stored yet)."""
     with engine.connect() as conn:
         return count_recanon_pending(conn)
 
 
-def recanonicalize(engine: Engine, *, settings: Any = None, batch_size: int | None = None,
+def recanonicalize(engine: Engine, *, settings: Settings | None = None, batch_size: int | None = None,
                    cache_size: int | None = None, progress: Progress = SILENT,
                    parent_run: int | None = None) -> RecanonSummary:
     """Canonicalise again every raw URL under an older ruleset than the newest (see the module doc).

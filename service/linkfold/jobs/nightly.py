@@ -28,6 +28,7 @@ from sqlalchemy.engine import Engine
 
 from ..errors import LinkfoldError
 from ..progress import SILENT, Progress
+from ..settings import Settings
 from ..store.locks import acquire_lock
 from ..store.migrate import require_schema
 from ..store.runs import (
@@ -123,10 +124,10 @@ class Stage:
     module: Callable[[], ModuleType]
     run: str
 
-    def pending(self, engine: Engine, settings: Any) -> int:
+    def pending(self, engine: Engine, settings: Settings) -> int:
         return int(self.module().count_pending(engine, settings=settings))
 
-    def start(self, engine: Engine, settings: Any, parent: int, progress: Progress) -> StageSummary:
+    def start(self, engine: Engine, settings: Settings, parent: int, progress: Progress) -> StageSummary:
         run = getattr(self.module(), self.run)
         return run(engine, settings=settings, progress=progress, parent_run=parent)
 
@@ -185,7 +186,7 @@ def mark_interrupted(engine: Engine, *, own_run: int) -> list[int]:
 
 
 # --- the job ----------------------------------------------------------------------------------------------------
-def run_nightly(engine: Engine, *, settings: Any, progress: Progress = SILENT,
+def run_nightly(engine: Engine, *, settings: Settings, progress: Progress = SILENT,
                 stages: tuple[Stage, ...] = DEFAULT_STAGES, stale_after: float = 6 * 3600) -> NightlySummary:
     """Run every stage with pending work, in order, holding the registry lock (see the module doc)."""
     require_schema(engine)
@@ -216,7 +217,7 @@ def run_nightly(engine: Engine, *, settings: Any, progress: Progress = SILENT,
     return summary
 
 
-def _one_stage(engine: Engine, settings: Any, stage: Stage, parent: int, progress: Progress) -> StageOutcome:
+def _one_stage(engine: Engine, settings: Settings, stage: Stage, parent: int, progress: Progress) -> StageOutcome:
     if stage.network and not str(settings.contact or "").strip():
         reason = "no contact set (LINKFOLD_CONTACT); this stage would send requests"
         log.info("nightly: %s skipped: %s", stage.name, reason)

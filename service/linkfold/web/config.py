@@ -10,12 +10,12 @@ from __future__ import annotations
 import os
 import ssl
 from dataclasses import dataclass
-from typing import Any
 
 import httpx
 
 from .. import __version__
 from ..errors import ConfigError
+from ..settings import Settings
 from .guard import parse_networks
 
 #: The product token matched against ``User-agent`` lines of robots.txt (RFC 9309 §2.2.1).
@@ -38,7 +38,8 @@ class ClientConfig:
     ca_bundle: str = ""
 
     @classmethod
-    def from_settings(cls, settings: Any) -> ClientConfig:
+    def from_settings(cls, settings: Settings) -> ClientConfig:
+        """The client's part of the resolved settings."""
         return cls(contact=settings.contact, timeout=settings.http_timeout,
                    max_bytes=settings.http_max_bytes, concurrency=settings.http_concurrency,
                    host_concurrency=settings.http_host_concurrency, host_delay=settings.http_host_delay,

@@ -21,6 +21,7 @@ from typing import Any
 from sqlalchemy.engine import Engine
 
 from ...progress import SILENT, Progress
+from ...settings import Settings
 from ...store import pending as pq
 from ...store.locks import hold_lock
 from ...store.migrate import require_schema
@@ -92,7 +93,7 @@ class DedupeSummary:
         return out
 
 
-def count_pending(engine: Engine, *, settings: Any | None = None) -> int:
+def count_pending(engine: Engine, *, settings: Settings | None = None) -> int:
     """Rows the dedupe stage has not yet taken into account (0: a run would change nothing)."""
     with engine.connect() as conn:
         n = count_unsigned(conn) + count_unmatched(conn) + count_pending_clustering(conn)
@@ -103,7 +104,7 @@ def count_pending(engine: Engine, *, settings: Any | None = None) -> int:
         return n
 
 
-def run_dedupe(engine: Engine, *, settings: Any, full: bool = False, parent_run: int | None = None,
+def run_dedupe(engine: Engine, *, settings: Settings, full: bool = False, parent_run: int | None = None,
                progress: Progress = SILENT) -> DedupeSummary:
     """Sign, match, verify and cluster everything pending; with ``full``, match every current document
     again and recluster the whole registry (after lowering a threshold; also the benchmark baseline).
@@ -116,7 +117,7 @@ def run_dedupe(engine: Engine, *, settings: Any, full: bool = False, parent_run:
         return _run_dedupe(engine, settings=settings, full=full, parent_run=parent_run, progress=progress)
 
 
-def _run_dedupe(engine: Engine, *, settings: Any, full: bool, parent_run: int | None,
+def _run_dedupe(engine: Engine, *, settings: Settings, full: bool, parent_run: int | None,
                 progress: Progress) -> DedupeSummary:
     params = SignatureParams.from_settings(settings)
     thresholds = Thresholds.from_settings(settings)

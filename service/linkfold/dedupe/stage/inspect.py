@@ -13,6 +13,7 @@ from sqlalchemy.engine import Connection, Engine
 
 from ...canon import registered_domain
 from ...errors import InputError, NotFound
+from ...settings import Settings
 from ...store import clusters as cs
 from ...store import tables as t
 from ...store.finals import FinalsJoin, finals_of
@@ -94,7 +95,7 @@ def _on_outlet(fj: FinalsJoin, outlet: str) -> sa.ColumnElement[bool]:
 
 
 def list_clusters(engine: Engine, *, level: str = "article", min_size: int = 2, outlet: str | None = None,
-                  limit: int | None = None, settings: Mapping[str, Any] | None = None) -> Iterator[ClusterRow]:
+                  limit: int | None = None, settings: Settings | None = None) -> Iterator[ClusterRow]:
     """Clusters of ``level`` with at least ``min_size`` members (and, with ``outlet``, a member whose final
     outlet is that one: an outlet name or a domain, see :func:`_on_outlet`), largest first, with the number
     of final outlets, the range of similarity scores between their members and the sinks near them
@@ -195,7 +196,7 @@ def differing_passages(a: str, b: str, *, context: int = 4, max_passages: int = 
 
 
 def show_cluster(engine: Engine, cluster_id: str, *, max_compared: int = 10,
-                 settings: Mapping[str, Any] | None = None) -> ClusterDetail:
+                 settings: Settings | None = None) -> ClusterDetail:
     """Members, the links between them with their evidence, the decisions on them, the sinks near them
     (with their fan-in), and, for up to ``max_compared`` members, the passages where their text differs
     from the founder's."""
@@ -266,11 +267,11 @@ def similarity_values(engine: Engine) -> dict[str, list[float]]:
     return out
 
 
-def thresholds_report(engine: Engine, *, settings: Mapping[str, Any]) -> str:
+def thresholds_report(engine: Engine, *, settings: Settings) -> str:
     """The LSH S-curve for the current settings and the histograms of verified similarities."""
     params = SignatureParams.from_settings(settings)
-    marks = {"story threshold": float(settings["story_threshold"]),
-             "article threshold": float(settings["article_threshold"])}
+    marks = {"story threshold": float(settings.story_threshold),
+             "article threshold": float(settings.article_threshold)}
     points = sorted(set(DEFAULT_POINTS) | {round(v, 4) for v in marks.values()})
     parts = [f"settings: {params.band_token}; article ≥ {marks['article threshold']}, "
              f"story ≥ {marks['story threshold']}",

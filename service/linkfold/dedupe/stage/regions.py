@@ -37,6 +37,7 @@ from sqlalchemy.engine import Connection, Engine
 
 from ...errors import DatabaseError
 from ...progress import SILENT, Progress
+from ...settings import Settings
 from ...store import clusters as cs
 from ...store import pending as pq
 from ...store import tables as t
@@ -348,7 +349,7 @@ def cluster_region(conn: Connection, level: str, region: Region, *, run_id: int 
 def cluster_seeds(engine: Engine, level: str, seeds: Iterable[int], thresholds: Thresholds, *,
                   run_id: int | None, progress: Progress = SILENT,
                   per_transaction: int = SEEDS_PER_TRANSACTION,
-                  settings: Mapping[str, Any] | None = None) -> tuple[ClusterCounts, set[int]]:
+                  settings: Settings | None = None) -> tuple[ClusterCounts, set[int]]:
     """Cluster the regions of ``seeds`` at ``level``, one transaction per group of seeds; returns the
     counts and every member of the regions (story seeds, after the article pass). ``settings`` gives the
     ``sink_fan_in`` limit (default 50)."""

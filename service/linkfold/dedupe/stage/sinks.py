@@ -21,6 +21,7 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
 from ...canon import Ruleset
+from ...settings import Settings
 from ...store import evidence as ev
 from ...store import tables as t
 from ...store.clusters import get_mark, set_mark
@@ -71,8 +72,8 @@ class SinkJudge:
     known: dict[int, SinkKind | None] = field(default_factory=dict)
 
     @classmethod
-    def load(cls, conn: Connection, settings: Mapping[str, Any] | None = None) -> SinkJudge:
-        limit = int(settings["sink_fan_in"]) if settings is not None else DEFAULT_FAN_IN
+    def load(cls, conn: Connection, settings: Settings | None = None) -> SinkJudge:
+        limit = int(settings.sink_fan_in) if settings is not None else DEFAULT_FAN_IN
         return cls(limit=limit, rules=current_ruleset(conn))
 
     def end(self, facts: ev.UrlFacts) -> End:
@@ -108,7 +109,7 @@ def rules_mark(rules: Ruleset) -> int:
     return zlib.crc32(text.encode("utf-8"))
 
 
-def policy_changed(conn: Connection, settings: Mapping[str, Any] | None = None) -> bool:
+def policy_changed(conn: Connection, settings: Settings | None = None) -> bool:
     """Whether the sink policy differs from the one the registry's clusters were made under (False while
     there are no clusters yet)."""
     judge = SinkJudge.load(conn, settings)
@@ -117,7 +118,7 @@ def policy_changed(conn: Connection, settings: Mapping[str, Any] | None = None) 
     return conn.execute(sa.select(t.cluster_members.c.canonical_id).limit(1)).first() is not None
 
 
-def policy_seeds(conn: Connection, settings: Mapping[str, Any] | None = None) -> set[int]:
+def policy_seeds(conn: Connection, settings: Settings | None = None) -> set[int]:
     """Canonical URLs to cluster again because the sink policy changed since the last run (empty when it
     did not, and on a registry that has no clusters yet).
 
@@ -140,7 +141,7 @@ def policy_seeds(conn: Connection, settings: Mapping[str, Any] | None = None) ->
     return seeds
 
 
-def record_policy(conn: Connection, settings: Mapping[str, Any] | None, *, run_id: int | None) -> None:
+def record_policy(conn: Connection, settings: Settings | None, *, run_id: int | None) -> None:
     """Remember the sink policy the clusters are now made under (after a run's clustering)."""
     judge = SinkJudge.load(conn, settings)
     set_mark(conn, FAN_IN_MARK, judge.limit, run_id=run_id, now=now())
@@ -165,7 +166,7 @@ def describe_sinks(conn: Connection, judge: SinkJudge, ids: Iterable[int]) -> di
     return out
 
 
-def list_sinks(engine: Engine, *, settings: Mapping[str, Any] | None = None, dataset: str | None = None,
+def list_sinks(engine: Engine, *, settings: Settings | None = None, dataset: str | None = None,
                limit: int | None = None) -> list[Sink]:
     """Every sink among the targets of redirect and declared-canonical links (with ``dataset``, those
     reached from that dataset's URLs), largest fan-in first."""
