@@ -13,6 +13,9 @@ from typing import Protocol, TextIO
 
 
 class Progress(Protocol):
+    """What a long stage reports its progress to: ``start`` (a label and the total, when known), ``advance``
+    by some units of work, ``finish``. The library never prints; the CLI passes :class:`StderrProgress`."""
+
     def start(self, label: str, total: int | None = None) -> None: ...
     def advance(self, n: int = 1) -> None: ...
     def finish(self) -> None: ...
@@ -29,6 +32,7 @@ class _Silent:
         pass
 
 
+#: The progress of a caller that wants none (the library's default).
 SILENT: Progress = _Silent()
 
 

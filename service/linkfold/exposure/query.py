@@ -22,7 +22,9 @@ import sqlalchemy as sa
 from ..store import tables as t
 from ..store.finals import FinalsJoin
 
+#: What exposure counts a unit's sightings by.
 LEVELS = ("outlet", "article", "story")
+#: The calendar periods exposure can be split by (UTC; weeks start on Monday, ISO 8601).
 PERIODS = ("day", "week", "month")
 #: The column that names what a unit was exposed to, per level.
 TARGET_COLUMN = {"outlet": "outlet", "article": "article_id", "story": "story_id"}

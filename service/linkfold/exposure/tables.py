@@ -24,6 +24,7 @@ from ..progress import SILENT, Progress
 from ..store import registry
 from .query import COVERAGE_FIELDS, LEVELS, PERIODS, TARGET_COLUMN, coverage_select, exposure_select
 
+#: The file formats an exposure table is written in.
 EXPOSURE_FORMATS = ("csv", "jsonl", "parquet")
 #: Fewest units an aggregate group may describe before it is suppressed (left out, and counted as such).
 #: Common practice in statistical disclosure control is a threshold rule of 5 to 10 contributors per

@@ -40,6 +40,7 @@ from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
 
+#: The formats of a file of redirect pairs.
 FORMATS = tuple(f.value for f in TABLE_FORMATS)
 MAX_PROBLEMS_KEPT = 1000  # reported one by one; beyond this only counted by reason
 SOURCE_MAX = 255  # links.source width

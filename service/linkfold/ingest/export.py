@@ -26,6 +26,7 @@ from ..store import registry
 from ..store.migrate import require_schema
 from ..store.registry import LINK_COLUMNS
 
+#: The file formats of the linkage table (``linkfold export --format``).
 EXPORT_FORMATS = ("csv", "jsonl", "parquet")
 DEFAULT_ROW_GROUP = 65536
 

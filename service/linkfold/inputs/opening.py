@@ -39,6 +39,8 @@ _FOREIGN_BOMS = (
 
 
 class DumpFormat(enum.StrEnum):
+    """The formats a dump file can be read in (``--format``; guessed from the file's name otherwise)."""
+
     CSV = "csv"
     TSV = "tsv"
     JSONL = "jsonl"

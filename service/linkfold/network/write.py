@@ -25,6 +25,7 @@ from .graph import (
     to_networkx,
 )
 
+#: The file formats the co-exposure network is written in.
 NETWORK_FORMATS = ("csv", "jsonl", "graphml")
 
 

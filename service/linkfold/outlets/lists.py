@@ -33,6 +33,7 @@ from .listfile import OutletEntry, OutletList, RuleConflict, parse_outlet_list, 
 log = logging.getLogger("linkfold")
 
 Prefer = Literal["list", "rules"]
+#: Which side wins when the outlet list and the rules file name a domain's outlet differently.
 PREFER_CHOICES: tuple[str, ...] = ("list", "rules")
 
 

@@ -44,6 +44,7 @@ from .lists import OutletJoin, list_in_force, outlet_attributes
 REPORT_COLUMNS = ("outlet", "listed", "sightings", "articles", "not_articles", "unknown", "article_share",
                   "via_short_links", "via_redirects", "urls", "fetched", "fetched_share", "usable_text",
                   "usable_share")
+#: Path shapes shown per outlet in the coverage report unless asked for more or fewer.
 DEFAULT_SHAPES = 5
 
 

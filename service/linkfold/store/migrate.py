@@ -59,6 +59,7 @@ _AT_HEAD: weakref.WeakSet[Engine] = weakref.WeakSet()
 
 
 def current_revision(engine: Engine) -> str | None:
+    """The schema revision the database is at (``None``: no linkfold schema yet)."""
     try:
         with engine.connect() as conn:
             return MigrationContext.configure(conn).get_current_revision()

@@ -49,6 +49,7 @@ def find_dataset(conn: Connection, name: str) -> dict[str, Any] | None:
 
 
 def get_dataset(conn: Connection, name: str) -> dict[str, Any]:
+    """The dataset's row by name; ``NotFound`` naming the datasets there are when there is none."""
     found = find_dataset(conn, name)
     if found is None:
         known = conn.execute(sa.select(t.datasets.c.name).order_by(t.datasets.c.name).limit(20)).scalars().all()
@@ -372,6 +373,7 @@ def list_datasets(conn: Connection) -> list[dict[str, Any]]:
 
 
 def dataset_files(conn: Connection, dataset_id: int) -> list[dict[str, Any]]:
+    """The dataset's files as loaded (rows of ``dataset_files``), in the order they were first loaded."""
     rows = conn.execute(sa.select(t.dataset_files).where(t.dataset_files.c.dataset_id == dataset_id)
                         .order_by(t.dataset_files.c.id)).mappings()
     return [dict(r) for r in rows]
@@ -379,6 +381,8 @@ def dataset_files(conn: Connection, dataset_id: int) -> list[dict[str, Any]]:
 
 def iter_rejects(conn: Connection, dataset_id: int, *, reason: str | None = None,
                  limit: int | None = None) -> Iterator[dict[str, Any]]:
+    """The dataset's rejects in file and line order (optionally of one reason): file, line, position,
+    reason, detail and the excerpt kept (or the raw URL of a row whose URL was refused)."""
     j, f, r = t.rejects, t.dataset_files, t.raw_urls
     q = (sa.select(f.c.file_name, j.c.line_no, j.c.position, j.c.reason, j.c.detail, j.c.excerpt,
                    r.c.raw.label("raw_url"))
@@ -396,6 +400,7 @@ def iter_rejects(conn: Connection, dataset_id: int, *, reason: str | None = None
 
 
 def reject_totals(conn: Connection, dataset_id: int) -> dict[str, int]:
+    """The dataset's rejects counted by reason, reasons in order."""
     rows = conn.execute(sa.select(t.rejects.c.reason, sa.func.count())
                         .where(t.rejects.c.dataset_id == dataset_id).group_by(t.rejects.c.reason)
                         .order_by(t.rejects.c.reason))
@@ -447,6 +452,7 @@ def ids_by_hash(conn: Connection, hashes: Iterable[str]) -> dict[str, int]:
 
 
 def canonicals_by_key(conn: Connection, keys: Sequence[str]) -> dict[str, dict[str, Any]]:
+    """Known canonical URLs by url key (id, url key, URL, host, domain, outlet); unknown keys are absent."""
     c = t.canonical_urls
     out: dict[str, dict[str, Any]] = {}
     for part in _chunks(list(dict.fromkeys(keys))):

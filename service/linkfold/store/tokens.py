@@ -36,6 +36,9 @@ MAX_NOTE_CHARS = 500
 
 
 class Scope(enum.StrEnum):
+    """What an API token lets its holder do: read aggregates and lookups, write (stages, decisions), or
+    read unit-level rows (``units``, a scope of its own; docs/exposure.md)."""
+
     READ = "read"
     WRITE = "write"
     UNITS = "units"

@@ -155,6 +155,8 @@ class ClusterDetail:
 
 
 def resolve_cluster_id(engine: Engine, cluster_id: str) -> cs.Resolution:
+    """Where an article or story ID ever issued points now (merges and splits followed); ``NotFound`` for
+    an ID never issued."""
     with engine.connect() as conn:
         res = cs.resolve(conn, cluster_id.strip())
     if res is None:
