@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import re
 import subprocess
 import sys
@@ -57,3 +58,24 @@ def test_demo_runs_in_a_fresh_folder(tmp_path):
     # The wire story and its syndicated copy on another outlet form one story.
     story = [ln for ln in proc.stdout.splitlines() if "old-mill-bridge-reopens" in ln and ln.strip().startswith("s")]
     assert story and "similar_text" in story[0]
+
+
+def test_the_readme_python_section_runs_as_written(tmp_path):
+    # The "From Python" example, run as a researcher would paste it, in a fresh folder with a small
+    # invented panel export beside it (no contact address is set, so nothing leaves the machine).
+    import gzip
+
+    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    section = text.split("## From Python", 1)[1].split("\n## ", 1)[0]
+    code = re.findall(r"```python\n(.+?)\n```", section, flags=re.S)[0]
+    assert "linkfold.upgrade_schema(engine)" in code
+    with gzip.open(tmp_path / "panel.csv.gz", "wt", encoding="utf-8") as fh:
+        fh.write("url,visit_id,visited_at\n"
+                 "https://m.daily.example/story/1?utm_source=x,v1,2026-01-02T10:00:00Z\n"
+                 "https://daily.example/story/1,v2,2026-01-02T11:00:00Z\n")
+    env = {k: v for k, v in os.environ.items() if not k.startswith("LINKFOLD_")}
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=tmp_path,
+                          env=env, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    assert "2 rows, 2 sightings" in proc.stdout
+    assert proc.stdout.splitlines()[-1].startswith("https://daily.example/story/1 a")
