@@ -40,6 +40,9 @@ def test_api_service_next_to_postgres():
     assert api["ports"] == ["127.0.0.1:8750:8750"]
     assert "linkfold serve" in api["command"] and "--port 8750" in api["command"]
     assert "linkfold db upgrade" in api["command"]
+    # A regular install, not an editable one: the migrations ship inside the package (.ci/run checks that a
+    # built wheel carries them), so the container needs nothing of the source tree once installed.
+    assert "pip install" in api["command"] and " -e " not in api["command"]
     assert "/v1/health" in " ".join(api["healthcheck"]["test"])
     # The source is mounted read-only; nothing in the container writes back into the checkout.
     assert all(v.endswith(":ro") for v in api["volumes"])

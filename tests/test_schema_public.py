@@ -135,3 +135,17 @@ def test_after_a_downgrade_to_base_the_database_counts_as_empty(empty_db_url: st
         assert upgrade_schema(engine) == head_revision()
     finally:
         engine.dispose()
+
+
+def test_the_command_leaves_a_foreign_database_alone_too(empty_db_url: str, capsys) -> None:
+    from linkfold.cli import main
+
+    engine = make_engine(empty_db_url)
+    try:
+        with engine.begin() as conn:
+            conn.execute(sa.text("CREATE TABLE survey_answers (id integer PRIMARY KEY)"))
+        assert main(["--db", empty_db_url, "db", "upgrade"]) == SchemaError.exit_code
+        assert "holds tables but no linkfold schema version" in capsys.readouterr().err
+        assert _tables(engine) == {"survey_answers"}
+    finally:
+        engine.dispose()
