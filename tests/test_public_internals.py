@@ -58,6 +58,9 @@ def _uses(shell: str) -> list[Use]:
     uses: list[Use] = []
     for path in sorted((PACKAGE / shell).glob("*.py")):
         tree = ast.parse(path.read_text(encoding="utf-8"))
+        for parent in ast.walk(tree):
+            for child in ast.iter_child_nodes(parent):
+                child.parent = parent  # type: ignore[attr-defined]
         rel = str(path.relative_to(PACKAGE))
         modules: dict[str, str] = {}  # local name -> the linkfold module it is bound to
         for node in ast.walk(tree):
@@ -81,8 +84,17 @@ def _uses(shell: str) -> list[Use]:
         for node in ast.walk(tree):
             if (isinstance(node, ast.Attribute) and isinstance(node.value, ast.Name)
                     and node.value.id in modules):
-                uses.append(Use(rel, node.lineno, modules[node.value.id], node.attr))
+                uses.extend(_chain(rel, node, modules[node.value.id]))
     return uses
+
+
+def _chain(rel: str, node: ast.Attribute, module: str) -> list[Use]:
+    """``store.tokens.Scope``: each step from a module, as long as the step before was a module."""
+    found = [Use(rel, node.lineno, module, node.attr)]
+    parent = getattr(node, "parent", None)
+    if isinstance(_resolve(module, node.attr), types.ModuleType) and isinstance(parent, ast.Attribute):
+        found.extend(_chain(rel, parent, f"{module}.{node.attr}"))
+    return found
 
 
 def _resolve(module: str, name: str) -> object:
