@@ -1,7 +1,7 @@
 """Every table of the registry, as SQLAlchemy Core definitions.
 
-Alembic owns the schema (``migrations/``); these definitions are what the code queries with, and a test
-checks that a database migrated to head matches them column for column. Change both together.
+Alembic owns the schema (``linkfold/migrations/``); these definitions are what the code queries with,
+and a test checks that a database migrated to head matches them column for column. Change both together.
 
 Conventions: integer surrogate keys named ``id``; times are timezone-aware UTC; nothing in the
 append-only tables (raw URLs, sightings, rejects, canonical URLs, changes) is ever updated in place
