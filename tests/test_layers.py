@@ -35,8 +35,9 @@ LAYERS: dict[str, tuple[int, str]] = {
     "canon": (CORE, "core"),
     "dedupe": (CORE, "core"),
     "pseudonyms": (CORE, "core"),
-    # Storage.
+    # Storage, and the Alembic environment and versions that own its schema (shipped in the package).
     "store": (STORE, "store"),
+    "migrations": (STORE, "store"),
     # Shared layers, below the stages: talking HTTP safely; reading input files and the executor slot in here.
     "web": (SHARED, "shared"),
     "inputs": (SHARED, "shared"),
@@ -59,6 +60,7 @@ LAYERS: dict[str, tuple[int, str]] = {
     "_commands": (INTERFACE, "interface"),
     "api": (INTERFACE, "interface"),
     "demo": (INTERFACE, "interface"),
+    "demo_data": (INTERFACE, "interface"),  # the demo's invented files and the script that makes them
     "client": (INTERFACE, "interface"),
 }
 
