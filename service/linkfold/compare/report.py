@@ -22,7 +22,9 @@ from ..outlets import outlet_attributes, outlet_columns
 from ..store import tables as t
 from .figures import Overlap, share
 
+#: The output formats of a comparison.
 COMPARE_FORMATS = ("table", "jsonl")
+#: Stories listed per dataset (the most seen, and those seen only there) unless asked for more or fewer.
 DEFAULT_TOP = 10
 NOT_LISTED = "(not listed)"
 

@@ -23,6 +23,7 @@ from functools import lru_cache
 from typing import Any
 
 _TOKEN = re.compile(r"[^\W_]+(?:['’\-][^\W_]+)*")
+#: The longest n-grams added beside a text (``ngrams`` runs from 1, none, to this).
 MAX_NGRAM = 5
 
 

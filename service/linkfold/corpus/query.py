@@ -29,6 +29,7 @@ from ..exposure import sighting_targets
 from ..store import tables as t
 from ..store.finals import FinalsJoin
 
+#: The levels a corpus deduplicates at: one text per story, or per article.
 LEVELS = ("story", "article")
 ID_COLUMN = {"story": "story_id", "article": "article_id"}
 _UTC = sa.DateTime(timezone=True)

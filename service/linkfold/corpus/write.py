@@ -26,6 +26,7 @@ from .prepare import RAW, Preparation
 from .query import ID_COLUMN
 from .records import Corpus, corpus_records
 
+#: The file formats a corpus is written in.
 CORPUS_FORMATS = ("jsonl", "parquet")
 #: Records per Parquet row group: a few thousand texts of a few KB each.
 ROW_GROUP = 4000
