@@ -149,7 +149,8 @@ def test_a_protected_parameter_is_never_dropped():
 def _fixtures_rules():
     from pathlib import Path
 
-    return (Path(__file__).resolve().parents[1] / "fixtures" / "rules" / "demo.toml").read_text(encoding="utf-8")
+    demo = Path(__file__).resolve().parents[1] / "service" / "linkfold" / "demo_data" / "rules" / "demo.toml"
+    return demo.read_text(encoding="utf-8")
 
 
 TRICKY = r'''

@@ -33,6 +33,7 @@ from . import evidence as ev
 from .params import ParamTable, ParamVerdict, judge_params, param_evidence
 from .templates import DEFAULT_MIN_PRECISION, Learned, Proposal, ShapeTable, covers, learn_templates
 
+#: Pieces of evidence (URLs, followed links, shared paths) a proposal needs unless asked for more or fewer.
 DEFAULT_MIN_SUPPORT = 10
 #: "Redirect off-domain nearly always": common practice for a link shortener or click redirector.
 SHORTENER_SHARE = 0.9
