@@ -141,6 +141,11 @@ class Ruleset:
     def __repr__(self) -> str:
         return f"Ruleset(name={self.name!r}, digest={self.digest[:12]}…, sites={len(self.sites)})"
 
+    def __reduce__(self) -> tuple[Any, tuple[Any, ...]]:
+        # A ruleset travels to executor workers (other processes, other machines) as its normalised
+        # data and is rebuilt there once per digest: its read-only mappings cannot be pickled as they are.
+        return (_revive, (self.digest, dict(self.normalised), self.source))
+
     def never_follows(self, host: str) -> bool:
         """Whether ``host`` (a canonical host) is listed in ``never_follow_hosts``, itself or as a subdomain."""
         return _listed(host, self.never_follow_hosts)
@@ -435,6 +440,22 @@ def _build(normalised: dict[str, Any], source: str, chk: _Checker) -> Ruleset:
         normalised=MappingProxyType(normalised),
         site_hosts=MappingProxyType(site_hosts),
     )
+
+
+_REVIVED: dict[str, Ruleset] = {}
+
+
+def _revive(digest: str, normalised: dict[str, Any], source: str) -> Ruleset:
+    """A ruleset rebuilt from its normalised data (unpickling), built once per digest in a process."""
+    rules = _REVIVED.get(digest)
+    if rules is None:
+        rules = _build(normalised, source, _Checker(source, "<pickled ruleset>"))
+        if rules.digest != digest:  # the same data must give the same digest, or it is not the same ruleset
+            raise RulesError("a ruleset changed in transit (its digest differs)", source="<pickled ruleset>")
+        if len(_REVIVED) >= 64:
+            _REVIVED.clear()
+        _REVIVED[digest] = rules
+    return rules
 
 
 _TOML_POS = re.compile(r"\(at line (\d+), column \d+\)")
