@@ -92,7 +92,7 @@ def test_binary_copy_types_follow_the_columns_and_fall_back_to_text():
 
     assert _binary_types(t.sightings, ("dataset_id", "file_id", "line_no", "position", "row_key", "seen_at",
                                        "raw_url_id")) == ["int4", "int4", "int8", "int4", "text", "timestamptz",
-                                                          "int4"]
+                                                          "int8"]  # raw URL ids are 64-bit (0023)
     # A JSON column has no binary entry: the whole COPY goes in text format, which converts values.
     assert _binary_types(t.dataset_files, ("id", "options")) is None
 

@@ -22,6 +22,12 @@ NAMING = {
 
 metadata = sa.MetaData(naming_convention=NAMING)
 
+# Row identifiers of the tables that grow with the data (URLs, sightings' URLs, pages, documents, links,
+# events) and every column that refers to one: 64-bit on PostgreSQL (migration 0023), because a lab that
+# pools years of panel and platform data passes 2**31 rows; on SQLite an INTEGER is already 64-bit, and
+# a primary key declared INTEGER stays the row id (a BIGINT one would not).
+ID = sa.BigInteger().with_variant(sa.Integer(), "sqlite")
+
 UTC = sa.DateTime(timezone=True)
 
 # --- runs ---------------------------------------------------------------------------------------------
@@ -97,7 +103,7 @@ dataset_files = sa.Table(
 # --- URLs -----------------------------------------------------------------------------------------------
 canonical_urls = sa.Table(
     "canonical_urls", metadata,
-    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("id", ID, primary_key=True),
     sa.Column("url_key", sa.String(32), nullable=False, unique=True),
     sa.Column("url", sa.Text, nullable=False),
     sa.Column("host", sa.String(255), nullable=False),
@@ -111,7 +117,7 @@ canonical_urls = sa.Table(
     # transaction of their results, from ids read in it; nothing deletes canonical URLs, and
     # tests/test_ingest_integrity.py checks the reference. No foreign key: on SQLite adding one means
     # rebuilding the table every other table references, on PostgreSQL every bulk insert would pay for it.
-    sa.Column("final_id", sa.Integer, nullable=True),
+    sa.Column("final_id", ID, nullable=True),
     sa.Index("ix_canonical_urls_domain", "domain"),
     sa.Index("ix_canonical_urls_host", "host"),
 )
@@ -127,11 +133,11 @@ UNENFORCED_ON_POSTGRESQL = frozenset({
 
 raw_urls = sa.Table(
     "raw_urls", metadata,
-    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("id", ID, primary_key=True),
     sa.Column("raw_hash", sa.String(64), nullable=False, unique=True),  # SHA-256 hex of the UTF-8 text
     sa.Column("raw", sa.Text, nullable=False),
     # The canonical URL in force and the ruleset that produced it; NULL with ``error`` for unparsable.
-    sa.Column("canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=True),
+    sa.Column("canonical_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=True),
     sa.Column("ruleset_id", sa.Integer, sa.ForeignKey("rulesets.id"), nullable=True),
     sa.Column("error", sa.String(40), nullable=True),
     sa.Column("created_at", UTC, nullable=False),
@@ -141,10 +147,10 @@ raw_urls = sa.Table(
 # Old→new mapping written when a raw URL is re-canonicalised under a newer ruleset.
 canon_changes = sa.Table(
     "canon_changes", metadata,
-    sa.Column("id", sa.Integer, primary_key=True),
-    sa.Column("raw_url_id", sa.Integer, sa.ForeignKey("raw_urls.id"), nullable=False),
-    sa.Column("old_canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=True),
-    sa.Column("new_canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=True),
+    sa.Column("id", ID, primary_key=True),
+    sa.Column("raw_url_id", ID, sa.ForeignKey("raw_urls.id"), nullable=False),
+    sa.Column("old_canonical_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=True),
+    sa.Column("new_canonical_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=True),
     sa.Column("ruleset_id", sa.Integer, sa.ForeignKey("rulesets.id"), nullable=False),
     sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
     sa.Column("changed_at", UTC, nullable=False),
@@ -168,7 +174,7 @@ sightings = sa.Table(
     sa.Column("position", sa.Integer, nullable=False),  # n-th URL of the row, from 0
     sa.Column("row_key", sa.Text, nullable=False),
     sa.Column("seen_at", UTC, nullable=True),
-    sa.Column("raw_url_id", sa.Integer, nullable=False),      # raw_urls.id
+    sa.Column("raw_url_id", ID, nullable=False),      # raw_urls.id
     # The person or account the row belongs to, only ever as a keyed pseudonym (HMAC under the lab's
     # pseudonym_key; migration 0017); NULL when the load named no unit column.
     sa.Column("unit", sa.Text, nullable=True),
@@ -178,7 +184,7 @@ sightings = sa.Table(
 
 rejects = sa.Table(
     "rejects", metadata,
-    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("id", ID, primary_key=True),
     sa.Column("dataset_id", sa.Integer, sa.ForeignKey("datasets.id"), nullable=False),
     sa.Column("file_id", sa.Integer, sa.ForeignKey("dataset_files.id"), nullable=False),
     sa.Column("line_no", sa.BigInteger, nullable=False),
@@ -186,7 +192,7 @@ rejects = sa.Table(
     sa.Column("reason", sa.String(40), nullable=False),
     sa.Column("detail", sa.Text, nullable=True),
     sa.Column("excerpt", sa.Text, nullable=True),  # at most a few hundred characters of the input
-    sa.Column("raw_url_id", sa.Integer, sa.ForeignKey("raw_urls.id"), nullable=True),
+    sa.Column("raw_url_id", ID, sa.ForeignKey("raw_urls.id"), nullable=True),
     sa.UniqueConstraint("file_id", "line_no", "position"),
     sa.Index("ix_rejects_dataset_id", "dataset_id"),
     sa.Index("ix_rejects_dataset_reason", "dataset_id", "reason"),  # migration 0003
@@ -198,10 +204,10 @@ rejects = sa.Table(
 # ``manual``. Rows are never updated or deleted.
 links = sa.Table(
     "links", metadata,
-    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("id", ID, primary_key=True),
     sa.Column("kind", sa.String(20), nullable=False),
-    sa.Column("src_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
-    sa.Column("dst_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("src_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("dst_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=False),
     sa.Column("status", sa.Integer, nullable=True),  # HTTP status of a redirect hop
     sa.Column("hop", sa.Integer, nullable=True),  # 1-based position of the hop in its chain
     sa.Column("source", sa.String(255), nullable=True),  # fetched | import:<file name>
@@ -216,12 +222,12 @@ links = sa.Table(
 # The latest follow outcome per canonical URL (updated in place); its history is ``follow_attempts``.
 follow_results = sa.Table(
     "follow_results", metadata,
-    sa.Column("id", sa.Integer, primary_key=True),
-    sa.Column("canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False, unique=True),
+    sa.Column("id", ID, primary_key=True),
+    sa.Column("canonical_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=False, unique=True),
     sa.Column("state", sa.String(20), nullable=False),  # resolved | failed | refused
     sa.Column("failure", sa.String(30), nullable=True),  # dns, timeout, http_4xx … (docs/following.md)
     sa.Column("http_status", sa.Integer, nullable=True),
-    sa.Column("final_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=True),
+    sa.Column("final_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=True),
     sa.Column("hops", sa.Integer, nullable=True),
     sa.Column("via", sa.String(20), nullable=False),  # fetched | chain | imported
     sa.Column("attempts", sa.Integer, nullable=False),
@@ -237,14 +243,14 @@ follow_results = sa.Table(
 
 follow_attempts = sa.Table(
     "follow_attempts", metadata,
-    sa.Column("id", sa.Integer, primary_key=True),
-    sa.Column("canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("id", ID, primary_key=True),
+    sa.Column("canonical_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=False),
     sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
     sa.Column("attempted_at", UTC, nullable=False),
     sa.Column("state", sa.String(20), nullable=False),
     sa.Column("failure", sa.String(30), nullable=True),
     sa.Column("http_status", sa.Integer, nullable=True),
-    sa.Column("final_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=True),
+    sa.Column("final_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=True),
     sa.Column("hops", sa.Integer, nullable=True),
     sa.Column("detail", sa.Text, nullable=True),  # a short reason for people, never a response body
     sa.Index("ix_follow_attempts_canonical_id", "canonical_id"),
@@ -270,11 +276,11 @@ job_locks = sa.Table(
 # as stored, which stop at the size cap when ``truncated``. Rows are never updated.
 pages = sa.Table(
     "pages", metadata,
-    sa.Column("id", sa.Integer, primary_key=True),
-    sa.Column("canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("id", ID, primary_key=True),
+    sa.Column("canonical_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=False),
     sa.Column("requested_url", sa.Text, nullable=False),
     sa.Column("final_url", sa.Text, nullable=False),
-    sa.Column("final_canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=True),
+    sa.Column("final_canonical_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=True),
     sa.Column("status", sa.Integer, nullable=True),  # NULL for pages imported without a status
     sa.Column("headers", sa.JSON, nullable=True),
     sa.Column("body", sa.LargeBinary, nullable=False),
@@ -293,12 +299,12 @@ pages = sa.Table(
 # The latest fetch outcome per canonical URL (updated in place), in the shape of ``follow_results``.
 fetch_results = sa.Table(
     "fetch_results", metadata,
-    sa.Column("id", sa.Integer, primary_key=True),
-    sa.Column("canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False, unique=True),
+    sa.Column("id", ID, primary_key=True),
+    sa.Column("canonical_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=False, unique=True),
     sa.Column("state", sa.String(20), nullable=False),  # fetched | failed | refused
     sa.Column("failure", sa.String(30), nullable=True),  # the follow stage's failure classes
     sa.Column("http_status", sa.Integer, nullable=True),
-    sa.Column("page_id", sa.Integer, sa.ForeignKey("pages.id"), nullable=True),
+    sa.Column("page_id", ID, sa.ForeignKey("pages.id"), nullable=True),
     sa.Column("attempts", sa.Integer, nullable=False),
     sa.Column("first_attempt_at", UTC, nullable=False),
     sa.Column("last_attempt_at", UTC, nullable=False),
@@ -314,9 +320,9 @@ fetch_results = sa.Table(
 # row (docs/content.md).
 documents = sa.Table(
     "documents", metadata,
-    sa.Column("id", sa.Integer, primary_key=True),
-    sa.Column("canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
-    sa.Column("page_id", sa.Integer, sa.ForeignKey("pages.id"), nullable=True),
+    sa.Column("id", ID, primary_key=True),
+    sa.Column("canonical_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("page_id", ID, sa.ForeignKey("pages.id"), nullable=True),
     sa.Column("title", sa.Text, nullable=True),
     sa.Column("text", sa.Text, nullable=True),
     sa.Column("text_hash", sa.String(64), nullable=True),
@@ -346,7 +352,7 @@ documents = sa.Table(
 # the signature's settings plus the banding its band keys were cut with). docs/dedupe.md, "The stage".
 signatures = sa.Table(
     "signatures", metadata,
-    sa.Column("document_id", sa.Integer, sa.ForeignKey("documents.id"), primary_key=True),
+    sa.Column("document_id", ID, sa.ForeignKey("documents.id"), primary_key=True),
     sa.Column("params", sa.String(120), nullable=False),
     sa.Column("signature", sa.LargeBinary, nullable=False),
     sa.Column("created_at", UTC, nullable=False),
@@ -357,7 +363,7 @@ signatures = sa.Table(
 # (they are derived data, rebuilt from ``signatures``). The (band, key) index answers candidate joins.
 band_keys = sa.Table(
     "band_keys", metadata,
-    sa.Column("document_id", sa.Integer, sa.ForeignKey("signatures.document_id"), primary_key=True),
+    sa.Column("document_id", ID, sa.ForeignKey("signatures.document_id"), primary_key=True),
     sa.Column("band", sa.SmallInteger, primary_key=True),
     sa.Column("key", sa.BigInteger, nullable=False),
     sa.Index("ix_band_keys_band_key", "band", "key"),
@@ -368,7 +374,7 @@ band_keys = sa.Table(
 # the band keys when a document is superseded.
 title_keys = sa.Table(
     "title_keys", metadata,
-    sa.Column("document_id", sa.Integer, sa.ForeignKey("signatures.document_id"), primary_key=True),
+    sa.Column("document_id", ID, sa.ForeignKey("signatures.document_id"), primary_key=True),
     sa.Column("key", sa.BigInteger, primary_key=True),
     sa.Index("ix_title_keys_key", "key"),
 )
@@ -384,8 +390,8 @@ decisions = sa.Table(
     sa.Column("level", sa.String(10), nullable=False),  # article | story
     sa.Column("a_ref", sa.Text, nullable=False),
     sa.Column("b_ref", sa.Text, nullable=False),
-    sa.Column("a_member", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
-    sa.Column("b_member", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("a_member", ID, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("b_member", ID, sa.ForeignKey("canonical_urls.id"), nullable=False),
     sa.Column("a_cluster", sa.String(24), nullable=True),
     sa.Column("b_cluster", sa.String(24), nullable=True),
     sa.Column("note", sa.Text, nullable=True),
@@ -403,7 +409,7 @@ cluster_ids = sa.Table(
     sa.Column("id", sa.String(24), primary_key=True),
     sa.Column("level", sa.String(10), nullable=False),
     sa.Column("stem", sa.String(16), nullable=False),
-    sa.Column("founder_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=False),
+    sa.Column("founder_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=False),
     sa.Column("mint_order", sa.BigInteger, nullable=False),  # per level; smaller = older
     sa.Column("state", sa.String(10), nullable=False),  # live | retired
     sa.Column("successor", sa.String(24), nullable=True),  # set when retired (merged into it)
@@ -419,7 +425,7 @@ cluster_ids = sa.Table(
 cluster_members = sa.Table(
     "cluster_members", metadata,
     sa.Column("level", sa.String(10), primary_key=True),
-    sa.Column("canonical_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), primary_key=True),
+    sa.Column("canonical_id", ID, sa.ForeignKey("canonical_urls.id"), primary_key=True),
     sa.Column("cluster_id", sa.String(24), sa.ForeignKey("cluster_ids.id"), nullable=False),
     sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
     sa.Index("ix_cluster_members_cluster_id", "cluster_id"),
@@ -429,11 +435,11 @@ cluster_members = sa.Table(
 # other_id, founder_moved (member_id the new founder; reason moved_out); with the run and time. Append-only.
 id_events = sa.Table(
     "id_events", metadata,
-    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("id", ID, primary_key=True),
     sa.Column("cluster_id", sa.String(24), sa.ForeignKey("cluster_ids.id"), nullable=False),
     sa.Column("event", sa.String(20), nullable=False),
     sa.Column("other_id", sa.String(24), nullable=True),
-    sa.Column("member_id", sa.Integer, sa.ForeignKey("canonical_urls.id"), nullable=True),
+    sa.Column("member_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=True),
     sa.Column("reason", sa.String(40), nullable=False),
     sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
     sa.Column("at", UTC, nullable=False),
