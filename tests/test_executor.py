@@ -16,6 +16,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 
 import pytest
+import sqlalchemy as sa
 
 from linkfold.canon import Canonical, load_rules, parse_rules
 from linkfold.canon.batch import canonicalize_batch
@@ -25,6 +26,7 @@ from linkfold.dedupe.batch import signature_batch
 from linkfold.dedupe.minhash import SignatureParams
 from linkfold.errors import ConfigError
 from linkfold.executor import InProcess, ProcessPool, _ordered, choose, make_executor
+from linkfold.store import make_engine, upgrade
 
 ROOT = Path(__file__).resolve().parent.parent
 CASES = ROOT / "tests" / "cases" / "canon.tsv"
@@ -228,3 +230,61 @@ def test_a_consumer_that_stops_cancels_what_is_queued() -> None:
 def test_a_failing_batch_raises_in_the_consumer() -> None:
     with ProcessPool(1) as pool, pytest.raises(ValueError):
         list(pool.map(int, ["1", "2", "not a number"]))
+
+
+# --- the extraction stage on each form --------------------------------------------------------------------
+
+def _stage_world(url: str, tmp_path: Path) -> sa.Engine:
+    """The demo's pages plus generated articles, imported through the real page import."""
+    from linkfold.content.page_import import import_pages
+
+    engine = make_engine(url)
+    upgrade(engine)
+    folder = tmp_path / "pages"
+    folder.mkdir(parents=True, exist_ok=True)
+    lines = ["file\turl\tfetched_at"]
+    for page in _pages():
+        name = page.url.rsplit("/", 1)[-1].replace("?", "_").replace("=", "_") + ".html"
+        (folder / name).write_bytes(page.body)
+        lines.append(f"{name}\t{page.url}\t2026-11-01T12:00:00Z")
+    rng = random.Random(5)
+    for i in range(24):
+        words = " ".join(rng.choice(["harbour", "bridge", "council", "storm", "library", "ferry"])
+                         for _ in range(220))
+        html = (f"<html><head><title>Generated story {i}</title></head><body><article><h1>Generated story {i}"
+                f"</h1><p>{words}.</p></article></body></html>")
+        (folder / f"gen-{i}.html").write_text(html, encoding="utf-8")
+        lines.append(f"gen-{i}.html\thttps://riverton-daily.test/story/generated-{i}\t2026-11-01T12:00:00Z")
+    (folder / "pages.tsv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    import_pages(engine, [folder])
+    return engine
+
+
+def _documents(engine: sa.Engine) -> list[tuple]:
+    from linkfold.store import tables as t
+
+    with engine.connect() as conn:
+        q = (sa.select(t.canonical_urls.c.url, t.documents.c.status, t.documents.c.unusable_reason,
+                       t.documents.c.title, t.documents.c.text_hash, t.documents.c.published,
+                       t.documents.c.word_count, t.documents.c.extractor_version)
+             .join(t.canonical_urls, t.canonical_urls.c.id == t.documents.c.canonical_id)
+             .order_by(t.canonical_urls.c.url))
+        docs = [tuple(r) for r in conn.execute(q)]
+        links = sorted(tuple(r) for r in conn.execute(sa.select(t.links.c.kind, t.links.c.src_id, t.links.c.dst_id)))
+    return docs + links
+
+
+def test_the_extraction_stage_stores_the_same_on_every_form(tmp_path: Path, dask_cluster: str) -> None:
+    from linkfold.content.extracting import extract_pages
+
+    results = {}
+    for name, make in [("inprocess", InProcess), ("processes", lambda: ProcessPool(2)),
+                       ("dask", lambda: make_executor(dask_cluster))]:
+        engine = _stage_world(f"sqlite:///{tmp_path / (name + '.db')}", tmp_path / name)
+        with make() as executor:
+            summary = extract_pages(engine, batch_size=4, executor=executor)
+        assert summary.selected == summary.stored > 24  # several batches of 4
+        results[name] = (_documents(engine), summary.usable, dict(summary.no_text))
+        engine.dispose()
+    assert results["processes"] == results["inprocess"]
+    assert results["dask"] == results["inprocess"]

@@ -40,6 +40,7 @@ LAYERS: dict[str, tuple[int, str]] = {
     "migrations": (STORE, "store"),
     # Shared layers, below the stages: talking HTTP safely; reading input files and the executor slot in here.
     "web": (SHARED, "shared"),
+    "executor": (SHARED, "shared"),
     "inputs": (SHARED, "shared"),
     # Stages: each reads what is pending and writes its result; none imports another.
     "ingest": (STAGES, "stage"),

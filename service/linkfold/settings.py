@@ -53,6 +53,20 @@ def _positive_int(text: str) -> int:
     return value
 
 
+def _nonneg_int(text: str) -> int:
+    value = int(text)
+    if value < 0:
+        raise ValueError("must be 0 or a positive integer")
+    return value
+
+
+def _executor_spec(text: str) -> str:
+    value = text.strip()
+    if value in ("auto", "inprocess", "processes") or value.startswith(("tcp://", "tls://")):
+        return value
+    raise ValueError("must be auto, inprocess, processes or a Dask scheduler's address (tcp://HOST:PORT)")
+
+
 def _unit_float(text: str) -> float:
     value = float(text)
     if not 0.0 <= value <= 1.0:
@@ -73,6 +87,12 @@ SETTINGS: tuple[Setting, ...] = (
             "directory) or postgresql+psycopg://user@host/dbname for a lab server."),
     Setting("batch_size", 5000, _positive_int,
             "Rows written per transaction by bulk stages; a crash loses at most the batch in flight."),
+    Setting("executor", "auto", _executor_spec,
+            "Where the heavy pure work of the stages runs (extraction): auto (a process pool over every "
+            "core when a stage has enough work, else in process), inprocess, processes, or the address of "
+            "a Dask scheduler (tcp://HOST:8786) for a lab's machines (needs linkfold[cluster])."),
+    Setting("workers", 0, _nonneg_int,
+            "Worker processes of the local pool (executor processes or auto); 0: one per core."),
     Setting("busy_timeout", 30.0, _nonneg_float,
             "SQLite only: seconds a writer waits for another writer of the same registry file before it "
             "gives up with a write conflict (exit 11); SQLite has one writer at a time."),

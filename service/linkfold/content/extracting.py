@@ -4,14 +4,19 @@ Pages without a document (or, with ``reextract``, without one under the current 
 documents, usable or ``no_text`` with the reason; their declared canonicals become ``declared`` links
 (same outlet) or ``declared_cross`` links marked untrusted (another outlet). A thin shell over the pure
 :func:`~linkfold.content.extract_document` and the writes of :mod:`linkfold.store.pages`.
+
+The extraction itself, the heavy part, goes through the executor (:mod:`linkfold.executor`): this process
+reads a batch of pages, hands their bytes to a worker (or extracts them itself, in process), and writes
+each batch's documents as it comes back, in order, while the next batches are being extracted. Only this
+process writes, one batch per transaction, so an interrupted run resumes where the written batches end.
 """
 
 from __future__ import annotations
 
 import logging
-from collections import Counter
-from collections.abc import Sequence
-from dataclasses import dataclass, field, replace
+from collections import Counter, deque
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from typing import Any
 
@@ -19,6 +24,7 @@ from sqlalchemy.engine import Engine
 
 from ..canon import Canonical, Canonicaliser, Ruleset
 from ..errors import ConfigError, InvalidURL
+from ..executor import Executor, executor_for
 from ..progress import SILENT, Progress
 from ..settings import Settings
 from ..store import evidence as ev
@@ -29,11 +35,11 @@ from ..store.runs import recording_run
 from ..store.stats import refresh_statistics
 from ..store.text import storable
 from ._records import by_class, document_row
+from .batch import ExtractJob, extract_batch
 from .canonical_link import DeclaredLink, Relation, declared_link
-from .extract import Document, extract_document, extractor_version
-from .mediatype import is_html
+from .extract import Document, extractor_version
 from .pages import Page
-from .usable import DEFAULT_RULES, Unusable, UsableTextRules
+from .usable import DEFAULT_RULES, UsableTextRules
 
 log = logging.getLogger("linkfold")
 
@@ -85,17 +91,6 @@ def _as_page(stored: sp.StoredPage) -> Page:
                 headers=stored.headers, body=stored.body, fetched_at=stored.fetched_at, source=stored.source)
 
 
-def _extract(stored: sp.StoredPage, rules: UsableTextRules) -> Document:
-    page = _as_page(stored)
-    doc = extract_document(page, rules=rules)
-    # The fetch stage keeps no body of a response that is not HTML (nothing would read it), so the core
-    # sees an empty body; the stored Content-Type still says why there is no text.
-    if (doc.unusable_reason is Unusable.EMPTY and not page.body and page.content_type
-            and not is_html(page.content_type, b"")):
-        doc = replace(doc, unusable_reason=Unusable.NOT_HTML)
-    return doc
-
-
 class _DocWriter:
     def __init__(self, engine: Engine, canon: Canonicaliser, rules: Ruleset, *, ruleset_id: int, run_id: int,
                  version: str, text_rules: UsableTextRules, summary: ExtractSummary) -> None:
@@ -103,16 +98,13 @@ class _DocWriter:
         self.ruleset_id, self.run_id, self.version = ruleset_id, run_id, version
         self.text_rules, self.summary = text_rules, summary
 
-    def extract(self, page_ids: Sequence[int]) -> None:
+    def write(self, stored: Sequence[sp.StoredPage], docs: Sequence[Document]) -> None:
+        """Store one batch's documents (extracted wherever the executor ran them) and their links."""
         s = self.summary
-        with self.engine.connect() as conn:
-            stored = sp.load_pages(conn, page_ids)
-        done: list[tuple[sp.StoredPage, Document]] = []
-        for page in stored:
-            doc = _extract(page, self.text_rules)
+        done = list(zip(stored, docs, strict=True))
+        for page, doc in done:
             if doc.notes:
                 log.debug("page %d: %s", page.id, "; ".join(doc.notes))
-            done.append((page, doc))
             if doc.usable:
                 s.usable += 1
             else:
@@ -180,8 +172,12 @@ def count_pending(engine: Engine, *, settings: Settings | None = None, reextract
 
 def extract_pages(engine: Engine, *, settings: Settings | None = None, reextract: bool = False, limit: int | None = None,
                   batch_size: int | None = None, rules: UsableTextRules = DEFAULT_RULES,
-                  progress: Progress = SILENT, parent_run: int | None = None) -> ExtractSummary:
+                  progress: Progress = SILENT, parent_run: int | None = None,
+                  executor: Executor | None = None) -> ExtractSummary:
     """Turn stored pages into documents (see the module doc); returns the counts.
+
+    ``executor`` runs the extraction (default: the one the settings ``executor`` and ``workers`` choose for
+    this much work, closed again at the end; a job passes its own to share it between stages).
 
     Without ``reextract``: pages that have no document yet. With it: pages that have no document under
     the current extractor version (trafilatura's version and ``CONTENT_VERSION``), so after an upgrade one
@@ -206,20 +202,36 @@ def extract_pages(engine: Engine, *, settings: Settings | None = None, reextract
         summary.run_id = run.id
         writer = _DocWriter(engine, canon, ruleset, ruleset_id=ruleset_id, run_id=run.id, version=version,
                             text_rules=rules, summary=summary)
-        after = 0
-        try:
-            while summary.selected < total:
+        in_flight: deque[list[sp.StoredPage]] = deque()
+
+        def jobs() -> Iterator[ExtractJob]:
+            # Reads ahead of what is written by at most the executor's window; ids only grow, so a batch
+            # read here is never read again by this run.
+            after, read = 0, 0
+            while read < total:
                 with engine.connect() as conn:
                     ids = sp.select_extract_pending(conn, version=version, reextract=reextract, after_id=after,
-                                                    limit=min(size, total - summary.selected))
+                                                    limit=min(size, total - read))
+                    stored = sp.load_pages(conn, ids) if ids else []
                 if not ids:
-                    break
-                writer.extract(ids)
-                after = ids[-1]
-                summary.selected += len(ids)
-                progress.advance(len(ids))
+                    return
+                after, read = ids[-1], read + len(ids)
+                in_flight.append(stored)
+                yield ExtractJob([_as_page(p) for p in stored], rules=rules)
+
+        owned = executor is None
+        runner = executor or executor_for(settings, work=total)
+        log.info("extract: %d pages on %s (%d at a time)", total, runner.form, runner.workers)
+        try:
+            for docs in runner.map(extract_batch, jobs()):
+                stored = in_flight.popleft()
+                writer.write(stored, docs)
+                summary.selected += len(stored)
+                progress.advance(len(stored))
                 run.counts = summary.as_dict()
         finally:
+            if owned:
+                runner.close()
             run.counts = summary.as_dict()
             progress.finish()
     refresh_statistics(engine, ["canonical_urls"], changed={"documents": summary.stored,

@@ -13,7 +13,9 @@ computed again by the next run), and the three forms give identical results:
     a Dask distributed cluster (its scheduler's address), for a lab's machines. Every worker needs the
     same linkfold installed; the functions travel by reference (module and name), the inputs by value.
 
-``auto`` (the default) is ``processes`` on a machine with more than one core and ``inprocess`` on one.
+``auto`` (the default) is ``processes`` on a machine with more than one core and ``inprocess`` on one,
+and ``inprocess`` for a stage with little work (under :data:`AUTO_MIN_WORK` items): starting workers that
+import the extraction library costs a second or two, more than a few dozen pages take.
 
 At most ``window`` batches are in flight at once (twice the workers by default), so memory stays flat
 however many batches a stage has; a result is yielded as soon as it and every batch before it are done.
@@ -41,6 +43,9 @@ In = TypeVar("In")
 Out = TypeVar("Out")
 
 FORMS = ("auto", "inprocess", "processes")
+
+#: Below this many items of work, ``auto`` stays in process (see the module doc).
+AUTO_MIN_WORK = 200
 
 
 class Executor(Protocol):
@@ -222,5 +227,15 @@ def make_executor(spec: str = "auto", *, workers: int = 0) -> InProcess | Proces
     return DaskCluster(choice.form)
 
 
-__all__ = ["DaskCluster", "Executor", "ExecutorChoice", "InProcess", "ProcessPool", "choose", "cpu_count",
-           "make_executor"]
+def executor_for(settings: Any, *, work: int, min_work: int = AUTO_MIN_WORK) -> InProcess | ProcessPool | DaskCluster:
+    """The executor the settings ``executor`` and ``workers`` choose for ``work`` items (a stage's pending
+    count). ``auto`` stays in process for less than ``min_work``; an explicit form is always honoured."""
+    spec = str(getattr(settings, "executor", "auto") or "auto") if settings is not None else "auto"
+    workers = int(getattr(settings, "workers", 0) or 0) if settings is not None else 0
+    if spec == "auto" and work < min_work:
+        return InProcess()
+    return make_executor(spec, workers=workers)
+
+
+__all__ = ["AUTO_MIN_WORK", "DaskCluster", "Executor", "ExecutorChoice", "InProcess", "ProcessPool", "choose", "cpu_count",
+           "executor_for", "make_executor"]
