@@ -188,7 +188,7 @@ def test_negative_workers_are_refused() -> None:
 def test_an_unreachable_scheduler_is_a_clear_error() -> None:
     # Port 9 on loopback (discard) has no scheduler here; nothing leaves the machine.
     with pytest.raises(ConfigError, match="cannot reach the Dask scheduler"):
-        make_executor("tcp://127.0.0.1:9")
+        make_executor("tcp://127.0.0.1:9", timeout=2)
 
 
 class _Handles:

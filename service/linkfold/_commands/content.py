@@ -162,10 +162,13 @@ def documents_show_command(obj: Context, url: str, all_documents: bool, without_
               help="Also redo pages whose documents come from an older extractor version (after upgrading "
                    "trafilatura or linkfold); older documents are kept.")
 @click.option("--limit", type=click.IntRange(min=1), metavar="N", help="At most N pages in this run.")
+@click.option("--cluster", metavar="tcp://HOST:PORT", default=None,
+              help="Extract on this Dask scheduler's workers (setting executor; default: every core here).")
 @summary_option
 @common_options
 @pass_ctx
-def extract_command(obj: Context, reextract: bool, limit: int | None, summary_format: str) -> None:
+def extract_command(obj: Context, reextract: bool, limit: int | None, cluster: str | None,
+                    summary_format: str) -> None:
     """Turn stored pages into documents: title, text, date, author, language, declared canonical.
 
     Pages that yield no usable text (paywall stub, consent wall, video page, too short) are stored with
@@ -177,7 +180,8 @@ def extract_command(obj: Context, reextract: bool, limit: int | None, summary_fo
       linkfold extract
       linkfold extract --reextract --summary json
     """
-    summary = extract_pages(obj.engine(), settings=obj.settings, reextract=reextract, limit=limit,
+    settings = obj.settings.replace(executor=cluster) if cluster else obj.settings
+    summary = extract_pages(obj.engine(), settings=settings, reextract=reextract, limit=limit,
                             progress=obj.progress())
     _report(obj, summary, summary_format)
 

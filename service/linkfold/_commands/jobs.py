@@ -23,10 +23,12 @@ from ._common import (
 
 
 @click.command("nightly")
+@click.option("--cluster", metavar="tcp://HOST:PORT", default=None,
+              help="Run the heavy work (extraction) on this Dask scheduler's workers (setting executor).")
 @summary_option
 @common_options
 @pass_ctx
-def nightly_command(obj: Context, summary_format: str) -> None:
+def nightly_command(obj: Context, summary_format: str, cluster: str | None) -> None:
     """Run every stage that has pending work, in order, under the registry lock.
 
     recanonicalize → follow (shortener hosts) → fetch → extract → dedupe. Follow and fetch are skipped
@@ -36,9 +38,11 @@ def nightly_command(obj: Context, summary_format: str) -> None:
     \b
     Example:
       LINKFOLD_CONTACT=mailto:lab@university.example linkfold nightly
+      linkfold nightly --cluster tcp://scheduler.lab.example:8786
       linkfold runs
     """
-    summary = run_nightly(obj.engine(), settings=obj.settings, progress=obj.progress())
+    settings = obj.settings.replace(executor=cluster) if cluster else obj.settings
+    summary = run_nightly(obj.engine(), settings=settings, progress=obj.progress())
     report_summary(obj, summary, summary_format)
     if not summary.ok:
         # Said even under -q: a cron job's mail must say which stage failed and why.

@@ -214,17 +214,19 @@ def choose(spec: str = "auto", *, workers: int = 0) -> ExecutorChoice:
     return ExecutorChoice(spec, 1 if spec == "inprocess" else cores)
 
 
-def make_executor(spec: str = "auto", *, workers: int = 0) -> InProcess | ProcessPool | DaskCluster:
+def make_executor(spec: str = "auto", *, workers: int = 0,
+                  timeout: float = 30.0) -> InProcess | ProcessPool | DaskCluster:
     """An executor for ``spec``: ``auto``, ``inprocess``, ``processes`` or a Dask scheduler's address.
 
-    ``workers`` caps the local pool (0: one per core). Use it as a context manager so the workers stop.
+    ``workers`` caps the local pool (0: one per core); ``timeout`` is how long a scheduler is waited for.
+    Use it as a context manager so the workers stop.
     """
     choice = choose(spec, workers=workers)
     if choice.form == "inprocess":
         return InProcess()
     if choice.form == "processes":
         return ProcessPool(choice.workers)
-    return DaskCluster(choice.form)
+    return DaskCluster(choice.form, timeout=timeout)
 
 
 def executor_for(settings: Any, *, work: int, min_work: int = AUTO_MIN_WORK) -> InProcess | ProcessPool | DaskCluster:
