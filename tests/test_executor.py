@@ -30,7 +30,7 @@ from linkfold.store import make_engine, upgrade
 
 ROOT = Path(__file__).resolve().parent.parent
 CASES = ROOT / "tests" / "cases" / "canon.tsv"
-PAGES = ROOT / "fixtures" / "pages"
+PAGES = ROOT / "service" / "linkfold" / "demo_data" / "pages"
 
 
 # Every common-practice fold off, as tests/test_canon_cases.py does: what is left is RFC 3986 §6.2.2/§6.2.3
@@ -88,7 +88,7 @@ def _chunks(items: list, size: int) -> Iterator[list]:
 
 
 def _run_all(executor) -> dict[str, list]:
-    demo = load_rules(ROOT / "fixtures" / "rules" / "demo.toml")
+    demo = load_rules(ROOT / "service" / "linkfold" / "demo_data" / "rules" / "demo.toml")
     params = SignatureParams()
     now = datetime(2026, 12, 1, tzinfo=UTC)
     # the RFC cases under the syntax-only rules first, then generated URLs under the built-in and the
@@ -159,7 +159,7 @@ def test_rules_travel_to_the_workers(tmp_path: Path) -> None:
 def test_a_ruleset_survives_pickling_whole(tmp_path: Path) -> None:
     import pickle
 
-    demo = load_rules(ROOT / "fixtures" / "rules" / "demo.toml")
+    demo = load_rules(ROOT / "service" / "linkfold" / "demo_data" / "rules" / "demo.toml")
     back = pickle.loads(pickle.dumps(demo))
     assert back == demo and back.digest == demo.digest and dict(back.sites).keys() == dict(demo.sites).keys()
     raw = "https://www.harbourview-news.example/story?id=7&utm_medium=x&ref=y"

@@ -185,6 +185,8 @@ class Settings:
 
     database_url: str
     batch_size: int
+    executor: str
+    workers: int
     busy_timeout: float
     ingest_batch_size: int
     canon_cache_size: int
