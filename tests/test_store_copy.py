@@ -46,12 +46,12 @@ def test_header_and_trailer_are_the_documented_ones():
 
 def test_a_row_is_a_field_count_then_length_prefixed_fields():
     # Same documentation, "Tuples": a 16-bit field count, then per field a 32-bit length (-1 for NULL) and
-    # the value in the type's binary send format (int4/int8 in network byte order).
+    # the value in the type's binary send format (int4/int8 in network byte order; raw_url_id is int8, 0023).
     enc = bulk.BinaryRows(t.sightings, registry.SIGHTING_COLUMNS)
     data = bytes(enc.encode([(1, 2, 3, 0, "v1", None, 7, "hs256:ab")]).data)
     assert data == (b"\x00\x08" + b"\x00\x00\x00\x04\x00\x00\x00\x01" + b"\x00\x00\x00\x04\x00\x00\x00\x02"
                     + b"\x00\x00\x00\x08" + (3).to_bytes(8, "big") + b"\x00\x00\x00\x04\x00\x00\x00\x00"
-                    + b"\x00\x00\x00\x02v1" + b"\xff\xff\xff\xff" + b"\x00\x00\x00\x04\x00\x00\x00\x07"
+                    + b"\x00\x00\x00\x02v1" + b"\xff\xff\xff\xff" + b"\x00\x00\x00\x08" + (7).to_bytes(8, "big")
                     + b"\x00\x00\x00\x08hs256:ab")
 
 
