@@ -16,11 +16,11 @@ import numpy as np
 import sqlalchemy as sa
 
 from linkfold.content import count_words, normalise_text, text_hash
-from linkfold.dedupe.synthetic import edited_copy, invented_vocabulary, random_words
 from linkfold.follow import import_redirects
 from linkfold.ingest import ingest_dump
 from linkfold.settings import load_settings
 from linkfold.store import tables as t
+from synthetic_texts import edited_copy, invented_vocabulary, random_words
 
 STAMP = datetime(2031, 3, 4, 5, 6, 7, tzinfo=UTC)
 
