@@ -15,7 +15,8 @@ import sqlalchemy as sa
 from linkfold.cli import main
 from linkfold.errors import ConfigError, NotFound
 from linkfold.ingest import export_dataset, ingest_dump
-from linkfold.store.registry import LINK_COLUMNS, utc
+from linkfold.store.clock import utc
+from linkfold.store.linkage import LINK_COLUMNS
 
 PANEL = ("visit_id,url,visited\n"
          "v1,https://www.daily-harbour.example/2031/05/bridge?utm_source=feed,2031-05-04T08:00:00Z\n"

@@ -19,8 +19,8 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
 from . import tables as t
+from .clock import utc
 from .finals import finals_of
-from .registry import utc
 
 LEVELS = ("article", "story")
 PREFIXES = {"article": "a", "story": "s"}

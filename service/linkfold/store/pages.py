@@ -21,7 +21,7 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
 from . import tables as t
-from .registry import utc
+from .clock import utc
 
 _IN_CHUNK = 500  # ids per IN (…) list, well under SQLite's limit of bound parameters
 

@@ -22,13 +22,13 @@ from typing import Any
 import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
-from ...errors import InputError, NotFound
-from ...ingest.lookup import lookup
+from ...errors import InputError
 from ...store import clusters as cs
 from ...store import tables as t
+from ...store.clock import now, utc
 from ...store.finals import finals_of
+from ...store.lookup import locate
 from ...store.migrate import require_schema
-from ...store.registry import now, utc
 
 VERDICTS = ("same", "different")
 LEVELS = ("article", "story")
@@ -80,26 +80,9 @@ def _url_row(conn: Connection, member: int) -> Any:
 
 
 def resolve_ref(engine: Engine, conn: Connection, ref: str) -> Anchor:
-    text = ref.strip()
-    if not text:
-        raise InputError("an empty reference: give a URL, a url key or an article/story ID")
-    if cs.is_cluster_id(text):
-        res = cs.resolve(conn, text)
-        if res is None:
-            raise NotFound(f"{text}: no such article or story ID was ever issued")
-        row = cs.id_rows(conn, [res.current])[res.current]
-        founder = _url_row(conn, int(row["founder_id"]))
-        return Anchor(text, int(founder.id), founder.url, res.current, res.level, founder.outlet)
-    answer = next(iter(lookup(engine, [text])))
-    if answer["error"] and not answer["url_key"]:
-        raise InputError(f"{text}: not a URL, url key or ID the registry can read ({answer['error']})")
-    if not answer["seen"] or not answer["url_key"]:
-        raise NotFound(f"{text}: not in the registry (canonical form {answer['canonical']!r}); load it first")
-    c = t.canonical_urls
-    found = conn.execute(sa.select(c.c.id, c.c.url, c.c.outlet).where(c.c.url_key == answer["url_key"])).first()
-    if found is None:
-        raise NotFound(f"{text}: not in the registry")
-    return Anchor(text, int(found.id), found.url, None, None, found.outlet)
+    """The anchor of one side of a decision: what ``ref`` names, found the way lookup finds it."""
+    found = locate(engine, conn, ref)
+    return Anchor(found.ref, found.canonical_id, found.url, found.cluster, found.level, found.outlet)
 
 
 def decision_level(a: Anchor, b: Anchor, *, same_article: bool, level: str | None = None) -> tuple[str, str]:

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import difflib
 from collections import Counter, defaultdict
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
@@ -16,11 +15,12 @@ from ...errors import InputError, NotFound
 from ...settings import Settings
 from ...store import clusters as cs
 from ...store import tables as t
+from ...store.clock import utc
 from ...store.finals import FinalsJoin, finals_of
-from ...store.registry import utc
 from .. import SignatureParams, render_curve, render_histogram
 from ..curve import DEFAULT_POINTS
 from ..sinks import POINTING_KINDS
+from ..textdiff import differing_passages
 from .regions import link_level, links_touching
 from .sinks import Sink, SinkJudge, describe_sinks
 
@@ -172,28 +172,6 @@ def _current_documents(conn: Connection, canonical_ids: Sequence[int]) -> dict[i
              .where(d.c.canonical_id.in_(part), d.c.status == "usable").order_by(d.c.id))
         for r in conn.execute(q):
             out[int(r.canonical_id)] = r   # ascending ids: the newest usable document wins
-    return out
-
-
-def differing_passages(a: str, b: str, *, context: int = 4, max_passages: int = 6,
-                       max_words: int = 40) -> list[tuple[str, str]]:
-    """Word-level passages where ``b`` differs from ``a``, each with a few words of context."""
-    wa, wb = a.split(), b.split()
-    out: list[tuple[str, str]] = []
-    matcher = difflib.SequenceMatcher(None, wa, wb, autojunk=False)
-    for tag, i1, i2, j1, j2 in matcher.get_opcodes():
-        if tag == "equal":
-            continue
-        left = wa[max(0, i1 - context):i1]
-        right_ctx = wa[i2:i2 + context]
-
-        def clip(words: list[str]) -> str:
-            return " ".join(words[:max_words]) + (" …" if len(words) > max_words else "")
-
-        out.append((clip([*left, "[", *wa[i1:i2], "]", *right_ctx]),
-                    clip([*wb[max(0, j1 - context):j1], "[", *wb[j1:j2], "]", *wb[j2:j2 + context]])))
-        if len(out) >= max_passages:
-            break
     return out
 
 

@@ -35,9 +35,9 @@ from sqlalchemy.engine import Connection, Engine
 from ...progress import SILENT, Progress
 from ...store import pending as pq
 from ...store import tables as t
+from ...store.clock import now
 from ...store.clusters import chunks
 from ...store.evidence import add_links
-from ...store.registry import now
 from .. import DocFeatures, SignatureParams, Thresholds, shingle_hashes, signature_from_bytes, verify_pairs
 from .signing import MATCHED
 

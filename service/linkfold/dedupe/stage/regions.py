@@ -41,7 +41,7 @@ from ...settings import Settings
 from ...store import clusters as cs
 from ...store import pending as pq
 from ...store import tables as t
-from ...store.registry import now
+from ...store.clock import now
 from .. import Edge, EventKind, IdState, Reason, Thresholds, assign_ids, cluster, derive_id
 from ..sinks import POINTING_KINDS, End, link_joins
 from .sinks import SinkJudge

@@ -36,8 +36,8 @@ from ...progress import SILENT, Progress
 from ...store import pending as pq
 from ...store import tables as t
 from ...store.bulk import insert_rows
+from ...store.clock import now
 from ...store.clusters import chunks, get_mark, set_mark
-from ...store.registry import now
 from .. import (
     TITLE_KEY_NAME,
     SignatureParams,

@@ -24,8 +24,9 @@ from ...canon import Ruleset
 from ...settings import Settings
 from ...store import evidence as ev
 from ...store import tables as t
+from ...store.clock import now
 from ...store.clusters import get_mark, set_mark
-from ...store.registry import get_dataset, now
+from ...store.datasets import get_dataset
 from ...store.rulesets import current_ruleset
 from ..sinks import End, SinkKind, fan_in, sink_kind
 
