@@ -1,7 +1,8 @@
-"""The old home of the ingest writer, listings, export and lookup queries, kept so code written against it
-still imports for one release. Import from the modules by idea instead: :mod:`.clock` (``now``, ``utc``),
-:mod:`.datasets` (datasets, files, rejects), :mod:`.loads` (one batch of a load), :mod:`.linkage` (the
-linkage table) and :mod:`.lookup` (what the registry knows about URLs, keys and IDs)."""
+"""The old home of the ingest writer, listings, export and lookup queries, kept only so that code written
+against it still imports (nothing in the package does; remove it once nothing else does). Import from
+the modules by idea instead: :mod:`.clock` (``now``, ``utc``), :mod:`.datasets` (datasets, files,
+rejects), :mod:`.loads` (one batch of a load), :mod:`.linkage` (the linkage table) and :mod:`.lookup`
+(what the registry knows about URLs, keys and IDs)."""
 
 from __future__ import annotations
 
