@@ -65,3 +65,15 @@ def test_nothing_stored_is_not_found(stored):
         documents_for(stored, "not a url at all")
     with pytest.raises(NotFound, match="no such article or story ID"):
         documents_for(stored, "a" + "b" * 12)
+
+
+def test_an_article_or_story_id_shows_its_founders_documents(stored):
+    from dedupe_world import ids_of, settings
+    from linkfold.dedupe.stage import run_dedupe
+
+    run_dedupe(stored, settings=settings())
+    for level in ("article", "story"):
+        cluster_id = ids_of(stored, level)[URL]
+        found = documents_for(stored, cluster_id, all_documents=True)
+        assert found.located.cluster == cluster_id and found.located.level == level
+        assert found.located.url == URL and [d["title"] for d in found.documents] == ["Tram depot"]
