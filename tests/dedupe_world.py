@@ -1,7 +1,7 @@
 """An invented world for the dedupe stage tests: outlets on reserved names, generated texts.
 
 Nothing is real: the outlets are ``*.example`` / ``*.test`` names (RFC 2606), the words are invented
-syllable strings (:mod:`linkfold.dedupe.synthetic`). URLs are loaded through the real ingest path and
+syllable strings (``tests/synthetic_texts.py``). URLs are loaded through the real ingest path and
 redirects through the real import path; documents are written as the content stage writes them (one
 ``documents`` row per text, usable), since what is tested here is everything after extraction.
 """
