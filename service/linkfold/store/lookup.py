@@ -35,6 +35,9 @@ cluster        for an ID given as input: the live cluster it stands for — ``id
 
 For an ID given as input, ``canonical``, ``url_key``, ``domain`` and ``outlet`` stay null (an ID is not
 one URL): what the ID stands for is in ``cluster``.
+
+:func:`locate` finds one reference the same way for the commands that act on what it names (a decision,
+``documents show``). Lookup only reads: it lives with storage so that every stage may use it.
 """
 
 from __future__ import annotations

@@ -85,9 +85,9 @@ def _scores(links: Sequence[Any], members: set[int]) -> tuple[float | None, floa
 def list_clusters(engine: Engine, *, level: str = "article", min_size: int = 2, outlet: str | None = None,
                   limit: int | None = None, settings: Settings | None = None) -> Iterator[ClusterRow]:
     """Clusters of ``level`` with at least ``min_size`` members (and, with ``outlet``, a member whose final
-    outlet is that one: an outlet name or a domain, see :func:`_on_outlet`), largest first, with the number
-    of final outlets, the range of similarity scores between their members and the sinks near them
-    (``settings`` gives the ``sink_fan_in`` limit)."""
+    outlet is that one: an outlet name or a domain, see :func:`linkfold.store.cluster_reports.cluster_heads`),
+    largest first, with the number of final outlets, the range of similarity scores between their members
+    and the sinks near them (``settings`` gives the ``sink_fan_in`` limit)."""
     if level not in cs.LEVELS:
         raise InputError(f"level must be article or story, not {level!r}")
     if min_size < 1:
