@@ -28,7 +28,7 @@ from ..errors import InvalidURL
 from . import _parse
 from ._folds import _Folds, _percent
 from ._hostplan import _HostPlan
-from ._shapes import _AMP_CACHE_PREFIXES, _amp_cache_target, _share_page
+from ._wrapped import _AMP_CACHE_PREFIXES, _amp_cache_target, _share_page
 from .keys import url_key
 from .rules import Ruleset, default_rules
 
