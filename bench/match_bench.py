@@ -16,12 +16,16 @@ from __future__ import annotations
 import argparse
 import sys
 import time
+from pathlib import Path
 
 import numpy as np
 
 from linkfold.dedupe import SignatureParams, band_keys, candidate_pairs, minhash_signatures, s_curve
-from linkfold.dedupe.synthetic import set_families
 from linkfold.settings import load_settings
+
+# The generated texts live beside the tests that use them too (not in the package).
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+from synthetic_texts import set_families
 
 RECALL_TARGET = 0.99
 

@@ -33,12 +33,15 @@ import sqlalchemy as sa
 
 from linkfold.content import count_words, normalise_text, text_hash
 from linkfold.dedupe.stage import run_dedupe
-from linkfold.dedupe.synthetic import edited_copy, invented_vocabulary, random_words
 from linkfold.ingest import ingest_dump
 from linkfold.jobs.nightly import run_nightly
 from linkfold.settings import load_settings
 from linkfold.store import make_engine, upgrade
 from linkfold.store import tables as t
+
+# The generated texts live beside the tests that use them too (not in the package).
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+from synthetic_texts import edited_copy, invented_vocabulary, random_words
 
 TARGET = 0.05
 OUTLETS = ("herald.example", "courier.test", "gazette.example", "ledger.test")

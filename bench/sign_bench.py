@@ -15,6 +15,7 @@ from __future__ import annotations
 import argparse
 import sys
 import time
+from pathlib import Path
 
 import datasketch
 import numpy as np
@@ -26,7 +27,10 @@ from linkfold.dedupe import (
     shingle_hashes,
     signatures_from_texts,
 )
-from linkfold.dedupe.synthetic import near_duplicate_corpus
+
+# The generated texts live beside the tests that use them too (not in the package).
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+from synthetic_texts import near_duplicate_corpus
 
 TARGET = 3.0
 

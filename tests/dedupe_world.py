@@ -1,7 +1,7 @@
 """An invented world for the dedupe stage tests: outlets on reserved names, generated texts.
 
 Nothing is real: the outlets are ``*.example`` / ``*.test`` names (RFC 2606), the words are invented
-syllable strings (:mod:`linkfold.dedupe.synthetic`). URLs are loaded through the real ingest path and
+syllable strings (``tests/synthetic_texts.py``). URLs are loaded through the real ingest path and
 redirects through the real import path; documents are written as the content stage writes them (one
 ``documents`` row per text, usable), since what is tested here is everything after extraction.
 """
@@ -16,11 +16,11 @@ import numpy as np
 import sqlalchemy as sa
 
 from linkfold.content import count_words, normalise_text, text_hash
-from linkfold.dedupe.synthetic import edited_copy, invented_vocabulary, random_words
 from linkfold.follow import import_redirects
 from linkfold.ingest import ingest_dump
 from linkfold.settings import load_settings
 from linkfold.store import tables as t
+from synthetic_texts import edited_copy, invented_vocabulary, random_words
 
 STAMP = datetime(2031, 3, 4, 5, 6, 7, tzinfo=UTC)
 

@@ -15,8 +15,8 @@ import pytest
 
 from linkfold.api import create_app
 from linkfold.api.charts import SIZE_BUCKETS, similarity_bins, size_labels
-from linkfold.api.textdiff import side_by_side
 from linkfold.dedupe.stage import run_dedupe
+from linkfold.dedupe.textdiff import side_by_side
 from linkfold.store.tokens import create_token
 from test_api_support import AsgiClient, build_world, settings_for
 

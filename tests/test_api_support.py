@@ -137,7 +137,7 @@ WORLD_URLS = {
 
 
 def _words(rng, vocab, n):
-    from linkfold.dedupe.synthetic import random_words
+    from synthetic_texts import random_words
 
     return random_words(rng, vocab, n)
 
@@ -154,7 +154,7 @@ def build_world(engine, tmp_path: Path, settings) -> dict[str, str]:
 
     from linkfold.content.loading import load_documents
     from linkfold.dedupe.stage import run_dedupe
-    from linkfold.dedupe.synthetic import edited_copy, invented_vocabulary
+    from synthetic_texts import edited_copy, invented_vocabulary
 
     rng = np.random.default_rng(2031)
     vocab = invented_vocabulary(4000, rng)

@@ -1,7 +1,7 @@
 """The canonicaliser's switches as the code reads them match the switches a rules file may set."""
 
 from linkfold.canon import SWITCHES
-from linkfold.canon.core import _Switches
+from linkfold.canon._hostplan import _Switches
 
 
 def test_switch_annotations_match_the_rules_switches():

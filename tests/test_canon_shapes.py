@@ -4,7 +4,7 @@ tests/cases/shapes.tsv — who may unwrap a share-looking path, and what the old
 from __future__ import annotations
 
 from linkfold.canon import canonicalize, parse_rules
-from linkfold.canon.core import SHARE_SEGMENTS, amp_cache_labels
+from linkfold.canon._wrapped import SHARE_SEGMENTS, amp_cache_labels
 
 
 def test_the_cache_label_is_the_dashed_origin_host() -> None:

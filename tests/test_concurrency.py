@@ -437,10 +437,10 @@ def _losing(monkeypatch, fail_calls: set[int]) -> list[int]:
     """Make the ingest writer's transactions numbered in ``fail_calls`` lose as PostgreSQL makes a
     deadlock's loser lose: after the batch's rows are written, the server raises SQLSTATE 40P01 and the
     transaction rolls back (a real server error through the real driver, not a Python stand-in)."""
-    from linkfold.store import registry
+    from linkfold.store import loads
 
     calls: list[int] = []
-    original = registry.write_batch
+    original = loads.write_batch
 
     def write_batch(conn, **kwargs):
         counts = original(conn, **kwargs)
@@ -450,7 +450,7 @@ def _losing(monkeypatch, fail_calls: set[int]) -> list[int]:
                                  "USING ERRCODE = 'deadlock_detected'; END $$")
         return counts
 
-    monkeypatch.setattr(registry, "write_batch", write_batch)
+    monkeypatch.setattr(loads, "write_batch", write_batch)
     return calls
 
 

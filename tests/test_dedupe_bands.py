@@ -21,7 +21,7 @@ from linkfold.dedupe import (
     signatures_from_texts,
     threshold_point,
 )
-from linkfold.dedupe.synthetic import near_duplicate_corpus, set_pair
+from synthetic_texts import near_duplicate_corpus, set_pair
 
 # Mining of Massive Datasets (Leskovec, Rajaraman & Ullman), ch. 3, the table of 1 − (1 − s^r)^b for
 # b = 20, r = 5. Values from memory, confirmed by computing the formula; the book rounds to 3 digits

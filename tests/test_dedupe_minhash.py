@@ -18,9 +18,9 @@ from linkfold.dedupe import (
     signature_to_bytes,
     signatures_from_texts,
 )
-from linkfold.dedupe.synthetic import near_duplicate_corpus, set_pair
 from linkfold.errors import ConfigError, SignatureError
 from linkfold.settings import load_settings
+from synthetic_texts import near_duplicate_corpus, set_pair
 
 
 def _csr(sets: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:

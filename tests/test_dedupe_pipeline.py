@@ -27,7 +27,7 @@ from linkfold.dedupe import (
     signatures_from_texts,
     verify_pairs,
 )
-from linkfold.dedupe.synthetic import edited_copy, invented_vocabulary, random_words
+from synthetic_texts import edited_copy, invented_vocabulary, random_words
 
 OUTLETS = ["herald.example", "courier.test", "gazette.example", "ledger.test"]
 

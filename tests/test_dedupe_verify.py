@@ -21,9 +21,9 @@ from linkfold.dedupe import (
     verify_pair,
     verify_pairs,
 )
-from linkfold.dedupe.synthetic import edited_copy, invented_vocabulary, random_words
 from linkfold.errors import ConfigError
 from linkfold.settings import load_settings
+from synthetic_texts import edited_copy, invented_vocabulary, random_words
 
 PARAMS = SignatureParams()
 T = Thresholds()

@@ -15,7 +15,8 @@ import sqlalchemy as sa
 from linkfold.cli import main
 from linkfold.errors import ConfigError, NotFound
 from linkfold.ingest import export_dataset, ingest_dump
-from linkfold.store.registry import LINK_COLUMNS, utc
+from linkfold.store.clock import utc
+from linkfold.store.linkage import LINK_COLUMNS
 
 PANEL = ("visit_id,url,visited\n"
          "v1,https://www.daily-harbour.example/2031/05/bridge?utm_source=feed,2031-05-04T08:00:00Z\n"
@@ -80,10 +81,11 @@ def test_parquet_round_trip(loaded, tmp_path):
     assert pq.ParquetFile(out).metadata.num_row_groups == 3  # 5 rows in groups of 2: memory stays flat
     rows = table.to_pylist()
     with engine.connect() as conn:
-        from linkfold.store import registry
+        from linkfold.store.datasets import get_dataset
+        from linkfold.store.linkage import iter_links
 
         expected = [dict(zip(LINK_COLUMNS, r, strict=True))
-                    for r in registry.iter_links(conn, registry.get_dataset(conn, "panel"))]
+                    for r in iter_links(conn, get_dataset(conn, "panel"))]
     assert rows == expected
     assert rows[0]["seen_at"] == datetime(2031, 5, 4, 8, 0, tzinfo=UTC)
     assert rows[2]["seen_at"] is None and rows[0]["line_no"] == 2

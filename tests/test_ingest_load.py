@@ -19,8 +19,11 @@ import sqlalchemy as sa
 from linkfold.errors import DumpFormatError, InputError, LockHeld, MissingColumnError
 from linkfold.ingest import FileOutcome, ingest_dump
 from linkfold.ingest import load as load_module
-from linkfold.store import registry
+from linkfold.store import loads
 from linkfold.store import tables as t
+from linkfold.store.clock import utc
+from linkfold.store.datasets import create_file, dataset_files, ensure_dataset, get_dataset, iter_rejects
+from linkfold.store.loads import write_batch
 
 TABLES = ("datasets", "dataset_files", "raw_urls", "canonical_urls", "sightings", "rejects")
 
@@ -64,9 +67,9 @@ def test_load_stores_provenance_sightings_and_counts(engine, tmp_path):
     assert (summary.rows, summary.sightings, summary.new_raw_urls) == (3, 3, 3)
     assert summary.files[0].outcome is FileOutcome.LOADED and not summary.rejects
     with engine.connect() as conn:
-        ds = registry.get_dataset(conn, "panel")
+        ds = get_dataset(conn, "panel")
         assert ds["description"] == "invented panel, week 1" and ds["ruleset_id"] == summary.ruleset_version
-        (f,) = registry.dataset_files(conn, ds["id"])
+        (f,) = dataset_files(conn, ds["id"])
         # Provenance: the file's name (never its folder), its SHA-256 (hashlib as reference) and size.
         assert f["file_name"] == "panel-week1.csv"
         assert f["sha256"] == hashlib.sha256(path.read_bytes()).hexdigest()
@@ -82,7 +85,7 @@ def test_load_stores_provenance_sightings_and_counts(engine, tmp_path):
     assert summary.new_canonical_urls == counts(engine)["canonical_urls"]
     with engine.connect() as conn:
         times = conn.execute(sa.select(t.sightings.c.seen_at).order_by(t.sightings.c.line_no)).scalars().all()
-    assert [registry.utc(x).isoformat() for x in times] == [
+    assert [utc(x).isoformat() for x in times] == [
         "2031-05-04T08:00:00+00:00", "2031-05-04T08:20:00+00:00", "2031-05-04T09:30:00+00:00"]
 
 
@@ -142,7 +145,7 @@ def test_a_reject_for_every_class_of_bad_input_and_no_row_lost(engine, tmp_path)
     assert by_line[10][3] == "https://a.example/\ufffdnul" and by_line[10][4] is None
     with engine.connect() as conn:
         errors = dict(conn.execute(sa.select(t.raw_urls.c.raw, t.raw_urls.c.error)).all())
-        rows = list(registry.iter_rejects(conn, registry.get_dataset(conn, "bad")["id"]))
+        rows = list(iter_rejects(conn, get_dataset(conn, "bad")["id"]))
     assert errors["javascript:alert(1)"] == "not_http"
     assert errors["https://a.example/\ufffdnul"] == "control_chars"
     assert all(r["file"] == "bad.csv" and r["detail"] for r in rows)
@@ -281,13 +284,13 @@ def test_a_second_loader_of_the_same_file_is_refused(engine, tmp_path):
     path = tmp_path / "a.csv"
     path.write_text("url\nhttps://a.example/1\n")
     with engine.begin() as conn:
-        ds = registry.ensure_dataset(conn, "d", description=None, ruleset_id=None)
-        f = registry.create_file(conn, dataset_id=ds, file_name="a.csv", sha256="0" * 64, size_bytes=1,
+        ds = ensure_dataset(conn, "d", description=None, ruleset_id=None)
+        f = create_file(conn, dataset_id=ds, file_name="a.csv", sha256="0" * 64, size_bytes=1,
                                  fmt="csv", options={}, ruleset_id=None, run_id=None)
     with engine.begin() as conn, pytest.raises(LockHeld):
         # This loader believes the file is at line 0; another one has moved it to 100.
         conn.execute(sa.update(t.dataset_files).values(lines_done=100))
-        registry.write_batch(conn, dataset_id=ds, file_id=f["id"], ruleset_id=None, sightings=[], rejects=[], row_count=0,
+        write_batch(conn, dataset_id=ds, file_id=f["id"], ruleset_id=None, sightings=[], rejects=[], row_count=0,
                              lines_before=0, lines_after=10)
 
 
@@ -347,7 +350,7 @@ def test_awkward_text_is_stored_verbatim(engine, tmp_path):
 def test_a_failure_on_the_writer_thread_reaches_the_caller(engine, tmp_path, monkeypatch):
     path = tmp_path / "a.csv"
     path.write_text("url\n" + "".join(f"https://a.example/{i}\n" for i in range(100)))
-    real = registry.write_batch
+    real = write_batch
     calls = {"n": 0}
 
     def second_fails(conn, **kwargs):
@@ -356,7 +359,7 @@ def test_a_failure_on_the_writer_thread_reaches_the_caller(engine, tmp_path, mon
             raise LockHeld("simulated: another loader moved the resume point")
         return real(conn, **kwargs)
 
-    monkeypatch.setattr(registry, "write_batch", second_fails)
+    monkeypatch.setattr(loads, "write_batch", second_fails)
     with pytest.raises(LockHeld, match="simulated"):
         ingest_dump(engine, [path], dataset="d", batch_size=10)
     with engine.connect() as conn:
@@ -383,13 +386,13 @@ def test_in_memory_sqlite_registry_loads_on_one_thread(tmp_path):
 def _spy_on_writes(monkeypatch, read):
     """Record ``read()`` as seen inside each batch's write (on the writer thread when there is one)."""
     seen: list = []
-    real = registry.write_batch
+    real = write_batch
 
     def spy(conn, **kwargs):
         seen.append(read())
         return real(conn, **kwargs)
 
-    monkeypatch.setattr(registry, "write_batch", spy)
+    monkeypatch.setattr(loads, "write_batch", spy)
     return seen
 
 
@@ -414,7 +417,7 @@ def test_the_library_leaves_the_interpreter_settings_alone(engine, tmp_path, mon
     def fails(conn, **kwargs):
         raise LockHeld("simulated")
 
-    monkeypatch.setattr(registry, "write_batch", fails)
+    monkeypatch.setattr(loads, "write_batch", fails)
     with pytest.raises(LockHeld):
         ingest_dump(engine, [path], dataset="e", batch_size=10)
     assert _interpreter_settings() == before
@@ -438,6 +441,6 @@ def test_the_command_tunes_the_interpreter_for_its_own_run_only(db_url, tmp_path
     def fails(conn, **kwargs):
         raise LockHeld("simulated")
 
-    monkeypatch.setattr(registry, "write_batch", fails)
+    monkeypatch.setattr(loads, "write_batch", fails)
     assert cli.main(["-q", "--db", db_url, "ingest", str(path), "--dataset", "e"]) == LockHeld.exit_code
     assert _interpreter_settings() == before

@@ -18,8 +18,8 @@ import sqlalchemy as sa
 
 from linkfold.canon import MAX_URL_LENGTH
 from linkfold.ingest import ingest_dump
-from linkfold.store import registry
 from linkfold.store import tables as t
+from linkfold.store.datasets import get_dataset
 
 MARKER = "zq7MARKERxv4"  # in fields of parsed records: must never be stored
 KEPT = "kp3UNPARSEDmw8"  # in lines that cannot be parsed: their excerpt is kept
@@ -86,8 +86,8 @@ def test_rejected_records_leave_no_field_behind(engine, backend, db_url, tmp_pat
     panel, posts = _load(engine, tmp_path)
     found = {(r["dataset_id"], r["line_no"], r["position"], r["reason"]) for r in _rejects(engine)}
     with engine.connect() as conn:
-        p = registry.get_dataset(conn, "panel")["id"]
-        q = registry.get_dataset(conn, "posts")["id"]
+        p = get_dataset(conn, "panel")["id"]
+        q = get_dataset(conn, "posts")["id"]
     assert found == {
         (p, 3, -2, "bad_time"),
         (p, 4, 0, "too_long"), (p, 5, -1, "field_count"), (p, 6, -1, "missing_column"),

@@ -27,7 +27,7 @@ import numpy as np
 import pytest
 
 from linkfold.cli import main
-from linkfold.dedupe.synthetic import edited_copy, invented_vocabulary, random_words
+from synthetic_texts import edited_copy, invented_vocabulary, random_words
 
 RULES = r"""
 name = "messy archive"

@@ -51,7 +51,7 @@ def build_hostile_world(engine, tmp_path: Path, settings) -> dict[str, str]:
     titles, texts, the dataset name, decision names and notes."""
     import numpy as np
 
-    from linkfold.dedupe.synthetic import edited_copy, invented_vocabulary, random_words
+    from synthetic_texts import edited_copy, invented_vocabulary, random_words
 
     rng = np.random.default_rng(2031)
     vocab = invented_vocabulary(4000, rng)

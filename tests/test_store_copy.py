@@ -13,8 +13,10 @@ from datetime import UTC, datetime
 import pytest
 import sqlalchemy as sa
 
-from linkfold.store import bulk, registry
+from linkfold.store import bulk, loads
 from linkfold.store import tables as t
+from linkfold.store.clock import utc
+from linkfold.store.loads import SIGHTING_COLUMNS, insert_tuples, raw_encoder, sends_utf8, sighting_encoder
 
 # The last field is the unit's pseudonym (text) or NULL.
 ROWS = [(1, 2, 3, 0, "v1", datetime(2031, 5, 4, 8, 0, tzinfo=UTC), 7, "hs256:" + "a" * 52),
@@ -25,14 +27,14 @@ ROWS = [(1, 2, 3, 0, "v1", datetime(2031, 5, 4, 8, 0, tzinfo=UTC), 7, "hs256:" +
 def _count_encoded_rows(monkeypatch) -> list[int]:
     """Spy on the writer's inserts: the row counts of every batch sent as rows encoded ahead."""
     sent: list[int] = []
-    real = registry.insert_tuples
+    real = insert_tuples
 
     def spy(conn, table, columns, rows, **kw):
         if kw.get("ready") is not None:
             sent.append(kw["ready"].count)
         return real(conn, table, columns, rows, **kw)
 
-    monkeypatch.setattr(registry, "insert_tuples", spy)
+    monkeypatch.setattr(loads, "insert_tuples", spy)
     return sent
 
 
@@ -47,7 +49,7 @@ def test_header_and_trailer_are_the_documented_ones():
 def test_a_row_is_a_field_count_then_length_prefixed_fields():
     # Same documentation, "Tuples": a 16-bit field count, then per field a 32-bit length (-1 for NULL) and
     # the value in the type's binary send format (int4/int8 in network byte order; raw_url_id is int8, 0023).
-    enc = bulk.BinaryRows(t.sightings, registry.SIGHTING_COLUMNS)
+    enc = bulk.BinaryRows(t.sightings, SIGHTING_COLUMNS)
     data = bytes(enc.encode([(1, 2, 3, 0, "v1", None, 7, "hs256:ab")]).data)
     assert data == (b"\x00\x08" + b"\x00\x00\x00\x04\x00\x00\x00\x01" + b"\x00\x00\x00\x04\x00\x00\x00\x02"
                     + b"\x00\x00\x00\x08" + (3).to_bytes(8, "big") + b"\x00\x00\x00\x04\x00\x00\x00\x00"
@@ -65,11 +67,11 @@ def test_encoded_rows_read_back_as_the_rows_and_are_what_the_server_writes(pg_ur
             conn.exec_driver_sql("INSERT INTO datasets (id, name, created_at) VALUES (1, 'd', now())")
             conn.exec_driver_sql("INSERT INTO dataset_files (id, dataset_id, file_name, sha256, size_bytes, format, "
                                  "status, started_at) VALUES (2, 1, 'f', 'x', 0, 'csv', 'loading', now())")
-            ready = bulk.BinaryRows(t.sightings, registry.SIGHTING_COLUMNS).encode(ROWS[:2])
+            ready = bulk.BinaryRows(t.sightings, SIGHTING_COLUMNS).encode(ROWS[:2])
             # Two rows encoded ahead, one given as a tuple: both kinds in one COPY.
-            assert bulk.insert_tuples(conn, t.sightings, registry.SIGHTING_COLUMNS, ROWS[2:], binary=True,
+            assert bulk.insert_tuples(conn, t.sightings, SIGHTING_COLUMNS, ROWS[2:], binary=True,
                                       ready=ready) == 3
-            got = conn.execute(sa.select(*[t.sightings.c[c] for c in registry.SIGHTING_COLUMNS])
+            got = conn.execute(sa.select(*[t.sightings.c[c] for c in SIGHTING_COLUMNS])
                                .order_by(t.sightings.c.line_no)).all()
             assert [tuple(r) for r in got] == ROWS
             # The server's own binary form of the stored rows is, row for row, what was encoded.
@@ -80,7 +82,7 @@ def test_encoded_rows_read_back_as_the_rows_and_are_what_the_server_writes(pg_ur
                 sent = [bytes(b) for b in copy]
             body = b"".join(sent)
             assert body.startswith(bulk.BINARY_HEADER) and body.endswith(bulk.BINARY_TRAILER)
-            ours = bytes(bulk.BinaryRows(t.sightings, registry.SIGHTING_COLUMNS).encode(ROWS).data)
+            ours = bytes(bulk.BinaryRows(t.sightings, SIGHTING_COLUMNS).encode(ROWS).data)
             assert body[len(bulk.BINARY_HEADER):-len(bulk.BINARY_TRAILER)] == ours
     finally:
         engine.dispose()
@@ -91,9 +93,9 @@ def test_encoded_rows_are_refused_on_sqlite(tmp_path):
 
     engine = make_engine(f"sqlite:///{tmp_path / 'r.db'}")
     upgrade(engine)
-    ready = bulk.BinaryRows(t.sightings, registry.SIGHTING_COLUMNS).encode(ROWS[:1])
+    ready = bulk.BinaryRows(t.sightings, SIGHTING_COLUMNS).encode(ROWS[:1])
     with engine.begin() as conn, pytest.raises(ValueError, match="PostgreSQL"):
-        bulk.insert_tuples(conn, t.sightings, registry.SIGHTING_COLUMNS, [], binary=True, ready=ready)
+        bulk.insert_tuples(conn, t.sightings, SIGHTING_COLUMNS, [], binary=True, ready=ready)
     engine.dispose()
 
 
@@ -117,8 +119,8 @@ def test_a_load_leaves_the_same_registry_with_and_without_encoding_ahead(pg_serv
 
     def load(encode: bool) -> list[tuple]:
         if not encode:
-            monkeypatch.setattr(registry, "sighting_encoder", lambda: None)
-            monkeypatch.setattr(registry, "raw_encoder", lambda: None)
+            monkeypatch.setattr(loads, "sighting_encoder", lambda: None)
+            monkeypatch.setattr(loads, "raw_encoder", lambda: None)
         name = pg_server.create(template=pg_server.migrated_template())
         engine = make_engine(_with_database(PG_ADMIN_URL, name))
         try:
@@ -161,16 +163,16 @@ def test_sqlite_bulk_rows_are_stored_as_an_orm_insert_stores_them(tmp_path):
         conn.exec_driver_sql("INSERT INTO raw_urls (id, raw_hash, raw, created_at) VALUES "
                              "(7, 'a', 'u', '2031-05-04 00:00:00'), (1, 'b', 'v', '2031-05-04 00:00:00'), "
                              "(2000000000, 'c', 'w', '2031-05-04 00:00:00')")
-        bulk.insert_tuples(conn, t.sightings, registry.SIGHTING_COLUMNS, ROWS[:2])
-        conn.execute(t.sightings.insert(), [dict(zip(registry.SIGHTING_COLUMNS, ROWS[2], strict=True))])
+        bulk.insert_tuples(conn, t.sightings, SIGHTING_COLUMNS, ROWS[:2])
+        conn.execute(t.sightings.insert(), [dict(zip(SIGHTING_COLUMNS, ROWS[2], strict=True))])
         stored = conn.exec_driver_sql("SELECT seen_at, typeof(seen_at), typeof(line_no) FROM sightings "
                                       "ORDER BY line_no").all()
         assert stored[0][0] == "2031-05-04 08:00:00.000000" and stored[1][0] is None
         assert stored[0][1:] == stored[2][1:] == ("text", "integer")
-        got = conn.execute(sa.select(*[t.sightings.c[c] for c in registry.SIGHTING_COLUMNS])
+        got = conn.execute(sa.select(*[t.sightings.c[c] for c in SIGHTING_COLUMNS])
                            .order_by(t.sightings.c.line_no)).all()
-        # SQLite keeps no zone: times read back naive, as for any row (registry.utc puts UTC back).
-        assert [(*r[:5], registry.utc(r[5]), *r[6:]) for r in got] == ROWS
+        # SQLite keeps no zone: times read back naive, as for any row (utc puts UTC back).
+        assert [(*r[:5], utc(r[5]), *r[6:]) for r in got] == ROWS
     engine.dispose()
 
 
@@ -178,9 +180,9 @@ def test_without_psycopgs_row_formatter_there_is_no_encoder(monkeypatch):
     # The formatter lives in a module psycopg does not document; if a release moves it, the loader must
     # fall back to formatting rows on the writer (the load test above runs that path end to end).
     monkeypatch.setattr(bulk, "_format_row_binary", None)
-    assert registry.sighting_encoder() is None and registry.raw_encoder() is None
+    assert sighting_encoder() is None and raw_encoder() is None
     with pytest.raises(ValueError, match="no binary COPY encoding"):
-        bulk.BinaryRows(t.sightings, registry.SIGHTING_COLUMNS)
+        bulk.BinaryRows(t.sightings, SIGHTING_COLUMNS)
 
 
 @pytest.mark.postgres
@@ -196,7 +198,7 @@ def test_a_client_encoding_other_than_utf8_gets_no_encoding_ahead(pg_url, tmp_pa
                     encoding="utf-8")
     engine = make_engine(pg_url, connect_args={"options": "-c client_encoding=LATIN1"})
     try:
-        assert not registry.sends_utf8(engine)
+        assert not sends_utf8(engine)
         ingest_dump(engine, [dump], dataset="d", key_column="id", batch_size=7)
         with engine.connect() as conn:
             keys = conn.execute(sa.text("SELECT DISTINCT row_key FROM sightings ORDER BY 1")).scalars().all()

@@ -6,14 +6,11 @@ from pathlib import Path
 
 import click
 
-from ..canon import canonicalize
 from ..content.extracting import extract_pages
 from ..content.fetching import fetch_pages
 from ..content.loading import load_documents
 from ..content.page_import import import_pages
-from ..errors import InvalidURL, NotFound
 from ..store import pages as store_pages
-from ..store import tables as t
 from ._common import Context, common_options, pass_ctx, report_summary, summary_option, write_jsonl
 
 #: Problems printed one by one; the rest are counted in the summary.
@@ -127,31 +124,15 @@ def documents_load_command(obj: Context, file: Path, summary_format: str) -> Non
 def documents_show_command(obj: Context, url: str, all_documents: bool, without_text: bool) -> None:
     """The current document of a URL as JSON: its newest usable one.
 
-    URL is canonicalised first, so any variant of it finds the same document.
+    URL is found the way `linkfold lookup` finds it: the raw URL as loaded, any variant that canonicalises
+    to a stored URL under the ruleset in force, a url key, or an article or story ID (its founder's).
 
     \b
     Example:
       linkfold documents show "https://lakeside-wire.example/wire/20260910/old-mill-bridge-reopens?utm_source=x"
       linkfold documents show https://riverton-daily.test/story/mayor-outlines-budget-121 --all --no-text
     """
-    import sqlalchemy as sa
-
-    try:
-        key = canonicalize(url).url_key
-    except InvalidURL as exc:
-        raise NotFound(f"{url[:200]!r} is not a URL linkfold can store: {exc}") from None
-    with obj.engine().connect() as conn:
-        cid = conn.execute(sa.select(t.canonical_urls.c.id).where(t.canonical_urls.c.url_key == key)).scalar()
-        if cid is None:
-            raise NotFound(f"no canonical URL stored for {url[:200]}")
-        if all_documents:
-            docs = store_pages.documents_of(conn, int(cid))
-        else:
-            current = store_pages.current_document(conn, int(cid))
-            docs = [current] if current else []
-    if not docs:
-        raise NotFound(f"no {'document' if all_documents else 'usable document'} stored for {url[:200]}",
-                       hint=None if all_documents else "--all shows unusable ones with their reason")
+    docs = store_pages.documents_for(obj.engine(), url, all_documents=all_documents).documents
     if without_text:
         docs = [{k: v for k, v in d.items() if k != "text"} for d in docs]
     write_jsonl(docs)

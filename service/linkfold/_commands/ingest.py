@@ -10,7 +10,7 @@ import click
 
 from ..ingest import EXPORT_FORMATS, DumpFormat, export_dataset, ingest_dump, lookup
 from ..pseudonyms import key_from_settings
-from ..store import registry
+from ..store.datasets import get_dataset, iter_rejects, list_datasets, reject_totals
 from ._common import (
     Context,
     common_options,
@@ -99,15 +99,15 @@ def rejects_command(obj: Context, dataset: str, reason: str | None, limit: int |
     if fmt == "table" and limit is None:
         limit = TABLE_LIMIT  # a table is built in memory to align it; JSON lines stream any number
     with obj.engine().connect() as conn:
-        ds = registry.get_dataset(conn, dataset)
-        rows = registry.iter_rejects(conn, ds["id"], reason=reason, limit=limit)
+        ds = get_dataset(conn, dataset)
+        rows = iter_rejects(conn, ds["id"], reason=reason, limit=limit)
         if fmt == "jsonl":
             n = write_jsonl(rows)
         else:
             listed = list(rows)
             write_table(listed, ["file", "line", "position", "reason", "detail", "excerpt"])
             n = len(listed)
-        totals = registry.reject_totals(conn, ds["id"])
+        totals = reject_totals(conn, ds["id"])
     by_reason = ", ".join(f"{k} {v:,}" for k, v in totals.items()) or "none"
     obj.message(f"{n:,} rejects listed; dataset {dataset!r} holds {sum(totals.values()):,} ({by_reason})")
     if fmt == "table" and n == limit:
@@ -181,7 +181,7 @@ def datasets_command(obj: Context, fmt: str) -> None:
       linkfold datasets --format jsonl
     """
     with obj.engine().connect() as conn:
-        rows = registry.list_datasets(conn)
+        rows = list_datasets(conn)
     if fmt == "jsonl":
         write_jsonl(rows)
         return

@@ -19,17 +19,18 @@ from fastapi.templating import Jinja2Templates
 from .. import __version__
 from ..compare import DEFAULT_TOP, compare_datasets
 from ..dedupe.stage import list_clusters, record_decision, resolve_cluster_id, show_cluster, similarity_values
+from ..dedupe.textdiff import side_by_side
 from ..errors import InputError
 from ..exposure import DEFAULT_MIN_UNITS as UNIT_FLOOR
 from ..ingest import lookup
 from ..network import DEFAULT_MIN_UNITS, bucket_labels, co_exposure, exposure_distribution
-from ..store import registry
+from ..store.datasets import list_datasets
+from ..store.lookup import canonicals_by_key
 from ..store.pages import current_document
 from ..store.tokens import TokenState, check_token
 from . import charts, compare_svg, network_svg
 from .auth import COOKIE_NAME, may_write, read_access, write_access
 from .screen import refuse_nul, same_origin
-from .textdiff import side_by_side
 
 TEMPLATES = Jinja2Templates(directory=str(Path(__file__).with_name("templates")))
 TEMPLATES.env.globals["version"] = __version__
@@ -130,7 +131,7 @@ def clusters_page(request: Request, level: Annotated[str, Query(pattern="^(artic
 
 def _texts(engine, keys: list[str]) -> dict[str, dict | None]:
     with engine.connect() as conn:
-        found = registry.canonicals_by_key(conn, keys)
+        found = canonicals_by_key(conn, keys)
         return {key: current_document(conn, found[key]["id"]) if key in found else None for key in keys}
 
 
@@ -222,7 +223,7 @@ def network_page(request: Request, dataset: Annotated[list[str] | None, Query(ma
     read_access(request)
     engine = request.app.state.linkfold.engine
     with engine.connect() as conn:
-        names = [d["dataset"] for d in registry.list_datasets(conn)]
+        names = [d["dataset"] for d in list_datasets(conn)]
     chosen = [d for d in (dataset or []) if d.strip()] or names[:1]
     context: dict[str, Any] = {"names": names, "chosen": chosen, "min_units": min_units, "color": color,
                                "weight": weight, "all_urls": all_urls, "weights": network_svg.WEIGHTS}
@@ -249,7 +250,7 @@ def compare_page(request: Request, dataset: Annotated[list[str] | None, Query(ma
     read_access(request)
     engine = request.app.state.linkfold.engine
     with engine.connect() as conn:
-        names = [d["dataset"] for d in registry.list_datasets(conn)]
+        names = [d["dataset"] for d in list_datasets(conn)]
     chosen = list(dict.fromkeys(d for d in (dataset or []) if d.strip())) or names[:2]
     context: dict[str, Any] = {"names": names, "chosen": chosen, "level": level, "min_units": min_units,
                                "floor": UNIT_FLOOR, "top": top, "all_urls": all_urls}

@@ -13,7 +13,9 @@ from fastapi.responses import StreamingResponse
 from .. import __version__
 from ..errors import LinkfoldError
 from ..ingest import lookup
-from ..store import current_revision, registry
+from ..store import current_revision
+from ..store.clock import utc
+from ..store.datasets import dataset_files, get_dataset, list_datasets, reject_totals
 from ..store.runs import list_runs, show_run
 from .auth import Access, read_access
 from .errors import ApiError, envelope, error_responses
@@ -147,7 +149,7 @@ def _stream(state: ApiState, items: list[str]) -> Iterator[bytes]:
             summary="Every dataset with its files, rows, sightings and rejects", responses=READ_ERRORS)
 def datasets(request: Request, _access: ReadAccess) -> dict[str, Any]:
     with api_state(request).engine.connect() as conn:
-        return {"datasets": registry.list_datasets(conn)}
+        return {"datasets": list_datasets(conn)}
 
 
 _FILE_FIELDS = ("file_name", "format", "status", "size_bytes", "rows", "sightings", "rejects", "started_at",
@@ -160,11 +162,11 @@ _FILE_FIELDS = ("file_name", "format", "status", "size_bytes", "rows", "sighting
 def dataset(request: Request, _access: ReadAccess,
             name: Annotated[str, Path(min_length=1, max_length=200)]) -> dict[str, Any]:
     with api_state(request).engine.connect() as conn:
-        ds = registry.get_dataset(conn, name)
-        summary = next(row for row in registry.list_datasets(conn) if row["dataset"] == ds["name"])
-        files = [{k: registry.utc(f[k]) if k.endswith("_at") else f[k] for k in _FILE_FIELDS}
-                 for f in registry.dataset_files(conn, ds["id"])]
-        return {**summary, "files_detail": files, "rejects_by_reason": registry.reject_totals(conn, ds["id"])}
+        ds = get_dataset(conn, name)
+        summary = next(row for row in list_datasets(conn) if row["dataset"] == ds["name"])
+        files = [{k: utc(f[k]) if k.endswith("_at") else f[k] for k in _FILE_FIELDS}
+                 for f in dataset_files(conn, ds["id"])]
+        return {**summary, "files_detail": files, "rejects_by_reason": reject_totals(conn, ds["id"])}
 
 
 @router.get("/runs", response_model=RunList, tags=["runs"],

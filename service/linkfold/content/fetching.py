@@ -36,8 +36,8 @@ from ..progress import SILENT, Progress
 from ..settings import Settings
 from ..store import evidence as ev
 from ..store import pages as sp
+from ..store.datasets import get_dataset
 from ..store.migrate import require_schema
-from ..store.registry import get_dataset
 from ..store.rulesets import latest_ruleset
 from ..store.runs import recording_run
 from ..store.stats import refresh_statistics

@@ -21,7 +21,8 @@ from sqlalchemy.engine import Connection, Engine
 from ..errors import ConfigError
 from ..exposure import DEFAULT_MIN_UNITS
 from ..network.query import plan_for_all_rows
-from ..store import registry
+from ..store.clock import utc
+from ..store.datasets import get_dataset, list_datasets
 from .prepare import RAW, Preparation, prepare
 from .query import ID_COLUMN, LEVELS, corpus_select
 
@@ -41,11 +42,11 @@ def dataset_ids(conn: Connection, datasets: Sequence[str]) -> dict[int, str]:
     names = list(dict.fromkeys(datasets))
     if not names:
         raise ConfigError("the corpus needs at least one dataset (--dataset NAME)")
-    return {int(registry.get_dataset(conn, n)["id"]): n for n in names}
+    return {int(get_dataset(conn, n)["id"]): n for n in names}
 
 
 def all_dataset_names(conn: Connection) -> list[str]:
-    return [str(d["dataset"]) for d in registry.list_datasets(conn)]
+    return [str(d["dataset"]) for d in list_datasets(conn)]
 
 
 @dataclass
@@ -130,18 +131,18 @@ def corpus_records(engine: Engine, *, datasets: Sequence[str] | None = None, lev
                     if n:
                         per.append({"dataset": name, "sightings": n,
                                     "units": _floor(row[f"units_{i}"], min_units, tally),
-                                    "first_seen": registry.utc(row[f"first_{i}"]),
-                                    "last_seen": registry.utc(row[f"last_{i}"])})
+                                    "first_seen": utc(row[f"first_{i}"]),
+                                    "last_seen": utc(row[f"last_{i}"])})
                 rec: dict[str, Any] = {
                     id_col: row["cluster_id"], "title": row["title"], "text": row["text"],
-                    "published": registry.utc(row["published"]), "language": row["language"],
+                    "published": utc(row["published"]), "language": row["language"],
                     "words": int(row["words"]), "url": row["url"], "members": int(row["members"]),
                 }
                 if level == "story":
                     rec["articles"] = int(row["articles"])
                 rec.update(outlets=_outlets(row["outlets"]), sightings=int(row["sightings"]),
                            units=_floor(row["units"], min_units, tally),
-                           first_seen=registry.utc(row["first_seen"]), last_seen=registry.utc(row["last_seen"]),
+                           first_seen=utc(row["first_seen"]), last_seen=utc(row["last_seen"]),
                            datasets=per)
                 if preparation.active:
                     extra = prepare(rec["text"], rec["language"], preparation)

@@ -21,7 +21,8 @@ from ..errors import ConfigError
 from ..outlets import outlet_attributes as attributes_in_force
 from ..outlets import outlet_columns
 from ..progress import SILENT, Progress
-from ..store import registry
+from ..store.clock import utc
+from ..store.datasets import get_dataset
 from .query import COVERAGE_FIELDS, LEVELS, PERIODS, TARGET_COLUMN, coverage_select, exposure_select
 
 #: The file formats an exposure table is written in.
@@ -52,7 +53,7 @@ def _dataset_ids(conn: Connection, datasets: Sequence[str]) -> dict[int, str]:
     names = list(dict.fromkeys(datasets))
     if not names:
         raise ConfigError("exposure needs at least one dataset (--dataset NAME)")
-    return {int(registry.get_dataset(conn, n)["id"]): n for n in names}
+    return {int(get_dataset(conn, n)["id"]): n for n in names}
 
 
 def exposure_columns(*, several: bool, level: str, by: str | None, attributes: Sequence[str] = ()) -> list[str]:
@@ -104,7 +105,7 @@ def exposure_rows(engine: Engine, *, datasets: Sequence[str], level: str = "outl
                 values = list(raw)
                 if several:
                     values[0] = ids[int(values[0])]
-                values[-1], values[-2] = registry.utc(values[-1]), registry.utc(values[-2])
+                values[-1], values[-2] = utc(values[-1]), utc(values[-2])
                 values[-3] = int(values[-3])
                 row = dict(zip(columns[:n_keys], values, strict=True))
                 if attr_cols:

@@ -15,7 +15,7 @@ from typing import Any
 from sqlalchemy.engine import Engine
 
 from ..store import evidence as ev
-from ..store.registry import get_dataset
+from ..store.datasets import get_dataset
 from ..web.refusals import explain_refusal, refusal_class
 
 

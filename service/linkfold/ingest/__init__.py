@@ -8,9 +8,9 @@ dataset's linkage table. The reference is docs/ingest.md.
 from __future__ import annotations
 
 from ..inputs import DEFAULT_MAX_LINE_BYTES, DumpFormat, Reason, guess_format, parse_path, parse_time
+from ..store.lookup import LOOKUP_FIELDS, is_url_key, lookup
 from .export import EXPORT_FORMATS, ExportSummary, export_dataset
 from .load import DEFAULT_BATCH_SIZE, ingest_dump
-from .lookup import LOOKUP_FIELDS, is_url_key, lookup
 from .summary import FileOutcome, FileSummary, IngestSummary
 
 __all__ = [

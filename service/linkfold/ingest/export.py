@@ -22,9 +22,9 @@ from sqlalchemy.engine import Engine
 from .._tabular import atomic_path, csv_cell
 from ..errors import ConfigError
 from ..progress import SILENT, Progress
-from ..store import registry
+from ..store.datasets import dataset_files, get_dataset
+from ..store.linkage import LINK_COLUMNS, iter_links
 from ..store.migrate import require_schema
-from ..store.registry import LINK_COLUMNS
 
 #: The file formats of the linkage table (``linkfold export --format``).
 EXPORT_FORMATS = ("csv", "jsonl", "parquet")
@@ -127,10 +127,10 @@ def export_dataset(engine: Engine, dataset: str, *, fmt: str = "csv", out: str |
     if fmt == "parquet" and (out is None or not isinstance(out, str | Path)):
         raise ConfigError("a Parquet export needs a file to write to (--out FILE.parquet)")
     with engine.connect() as conn:
-        ds = registry.get_dataset(conn, dataset)
-        total = sum(int(f["sightings"]) for f in registry.dataset_files(conn, ds["id"]))
+        ds = get_dataset(conn, dataset)
+        total = sum(int(f["sightings"]) for f in dataset_files(conn, ds["id"]))
         progress.start(f"export {dataset}", total=total)
-        rows = registry.iter_links(conn, ds)
+        rows = iter_links(conn, ds)
         try:
             if isinstance(out, str | Path):
                 path = Path(out)

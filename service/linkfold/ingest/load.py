@@ -46,8 +46,18 @@ from ..inputs import (
 from ..progress import SILENT, Progress
 from ..pseudonyms import SCHEME, Pseudonymiser
 from ..settings import Settings
-from ..store import registry
+from ..store import loads
 from ..store.bulk import EncodedRows
+from ..store.clock import now, utc
+from ..store.datasets import (
+    claim_file,
+    complete_file,
+    count_unfinished_files,
+    create_file,
+    ensure_dataset,
+    find_file,
+)
+from ..store.loads import BatchCounts, sends_utf8
 from ..store.migrate import require_schema
 from ..store.pseudonym_keys import check_key
 from ..store.rulesets import get_ruleset, latest_ruleset, store_ruleset
@@ -140,7 +150,7 @@ def count_pending(engine: Engine, *, settings: Settings | None = None) -> int:
     An ingest's work is otherwise the files it is given; nothing else in the registry waits for it.
     """
     with engine.connect() as conn:
-        return registry.count_unfinished_files(conn)
+        return count_unfinished_files(conn)
 
 
 def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
@@ -203,32 +213,32 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
         with recording_run(engine, STAGE, parent_id=parent_run) as run:
             summary.run_id = run.id
             with conn.begin():
-                dataset_id = registry.ensure_dataset(conn, name, description=description, ruleset_id=version)
+                dataset_id = ensure_dataset(conn, name, description=description, ruleset_id=version)
             for plan in plans:
                 with conn.begin():
-                    stored = registry.find_file(conn, dataset_id, plan.facts.sha256)
+                    stored = find_file(conn, dataset_id, plan.facts.sha256)
                     if stored is not None and stored["status"] == "complete":
                         log.info("%s is already loaded into %s; skipping it", plan.name, name)
                         summary.files.append(FileSummary(
                             plan.name, plan.facts.sha256, FileOutcome.ALREADY_LOADED,
-                            loaded_at=registry.utc(stored["loaded_at"])))
+                            loaded_at=utc(stored["loaded_at"])))
                         continue
                     if stored is None:
-                        stored = registry.create_file(
+                        stored = create_file(
                             conn, dataset_id=dataset_id, file_name=plan.name, sha256=plan.facts.sha256,
                             size_bytes=plan.facts.size_bytes, fmt=plan.options.fmt.value,
                             options=plan.options_record(), ruleset_id=version, run_id=run.id)
                     else:
                         _check_resume(stored, plan, version, explicit=ruleset is not None)
-                        registry.claim_file(conn, stored["id"], run.id)
+                        claim_file(conn, stored["id"], run.id)
                     if plan.facts.empty:
-                        registry.complete_file(conn, stored["id"], lines_done=plan.facts.lines)
+                        complete_file(conn, stored["id"], lines_done=plan.facts.lines)
                 if plan.facts.empty:
                     # CSV without a header, JSON lines without a line, an empty gzip, a blank list: one
                     # outcome, recorded as loaded (a second load says so), with nothing to read.
                     log.info("%s is empty; nothing to load from it", plan.name)
                     summary.files.append(FileSummary(plan.name, plan.facts.sha256, FileOutcome.EMPTY,
-                                                     blank_lines=plan.facts.lines, loaded_at=registry.now()))
+                                                     blank_lines=plan.facts.lines, loaded_at=now()))
                     run.counts = summary.as_dict()
                     continue
                 file_version = int(stored["ruleset_id"] or version)
@@ -313,23 +323,23 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
     # them by hash, and finds them here rather than by a query.
     recent: list[dict[str, int]] = [{}, {}]  # newer, older
 
-    def write(conn: Connection, job: _Job) -> registry.BatchCounts:
+    def write(conn: Connection, job: _Job) -> BatchCounts:
         # Runs on the writer thread, inside one transaction per batch, and again from the same job if that
         # transaction loses to a concurrent writer: write_batch completes the lists it is given in place,
         # so it gets copies (a list copy is microseconds a batch), and nothing learnt here is kept before
         # the commit.
         sightings, rejects = list(job.sightings), list(job.rejects)
         pending = _resolve(job, sightings, recent)
-        counts = registry.write_batch(conn, dataset_id=dataset_id, file_id=stored["id"], ruleset_id=ruleset_id,
+        counts = loads.write_batch(conn, dataset_id=dataset_id, file_id=stored["id"], ruleset_id=ruleset_id,
                                       sightings=sightings, rejects=rejects, pending=pending,
                                       raws=job.raws, known=ChainMap(job.known, *recent), row_count=job.row_count,
                                       lines_before=state["lines_done"], lines_after=job.lines_after,
                                       ready=job.ready, raws_ready=job.raws_ready)
         if job.final:
-            registry.complete_file(conn, stored["id"], lines_done=max(job.lines_after, plan.facts.lines))
+            complete_file(conn, stored["id"], lines_done=max(job.lines_after, plan.facts.lines))
         return counts
 
-    def committed(job: _Job, counts: registry.BatchCounts) -> None:
+    def committed(job: _Job, counts: BatchCounts) -> None:
         # Only after the commit: the summary counts what is stored, and an id is only certain now. The
         # writer thread's own memory of recent ids first (it runs on that thread, before the next batch);
         # the reading thread takes the ids in between batches.
@@ -357,9 +367,9 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
     # On PostgreSQL the reading thread also encodes the batch for COPY, so that the writer thread, whose
     # connection is the load's bottleneck, only sends bytes: what it did for a row in Python it did while
     # the database waited for it. Only the sightings still naming a raw URL by hash are left to it.
-    encode = engine.dialect.name == "postgresql" and registry.sends_utf8(engine)
-    sighting_encoder = registry.sighting_encoder() if encode else None
-    raw_encoder = registry.raw_encoder() if encode else None
+    encode = engine.dialect.name == "postgresql" and sends_utf8(engine)
+    sighting_encoder = loads.sighting_encoder() if encode else None
+    raw_encoder = loads.raw_encoder() if encode else None
 
     def job(final: bool) -> _Job:
         known = batch.known()
@@ -418,7 +428,7 @@ def _load_file(engine: Engine, plan: _Plan, stored: dict[str, Any], *, dataset_i
     finally:
         progress.finish()
     summary.seconds = time.monotonic() - started
-    summary.loaded_at = registry.now()
+    summary.loaded_at = now()
     log.info("%s: %d rows, %d sightings, %d rejects", plan.name, summary.rows, summary.sightings,
              summary.reject_count)
     return summary

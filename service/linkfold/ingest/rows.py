@@ -41,14 +41,14 @@ UNIT_POSITION = -3  # the row's unit
 
 _fromisoformat = datetime.fromisoformat
 
-# What a batch hands the writer, in the column order of the tables it goes into (registry.SIGHTING_COLUMNS,
-# registry.REJECT_COLUMNS). The raw URL (field 6) is its id when the load already knows it, else its raw
+# What a batch hands the writer, in the column order of the tables it goes into (loads.SIGHTING_COLUMNS,
+# loads.REJECT_COLUMNS). The raw URL (field 6) is its id when the load already knows it, else its raw
 # hash (a str), which the writer swaps for the id once the batch's new raw URLs are stored.
 SightingEntry = tuple[Any, ...]  # dataset_id, file_id, line_no, position, row_key, seen_at, raw URL, unit
 RejectEntry = tuple[Any, ...]  # dataset_id, file_id, line_no, position, reason, detail, excerpt, raw URL
 _REASON = 4
 # A staging raw URL: one per distinct raw URL of a batch that the load has no id for, with its canonical
-# form if it has one (registry.RAW_COLUMNS).
+# form if it has one (loads.RAW_COLUMNS).
 RAW_FIELDS = ("raw_hash", "raw", "raw_error", "url_key", "url", "host", "domain", "outlet", "is_article")
 
 

@@ -27,7 +27,7 @@ from sqlalchemy.engine import Connection, Engine
 
 from ..errors import ConfigError
 from ..outlets import outlet_attributes, outlet_columns
-from ..store import registry
+from ..store.datasets import get_dataset
 from .query import (
     SIGHTING_BUCKETS,
     distribution_select,
@@ -73,7 +73,7 @@ def dataset_ids(conn: Connection, datasets: Sequence[str]) -> dict[int, str]:
     names = list(dict.fromkeys(datasets))
     if not names:
         raise ConfigError("a network needs at least one dataset (--dataset NAME)")
-    return {int(registry.get_dataset(conn, n)["id"]): n for n in names}
+    return {int(get_dataset(conn, n)["id"]): n for n in names}
 
 
 def weights(units_ab: int, units_a: int, units_b: int, n: int) -> dict[str, float]:

@@ -19,8 +19,8 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
 from . import tables as t
+from .clock import utc
 from .finals import finals_of
-from .registry import utc
 
 LEVELS = ("article", "story")
 PREFIXES = {"article": "a", "story": "s"}
@@ -105,6 +105,11 @@ def issued_with_stems(conn: Connection, stems: Iterable[str]) -> dict[str, int]:
     return out
 
 
+def any_clustered(conn: Connection) -> bool:
+    """Whether any canonical URL holds an ID yet (False on a registry never clustered)."""
+    return conn.execute(sa.select(t.cluster_members.c.canonical_id).limit(1)).first() is not None
+
+
 def max_mint_order(conn: Connection, level: str) -> int:
     ci = t.cluster_ids
     return int(conn.execute(sa.select(sa.func.max(ci.c.mint_order)).where(ci.c.level == level)).scalar() or 0)
@@ -158,42 +163,6 @@ def write_ids(conn: Connection, level: str, *, minted: Sequence[NewId], retired:
         conn.execute(t.id_events.insert(), [
             {"cluster_id": e.cluster_id, "event": e.event, "other_id": e.other_id, "member_id": e.member_id,
              "reason": e.reason, "run_id": run_id, "at": now} for e in events])
-
-
-# --- decisions ---------------------------------------------------------------------------------------------
-def add_decision(conn: Connection, row: Mapping[str, Any]) -> int:
-    return int(conn.execute(t.decisions.insert().values(**row).returning(t.decisions.c.id)).scalar_one())
-
-
-def decisions_touching(conn: Connection, level: str, members: Iterable[int]) -> list[dict[str, Any]]:
-    """The decision in force (the latest) for every pair at ``level`` with an anchor among ``members``."""
-    d = t.decisions
-    rows: dict[int, dict[str, Any]] = {}
-    ids = sorted(set(members))
-    for part in chunks(ids):
-        q = sa.select(d).where(d.c.level == level, sa.or_(d.c.a_member.in_(part), d.c.b_member.in_(part)))
-        for row in conn.execute(q).mappings():
-            rows[row["id"]] = dict(row)
-    return latest_per_pair(rows.values())
-
-
-def latest_per_pair(rows: Iterable[Mapping[str, Any]]) -> list[dict[str, Any]]:
-    latest: dict[tuple[int, int], dict[str, Any]] = {}
-    for row in sorted(rows, key=lambda r: r["id"]):
-        latest[(row["a_member"], row["b_member"])] = dict(row)
-    return [latest[k] for k in sorted(latest)]
-
-
-def decisions_after(conn: Connection, after_id: int, upto_id: int) -> list[dict[str, Any]]:
-    d = t.decisions
-    return [dict(r) for r in conn.execute(sa.select(d).where(d.c.id > after_id, d.c.id <= upto_id)
-                                          .order_by(d.c.id)).mappings()]
-
-
-def decision_history(conn: Connection, level: str, a_member: int, b_member: int) -> list[dict[str, Any]]:
-    d = t.decisions
-    q = sa.select(d).where(d.c.level == level, d.c.a_member == a_member, d.c.b_member == b_member)
-    return [dict(r) | {"decided_at": utc(r["decided_at"])} for r in conn.execute(q.order_by(d.c.id)).mappings()]
 
 
 # --- resolving IDs -----------------------------------------------------------------------------------------
@@ -258,19 +227,15 @@ __all__ = [
     "EventRow",
     "NewId",
     "Resolution",
-    "add_decision",
+    "any_clustered",
     "assignments",
     "chunks",
     "current_ids",
-    "decision_history",
-    "decisions_after",
-    "decisions_touching",
     "events_of",
     "get_mark",
     "id_rows",
     "is_cluster_id",
     "issued_with_stems",
-    "latest_per_pair",
     "level_of_id",
     "max_mint_order",
     "members_of",

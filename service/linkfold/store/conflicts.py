@@ -5,7 +5,7 @@ one of them (SQLSTATE 40P01), and under REPEATABLE READ or SERIALIZABLE a transa
 serialization conflict (40001). Both leave the loser's transaction with nothing written, and the same
 transaction run again usually succeeds: :func:`retrying` does that a bounded number of times, then
 raises :class:`~linkfold.errors.WriteConflict`. The writers take their row locks in one global order
-(new raw and canonical URLs are inserted sorted by their unique keys, ``registry._register_statements``),
+(new raw and canonical URLs are inserted sorted by their unique keys, ``loads._register_statements``),
 so a deadlock between two loads should not arise at all; the retry is for whatever is left.
 
 On SQLite a second writer waits for the first for ``busy_timeout`` seconds (a setting; the engine sets

@@ -19,7 +19,8 @@ from sqlalchemy.engine import Connection
 from ..canon import Canonical
 from . import tables as t
 from .bulk import insert_new_rows
-from .registry import ids_by_hash, utc
+from .clock import utc
+from .lookup import ids_by_hash
 from .text import raw_hash, storable
 
 _IN_CHUNK = 500  # ids per IN (…) list, well under SQLite's limit of bound parameters

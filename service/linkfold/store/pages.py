@@ -18,10 +18,12 @@ from datetime import UTC, datetime
 from typing import Any
 
 import sqlalchemy as sa
-from sqlalchemy.engine import Connection
+from sqlalchemy.engine import Connection, Engine
 
+from ..errors import InputError, NotFound
 from . import tables as t
-from .registry import utc
+from .clock import utc
+from .lookup import Located, locate
 
 _IN_CHUNK = 500  # ids per IN (…) list, well under SQLite's limit of bound parameters
 
@@ -353,6 +355,39 @@ def current_document(conn: Connection, canonical_id: int) -> dict[str, Any] | No
     return None if row is None else _times(dict(row))
 
 
+@dataclass(frozen=True)
+class FoundDocuments:
+    """The documents of what a reference names (``linkfold documents show``)."""
+
+    located: Located
+    documents: list[dict[str, Any]]
+
+
+def documents_for(engine: Engine, ref: str, *, all_documents: bool = False) -> FoundDocuments:
+    """The current document of what ``ref`` names (its newest usable one), or with ``all_documents`` every
+    document of it, oldest first. ``ref`` is found the way ``lookup`` finds it (:func:`.lookup.locate`):
+    the raw URL as loaded, any variant that canonicalises to a stored URL under the ruleset in force, a
+    url key, or an article or story ID (its founder's documents). Raises :class:`NotFound` when nothing
+    is stored for it."""
+    shown = ref[:200]
+    with engine.connect() as conn:
+        try:
+            found = locate(engine, conn, ref)
+        except InputError as exc:
+            raise NotFound(f"{shown!r} is not a URL linkfold can store: {exc}") from None
+        except NotFound as exc:
+            raise NotFound(f"no canonical URL stored for {shown}", hint=str(exc)) from None
+        if all_documents:
+            docs = documents_of(conn, found.canonical_id)
+        else:
+            current = current_document(conn, found.canonical_id)
+            docs = [current] if current else []
+    if not docs:
+        raise NotFound(f"no {'document' if all_documents else 'usable document'} stored for {shown}",
+                       hint=None if all_documents else "--all shows unusable ones with their reason")
+    return FoundDocuments(found, docs)
+
+
 def content_totals(conn: Connection) -> dict[str, Any]:
     """Counts for reports: pages, fetch outcomes by state and class, documents by status and reason."""
     p, fr, d = t.pages, t.fetch_results, t.documents
@@ -371,6 +406,7 @@ __all__ = [
     "COMPRESSION_LEVEL",
     "FetchOutcome",
     "FetchPending",
+    "FoundDocuments",
     "StoredPage",
     "compress_body",
     "content_totals",
@@ -379,6 +415,7 @@ __all__ = [
     "current_document",
     "decompress_body",
     "document_ids",
+    "documents_for",
     "documents_of",
     "fetch_attempts",
     "fetch_result",

@@ -35,7 +35,7 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
 from . import tables as t
-from .registry import now
+from .clock import now
 
 #: Topic -> the (table, id column) pairs it watches. The topic is also the stage mark's name on SQLite.
 TOPICS: dict[str, tuple[tuple[str, str], ...]] = {

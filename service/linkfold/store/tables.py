@@ -160,7 +160,7 @@ canon_changes = sa.Table(
 # --- sightings and rejects ------------------------------------------------------------------------------
 # No foreign keys and no index on dataset_id, on purpose (migration 0009): PostgreSQL checks a foreign key
 # with a query per inserted row, which cost three quarters of a bulk load. Every sighting is written by
-# registry.write_batch, which resolves raw_url_id by a join on raw_urls' unique key in the transaction
+# loads.write_batch, which resolves raw_url_id by a join on raw_urls' unique key in the transaction
 # that also holds its file row; nothing deletes raw URLs, files or datasets. tests/test_ingest_integrity.py
 # checks that no reference dangles. Queries by dataset go through the dataset's files (file_id leads the
 # unique key). On PostgreSQL the id is a bigint without an index (migration 0011): the natural key below is

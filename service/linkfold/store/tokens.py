@@ -25,7 +25,7 @@ from sqlalchemy.engine import Connection, Engine
 
 from ..errors import InputError, NotFound
 from . import tables as t
-from .registry import utc
+from .clock import utc
 
 TOKEN_PREFIX = "lf_"
 _TOKEN_BYTES = 32

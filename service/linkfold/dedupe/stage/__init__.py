@@ -23,6 +23,7 @@ from sqlalchemy.engine import Engine
 from ...progress import SILENT, Progress
 from ...settings import Settings
 from ...store import pending as pq
+from ...store.canonicals import all_canonical_ids
 from ...store.locks import hold_lock
 from ...store.migrate import require_schema
 from ...store.runs import recording_run
@@ -42,7 +43,6 @@ from .matching import MatchCounts, count_unmatched, match_pending
 from .regions import (
     ClusterCounts,
     advance_marks,
-    all_canonical_ids,
     cluster_seeds,
     count_pending_clustering,
     pending_ranges,

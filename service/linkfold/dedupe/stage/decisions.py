@@ -19,16 +19,16 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 from typing import Any
 
-import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
-from ...errors import InputError, NotFound
-from ...ingest.lookup import lookup
+from ...errors import InputError
+from ...store import canonicals as cu
 from ...store import clusters as cs
-from ...store import tables as t
+from ...store import decisions as ds
+from ...store.clock import now, utc
 from ...store.finals import finals_of
+from ...store.lookup import locate
 from ...store.migrate import require_schema
-from ...store.registry import now, utc
 
 VERDICTS = ("same", "different")
 LEVELS = ("article", "story")
@@ -74,32 +74,10 @@ class DecisionResult:
                 "decided_by": d.decided_by, "supersedes": self.supersedes, "message": self.message}
 
 
-def _url_row(conn: Connection, member: int) -> Any:
-    c = t.canonical_urls
-    return conn.execute(sa.select(c.c.id, c.c.url, c.c.url_key, c.c.outlet).where(c.c.id == member)).one()
-
-
 def resolve_ref(engine: Engine, conn: Connection, ref: str) -> Anchor:
-    text = ref.strip()
-    if not text:
-        raise InputError("an empty reference: give a URL, a url key or an article/story ID")
-    if cs.is_cluster_id(text):
-        res = cs.resolve(conn, text)
-        if res is None:
-            raise NotFound(f"{text}: no such article or story ID was ever issued")
-        row = cs.id_rows(conn, [res.current])[res.current]
-        founder = _url_row(conn, int(row["founder_id"]))
-        return Anchor(text, int(founder.id), founder.url, res.current, res.level, founder.outlet)
-    answer = next(iter(lookup(engine, [text])))
-    if answer["error"] and not answer["url_key"]:
-        raise InputError(f"{text}: not a URL, url key or ID the registry can read ({answer['error']})")
-    if not answer["seen"] or not answer["url_key"]:
-        raise NotFound(f"{text}: not in the registry (canonical form {answer['canonical']!r}); load it first")
-    c = t.canonical_urls
-    found = conn.execute(sa.select(c.c.id, c.c.url, c.c.outlet).where(c.c.url_key == answer["url_key"])).first()
-    if found is None:
-        raise NotFound(f"{text}: not in the registry")
-    return Anchor(text, int(found.id), found.url, None, None, found.outlet)
+    """The anchor of one side of a decision: what ``ref`` names, found the way lookup finds it."""
+    found = locate(engine, conn, ref)
+    return Anchor(found.ref, found.canonical_id, found.url, found.cluster, found.level, found.outlet)
 
 
 def decision_level(a: Anchor, b: Anchor, *, same_article: bool, level: str | None = None) -> tuple[str, str]:
@@ -129,14 +107,6 @@ def _held(conn: Connection, level: str, members: list[int]) -> dict[int, str]:
     return cs.assignments(conn, level, members)
 
 
-def _url_keys(conn: Connection, ids: set[int]) -> dict[int, str]:
-    c = t.canonical_urls
-    out: dict[int, str] = {}
-    for part in cs.chunks(sorted(ids)):
-        out.update((int(i), k) for i, k in conn.execute(sa.select(c.c.id, c.c.url_key).where(c.c.id.in_(part))))
-    return out
-
-
 def _names_level(cluster_id: str | None, level: str) -> bool:
     return bool(cluster_id) and cs.level_of_id(cluster_id or "") == level
 
@@ -158,13 +128,13 @@ def _anchor_cluster_side(conn: Connection, level: str, mover: Anchor, side: Anch
         if art is not None:
             moving |= set(cs.members_of(conn, [art]))
     rest = [m for m in members if m not in moving]
-    for d in cs.decisions_touching(conn, level, [mover.member]):
+    for d in ds.decisions_touching(conn, level, [mover.member]):
         mine, theirs = ("a", "b") if d["a_member"] == mover.member else ("b", "a")
         partner = d[f"{theirs}_member"]
         # only a decision of the same shape: the mover on the URL side, a cluster of this level opposite
         if partner in rest and _names_level(d[f"{theirs}_cluster"], level) \
                 and not _names_level(d[f"{mine}_cluster"], level):
-            row = _url_row(conn, partner)
+            row = cu.url_row(conn, partner)
             return Anchor(side.ref, partner, row.url, side.cluster, side.level, row.outlet)
     if side.member not in moving:
         return side
@@ -173,9 +143,9 @@ def _anchor_cluster_side(conn: Connection, level: str, mover: Anchor, side: Anch
         if verdict == "different":
             raise InputError(f"{mover.ref} is {what} {side.cluster}: there is no rest for the ID to stay with")
         raise InputError(f"{mover.ref} is {what} {side.cluster} already; nothing to join")
-    keys = _url_keys(conn, set(rest))
+    keys = cu.url_keys(conn, rest)
     heir = min(rest, key=lambda m: keys[m])
-    row = _url_row(conn, heir)
+    row = cu.url_row(conn, heir)
     return Anchor(side.ref, heir, row.url, side.cluster, side.level, row.outlet)
 
 
@@ -223,8 +193,8 @@ def record_decision(engine: Engine, verdict: str, a_ref: str, b_ref: str, *, dec
     if a.member > b.member:
         a, b = b, a
     with engine.begin() as conn:
-        earlier = [d["id"] for d in cs.decision_history(conn, lvl, a.member, b.member)]
-        new_id = cs.add_decision(conn, {
+        earlier = [d["id"] for d in ds.decision_history(conn, lvl, a.member, b.member)]
+        new_id = ds.add_decision(conn, {
             "verdict": verdict, "level": lvl, "a_ref": a.ref, "b_ref": b.ref, "a_member": a.member,
             "b_member": b.member, "a_cluster": a.cluster, "b_cluster": b.cluster, "note": note,
             "decided_by": who[:200], "decided_at": now()})
@@ -254,18 +224,12 @@ def _effect(verdict: str, level: str, a: Anchor, b: Anchor, held: dict[int, str]
 
 def list_decisions(engine: Engine, *, limit: int | None = None) -> list[dict[str, Any]]:
     """Every decision, newest first, with whether it is still in force."""
-    d, c1, c2 = t.decisions, t.canonical_urls.alias("ca"), t.canonical_urls.alias("cb")
-    q = (sa.select(d, c1.c.url.label("a_url"), c2.c.url.label("b_url"))
-         .select_from(d.join(c1, c1.c.id == d.c.a_member).join(c2, c2.c.id == d.c.b_member))
-         .order_by(d.c.id.desc()))
-    if limit:
-        q = q.limit(limit)
     with engine.connect() as conn:
-        rows = [dict(r) for r in conn.execute(q).mappings()]
+        rows = ds.decision_log(conn, limit=limit)
         in_force: set[int] = set()
         for level in ("article", "story"):
             anchors = {x["a_member"] for x in rows if x["level"] == level}
-            in_force.update(r["id"] for r in cs.decisions_touching(conn, level, anchors))
+            in_force.update(r["id"] for r in ds.decisions_touching(conn, level, anchors))
     for r in rows:
         r["in_force"] = r["id"] in in_force
         r["decided_at"] = utc(r["decided_at"])

@@ -2,26 +2,27 @@
 
 from __future__ import annotations
 
-import difflib
 from collections import Counter, defaultdict
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
-import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
-from ...canon import registered_domain
 from ...errors import InputError, NotFound
 from ...settings import Settings
+from ...store import canonicals as cu
+from ...store import cluster_reports as cr
 from ...store import clusters as cs
-from ...store import tables as t
-from ...store.finals import FinalsJoin, finals_of
-from ...store.registry import utc
+from ...store import decisions as ds
+from ...store.clock import utc
+from ...store.finals import finals_of
+from ...store.linkgraph import links_touching
 from .. import SignatureParams, render_curve, render_histogram
 from ..curve import DEFAULT_POINTS
 from ..sinks import POINTING_KINDS
-from .regions import link_level, links_touching
+from ..textdiff import differing_passages
+from .regions import link_level
 from .sinks import Sink, SinkJudge, describe_sinks
 
 PAGE = 500
@@ -81,46 +82,19 @@ def _scores(links: Sequence[Any], members: set[int]) -> tuple[float | None, floa
     return (min(scores) if scores else None, max(scores) if scores else None, dict(sorted(kinds.items())))
 
 
-def _on_outlet(fj: FinalsJoin, outlet: str) -> sa.ColumnElement[bool]:
-    """Whether the URL a canonical URL stands for (its final URL) is on ``outlet``: an outlet name as the
-    site rules give it (any case), or a domain or host name, taken to its registered domain
-    (``www.Herald.example`` means ``herald.example``)."""
-    text = outlet.strip()
-    cond = sa.func.lower(fj.column("outlet")) == text.lower()
-    host = text.lower().rstrip(".")
-    if host and "." in host and " " not in host:
-        domain = registered_domain(host) or host
-        cond = sa.or_(cond, fj.column("domain") == domain, fj.column("host") == host)
-    return cond
-
-
 def list_clusters(engine: Engine, *, level: str = "article", min_size: int = 2, outlet: str | None = None,
                   limit: int | None = None, settings: Settings | None = None) -> Iterator[ClusterRow]:
     """Clusters of ``level`` with at least ``min_size`` members (and, with ``outlet``, a member whose final
-    outlet is that one: an outlet name or a domain, see :func:`_on_outlet`), largest first, with the number
-    of final outlets, the range of similarity scores between their members and the sinks near them
-    (``settings`` gives the ``sink_fan_in`` limit)."""
+    outlet is that one: an outlet name or a domain, see :func:`linkfold.store.cluster_reports.cluster_heads`),
+    largest first, with the number of final outlets, the range of similarity scores between their members
+    and the sinks near them (``settings`` gives the ``sink_fan_in`` limit)."""
     if level not in cs.LEVELS:
         raise InputError(f"level must be article or story, not {level!r}")
     if min_size < 1:
         raise InputError(f"--min-size must be at least 1 (got {min_size})")
-    cm, c, ci = t.cluster_members, t.canonical_urls, t.cluster_ids
-    fj = FinalsJoin.of(c)
-    # Outlets are counted and matched where each member leads (its final outlet): a short link in a
-    # cluster is on its target's outlet, not on the shortener's.
-    member_outlet = fj.column("outlet")
-    size = sa.func.count().label("size")
-    q = (sa.select(cm.c.cluster_id, size, sa.func.count(sa.distinct(member_outlet)).label("outlets"))
-         .select_from(fj.join(cm.join(c, c.c.id == cm.c.canonical_id)))
-         .where(cm.c.level == level).group_by(cm.c.cluster_id).having(sa.func.count() >= min_size))
-    if outlet is not None:
-        q = q.having(sa.func.sum(sa.case((_on_outlet(fj, outlet), 1), else_=0)) > 0)
-    q = q.order_by(size.desc(), cm.c.cluster_id)
-    if limit:
-        q = q.limit(limit)
     with engine.connect() as conn:
         judge = SinkJudge.load(conn, settings)
-        head = conn.execute(q).all()
+        head = cr.cluster_heads(conn, level, min_size=min_size, outlet=outlet, limit=limit)
         for i in range(0, len(head), PAGE):
             page = head[i:i + PAGE]
             ids = [r.cluster_id for r in page]
@@ -129,8 +103,7 @@ def list_clusters(engine: Engine, *, level: str = "article", min_size: int = 2, 
             for m, cid in members.items():
                 by_id[cid].add(m)
             links = links_touching(conn, sorted(members))
-            founders = dict(conn.execute(sa.select(ci.c.id, c.c.url).select_from(ci.join(c, c.c.id == ci.c.founder_id))
-                                         .where(ci.c.id.in_(ids))).all())
+            founders = cr.founder_urls(conn, ids)
             sinks = _sinks_near(conn, judge, links, set(members))
             led_by = _led_by(sinks, links)
             for r in page:
@@ -164,62 +137,25 @@ def resolve_cluster_id(engine: Engine, cluster_id: str) -> cs.Resolution:
     return res
 
 
-def _current_documents(conn: Connection, canonical_ids: Sequence[int]) -> dict[int, Any]:
-    d = t.documents
-    out: dict[int, Any] = {}
-    for part in cs.chunks(sorted(set(canonical_ids))):
-        q = (sa.select(d.c.id, d.c.canonical_id, d.c.title, d.c.text, d.c.word_count, d.c.published)
-             .where(d.c.canonical_id.in_(part), d.c.status == "usable").order_by(d.c.id))
-        for r in conn.execute(q):
-            out[int(r.canonical_id)] = r   # ascending ids: the newest usable document wins
-    return out
-
-
-def differing_passages(a: str, b: str, *, context: int = 4, max_passages: int = 6,
-                       max_words: int = 40) -> list[tuple[str, str]]:
-    """Word-level passages where ``b`` differs from ``a``, each with a few words of context."""
-    wa, wb = a.split(), b.split()
-    out: list[tuple[str, str]] = []
-    matcher = difflib.SequenceMatcher(None, wa, wb, autojunk=False)
-    for tag, i1, i2, j1, j2 in matcher.get_opcodes():
-        if tag == "equal":
-            continue
-        left = wa[max(0, i1 - context):i1]
-        right_ctx = wa[i2:i2 + context]
-
-        def clip(words: list[str]) -> str:
-            return " ".join(words[:max_words]) + (" …" if len(words) > max_words else "")
-
-        out.append((clip([*left, "[", *wa[i1:i2], "]", *right_ctx]),
-                    clip([*wb[max(0, j1 - context):j1], "[", *wb[j1:j2], "]", *wb[j2:j2 + context]])))
-        if len(out) >= max_passages:
-            break
-    return out
-
-
 def show_cluster(engine: Engine, cluster_id: str, *, max_compared: int = 10,
                  settings: Settings | None = None) -> ClusterDetail:
     """Members, the links between them with their evidence, the decisions on them, the sinks near them
     (with their fan-in), and, for up to ``max_compared`` members, the passages where their text differs
     from the founder's."""
     res = resolve_cluster_id(engine, cluster_id)
-    c = t.canonical_urls
     with engine.connect() as conn:
         row = cs.id_rows(conn, [res.current])[res.current]
         members = cs.members_of(conn, [res.current])
         ids = sorted(members)
-        urls: dict[int, Any] = {}
-        for part in cs.chunks(ids):
-            urls.update({int(r.id): r for r in conn.execute(
-                sa.select(c.c.id, c.c.url, c.c.url_key, c.c.outlet).where(c.c.id.in_(part)))})
+        urls = cu.url_rows(conn, ids)
         finals = finals_of(conn, ids)
         other_level = "article" if res.level == "story" else "story"
         other = cs.assignments(conn, other_level, ids)
-        docs = _current_documents(conn, ids)
+        docs = cr.current_documents(conn, ids)
         member_set = set(ids)
         touching = links_touching(conn, ids)
         links = [r for r in touching if r.src_id in member_set and r.dst_id in member_set]
-        decisions = cs.decisions_touching(conn, res.level, ids)
+        decisions = ds.decisions_touching(conn, res.level, ids)
         near = _sinks_near(conn, SinkJudge.load(conn, settings), touching, member_set)
         sinks = _sink_rows(near, _led_by(near, touching), member_set)
     founder = int(row["founder_id"])
@@ -251,14 +187,9 @@ def show_cluster(engine: Engine, cluster_id: str, *, max_compared: int = 10,
 
 def similarity_values(engine: Engine) -> dict[str, list[float]]:
     """The text similarities of every stored ``similar_text`` link, by the level it serves."""
-    lk = t.links
-    src, dst = t.canonical_urls.alias("src"), t.canonical_urls.alias("dst")
-    q = (sa.select(lk.c.detail, src.c.outlet, dst.c.outlet.label("dst_outlet"))
-         .select_from(lk.join(src, src.c.id == lk.c.src_id).join(dst, dst.c.id == lk.c.dst_id))
-         .where(lk.c.kind == "similar_text"))
     out: dict[str, list[float]] = {"article": [], "story": []}
     with engine.connect() as conn:
-        for detail, a, b in conn.execute(q.execution_options(yield_per=10000)):
+        for detail, a, b in cr.similarity_details(conn):
             detail = detail or {}
             score = detail.get("exact_jaccard")
             if score is None:

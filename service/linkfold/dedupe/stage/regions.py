@@ -32,16 +32,17 @@ from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
-import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
 from ...errors import DatabaseError
 from ...progress import SILENT, Progress
 from ...settings import Settings
+from ...store import canonicals as cu
 from ...store import clusters as cs
+from ...store import decisions as ds
+from ...store import linkgraph as lg
 from ...store import pending as pq
-from ...store import tables as t
-from ...store.registry import now
+from ...store.clock import now
 from .. import Edge, EventKind, IdState, Reason, Thresholds, assign_ids, cluster, derive_id
 from ..sinks import POINTING_KINDS, End, link_joins
 from .sinks import SinkJudge
@@ -109,29 +110,6 @@ def link_strength(kind: str, detail: Mapping[str, Any] | None, thresholds: Thres
     return strength
 
 
-def links_touching(conn: Connection, members: Sequence[int], *, within: pq.Claim | None = None) -> list[Any]:
-    """Links with an end among ``members`` (or, with ``within``, the links of that claim), with the
-    outlets of both ends."""
-    lk = t.links
-    src, dst = t.canonical_urls.alias("src"), t.canonical_urls.alias("dst")
-    base = (sa.select(lk.c.id, lk.c.kind, lk.c.src_id, lk.c.dst_id, lk.c.detail,
-                      src.c.outlet.label("src_outlet"), dst.c.outlet.label("dst_outlet"),
-                      src.c.url.label("src_url"), src.c.host.label("src_host"),
-                      src.c.is_article.label("src_is_article"), dst.c.url.label("dst_url"),
-                      dst.c.host.label("dst_host"), dst.c.is_article.label("dst_is_article"))
-            .select_from(lk.join(src, src.c.id == lk.c.src_id).join(dst, dst.c.id == lk.c.dst_id)))
-    rows: dict[int, Any] = {}
-    if within is not None:
-        for r in conn.execute(base.where(within.where(lk.c.id))):
-            rows[r.id] = r
-        return [rows[k] for k in sorted(rows)]
-    for part in cs.chunks(sorted(set(members))):
-        for col in (lk.c.src_id, lk.c.dst_id):
-            for r in conn.execute(base.where(col.in_(part))):
-                rows[r.id] = r
-    return [rows[k] for k in sorted(rows)]
-
-
 @dataclass
 class Region:
     members: set[int]
@@ -176,7 +154,7 @@ def closure(conn: Connection, level: str, seeds: Iterable[int], thresholds: Thre
         if level == "story":
             articles = cs.assignments(conn, "article", part)
             grown.update(cs.members_of(conn, set(articles.values())))
-        rows = [r for r in links_touching(conn, part)
+        rows = [r for r in lg.links_touching(conn, part)
                 if r.src_id != r.dst_id and link_level(r.kind, r.src_outlet, r.dst_outlet) == level]
         usable = joining(conn, rows, judge)
         for r in rows:
@@ -190,20 +168,12 @@ def closure(conn: Connection, level: str, seeds: Iterable[int], thresholds: Thre
             if pair not in edges or edges[pair][0] < strength:
                 edges[pair] = (strength, r.kind)
             grown.update(pair)
-        for d in cs.decisions_touching(conn, level, part):
+        for d in ds.decisions_touching(conn, level, part):
             decisions[d["id"]] = d
             if d["verdict"] == "same":
                 grown.update((d["a_member"], d["b_member"]))
         frontier = grown - region
-    return Region(region, edges, cs.latest_per_pair(decisions.values()), len(unused))
-
-
-def _url_keys(conn: Connection, ids: Iterable[int]) -> dict[int, str]:
-    c = t.canonical_urls
-    out: dict[int, str] = {}
-    for part in cs.chunks(sorted(set(ids))):
-        out.update((int(i), k) for i, k in conn.execute(sa.select(c.c.id, c.c.url_key).where(c.c.id.in_(part))))
-    return out
+    return Region(region, edges, ds.latest_per_pair(decisions.values()), len(unused))
 
 
 def move_out(decision: Mapping[str, Any], level: str) -> tuple[int, int] | None:
@@ -301,7 +271,7 @@ def cluster_region(conn: Connection, level: str, region: Region, *, run_id: int 
     current = cs.assignments(conn, level, region.members)
     held = cs.id_rows(conn, set(current.values()))
     founder_ids = {row["founder_id"] for row in held.values()}
-    ukey = _url_keys(conn, region.members | founder_ids)
+    ukey = cu.url_keys(conn, region.members | founder_ids)
     comps, handoff = _components(conn, level, region, ukey, current,
                                  {i: int(row["founder_id"]) for i, row in held.items()}, counts)
     counts.members += len(region.members)
@@ -399,28 +369,21 @@ def count_pending_clustering(conn: Connection) -> int:
 
 def seeds_of(conn: Connection, pending: Pending) -> tuple[set[int], set[int]]:
     """(article seeds, extra story seeds) for what is pending."""
-    c, d = t.canonical_urls, t.decisions
     article: set[int] = set()
     story: set[int] = set()
     if not pending.canonical.empty:
-        article.update(int(i) for i in conn.execute(sa.select(c.c.id).where(pending.canonical.where(c.c.id)))
-                       .scalars())
+        article.update(lg.claimed_canonical_ids(conn, pending.canonical))
     if not pending.links.empty:
-        for r in links_touching(conn, [], within=pending.links):
+        for r in lg.links_touching(conn, [], within=pending.links):
             lvl = link_level(r.kind, r.src_outlet, r.dst_outlet)
             if lvl == "article":
                 article.update((r.src_id, r.dst_id))
             elif lvl == "story":
                 story.update((r.src_id, r.dst_id))
     if not pending.decisions.empty:
-        for r in conn.execute(sa.select(d.c.level, d.c.a_member, d.c.b_member)
-                              .where(pending.decisions.where(d.c.id))):
-            (article if r.level == "article" else story).update((r.a_member, r.b_member))
+        for level, a_member, b_member in lg.claimed_decision_anchors(conn, pending.decisions):
+            (article if level == "article" else story).update((a_member, b_member))
     return article, story
-
-
-def all_canonical_ids(conn: Connection) -> set[int]:
-    return {int(i) for i in conn.execute(sa.select(t.canonical_urls.c.id)).scalars()}
 
 
 def advance_marks(conn: Connection, pending: Pending, *, run_id: int | None) -> None:
@@ -430,6 +393,6 @@ def advance_marks(conn: Connection, pending: Pending, *, run_id: int | None) -> 
 
 
 __all__ = ["CANONICAL", "DECISIONS", "LINKS", "ClusterCounts", "Pending", "Region", "advance_marks",
-           "all_canonical_ids", "closure", "cluster_region", "cluster_seeds", "count_pending_clustering",
-           "joining", "link_level", "link_strength", "links_touching", "move_out", "pending_ranges",
+           "closure", "cluster_region", "cluster_seeds", "count_pending_clustering",
+           "joining", "link_level", "link_strength", "move_out", "pending_ranges",
            "seeds_of"]

@@ -29,15 +29,14 @@ import zlib
 from dataclasses import dataclass
 
 import numpy as np
-import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
 from ...progress import SILENT, Progress
 from ...store import pending as pq
-from ...store import tables as t
-from ...store.bulk import insert_rows
+from ...store import signatures as sg
+from ...store.clock import now
 from ...store.clusters import chunks, get_mark, set_mark
-from ...store.registry import now
+from ...store.signatures import SHORT_REASONS
 from .. import (
     TITLE_KEY_NAME,
     SignatureParams,
@@ -77,30 +76,9 @@ class SignCounts:
     titled: int = 0
 
 
-#: Content reasons of documents whose short or missing text still takes part, through their title.
-SHORT_REASONS = ("too_short", "empty")
-
-
-def _takes_part():
-    d = t.documents
-    return sa.or_(d.c.status == "usable", sa.and_(d.c.status == "no_text", d.c.unusable_reason.in_(SHORT_REASONS)))
-
-
-def _with_usable(conn: Connection, canonical_ids: list[int]) -> set[int]:
-    """The canonical URLs among ``canonical_ids`` that have a usable document (a short one never
-    replaces it)."""
-    d = t.documents
-    out: set[int] = set()
-    for part in chunks(canonical_ids):
-        out.update(int(c) for c in conn.execute(sa.select(d.c.canonical_id).distinct()
-                                                .where(d.c.canonical_id.in_(part), d.c.status == "usable")).scalars())
-    return out
-
-
 def count_unsigned(conn: Connection) -> int:
-    n = pq.count(conn, pq.claim(conn, SIGNED), where=_takes_part())
-    if get_mark(conn, TITLES) != titles_mark() and conn.execute(sa.select(t.signatures.c.document_id)
-                                                                 .limit(1)).first() is not None:
+    n = sg.count_taking_part(conn, pq.claim(conn, SIGNED))
+    if get_mark(conn, TITLES) != titles_mark() and sg.any_signed(conn):
         n += 1   # signed documents without title keys: the next run gives them theirs
     return n
 
@@ -128,37 +106,18 @@ def _title_rows(docs: list[tuple[int, str | None, object]]) -> list[dict[str, in
             for key in title_keys(title)]
 
 
-def _supersede(conn: Connection, canonical_ids: list[int], keep: dict[int, int]) -> int:
-    """Remove band and title keys of documents older than the current one of each canonical URL."""
-    d, bk, tk = t.documents, t.band_keys, t.title_keys
-    removed = 0
-    for part in chunks(canonical_ids):
-        older = [int(i) for i, c in conn.execute(sa.select(d.c.id, d.c.canonical_id)
-                                                 .where(d.c.canonical_id.in_(part))) if i < keep[int(c)]]
-        for sub in chunks(older):
-            removed += conn.execute(bk.delete().where(bk.c.document_id.in_(sub))).rowcount or 0
-            conn.execute(tk.delete().where(tk.c.document_id.in_(sub)))
-    return removed
-
-
 def backfill_title_keys(engine: Engine, *, run_id: int | None, batch_size: int) -> int:
     """Give the current signed documents their title keys when the ``dedupe.titles`` mark is missing or
     names another scheme (a registry signed before title keys existed); then every current document is
     matched again, once, so short texts signed earlier meet. Returns the number of keys written."""
-    d, sg, tk = t.documents, t.signatures, t.title_keys
     with engine.begin() as conn:
         if get_mark(conn, TITLES) == titles_mark():
             return 0
-        conn.execute(tk.delete())
-        current = sorted(int(i) for i in conn.execute(
-            sa.select(sa.func.max(sg.c.document_id)).select_from(sg.join(d, d.c.id == sg.c.document_id))
-            .where(_takes_part()).group_by(d.c.canonical_id)).scalars())
+        sg.drop_all_title_keys(conn)
         written = 0
-        for part in chunks(current, max(1, min(batch_size, 500))):
-            docs = [(int(i), title, published) for i, title, published in conn.execute(
-                sa.select(d.c.id, d.c.title, d.c.published).where(d.c.id.in_(part)))]
-            rows = _title_rows(docs)
-            insert_rows(conn, tk, rows)
+        for part in chunks(sg.current_signed(conn), max(1, min(batch_size, 500))):
+            rows = _title_rows(sg.titles_of(conn, part))
+            sg.add_title_keys(conn, rows)
             written += len(rows)
         set_mark(conn, TITLES, titles_mark(), run_id=run_id, now=now())
         if written:
@@ -172,59 +131,49 @@ def backfill_title_keys(engine: Engine, *, run_id: int | None, batch_size: int) 
 def sign_pending(engine: Engine, params: SignatureParams, *, run_id: int | None, batch_size: int,
                  progress: Progress = SILENT) -> SignCounts:
     counts = SignCounts()
-    d, sg = t.documents, t.signatures
     counts.titled = backfill_title_keys(engine, run_id=run_id, batch_size=batch_size)
     with engine.connect() as conn:
         todo = pq.claim(conn, SIGNED)
-        total = pq.count(conn, todo, where=_takes_part())
+        total = sg.count_taking_part(conn, todo)
     progress.start("signing documents", total)
     started = time.monotonic()
     after = 0
     while True:
         with engine.begin() as conn:
-            batch = conn.execute(sa.select(d.c.id, d.c.canonical_id, d.c.text, d.c.title, d.c.published,
-                                           d.c.status)
-                                 .where(_takes_part(), d.c.id > after, todo.where(d.c.id))
-                                 .order_by(d.c.id).limit(batch_size)).all()
+            batch = sg.signing_batch(conn, todo, after, batch_size)
             if not batch:
                 break
             after = int(batch[-1].id)
             # The newest document of a canonical URL is the one to sign (a short one only where the URL
             # has no usable document); any older one is superseded. The newest may be outside the batch:
             # on PostgreSQL an older document can be committed (and claimed) after a newer one was signed.
-            full = _with_usable(conn, sorted({int(r.canonical_id) for r in batch}))
+            full = sg.with_usable(conn, sorted({int(r.canonical_id) for r in batch}))
             newest: dict[int, int] = {}
             for r in batch:
                 if r.status == "usable" or int(r.canonical_id) not in full:
                     newest[int(r.canonical_id)] = max(newest.get(int(r.canonical_id), 0), int(r.id))
-            for part in chunks(sorted(newest)):
-                for cid, status, top in conn.execute(
-                        sa.select(d.c.canonical_id, d.c.status, sa.func.max(d.c.id))
-                        .where(d.c.canonical_id.in_(part), _takes_part()).group_by(d.c.canonical_id, d.c.status)):
-                    if status == "usable" or int(cid) not in full:
-                        newest[int(cid)] = max(newest[int(cid)], int(top))
+            for cid, status, top in sg.newest_taking_part(conn, sorted(newest)):
+                if status == "usable" or cid not in full:
+                    newest[cid] = max(newest[cid], top)
             chosen = [(int(r.id), r.text or "") for r in batch if newest.get(int(r.canonical_id)) == int(r.id)]
-            already: set[int] = set()
-            for part in chunks([i for i, _ in chosen]):
-                already.update(int(x) for x in conn.execute(sa.select(sg.c.document_id)
-                                                            .where(sg.c.document_id.in_(part))).scalars())
+            already = sg.signed_among(conn, [i for i, _ in chosen])
             chosen = [(i, txt) for i, txt in chosen if i not in already]
             ids = [i for i, _ in chosen]
             if chosen:
                 sigs = signatures_from_texts([txt for _, txt in chosen], params)
                 stamp = now()
-                conn.execute(sg.insert(), [{"document_id": i, "params": params.band_token,
-                                            "signature": signature_to_bytes(sigs[r], params),
-                                            "created_at": stamp, "run_id": run_id} for r, i in enumerate(ids)])
+                sg.add_signatures(conn, [{"document_id": i, "params": params.band_token,
+                                          "signature": signature_to_bytes(sigs[r], params),
+                                          "created_at": stamp, "run_id": run_id} for r, i in enumerate(ids)])
                 rows = _band_rows(ids, sigs, params)
-                insert_rows(conn, t.band_keys, rows)
+                sg.add_band_keys(conn, rows)
                 signed_now = set(ids)
                 titled = _title_rows([(int(r.id), r.title, r.published) for r in batch if int(r.id) in signed_now])
-                insert_rows(conn, t.title_keys, titled)
+                sg.add_title_keys(conn, titled)
                 counts.titled += len(titled)
                 counts.empty += len(ids) - len({r["document_id"] for r in rows})
                 counts.signed += len(ids)
-            counts.superseded += _supersede(conn, sorted(newest), newest)
+            counts.superseded += sg.supersede(conn, sorted(newest), newest)
             pq.advance(conn, todo, after, run_id=run_id)
             if get_mark(conn, PARAMS) is None:
                 set_mark(conn, PARAMS, params_mark(params), run_id=run_id, now=now())
@@ -243,27 +192,19 @@ def refresh_signatures(engine: Engine, params: SignatureParams, *, run_id: int |
     """Bring every current signature to ``params`` (after the settings changed); resets the match mark
     so every current document is matched again under the new banding."""
     counts = SignCounts()
-    sg, bk, d = t.signatures, t.band_keys, t.documents
     token = params.band_token
     with engine.connect() as conn:
-        total = int(conn.execute(sa.select(sa.func.count()).select_from(sg).where(sg.c.params != token))
-                    .scalar_one())
+        total = sg.count_stale(conn, token)
     progress.start("refreshing signatures", total)
     last = 0
     while True:
         with engine.begin() as conn:
-            batch = conn.execute(sa.select(sg.c.document_id, sg.c.params, sg.c.signature, d.c.text)
-                                 .select_from(sg.join(d, d.c.id == sg.c.document_id))
-                                 .where(sg.c.params != token, sg.c.document_id > last)
-                                 .order_by(sg.c.document_id).limit(batch_size)).all()
+            batch = sg.stale_batch(conn, token, last, batch_size)
             if not batch:
                 break
             last = int(batch[-1].document_id)
             ids = [int(r.document_id) for r in batch]
-            current: set[int] = set()
-            for part in chunks(ids):
-                current.update(int(x) for x in conn.execute(sa.select(bk.c.document_id).distinct()
-                                                            .where(bk.c.document_id.in_(part))).scalars())
+            current = sg.banded_among(conn, ids)
             sigs = np.empty((len(batch), params.num_perm), dtype=params.dtype)
             resign = []
             for row, r in enumerate(batch):
@@ -276,13 +217,11 @@ def refresh_signatures(engine: Engine, params: SignatureParams, *, run_id: int |
             if resign:
                 sigs[resign] = signatures_from_texts([batch[i].text or "" for i in resign], params)
                 counts.resigned += len(resign)
-            conn.execute(sg.update().where(sg.c.document_id == sa.bindparam("b_id")).values(
-                params=token, signature=sa.bindparam("b_sig"), run_id=run_id),
-                [{"b_id": i, "b_sig": signature_to_bytes(sigs[r], params)} for r, i in enumerate(ids)])
-            for part in chunks(ids):
-                conn.execute(bk.delete().where(bk.c.document_id.in_(part)))
+            sg.replace_signatures(conn, token, {i: signature_to_bytes(sigs[r], params) for r, i in enumerate(ids)},
+                                  run_id=run_id)
+            sg.drop_band_keys(conn, ids)
             keep = [r for r, i in enumerate(ids) if i in current]
-            insert_rows(conn, bk, _band_rows([ids[r] for r in keep], sigs[keep], params))
+            sg.add_band_keys(conn, _band_rows([ids[r] for r in keep], sigs[keep], params))
         progress.advance(len(batch))
     with engine.begin() as conn:
         set_mark(conn, PARAMS, params_mark(params), run_id=run_id, now=now())

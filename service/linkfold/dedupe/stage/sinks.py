@@ -17,15 +17,14 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
-import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
 from ...canon import Ruleset
 from ...settings import Settings
 from ...store import evidence as ev
-from ...store import tables as t
-from ...store.clusters import get_mark, set_mark
-from ...store.registry import get_dataset, now
+from ...store.clock import now
+from ...store.clusters import any_clustered, get_mark, set_mark
+from ...store.datasets import get_dataset
 from ...store.rulesets import current_ruleset
 from ..sinks import End, SinkKind, fan_in, sink_kind
 
@@ -115,7 +114,7 @@ def policy_changed(conn: Connection, settings: Settings | None = None) -> bool:
     judge = SinkJudge.load(conn, settings)
     if get_mark(conn, FAN_IN_MARK) == judge.limit and get_mark(conn, RULES_MARK) == rules_mark(judge.rules):
         return False
-    return conn.execute(sa.select(t.cluster_members.c.canonical_id).limit(1)).first() is not None
+    return any_clustered(conn)
 
 
 def policy_seeds(conn: Connection, settings: Settings | None = None) -> set[int]:

@@ -35,29 +35,33 @@ cluster        for an ID given as input: the live cluster it stands for — ``id
 
 For an ID given as input, ``canonical``, ``url_key``, ``domain`` and ``outlet`` stay null (an ID is not
 one URL): what the ID stands for is in ``cluster``.
+
+:func:`locate` finds one reference the same way for the commands that act on what it names (a decision,
+``documents show``). Lookup only reads: it lives with storage so that every stage may use it.
 """
 
 from __future__ import annotations
 
 import re
-from collections.abc import Iterable, Iterator
+from collections.abc import Iterable, Iterator, Sequence
+from dataclasses import dataclass
 from typing import Any
 
 import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
 from ..canon import Canonicaliser, Ruleset, default_rules
-from ..errors import InvalidURL
-from ..store import clusters, finals, registry
-from ..store import tables as t
-from ..store.finals import FINAL_COLUMNS
-from ..store.migrate import require_schema
-from ..store.rulesets import latest_ruleset
-from .rows import raw_hash, storable
+from ..errors import InputError, InvalidURL, NotFound
+from . import clusters, finals
+from . import tables as t
+from .finals import FINAL_COLUMNS
+from .migrate import require_schema
+from .rulesets import latest_ruleset
+from .text import raw_hash, storable
 
 # RFC 4648 §6 base32 alphabet in lower case, 24 characters: the shape of every url key (canon.keys).
 URL_KEY_RE = re.compile(r"[a-z2-7]{24}")
-_CHUNK = 500
+_CHUNK = 500  # inputs per round, and ids per IN (…) list: under SQLite's default of 999 parameters
 LOOKUP_FIELDS = ("input", "canonical", "url_key", "domain", "outlet", "seen", "sightings", "datasets",
                  "matched_by", "article_id", "story_id", "error", "id_history", *FINAL_COLUMNS, "cluster")
 
@@ -102,7 +106,7 @@ def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> l
     keyed_set = set(keyed) | set(id_inputs)
     urls = [i for i in range(len(items)) if i not in keyed_set]
     hashes = {i: raw_hash(storable(items[i])) for i in urls}
-    known_raw = registry.raws_by_hash(conn, list(hashes.values()))
+    known_raw = raws_by_hash(conn, list(hashes.values()))
 
     wanted_keys: dict[int, str] = {}
     for i in keyed:
@@ -142,8 +146,8 @@ def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> l
         if named:
             answers[i]["final_outlet"] = named
 
-    found = registry.canonicals_by_key(conn, list(wanted_keys.values()))
-    counts = registry.sighting_counts(conn, [row["id"] for row in found.values()])
+    found = canonicals_by_key(conn, list(wanted_keys.values()))
+    counts = sighting_counts(conn, [row["id"] for row in found.values()])
     assigned = clusters.current_ids(conn, [row["id"] for row in found.values()])
     final = finals.finals_of(conn, [row["id"] for row in found.values()])
     for i, key in wanted_keys.items():
@@ -165,7 +169,7 @@ def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> l
         for i, current in live.items():
             answers[i]["cluster"] = summaries.get(current)
     if raw_only:
-        raw_counts = registry.raw_sighting_counts(conn, list(raw_only.values()))
+        raw_counts = raw_sighting_counts(conn, list(raw_only.values()))
         for i, h in raw_only.items():
             answers[i]["sightings"], answers[i]["datasets"] = raw_counts.get(h, (0, 0))
     return answers
@@ -184,4 +188,114 @@ def _answer_id(conn: Connection, answer: dict[str, Any], text: str) -> str | Non
     return found.current
 
 
-__all__ = ["LOOKUP_FIELDS", "URL_KEY_RE", "is_url_key", "lookup"]
+# --- one reference, for the commands that act on what it names ----------------------------------------
+@dataclass(frozen=True)
+class Located:
+    """What one reference names, found the way :func:`lookup` finds it: a stored canonical URL (for an ID,
+    the founder of the live cluster it stands for)."""
+
+    ref: str
+    canonical_id: int
+    url: str
+    outlet: str | None
+    matched_by: str          # as in a lookup answer: url_key, raw_url, canonical_url, article_id, story_id
+    cluster: str | None      # the live ID an ID reference resolved to
+    level: str | None        # the level of an ID reference; None for a URL or key
+
+
+def locate(engine: Engine, conn: Connection, ref: str) -> Located:
+    """The stored canonical URL that ``ref`` names: a URL as loaded, any spelling that canonicalises to a
+    stored one under the ruleset in force, a url key, or an article or story ID (any ID ever issued).
+    Raises :class:`InputError` for an empty or unreadable reference, :class:`NotFound` for one the
+    registry does not hold."""
+    text = ref.strip()
+    if not text:
+        raise InputError("an empty reference: give a URL, a url key or an article/story ID")
+    c = t.canonical_urls
+    if clusters.is_cluster_id(text):
+        res = clusters.resolve(conn, text)
+        if res is None:
+            raise NotFound(f"{text}: no such article or story ID was ever issued")
+        founder_id = int(clusters.id_rows(conn, [res.current])[res.current]["founder_id"])
+        founder = conn.execute(sa.select(c.c.url, c.c.outlet).where(c.c.id == founder_id)).one()
+        return Located(text, founder_id, founder.url, founder.outlet, f"{res.level}_id", res.current, res.level)
+    answer = next(iter(lookup(engine, [text])))
+    if answer["error"] and not answer["url_key"]:
+        raise InputError(f"{text}: not a URL, url key or ID the registry can read ({answer['error']})")
+    if not answer["seen"] or not answer["url_key"]:
+        raise NotFound(f"{text}: not in the registry (canonical form {answer['canonical']!r}); load it first")
+    found = conn.execute(sa.select(c.c.id, c.c.url, c.c.outlet).where(c.c.url_key == answer["url_key"])).first()
+    if found is None:
+        raise NotFound(f"{text}: not in the registry")
+    return Located(text, int(found.id), found.url, found.outlet, answer["matched_by"], None, None)
+
+
+# --- the queries behind it --------------------------------------------------------------------------------
+def _chunks(items: Sequence[str]) -> Iterator[Sequence[str]]:
+    for i in range(0, len(items), _CHUNK):
+        yield items[i:i + _CHUNK]
+
+
+def ids_by_hash(conn: Connection, hashes: Iterable[str]) -> dict[str, int]:
+    """Raw hash -> raw URL id for the stored ones among ``hashes``."""
+    r = t.raw_urls
+    out: dict[str, int] = {}
+    for part in _chunks(sorted(hashes)):
+        out.update(conn.execute(sa.select(r.c.raw_hash, r.c.id).where(r.c.raw_hash.in_(part))).all())
+    return out
+
+
+def canonicals_by_key(conn: Connection, keys: Sequence[str]) -> dict[str, dict[str, Any]]:
+    """Known canonical URLs by url key (id, url key, URL, host, domain, outlet); unknown keys are absent."""
+    c = t.canonical_urls
+    out: dict[str, dict[str, Any]] = {}
+    for part in _chunks(list(dict.fromkeys(keys))):
+        for row in conn.execute(sa.select(c.c.id, c.c.url_key, c.c.url, c.c.host, c.c.domain, c.c.outlet)
+                                .where(c.c.url_key.in_(part))).mappings():
+            out[row["url_key"]] = dict(row)
+    return out
+
+
+def raws_by_hash(conn: Connection, hashes: Sequence[str]) -> dict[str, dict[str, Any]]:
+    """Known raw URLs by hash, with the canonical URL each is mapped to (if any)."""
+    r, c = t.raw_urls, t.canonical_urls
+    out: dict[str, dict[str, Any]] = {}
+    for part in _chunks(list(dict.fromkeys(hashes))):
+        q = (sa.select(r.c.raw_hash, r.c.error, c.c.id, c.c.url_key, c.c.url, c.c.host, c.c.domain,
+                       c.c.outlet)
+             .select_from(r.outerjoin(c, c.c.id == r.c.canonical_id)).where(r.c.raw_hash.in_(part)))
+        for row in conn.execute(q).mappings():
+            out[row["raw_hash"]] = dict(row)
+    return out
+
+
+def sighting_counts(conn: Connection, canonical_ids: Sequence[int]) -> dict[int, tuple[int, int]]:
+    """(sightings, datasets) per canonical URL id, over every raw URL that maps to it."""
+    r, s = t.raw_urls, t.sightings
+    out: dict[int, tuple[int, int]] = {}
+    ids = list(dict.fromkeys(canonical_ids))
+    for i in range(0, len(ids), _CHUNK):
+        part = ids[i:i + _CHUNK]
+        q = (sa.select(r.c.canonical_id, sa.func.count(s.c.id), sa.func.count(sa.distinct(s.c.dataset_id)))
+             .select_from(r.join(s, s.c.raw_url_id == r.c.id))
+             .where(r.c.canonical_id.in_(part)).group_by(r.c.canonical_id))
+        for cid, n, nd in conn.execute(q):
+            out[int(cid)] = (int(n), int(nd))
+    return out
+
+
+def raw_sighting_counts(conn: Connection, hashes: Sequence[str]) -> dict[str, tuple[int, int]]:
+    """(sightings, datasets) per raw URL hash: for raw URLs with no canonical URL (unparsable ones)."""
+    r, s = t.raw_urls, t.sightings
+    out: dict[str, tuple[int, int]] = {}
+    for part in _chunks(list(dict.fromkeys(hashes))):
+        q = (sa.select(r.c.raw_hash, sa.func.count(s.c.id), sa.func.count(sa.distinct(s.c.dataset_id)))
+             .select_from(r.join(s, s.c.raw_url_id == r.c.id))
+             .where(r.c.raw_hash.in_(part)).group_by(r.c.raw_hash))
+        for h, n, nd in conn.execute(q):
+            out[h] = (int(n), int(nd))
+    return out
+
+
+__all__ = ["LOOKUP_FIELDS", "URL_KEY_RE", "Located", "canonicals_by_key", "ids_by_hash", "is_url_key",
+           "locate", "lookup", "raw_sighting_counts", "raws_by_hash", "sighting_counts"]
