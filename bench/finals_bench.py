@@ -46,7 +46,7 @@ RULES = 'name = "bench"\nshortener_hosts = ["short.test"]\n'
 OLD_VIEW = """
 CREATE VIEW bench_links_before AS
 SELECT d.name AS dataset, s.row_key, s.line_no, s.position, s.seen_at, r.raw AS raw_url, c.url AS canonical_url,
-       c.url_key, c.domain, c.outlet, c.is_article, r.error AS url_error, s.id AS sighting_id,
+       c.url_key, c.domain, c.outlet, c.is_article, r.reason AS url_error, s.id AS sighting_id,
        am.cluster_id AS article_id, sm.cluster_id AS story_id, f.file_name AS file
 FROM sightings s
 JOIN dataset_files f ON f.id = s.file_id

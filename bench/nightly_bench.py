@@ -83,8 +83,8 @@ def _add(engine, tmp: Path, rng, vocab, start: int, n: int, stored: list[list[st
             short = words < 50
             rows.append({"canonical_id": ids[url], "page_id": None, "title": title, "text": norm,
                          "text_hash": None if short else text_hash(norm), "word_count": words,
-                         "published": published, "status": "no_text" if short else "usable",
-                         "unusable_reason": "too_short" if short else None, "extractor_version": "bench",
+                         "published": published, "state": "no_text" if short else "usable",
+                         "reason": "too_short" if short else None, "extractor_version": "bench",
                          "source": "bench", "record_sha256": None, "created_at": STAMP})
         for i in range(0, len(rows), 5000):
             conn.execute(t.documents.insert(), rows[i:i + 5000])

@@ -11,7 +11,7 @@ SQLite file in a temporary folder):
   2. the server starts with a read token; for ``--seconds`` lookups go out at ``--rate`` a second, spread
      over ``--clients`` keep-alive connections and paced on a fixed schedule (open loop: a slow answer does
      not slow the next request, it shows as latency): single lookups, and every tenth a batch of 50;
-  3. meanwhile ``--ingests`` new dumps are loaded one after another, each by its own ``linkfold ingest``
+  3. meanwhile ``--ingests`` new dumps are loaded one after another, each by its own ``linkfold datasets load``
      process, and one ``linkfold nightly`` run (extract and dedupe over the new documents) starts a third of
      the way in.
 
@@ -218,7 +218,7 @@ def main() -> int:
         upgrade(engine)
         base = generate(args.urls, rng, "b")
         (tmp / "base.txt").write_text("\n".join(base) + "\n", encoding="utf-8")
-        subprocess.run(cli(db_url, "ingest", str(tmp / "base.txt"), "--dataset", "soak-base"), check=True,
+        subprocess.run(cli(db_url, "datasets", "load", str(tmp / "base.txt"), "--dataset", "soak-base"), check=True,
                        env=quiet_env())
         subprocess.run(cli(db_url, "nightly"), check=True, env=quiet_env(), capture_output=True)
         new_docs = tmp / "documents.jsonl"
@@ -227,7 +227,7 @@ def main() -> int:
             urls = generate(args.ingest_rows, rng, f"n{i}-") + rng.sample(base, min(len(base), args.ingest_rows // 4))
             dump = tmp / f"panel-{i}.csv"
             dump.write_text("visit,url\n" + "".join(f"v{i}-{k},{u}\n" for k, u in enumerate(urls)), encoding="utf-8")
-            writers.append(Writer(f"ingest {i + 1}", cli(db_url, "ingest", str(dump), "--dataset", f"soak-panel-{i}",
+            writers.append(Writer(f"ingest {i + 1}", cli(db_url, "datasets", "load", str(dump), "--dataset", f"soak-panel-{i}",
                                                          "--key-column", "visit"), start_after=args.seconds * 0.1))
             if i == 0:
                 new_docs.write_text("\n".join(documents(urls, rng)) + "\n", encoding="utf-8")

@@ -132,8 +132,8 @@ def load(engine, tmp: Path, world: World) -> None:
                     continue  # a copy nobody saw was never loaded
                 docs.append({"canonical_id": ids[copy.url], "page_id": None, "title": story.title, "text": norm,
                              "text_hash": text_hash(norm), "word_count": count_words(norm),
-                             "published": copy.published, "language": story.language, "status": "usable",
-                             "unusable_reason": None, "extractor_version": "corpus-world",
+                             "published": copy.published, "language": story.language, "state": "usable",
+                             "reason": None, "extractor_version": "corpus-world",
                              "source": f"test:{copy.url}", "record_sha256": None, "created_at": STAMP})
         conn.execute(t.documents.insert(), docs)
     run_dedupe(engine, settings=load_settings(overrides={"batch_size": 50}, environ={}))

@@ -55,7 +55,7 @@ def add_document(engine, url_part: str, text: str, *, title: str | None = None,
         cid = canonical_id(conn, url_part)
         return int(conn.execute(t.documents.insert().values(
             canonical_id=cid, page_id=None, title=title, text=norm, text_hash=text_hash(norm),
-            word_count=count_words(norm), published=published, status="usable", unusable_reason=None,
+            word_count=count_words(norm), published=published, state="usable", reason=None,
             extractor_version="test-world", source=f"test:{url_part}", record_sha256=None,
             created_at=STAMP).returning(t.documents.c.id)).scalar_one())
 
@@ -123,6 +123,6 @@ def bulk_world(engine, tmp: Path, n_families: int, *, seed: int = 5, family: int
             norm = normalise_text(" ".join(words))
             rows.append({"canonical_id": ids[url], "page_id": None, "title": None, "text": norm,
                          "text_hash": text_hash(norm), "word_count": count_words(norm), "published": None,
-                         "status": "usable", "unusable_reason": None, "extractor_version": "test-world",
+                         "state": "usable", "reason": None, "extractor_version": "test-world",
                          "source": f"test:{url}", "record_sha256": None, "created_at": STAMP})
         conn.execute(t.documents.insert(), rows)

@@ -130,7 +130,7 @@ def quality(rules: Ruleset, per_outlet: int) -> dict[str, tuple[float, float]]:
 
 def _doc(cid: int, status: str, reason: str | None, text_hash: str | None, now: datetime) -> dict:
     return {"canonical_id": cid, "page_id": None, "title": None, "text": None, "text_hash": text_hash,
-            "word_count": 400 if status == "usable" else 3, "status": status, "unusable_reason": reason,
+            "word_count": 400 if status == "usable" else 3, "state": status, "reason": reason,
             "extractor_version": "world", "source": "world", "created_at": now}
 
 

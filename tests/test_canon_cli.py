@@ -94,10 +94,10 @@ def test_rules_add_list_show_and_canonicalize_by_version(sqlite_url, tmp_path, c
     shown = capsys.readouterr()
     assert shown.out == default_rules().source and "ruleset version 1" in shown.err
 
-    assert main([*db, "rules", "add", str(DEMO_RULES), "--name", "demo outlets v1"]) == 0
+    assert main([*db, "rules", "load", str(DEMO_RULES), "--name", "demo outlets v1"]) == 0
     added = json.loads(capsys.readouterr().out)
     assert added["version"] == 2 and added["new"] is True
-    assert main([*db, "rules", "add", str(DEMO_RULES)]) == 0
+    assert main([*db, "rules", "load", str(DEMO_RULES)]) == 0
     assert json.loads(capsys.readouterr().out) == {**added, "name": "demo outlets", "new": False}
 
     assert main([*db, "rules", "list", "--format", "jsonl"]) == 0
@@ -116,7 +116,7 @@ def test_rules_add_list_show_and_canonicalize_by_version(sqlite_url, tmp_path, c
 
 
 def test_rules_list_table(sqlite_url, capsys) -> None:
-    assert main(["--db", sqlite_url, "rules", "add", str(DEMO_RULES)]) == 0
+    assert main(["--db", sqlite_url, "rules", "load", str(DEMO_RULES)]) == 0
     capsys.readouterr()
     assert main(["--db", sqlite_url, "rules", "list"]) == 0
     lines = capsys.readouterr().out.splitlines()

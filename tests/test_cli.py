@@ -25,11 +25,14 @@ def test_top_level_help_lists_commands_with_descriptions(capsys):
     assert main(["--help"]) == 0
     out = capsys.readouterr().out
     for name, cmd in cli.commands.items():
+        if cmd.hidden:  # an old spelling (docs/vocabulary.md): it works, warns, and is not advertised
+            assert name not in out.split()
+            continue
         assert name in out
         assert cmd.get_short_help_str(), f"{name} has no one-line description"
 
 
-@pytest.mark.parametrize("path", [p for p, _ in _all_commands(cli)])
+@pytest.mark.parametrize("path", [p for p, c in _all_commands(cli) if not c.hidden])
 def test_every_command_has_help_with_an_example(path):
     cmd = dict(_all_commands(cli))[path]
     text = cmd.help or ""

@@ -31,7 +31,7 @@ def _env(db_url: str, **more: str) -> dict[str, str]:
 
 
 def _ingest_cmd(path: Path, dataset: str) -> list[str]:
-    return [sys.executable, "-m", "linkfold.cli", "--quiet", "ingest", str(path), "--dataset", dataset,
+    return [sys.executable, "-m", "linkfold.cli", "--quiet", "datasets", "load", str(path), "--dataset", dataset,
             "--key-column", "id"]
 
 
@@ -64,7 +64,7 @@ def registry_state(db_url: str) -> dict[str, object]:
             sightings = Counter(conn.execute(sa.select(d.c.name, s.c.row_key, r.c.raw).select_from(
                 s.join(f, f.c.id == s.c.file_id).join(d, d.c.id == f.c.dataset_id)
                 .join(r, r.c.id == s.c.raw_url_id))).all())
-            files = sorted(conn.execute(sa.select(f.c.file_name, f.c.status, f.c.rows, f.c.sightings)).all())
+            files = sorted(conn.execute(sa.select(f.c.file_name, f.c.state, f.c.rows, f.c.sightings)).all())
     finally:
         engine.dispose()
     return {"canonical": canon, "raw": raws, "sightings": sightings, "files": files}
@@ -199,7 +199,7 @@ def test_a_load_committed_after_a_later_load_and_a_nightly_run_is_picked_up(pg_u
         # canonical URLs (taking their ids), then waits on that raw URL's unique key.
         blocker.begin()
         blocker.execute(sa.insert(t.raw_urls).values(raw_hash=raw_hash(blocked), raw=blocked, canonical_id=None,
-                                                     ruleset_id=None, error=None, created_at=sa.func.now()))
+                                                     ruleset_id=None, reason=None, created_at=sa.func.now()))
         proc = subprocess.Popen(_ingest_cmd(a, "panel-a"), env=_env(pg_url), stdout=subprocess.DEVNULL,
                                 stderr=subprocess.PIPE, text=True)
         import time
@@ -253,17 +253,15 @@ def test_an_existing_registry_is_migrated_to_the_pending_queue_and_heals(empty_d
     before = next(down for rev, down, _doc in history() if rev == "0013")
     engine = make_engine(empty_db_url)
     try:
-        upgrade(engine, before)
-        # Today's loader on a registry some migrations behind stands in for the old version that wrote such
-        # data: let it past the schema check, which otherwise (rightly) refuses an old schema, and have it
-        # COPY as text, which converts to the old 32-bit id columns (binary COPY sends today's 64-bit ids).
-        from linkfold.store import bulk, migrate
+        # Loaded by today's loader at head (it writes today's columns and 64-bit ids), then taken back to
+        # before 0013 with its data: what a registry of that time held.
+        from linkfold.store import downgrade
 
-        migrate._AT_HEAD.add(engine)
-        with monkeypatch.context() as patch:
-            patch.setattr(bulk, "_binary_types", lambda table, columns: None)
-            ingest_dump(engine, [_dump(tmp_path / "a.csv", 0, 300, seed=1)], dataset="panel-a", key_column="id")
-        migrate._AT_HEAD.discard(engine)
+        upgrade(engine)
+        ingest_dump(engine, [_dump(tmp_path / "a.csv", 0, 300, seed=1)], dataset="panel-a", key_column="id")
+        downgrade(engine, before)
+        with engine.begin() as conn:
+            conn.execute(sa.delete(t.stage_marks))  # the marks the downgrade left: the test sets its own
         with engine.begin() as conn:
             top = conn.execute(sa.select(sa.func.max(t.canonical_urls.c.id))).scalar_one()
             # A registry whose marks say "up to here is done" although nothing below was clustered: what
@@ -328,7 +326,7 @@ def test_a_run_whose_process_was_killed_shows_as_interrupted_everywhere(db_url, 
         engine = make_engine(db_url)
         try:
             with engine.connect() as conn:  # the row itself still says what was recorded
-                assert conn.execute(sa.select(t.runs.c.status).where(t.runs.c.id == dead_id)).scalar_one() == "running"
+                assert conn.execute(sa.select(t.runs.c.state).where(t.runs.c.id == dead_id)).scalar_one() == "running"
             listed = {r["id"]: r for r in list_runs(engine)}
             assert listed[dead_id]["status"] == "interrupted"
             assert f"process {killed.pid}" in listed[dead_id]["error"]
@@ -370,11 +368,11 @@ def test_a_pid_taken_by_a_later_process_is_not_the_runs():
     other = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"])
     try:
         now = datetime.now(UTC)
-        row = {"status": "running", "host": socket.gethostname(), "pid": other.pid}
+        row = {"state": "running", "host": socket.gethostname(), "pid": other.pid}
         assert process_gone({**row, "started_at": now - timedelta(hours=1)})
         assert not process_gone({**row, "started_at": now + timedelta(minutes=1)})
         assert not process_gone({**row, "host": "elsewhere.test", "started_at": now - timedelta(hours=1)})
-        assert not process_gone({**row, "status": "ok", "started_at": now - timedelta(hours=1)})
+        assert not process_gone({**row, "state": "ok", "started_at": now - timedelta(hours=1)})
     finally:
         other.kill()
         other.wait()
@@ -397,7 +395,7 @@ def test_loads_an_import_and_a_nightly_run_at_once_equal_running_them_in_turn(pg
         for i in range(0, 6000, 7):
             fh.write(f"https://lnk.test/s{i},https://www.outlet{i % 23}.example/2031/{i % 12 + 1:02d}/story-{i}\n")
     commands = [_ingest_cmd(path, name) for path, name in dumps]
-    commands.append([sys.executable, "-m", "linkfold.cli", "--quiet", "follow", "--import", str(pairs)])
+    commands.append([sys.executable, "-m", "linkfold.cli", "--quiet", "redirects", "load", str(pairs)])
     nightly = [sys.executable, "-m", "linkfold.cli", "--quiet", "nightly"]
 
     def state(url: str) -> dict[str, object]:
@@ -491,7 +489,7 @@ def test_a_batch_that_keeps_losing_stops_with_exit_11_and_keeps_what_was_committ
     monkeypatch.setenv("LINKFOLD_DATABASE_URL", pg_url)
     monkeypatch.setenv("LINKFOLD_INGEST_BATCH_SIZE", "300")
     calls = _losing(monkeypatch, set(range(2, 100)))
-    code = main(["ingest", str(path), "--dataset", "panel-a", "--key-column", "id"])
+    code = main(["datasets", "load", str(path), "--dataset", "panel-a", "--key-column", "id"])
     err = capsys.readouterr().err
     assert code == 11, err
     assert "deadlock" in err and "5 times" in err and "Traceback" not in err
@@ -503,4 +501,4 @@ def test_a_batch_that_keeps_losing_stops_with_exit_11_and_keeps_what_was_committ
             stored = conn.execute(sa.select(sa.func.count()).select_from(t.sightings)).scalar_one()
     finally:
         engine.dispose()
-    assert (f["status"], f["lines_done"], stored) == ("loading", 301, 300)
+    assert (f["state"], f["lines_done"], stored) == ("loading", 301, 300)

@@ -12,7 +12,7 @@ def test_public_names_are_importable_and_unique():
 
 
 def test_readers_and_extraction_are_public():
-    # The stages (import-pages, documents load, extract) are shells over exactly these.
+    # The stages (pages load, documents load, extract) are shells over exactly these.
     for name in ("read_pages", "read_warc", "read_page_dir", "read_page_jsonl", "read_documents",
                  "extract_document", "decode_html", "declared_link", "Page", "PageProblem", "Document"):
         assert name in content.__all__, name

@@ -134,7 +134,7 @@ def test_import_a_warc_written_by_warcio(engine, tmp_path):
         blob = conn.execute(sa.select(t.pages.c.body).where(t.pages.c.id == page["id"])).scalar_one()
         assert zlib.decompress(blob) == bridge and page["body_sha256"] == hashlib.sha256(bridge).hexdigest()
         run = conn.execute(sa.select(t.runs).where(t.runs.c.id == summary.run_id)).mappings().one()
-        assert run["stage"] == "import_pages" and run["status"] == "ok" and run["counts"]["stored"] == 2
+        assert run["stage"] == "import_pages" and run["state"] == "ok" and run["counts"]["stored"] == 2
     again = import_pages(engine, [warc])
     assert (again.read, again.stored, again.already_stored) == (2, 0, 2)
     with engine.connect() as conn:
@@ -153,7 +153,7 @@ def test_a_broken_archive_keeps_what_was_read_before_it(engine, tmp_path):
         assert [p["requested_url"] for p in sp.pages_of(conn, _cid(conn, BRIDGE_URL))] == [BRIDGE_URL]
         assert _count(conn, t.pages) == 1
         run = conn.execute(sa.select(t.runs).where(t.runs.c.stage == "import_pages")).mappings().one()
-        assert run["status"] == "failed" and "cut.warc.gz" in run["error"]
+        assert run["state"] == "failed" and "cut.warc.gz" in run["detail"]
 
 
 def test_import_reports_problems_with_file_and_line(engine, tmp_path):
@@ -207,7 +207,7 @@ def test_fixture_pages_import_and_extract(engine, tmp_path):
         for url, reason in [(PAYWALL_URL, "paywall"), (CONSENT_URL, "consent_wall"), (VIDEO_URL, "video")]:
             doc = sp.documents_of(conn, _cid(conn, url))[0]
             # Marked with the reason, not dropped; no text hash, so duplicate detection leaves it out.
-            assert doc["status"] == "no_text" and doc["unusable_reason"] == reason and doc["text_hash"] is None
+            assert doc["state"] == "no_text" and doc["reason"] == reason and doc["text_hash"] is None
         bridge = sp.current_document(conn, _cid(conn, BRIDGE_URL))
         assert bridge["extractor_version"] == extract_module.extractor_version()
         # FIPS 180-4 SHA-256 of the stored (normalised) text.
@@ -326,7 +326,7 @@ def test_load_documents(engine, tmp_path):
         assert doc["author"] == "A. Writer; B. Writer" and doc["language"] == "en"
         assert doc["text_hash"] == hashlib.sha256(normalise_text(STORY).encode("utf-8")).hexdigest()
         short = sp.documents_of(conn, _cid(conn, "https://northvale-herald.example/news/2026/11/short"))[0]
-        assert short["status"] == "no_text" and short["unusable_reason"] == "too_short"
+        assert short["state"] == "no_text" and short["reason"] == "too_short"
         run = conn.execute(sa.select(t.runs).where(t.runs.c.id == summary.run_id)).mappings().one()
         assert run["stage"] == "load_documents" and run["counts"]["problems"] == {"bad_time": 1, "missing_field": 1}
     again = load_documents(engine, path)
@@ -377,7 +377,7 @@ def test_an_interrupted_extract_keeps_its_batches_and_resumes(engine, tmp_path, 
     with engine.connect() as conn:
         assert _count(conn, t.documents) == 4  # the two batches committed before it
         run = conn.execute(sa.select(t.runs).where(t.runs.c.stage == "extract")).mappings().one()
-        assert run["status"] == "interrupted" and run["counts"]["selected"] == 4
+        assert run["state"] == "interrupted" and run["counts"]["selected"] == 4
     monkeypatch.setattr(stage, "extract_document", real)
     rest = extract_pages(engine)
     assert rest.selected == 4

@@ -1,4 +1,4 @@
-"""``linkfold fetch``, ``import-pages``, ``documents load|show`` and ``extract`` through the command line.
+"""``linkfold fetch``, ``pages load``, ``documents load|show`` and ``extract`` through the command line.
 
 The CLI resolves names with the system resolver, so fetching uses only 127.0.0.1 URLs (IP literals are
 never resolved): no DNS query leaves the machine. Behaviour on invented data: exit codes, JSON summaries
@@ -47,11 +47,11 @@ def _page_dir(tmp_path: Path) -> Path:
 
 def test_import_extract_and_show(env, tmp_path, capsys):
     d = _page_dir(tmp_path)
-    assert main(["import-pages", str(d), "--summary", "json"]) == 0
+    assert main(["pages", "load", str(d), "--format", "json"]) == 0
     out, err = capsys.readouterr()
     assert json.loads(out)["stored"] == 1
     assert f"{d}:3: missing_file" in err and "stored:         1" in err
-    assert main(["extract", "--summary", "json"]) == 0
+    assert main(["extract", "--format", "json"]) == 0
     out, err = capsys.readouterr()
     summary = json.loads(out)
     assert summary["selected"] == 1 and summary["usable"] == 1
@@ -72,12 +72,12 @@ def test_documents_load_reports_lines(env, tmp_path, capsys):
     assert main(["documents", "load", str(path)]) == 0
     err = capsys.readouterr().err
     assert f"{path}:2: missing_field" in err and "loaded 1 documents" in err
-    assert main(["documents", "load", str(path), "--summary", "json"]) == 0
+    assert main(["documents", "load", str(path), "--format", "json"]) == 0
     assert json.loads(capsys.readouterr().out)["already_stored"] == 1
 
 
 def test_errors_are_one_line_and_an_exit_code(env, tmp_path, capsys):
-    assert main(["import-pages", str(tmp_path / "nope.warc.gz")]) == InputError("x").exit_code
+    assert main(["pages", "load", str(tmp_path / "nope.warc.gz")]) == InputError("x").exit_code
     err = capsys.readouterr().err
     assert err.startswith("linkfold: error: ") and "nope.warc.gz" in err
     assert main(["documents", "show", "https://nowhere.example/x"]) == NotFound("x").exit_code
@@ -88,9 +88,9 @@ def test_fetch_prints_a_summary(env, tmp_path, capsys):
     with LoopbackServer() as server:
         dump = tmp_path / "panel.txt"
         dump.write_text(f"{server.url('/final')}\n{server.url('/status/404')}\n", encoding="utf-8")
-        assert main(["-q", "ingest", str(dump), "--dataset", "panel-a"]) == 0
+        assert main(["-q", "datasets", "load", str(dump), "--dataset", "panel-a"]) == 0
         capsys.readouterr()
-        assert main(["fetch", "--dataset", "panel-a", "--summary", "json"]) == 0
+        assert main(["fetch", "--dataset", "panel-a", "--format", "json"]) == 0
         out, err = capsys.readouterr()
     summary = json.loads(out)
     assert summary["fetched"] == 1 and summary["failed"] == {"http_4xx": 1}
@@ -111,8 +111,8 @@ def test_import_pages_as_a_process(tmp_path):
     run = lambda *args: subprocess.run([sys.executable, "-m", "linkfold.cli", "--db", db, *args],  # noqa: E731
                                        capture_output=True, text=True, env=env, timeout=120)
     assert run("db", "upgrade").returncode == 0
-    done = run("import-pages", str(d), "--summary", "json")
+    done = run("pages", "load", str(d), "--format", "json")
     assert done.returncode == 0, done.stderr
     assert json.loads(done.stdout)["stored"] == 1
-    extracted = run("extract", "--summary", "json")
+    extracted = run("extract", "--format", "json")
     assert extracted.returncode == 0 and json.loads(extracted.stdout)["usable"] == 1

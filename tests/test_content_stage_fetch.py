@@ -117,7 +117,7 @@ def test_fetch_stores_pages_failures_links_and_run(engine, db_url, server, panel
         assert ok["state"] == "fetched" and ok["page_id"] == page["id"] and ok["attempts"] == 1
 
         run_row = conn.execute(sa.select(t.runs).where(t.runs.c.id == summary.run_id)).mappings().one()
-        assert run_row["stage"] == "fetch" and run_row["status"] == "ok"
+        assert run_row["stage"] == "fetch" and run_row["state"] == "ok"
         assert run_row["counts"]["pages_stored"] == 4 and run_row["counts"]["failed"] == {"http_4xx": 1, "http_5xx": 1}
     # The request-forgery guard refused 10.0.0.5 before any socket: the server never saw it, and no
     # request carried anything but the lab's User-Agent.

@@ -172,7 +172,7 @@ def test_a_usable_text_is_not_replaced_by_a_later_stub(engine, tmp_path):
                         published=NOON)
     with engine.begin() as conn:   # as the content stage stores a text under 50 words
         conn.execute(t.documents.update().where(t.documents.c.id == stub)
-                     .values(status="no_text", unusable_reason="too_short", text_hash=None))
+                     .values(state="no_text", reason="too_short", text_hash=None))
     summary = run_dedupe(engine, settings=settings())
     assert summary.signing.signed == 0
     with engine.connect() as conn:

@@ -264,7 +264,7 @@ def _documents(engine: sa.Engine) -> list[tuple]:
     from linkfold.store import tables as t
 
     with engine.connect() as conn:
-        q = (sa.select(t.canonical_urls.c.url, t.documents.c.status, t.documents.c.unusable_reason,
+        q = (sa.select(t.canonical_urls.c.url, t.documents.c.state, t.documents.c.reason,
                        t.documents.c.title, t.documents.c.text_hash, t.documents.c.published,
                        t.documents.c.word_count, t.documents.c.extractor_version)
              .join(t.canonical_urls, t.canonical_urls.c.id == t.documents.c.canonical_id)

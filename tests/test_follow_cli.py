@@ -25,13 +25,13 @@ def env(monkeypatch, db_url):
 def ingest(tmp_path, urls, dataset="panel-a"):
     path = tmp_path / f"{dataset}.txt"
     path.write_text("\n".join(urls) + "\n", encoding="utf-8")
-    assert main(["-q", "ingest", str(path), "--dataset", dataset]) == 0
+    assert main(["-q", "datasets", "load", str(path), "--dataset", dataset]) == 0
 
 
 def test_follow_prints_a_summary_and_json(env, tmp_path, server, capsys):
     ingest(tmp_path, [server.url("/chain/2"), server.url("/status/404"), server.url("/loop/a")])
     capsys.readouterr()
-    assert main(["follow", "--hosts", "127.0.0.1", "--summary", "json"]) == 0
+    assert main(["follow", "--hosts", "127.0.0.1", "--format", "json"]) == 0
     out, err = capsys.readouterr()
     summary = json.loads(out)
     assert summary["selected"] == 3 and summary["resolved"] == 1
@@ -56,7 +56,7 @@ def test_import_reports_bad_lines_with_file_and_line(env, tmp_path, capsys):
     path = tmp_path / "pairs.csv"
     path.write_text("short,expanded\nhttps://short.test/a,https://news.test/a\nmailto:x@news.test,"
                     "https://news.test/b\n", encoding="utf-8")
-    assert main(["follow", "--import", str(path)]) == 0
+    assert main(["redirects", "load", str(path)]) == 0
     err = capsys.readouterr().err
     assert f"{path}:3: short_not_http" in err and "1 redirect links written" in err
 
@@ -70,7 +70,8 @@ def test_missing_contact_is_a_config_error(env, monkeypatch, capsys):
 @pytest.mark.parametrize("args", [
     ["follow", "--all", "--hosts", "short.test"],
     ["follow", "--import", "pairs.csv", "--limit", "3"],
-    ["follow", "--format", "csv"],
+    ["follow", "--format", "tsv"],  # an input format: it belongs to redirects load --input-format
+    ["follow", "--short-column", "link"],
 ])
 def test_conflicting_options_are_usage_errors(env, args, capsys):
     assert main(args) == 2

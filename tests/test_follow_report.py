@@ -126,7 +126,7 @@ def test_cli_says_why_without_reading_tables(cli_env, tmp_path, server, capsys):
     # IP literals only: the CLI uses the system resolver, and an IP literal is never looked up.
     path = tmp_path / "links.txt"
     path.write_text(server.url("/chain/1") + "\n" + server.url("/status/404") + "\n", encoding="utf-8")
-    assert main(["-q", "ingest", str(path), "--dataset", "posts"]) == 0
+    assert main(["-q", "datasets", "load", str(path), "--dataset", "posts"]) == 0
     assert main(["follow", "--hosts", "127.0.0.1"]) == 0
     err = capsys.readouterr().err
     assert "refused:  2 (refused 2)" in err and "a loopback address" in err and "allow_networks" in err

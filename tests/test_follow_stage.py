@@ -73,7 +73,7 @@ def test_follow_stores_chains_outcomes_and_run(engine, db_url, server, panel):
         assert refused["state"] == "refused" and refused["next_attempt_at"] is None
         assert refused["final_id"] == canonical_id(conn, "http://private.test/x")
         run_row = conn.execute(sa.select(t.runs).where(t.runs.c.id == summary.run_id)).mappings().one()
-        assert run_row["stage"] == "follow" and run_row["status"] == "ok"
+        assert run_row["stage"] == "follow" and run_row["state"] == "ok"
         assert run_row["counts"]["resolved"] == 1 and run_row["counts"]["failed"] == {"http_4xx": 1, "loop": 1}
         # Hop URLs are raw URLs of their own, so a later stage can fetch what the server named.
         raws = set(conn.execute(sa.select(t.raw_urls.c.raw)).scalars())

@@ -208,7 +208,7 @@ def test_every_form_is_refused_end_to_end_with_the_reason_shown(db_url, tmp_path
              "[::1]", "0"]
     path = tmp_path / "forms.txt"
     path.write_text("".join(f"http://{h}:{port}/final/{i}\n" for i, h in enumerate(hosts)), encoding="utf-8")
-    assert main(["-q", "ingest", str(path), "--dataset", "forms"]) == 0
+    assert main(["-q", "datasets", "load", str(path), "--dataset", "forms"]) == 0
     capsys.readouterr()
     assert main(["follow", "--all"]) == 0
     err = capsys.readouterr().err

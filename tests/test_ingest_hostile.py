@@ -69,7 +69,7 @@ def test_json_past_the_readers_limits_is_a_reject_of_that_line(engine, tmp_path,
     assert "nested deeper than the reader can follow" in bad[1203][1]
     assert f"more than {sys.get_int_max_str_digits():,} digits" in bad[1204][1]
     with engine.connect() as conn:
-        assert conn.execute(sa.select(t.dataset_files.c.status)).scalar_one() == "complete"
+        assert conn.execute(sa.select(t.dataset_files.c.state)).scalar_one() == "complete"
 
 
 def test_a_file_of_only_unholdable_lines_is_still_json_lines(engine, tmp_path):
@@ -102,13 +102,13 @@ def test_a_deep_line_mid_file_does_not_strand_an_interrupted_load(engine, tmp_pa
         ingest_dump(engine, [path], dataset="posts", batch_size=100)
     monkeypatch.undo()
     with engine.connect() as conn:
-        assert conn.execute(sa.select(t.dataset_files.c.status)).scalar_one() == "loading"
+        assert conn.execute(sa.select(t.dataset_files.c.state)).scalar_one() == "loading"
     summary = ingest_dump(engine, [path], dataset="posts", batch_size=100)
     assert summary.files[0].outcome is FileOutcome.RESUMED
     assert rejects(engine) == [(401, -1, "bad_json")]
     assert counts(engine)["sightings"] == 499
     with engine.connect() as conn:
-        assert conn.execute(sa.select(t.dataset_files.c.status)).scalar_one() == "complete"
+        assert conn.execute(sa.select(t.dataset_files.c.state)).scalar_one() == "complete"
     assert ingest_dump(engine, [path], dataset="posts").files[0].outcome is FileOutcome.ALREADY_LOADED
 
 
@@ -195,7 +195,7 @@ def test_an_empty_file_is_one_outcome_in_every_format(engine, tmp_path):
         assert ingest_dump(engine, [path], dataset=f"d{i}").files[0].outcome is FileOutcome.ALREADY_LOADED
     assert set(lines) == {"  NAME: empty (no content once decompressed); nothing to load"}
     with engine.connect() as conn:
-        assert set(conn.execute(sa.select(t.dataset_files.c.status)).scalars()) == {"complete"}
+        assert set(conn.execute(sa.select(t.dataset_files.c.state)).scalars()) == {"complete"}
     assert counts(engine)["sightings"] == 0
 
 
@@ -275,14 +275,14 @@ def test_the_cli_names_the_encoding_file_and_line_and_loads_empty_files_alike(db
 
     utf16 = tmp_path / "export.csv"
     utf16.write_bytes(("\ufeff" + CSV_TEXT).encode("utf-16-le"))
-    assert main(["--db", db_url, "ingest", str(utf16), "--dataset", "panel"]) == Refused.exit_code
+    assert main(["--db", db_url, "datasets", "load", str(utf16), "--dataset", "panel"]) == Refused.exit_code
     err = capsys.readouterr().err
     assert f"{utf16}:1: the file is UTF-16 (little-endian) text" in err and "iconv" in err
     empty_csv, empty_gz = tmp_path / "none.csv", tmp_path / "none.jsonl.gz"
     empty_csv.write_bytes(b"")
     empty_gz.write_bytes(gzip.compress(b""))
-    assert main(["--db", db_url, "ingest", str(empty_csv), str(empty_gz), "--dataset", "panel",
-                 "--summary", "json"]) == 0
+    assert main(["--db", db_url, "datasets", "load", str(empty_csv), str(empty_gz), "--dataset", "panel",
+                 "--format", "json"]) == 0
     captured = capsys.readouterr()
     summary = json.loads(captured.out)
     assert [f["outcome"] for f in summary["files"]] == ["empty", "empty"]

@@ -74,10 +74,10 @@ def test_load_stores_provenance_sightings_and_counts(engine, tmp_path):
         assert f["file_name"] == "panel-week1.csv"
         assert f["sha256"] == hashlib.sha256(path.read_bytes()).hexdigest()
         assert f["size_bytes"] == path.stat().st_size
-        assert (f["status"], f["rows"], f["sightings"], f["rejects"]) == ("complete", 3, 3, 0)
+        assert (f["state"], f["rows"], f["sightings"], f["rejects"]) == ("complete", 3, 3, 0)
         assert f["loaded_at"] is not None and f["options"]["key_column"] == "visit_id"
         run = conn.execute(sa.select(t.runs).where(t.runs.c.id == summary.run_id)).mappings().one()
-        assert run["stage"] == "ingest" and run["status"] == "ok" and run["counts"]["sightings"] == 3
+        assert run["stage"] == "ingest" and run["state"] == "ok" and run["counts"]["sightings"] == 3
     rows = sightings(engine)
     assert [r[2] for r in rows] == ["v1", "v2", "v3"]
     # Raw URLs are verbatim; the first two fold onto one canonical URL (tracking parameter, www).
@@ -144,7 +144,7 @@ def test_a_reject_for_every_class_of_bad_input_and_no_row_lost(engine, tmp_path)
     assert by_line[8][2] == "8"  # missing key: the line number
     assert by_line[10][3] == "https://a.example/\ufffdnul" and by_line[10][4] is None
     with engine.connect() as conn:
-        errors = dict(conn.execute(sa.select(t.raw_urls.c.raw, t.raw_urls.c.error)).all())
+        errors = dict(conn.execute(sa.select(t.raw_urls.c.raw, t.raw_urls.c.reason)).all())
         rows = list(iter_rejects(conn, get_dataset(conn, "bad")["id"]))
     assert errors["javascript:alert(1)"] == "not_http"
     assert errors["https://a.example/\ufffdnul"] == "control_chars"
@@ -249,9 +249,9 @@ def test_crash_mid_load_keeps_whole_batches_and_rerun_completes(engine, tmp_path
         (f,) = conn.execute(sa.select(t.dataset_files)).mappings().all()
         run = conn.execute(sa.select(t.runs)).mappings().one()
     # Four whole batches of 100 rows were committed, the fifth rolled back.
-    assert (f["status"], f["rows"], f["sightings"], f["lines_done"]) == ("loading", 400, 400, 401)
+    assert (f["state"], f["rows"], f["sightings"], f["lines_done"]) == ("loading", 400, 400, 401)
     assert counts(engine)["sightings"] == 400
-    assert run["status"] == ("interrupted" if interrupt is KeyboardInterrupt else "failed")
+    assert run["state"] == ("interrupted" if interrupt is KeyboardInterrupt else "failed")
     monkeypatch.undo()
     summary = ingest_dump(engine, [path], dataset="d", key_column="id", time_column="t", batch_size=100)
     assert summary.files[0].outcome is FileOutcome.RESUMED and summary.files[0].resumed_after_line == 401
@@ -264,7 +264,7 @@ def test_crash_mid_load_keeps_whole_batches_and_rerun_completes(engine, tmp_path
                                                                      t.sightings.c.position)
                            .having(sa.func.count() > 1)).all()
     assert not dup
-    assert (f["status"], f["rows"], f["sightings"], f["rejects"]) == ("complete", 1000, 1000, 90)
+    assert (f["state"], f["rows"], f["sightings"], f["rejects"]) == ("complete", 1000, 1000, 90)
     assert ingest_dump(engine, [path], dataset="d", key_column="id", time_column="t").files[0].outcome \
         is FileOutcome.ALREADY_LOADED
 
@@ -308,7 +308,7 @@ def test_file_changed_after_hashing_is_not_completed(engine, tmp_path, monkeypat
     with pytest.raises(InputError, match="changed while"):
         ingest_dump(engine, [path], dataset="d")
     with engine.connect() as conn:
-        assert conn.execute(sa.select(t.dataset_files.c.status)).scalar_one() == "loading"
+        assert conn.execute(sa.select(t.dataset_files.c.state)).scalar_one() == "loading"
 
 
 def test_dataset_name_is_required(engine, tmp_path):
@@ -365,8 +365,8 @@ def test_a_failure_on_the_writer_thread_reaches_the_caller(engine, tmp_path, mon
     with engine.connect() as conn:
         f = conn.execute(sa.select(t.dataset_files)).mappings().one()
         run = conn.execute(sa.select(t.runs)).mappings().one()
-    assert (f["status"], f["rows"], f["lines_done"]) == ("loading", 10, 11)  # the first batch only
-    assert run["status"] == "failed" and "simulated" in run["error"]
+    assert (f["state"], f["rows"], f["lines_done"]) == ("loading", 10, 11)  # the first batch only
+    assert run["state"] == "failed" and "simulated" in run["detail"]
 
 
 def test_in_memory_sqlite_registry_loads_on_one_thread(tmp_path):
@@ -432,7 +432,7 @@ def test_the_command_tunes_the_interpreter_for_its_own_run_only(db_url, tmp_path
     seen = _spy_on_writes(monkeypatch, _interpreter_settings)
     path = tmp_path / "a.csv"
     path.write_text("url\n" + "".join(f"https://a.example/{i}\n" for i in range(30)))
-    assert cli.main(["-q", "--db", db_url, "ingest", str(path), "--dataset", "d"]) == 0
+    assert cli.main(["-q", "--db", db_url, "datasets", "load", str(path), "--dataset", "d"]) == 0
     tuned_gc, tuned_switch = seen[0]
     assert tuned_gc == (max(before[0][0], cli.GC_THRESHOLD), *before[0][1:])
     assert tuned_switch == pytest.approx(min(before[1], cli.SWITCH_INTERVAL))  # kept in microseconds
@@ -442,5 +442,5 @@ def test_the_command_tunes_the_interpreter_for_its_own_run_only(db_url, tmp_path
         raise LockHeld("simulated")
 
     monkeypatch.setattr(loads, "write_batch", fails)
-    assert cli.main(["-q", "--db", db_url, "ingest", str(path), "--dataset", "e"]) == LockHeld.exit_code
+    assert cli.main(["-q", "--db", db_url, "datasets", "load", str(path), "--dataset", "e"]) == LockHeld.exit_code
     assert _interpreter_settings() == before

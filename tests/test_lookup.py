@@ -12,6 +12,7 @@ import pytest
 
 from linkfold.cli import main
 from linkfold.ingest import LOOKUP_FIELDS, ingest_dump, is_url_key, lookup
+from linkfold.store.lookup import OLD_FIELDS
 
 
 def reference_key(canonical_url: str) -> str:
@@ -36,8 +37,10 @@ def loaded(engine, tmp_path):
 
 def test_answer_has_the_promised_fields(loaded):
     (answer,) = lookup(loaded, ["https://daily-harbour.example/2031/05/bridge"])
-    assert tuple(answer) == LOOKUP_FIELDS
-    assert {"input", "canonical", "url_key", "domain", "seen", "article_id", "story_id"} <= set(answer)
+    # The old names canonical and error come last, for one release (docs/vocabulary.md).
+    assert tuple(answer) == (*LOOKUP_FIELDS, *OLD_FIELDS)
+    assert {"input", "canonical_url", "url_key", "domain", "seen", "article_id", "story_id"} <= set(answer)
+    assert answer["canonical"] == answer["canonical_url"] and answer["error"] == answer["reason"]
 
 
 def test_known_url_by_raw_text_and_by_canonical_form(loaded):
@@ -72,7 +75,7 @@ def test_unknown_key_and_never_loaded_url(loaded):
 
 def test_unparsable_input(loaded):
     loaded_bad, fresh_bad = lookup(loaded, ["not a link at all", "javascript:void(0)"])
-    assert loaded_bad["error"] == "no_scheme" and loaded_bad["seen"] is True and loaded_bad["sightings"] == 1
+    assert loaded_bad["reason"] == "no_scheme" and loaded_bad["seen"] is True and loaded_bad["sightings"] == 1
     assert fresh_bad["error"] == "not_http" and fresh_bad["seen"] is False and fresh_bad["canonical"] is None
 
 

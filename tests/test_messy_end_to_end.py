@@ -4,7 +4,7 @@ The scenario is invented (reserved names, RFC 2606) and shaped like a lab's post
 all redirect to one subscribe page, withdrawn articles redirected to the outlet's home page, short links
 (followed, and one never followed), a redirect wrapper and a share page naming an article, a syndicated
 copy on a second outlet, and two short briefs with one title on two outlets two hours apart. Every step
-is a `linkfold` command (`rules add`, `ingest`, `follow --import`, `documents load`, `dedupe`, `export`,
+is a `linkfold` command (`rules load`, `datasets load`, `redirects load`, `documents load`, `dedupe`, `export`,
 `decide`), so what is checked is what a user sees in the export:
 
 * sinks never merge: the ad clicks and the withdrawn articles keep an article and a story ID each;
@@ -66,7 +66,7 @@ def _run(db: str, *args: str) -> None:
 def archive(db_url, tmp_path, capsys):
     rules = tmp_path / "rules.toml"
     rules.write_text(RULES, encoding="utf-8")
-    _run(db_url, "rules", "add", str(rules))
+    _run(db_url, "rules", "load", str(rules))
 
     urls = [GAZETTE_STORY, COURIER_COPY, OTHER, BRIEF_G, BRIEF_C, SHORT_FOLLOWED, SHORT_UNFOLLOWED, WRAPPER,
             SHARE_PAGE, *AD_CLICKS, *WITHDRAWN]
@@ -76,7 +76,7 @@ def archive(db_url, tmp_path, capsys):
         w.writerow(["post_id", "url"])
         for i, url in enumerate(urls):
             w.writerow([f"p{i}", url + ("&utm_source=feed" if "?" in url else "?utm_source=feed")])
-    _run(db_url, "ingest", str(dump), "--dataset", "posts", "--url-column", "url", "--key-column", "post_id")
+    _run(db_url, "datasets", "load", str(dump), "--dataset", "posts", "--url-column", "url", "--key-column", "post_id")
 
     pairs = tmp_path / "expanded.csv"
     with pairs.open("w", encoding="utf-8", newline="") as fh:
@@ -85,7 +85,7 @@ def archive(db_url, tmp_path, capsys):
         w.writerow([SHORT_FOLLOWED, GAZETTE_STORY])
         w.writerows([ad, SUBSCRIBE] for ad in AD_CLICKS)
         w.writerows([gone, HOME] for gone in WITHDRAWN)
-    _run(db_url, "follow", "--import", str(pairs))
+    _run(db_url, "redirects", "load", str(pairs))
 
     rng = np.random.default_rng(15)
     vocab = invented_vocabulary(4000, rng)

@@ -22,7 +22,11 @@ def _before_0016() -> str:
 
 def _seed(conn) -> None:
     conn.execute(sa.insert(t.datasets).values(id=1, name="panel", created_at=NOW))
-    conn.execute(sa.insert(t.dataset_files).values(
+    # The table as it was before 0022 renamed status to state: this runs at revision 0015.
+    files = sa.table("dataset_files", *(sa.column(c) for c in ("id", "dataset_id", "file_name", "sha256",
+                                                               "size_bytes", "format", "status")),
+                     sa.column("started_at", t.dataset_files.c.started_at.type))
+    conn.execute(sa.insert(files).values(
         id=1, dataset_id=1, file_name="panel.csv", sha256="0" * 64, size_bytes=1, format="csv", status="complete",
         started_at=NOW))
     rejects = [(2, -1, "field_count", "4 fields where the header has 3", f"1,https://a.example/,x,{SECRET}"),

@@ -110,7 +110,7 @@ def test_killed_nightly_then_rerun_equals_an_uninterrupted_run(db_url, engine, t
     summary = run_nightly(engine, settings=settings(batch_size=20))
     assert summary.ok and summary.interrupted_earlier
     with engine.connect() as conn:
-        statuses = dict(conn.execute(sa.select(t.runs.c.id, t.runs.c.status)).all())
+        statuses = dict(conn.execute(sa.select(t.runs.c.id, t.runs.c.state)).all())
     assert all(statuses[i] == "interrupted" for i in summary.interrupted_earlier)
     assert "running" not in statuses.values()
 

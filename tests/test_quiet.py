@@ -51,12 +51,12 @@ def _pages(tmp_path: Path) -> Path:
 
 def _set_up(db_url: str, tmp_path: Path) -> None:
     fx = demo_data_dir()
-    steps = [("rules", "add", str(fx / "rules" / "demo.toml"))]
+    steps = [("rules", "load", str(fx / "rules" / "demo.toml"))]
     for name, path, options in DEMO_DUMPS:
-        step = ["ingest", str(fx / path), "--dataset", name, "--url-column", options["url_column"],
+        step = ["datasets", "load", str(fx / path), "--dataset", name, "--url-column", options["url_column"],
                 "--key-column", options["key_column"], "--time-column", options["time_column"]]
         steps.append(tuple(step))
-    steps += [("follow", "--import", str(fx / "short_links.csv")), ("import-pages", str(_pages(tmp_path)))]
+    steps += [("redirects", "load", str(fx / "short_links.csv")), ("pages", "load", str(_pages(tmp_path)))]
     for step in steps:
         done = _linkfold(db_url, *step)
         assert (done.returncode, done.stderr) == (0, ""), step

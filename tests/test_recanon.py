@@ -29,10 +29,10 @@ def _insert_raw(engine, raws):
 
 def _pointers(engine):
     with engine.connect() as conn:
-        rows = conn.execute(sa.select(t.raw_urls.c.raw, t.canonical_urls.c.url, t.raw_urls.c.error)
+        rows = conn.execute(sa.select(t.raw_urls.c.raw, t.canonical_urls.c.url, t.raw_urls.c.reason)
                             .select_from(t.raw_urls.outerjoin(t.canonical_urls))
                             .order_by(t.raw_urls.c.id)).all()
-    return [(r.raw, r.url, r.error) for r in rows]
+    return [(r.raw, r.url, r.reason) for r in rows]
 
 
 def test_new_ruleset_moves_raw_urls_and_records_the_mapping(engine):
@@ -75,7 +75,7 @@ def test_the_command_prints_the_summary_the_run_log_keeps(db_url, engine, capsys
     from linkfold.store.runs import show_run
 
     _insert_raw(engine, RAWS)
-    assert main(["--db", db_url, "recanonicalize", "--summary", "json"]) == 0
+    assert main(["--db", db_url, "recanonicalize", "--format", "json"]) == 0
     out, err = capsys.readouterr()
     printed = json.loads(out)
     assert printed["examined"] == 4 and printed["invalid_by_reason"] == {"not_http": 1}

@@ -1,5 +1,5 @@
 """`linkfold rules suggest` on a registry with texts (both backends): the quality the issue asks for on
-URLs never seen while learning, the round trip through `rules check` and `rules add`, and the diff."""
+URLs never seen while learning, the round trip through `rules check` and `rules load`, and the diff."""
 
 from __future__ import annotations
 
@@ -79,7 +79,7 @@ def test_the_file_passes_rules_check_and_rules_add_stores_it(world, db_url, tmp_
     assert out.read_text(encoding="utf-8").startswith(MARK)
     checked = runner.invoke(cli, ["rules", "check", str(out)])
     assert checked.exit_code == 0 and ": OK (" in checked.output, checked.output
-    added = runner.invoke(cli, ["--db", db_url, "rules", "add", str(out), "-q"])
+    added = runner.invoke(cli, ["--db", db_url, "rules", "load", str(out), "-q"])
     assert added.exit_code == 0, added.output
     with world.connect() as conn:
         _version, stored = latest_ruleset(conn)

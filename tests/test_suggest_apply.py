@@ -1,4 +1,4 @@
-"""Applying reviewed suggestions keeps IDs stable (DESIGN.md, "Stable IDs"): `rules add` the suggested file,
+"""Applying reviewed suggestions keeps IDs stable (DESIGN.md, "Stable IDs"): `rules load` the suggested file,
 re-canonicalise, cluster again; no article ID changes for a URL whose canonical form did not change, and a
 URL whose canonical form did change (a dropped parameter) still resolves to the article ID it had."""
 
@@ -37,7 +37,7 @@ def _world(engine, tmp_path) -> list[str]:
         ids = dict(conn.execute(sa.select(t.canonical_urls.c.url, t.canonical_urls.c.id)).all())
         conn.execute(t.documents.insert(), [
             {"canonical_id": ids[o], "page_id": None, "title": None, "text": None, "text_hash": None,
-             "word_count": 4, "status": "no_text", "unusable_reason": "too_short", "extractor_version": "test",
+             "word_count": 4, "state": "no_text", "reason": "too_short", "extractor_version": "test",
              "source": "test", "record_sha256": None, "created_at": STAMP} for o in others])
     return urls
 

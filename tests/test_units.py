@@ -226,7 +226,7 @@ def test_a_load_under_another_key_is_refused(engine, tmp_path):
 def test_pseudonymise_prints_what_a_load_stores(db_url, tmp_path, capsys, monkeypatch):
     panel, _ = _panel(tmp_path, 40)
     monkeypatch.setenv("LINKFOLD_PSEUDONYM_KEY", KEY.decode())
-    assert main(["--db", db_url, "ingest", str(panel), "--dataset", "panel", "--unit-column", "person", "-q"]) == 0
+    assert main(["--db", db_url, "datasets", "load", str(panel), "--dataset", "panel", "--unit-column", "person", "-q"]) == 0
     assert capsys.readouterr().err == ""
     monkeypatch.setattr(sys, "stdin", io.StringIO(f"{_uid(3)}\n  {_uid(4)}\r\n\n"))
     assert main(["--db", db_url, "pseudonymise", "--check"]) == 0

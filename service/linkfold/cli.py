@@ -27,9 +27,9 @@ log = logging.getLogger("linkfold")
 COMMANDS: dict[str, str] = {
     "db": "db", "settings": "db",
     "canonicalize": "canon", "rules": "canon", "recanonicalize": "canon",
-    "ingest": "ingest", "rejects": "ingest", "lookup": "ingest", "export": "ingest", "datasets": "ingest",
-    "follow": "follow", "follow-report": "follow",
-    "fetch": "content", "import-pages": "content", "documents": "content", "extract": "content",
+    "datasets": "ingest", "rejects": "ingest", "lookup": "ingest", "export": "ingest",
+    "follow": "follow", "redirects": "follow", "follow-report": "follow",
+    "fetch": "content", "pages": "content", "documents": "content", "extract": "content",
     "dedupe": "dedupe", "decide": "dedupe", "clusters": "dedupe", "thresholds": "dedupe",
     "nightly": "jobs", "runs": "jobs",
     "outlets": "outlets",
@@ -38,6 +38,8 @@ COMMANDS: dict[str, str] = {
     "corpus": "corpus", "compare": "corpus",
     "serve": "api", "tokens": "api",
     "demo": "demo",
+    # Old spellings, hidden from help; they warn and keep working for one release (docs/vocabulary.md).
+    "ingest": "ingest", "import-pages": "content",
 }
 
 

@@ -95,9 +95,9 @@ class DemoReport:
                 out.append(f"  … and {len(rows) - 8} more (linkfold clusters --level {level})")
         out.extend(self.outlets)
         for ex in self.examples:
-            out.append(f"lookup {ex['input']}\n    -> {ex['canonical']} (url key {ex['url_key']}, "
+            out.append(f"lookup {ex['input']}\n    -> {ex['canonical_url']} (url key {ex['url_key']}, "
                        f"article {ex.get('article_id')}, story {ex.get('story_id')}, seen {ex['seen']})"
-                       + (f"\n    stands for {ex['final_url']}" if ex.get("final_url") not in (None, ex["canonical"])
+                       + (f"\n    stands for {ex['final_url']}" if ex.get("final_url") not in (None, ex["canonical_url"])
                           else ""))
         out.extend(self.comparison)
         return out

@@ -10,7 +10,7 @@ from typing import Any
 import click
 
 from ..store import tokens as tok
-from ._common import Context, common_options, format_option, pass_ctx, to_json, write_jsonl, write_table
+from ._common import Context, common_options, format_option, pass_ctx, to_json, write_rows
 
 log = logging.getLogger("linkfold")
 
@@ -108,10 +108,8 @@ def tokens_list(obj: Context, active: bool, fmt: str) -> None:
     """
     with obj.engine().connect() as conn:
         rows: list[Mapping[str, Any]] = list(tok.list_tokens(conn, include_revoked=not active))
-    if fmt == "jsonl":
-        write_jsonl(rows)
-    elif rows:
-        write_table(rows, ["id", "scope", "note", "created_at", "last_used_at", "revoked_at"])
+    if fmt != "table" or rows:
+        write_rows(fmt, rows, ["id", "scope", "note", "created_at", "last_used_at", "revoked_at"])
     else:
         obj.message("no tokens: create one with linkfold tokens create --scope read --note TEXT")
 

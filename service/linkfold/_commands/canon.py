@@ -17,12 +17,14 @@ from ..store import rulesets as registry
 from ._common import (
     Context,
     common_options,
+    deprecated_command,
     format_option,
     pass_ctx,
     report_summary,
     summary_option,
     to_json,
     write_jsonl,
+    write_rows,
     write_table,
 )
 
@@ -111,7 +113,7 @@ def rules_group() -> None:
     \b
     Example:
       linkfold rules check lab-rules.toml
-      linkfold rules add lab-rules.toml --name "demo outlets"
+      linkfold rules load lab-rules.toml --name "demo outlets"
       linkfold rules list
       linkfold rules suggest --out suggested.toml --diff
     """
@@ -139,18 +141,18 @@ def rules_check(obj: Context, file: Path) -> None:
             click.echo(f"  {key} ({len(hosts)}, subdomains included): {', '.join(sorted(hosts))}")
 
 
-@rules_group.command("add")
+@rules_group.command("load")
 @click.argument("file", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--name", help="Name of the ruleset in the registry (default: the file's name key, else its "
                              "file name).")
 @common_options
 @pass_ctx
-def rules_add(obj: Context, file: Path, name: str | None) -> None:
+def rules_load(obj: Context, file: Path, name: str | None) -> None:
     """Store a rules file as a new ruleset version (the same rules give the same version again).
 
     \b
     Example:
-      linkfold rules add lab-rules.toml --name "demo outlets"
+      linkfold rules load lab-rules.toml --name "demo outlets"
     """
     ruleset = load_rules(file)
     engine = obj.engine()
@@ -176,8 +178,9 @@ def rules_list(obj: Context, fmt: str) -> None:
     """
     with obj.engine().connect() as conn:
         rows = registry.list_rulesets(conn)
-    if fmt == "jsonl":
-        write_jsonl(rows)
+    if fmt != "table":
+        write_rows(fmt, rows, ["version", "name", "digest", "canon_version", "psl_version", "current",
+                               "created_at"])
         return
     for row in rows:
         row["digest"] = row["digest"][:12]
@@ -210,10 +213,10 @@ def rules_show(obj: Context, version: int | None) -> None:
 @summary_option
 @common_options
 @pass_ctx
-def recanonicalize_command(obj: Context, summary_format: str) -> None:
+def recanonicalize_command(obj: Context, fmt: str) -> None:
     """Canonicalise again every stored raw URL that is under an older ruleset than the newest.
 
-    After `linkfold rules add` stores a new ruleset version, raw URLs canonicalised under older versions
+    After `linkfold rules load` stores a new ruleset version, raw URLs canonicalised under older versions
     are pending; each gets its canonical URL under the new rules (a new canonical row when the form is
     new; old rows are kept) and the move is recorded (old -> new, ruleset, run), so an earlier canonical
     URL can be traced forward. Resumable: a second run continues where an interrupted one stopped. The
@@ -221,13 +224,13 @@ def recanonicalize_command(obj: Context, summary_format: str) -> None:
 
     \b
     Example:
-      linkfold rules add lab-rules.toml && linkfold recanonicalize
-      linkfold recanonicalize -q --summary json
+      linkfold rules load lab-rules.toml && linkfold recanonicalize
+      linkfold recanonicalize -q --format json
     """
     from ..ingest.recanon import recanonicalize
 
     summary = recanonicalize(obj.engine(), settings=obj.settings, progress=obj.progress())
-    report_summary(obj, summary, summary_format)
+    report_summary(obj, summary, fmt)
 
 
 @rules_group.command("suggest")
@@ -243,7 +246,7 @@ def recanonicalize_command(obj: Context, summary_format: str) -> None:
 def rules_suggest(obj: Context, outlet: str | None, min_support: int | None, out: Path | None, diff: bool) -> None:
     """Propose site rules from the stored evidence: article patterns, parameters to drop or keep,
     shortener, never-article and alias hosts, each with its evidence in a comment. Writes nothing to
-    the registry: review the file, then `linkfold rules add FILE` and `linkfold recanonicalize` (the
+    the registry: review the file, then `linkfold rules load FILE` and `linkfold recanonicalize` (the
     nightly job runs it first).
 
     \b
@@ -264,6 +267,9 @@ def rules_suggest(obj: Context, outlet: str | None, min_support: int | None, out
             click.echo(line)
     for line in result.lines():
         obj.message(line)
+
+
+rules_group.add_command(deprecated_command(rules_load, "add", "linkfold rules load"))
 
 
 def register(cli: click.Group) -> None:

@@ -1,4 +1,4 @@
-"""``linkfold fetch``, ``linkfold import-pages``, ``linkfold documents load|show`` and ``linkfold extract``."""
+"""``linkfold fetch``, ``linkfold pages load`` (old spelling ``import-pages``), ``linkfold documents load|show`` and ``linkfold extract``."""
 
 from __future__ import annotations
 
@@ -11,12 +11,20 @@ from ..content.fetching import fetch_pages
 from ..content.loading import load_documents
 from ..content.page_import import import_pages
 from ..store import pages as store_pages
-from ._common import Context, common_options, pass_ctx, report_summary, summary_option, write_jsonl
+from ._common import (
+    Context,
+    common_options,
+    deprecated_command,
+    pass_ctx,
+    report_summary,
+    summary_option,
+    write_jsonl,
+)
 
 #: Problems printed one by one; the rest are counted in the summary.
 SHOWN_PROBLEMS = 50
 
-def _report(obj: Context, summary, summary_format: str) -> None:
+def _report(obj: Context, summary, fmt: str) -> None:
     # The bad records first, one by one (even under -q: they are what a person has to fix).
     problems = getattr(summary, "problems", None)
     if problems is not None:
@@ -25,7 +33,7 @@ def _report(obj: Context, summary, summary_format: str) -> None:
         hidden = problems.total - min(len(problems.kept), SHOWN_PROBLEMS)
         if hidden > 0:
             obj.problem(f"… and {hidden:,} more problems (counted in the summary; run without -q to see it)")
-    report_summary(obj, summary, summary_format)
+    report_summary(obj, summary, fmt)
 
 
 @click.command("fetch")
@@ -40,7 +48,7 @@ def _report(obj: Context, summary, summary_format: str) -> None:
 @common_options
 @pass_ctx
 def fetch_command(obj: Context, dataset: str | None, only_articles: bool, limit: int | None,
-                  retry_refused: bool, summary_format: str) -> None:
+                  retry_refused: bool, fmt: str) -> None:
     """GET pending canonical URLs and store their pages.
 
     Pending: no page stored yet, and never tried or failed with the next attempt due (backoff per failure
@@ -52,19 +60,19 @@ def fetch_command(obj: Context, dataset: str | None, only_articles: bool, limit:
     \b
     Example:
       LINKFOLD_CONTACT=mailto:lab@university.example linkfold fetch --dataset panel-2031 --only-articles
-      linkfold fetch --limit 1000 --summary json
+      linkfold fetch --limit 1000 --format json
     """
     summary = fetch_pages(obj.engine(), settings=obj.settings, dataset=dataset, only_articles=only_articles,
                           limit=limit, retry_refused=retry_refused, progress=obj.progress())
-    _report(obj, summary, summary_format)
+    _report(obj, summary, fmt)
 
 
-@click.command("import-pages")
+@click.command("load")
 @click.argument("paths", nargs=-1, required=True, type=click.Path(path_type=Path))
 @summary_option
 @common_options
 @pass_ctx
-def import_pages_command(obj: Context, paths: tuple[Path, ...], summary_format: str) -> None:
+def pages_load_command(obj: Context, paths: tuple[Path, ...], fmt: str) -> None:
     """Store pages from WARC files, page directories or page JSON lines, as if fetched.
 
     Each PATH is a WARC file (.warc or .warc.gz), a directory with a pages.tsv manifest (file<TAB>url,
@@ -74,11 +82,24 @@ def import_pages_command(obj: Context, paths: tuple[Path, ...], summary_format: 
 
     \b
     Example:
-      linkfold import-pages crawl-2031-10.warc.gz saved-pages/
-      linkfold import-pages pages.jsonl --summary json
+      linkfold pages load crawl-2031-10.warc.gz saved-pages/
+      linkfold pages load pages.jsonl --format json
     """
     summary = import_pages(obj.engine(), paths, settings=obj.settings, progress=obj.progress())
-    _report(obj, summary, summary_format)
+    _report(obj, summary, fmt)
+
+
+@click.group("pages")
+def pages_group() -> None:
+    """Pages: store pages fetched elsewhere (WARC files, page directories, page JSON lines).
+
+    \b
+    Example:
+      linkfold pages load crawl-2031-10.warc.gz
+    """
+
+
+pages_group.add_command(pages_load_command)
 
 
 @click.group("documents")
@@ -97,7 +118,7 @@ def documents_group() -> None:
 @summary_option
 @common_options
 @pass_ctx
-def documents_load_command(obj: Context, file: Path, summary_format: str) -> None:
+def documents_load_command(obj: Context, file: Path, fmt: str) -> None:
     """Load already-extracted documents from JSON lines.
 
     One object a line: url, title, text (required), published (ISO 8601), author, language (optional).
@@ -108,10 +129,10 @@ def documents_load_command(obj: Context, file: Path, summary_format: str) -> Non
     \b
     Example:
       linkfold documents load texts-from-partner-lab.jsonl
-      linkfold documents load texts.jsonl.gz --summary json
+      linkfold documents load texts.jsonl.gz --format json
     """
     summary = load_documents(obj.engine(), file, settings=obj.settings, progress=obj.progress())
-    _report(obj, summary, summary_format)
+    _report(obj, summary, fmt)
 
 
 @documents_group.command("show")
@@ -149,7 +170,7 @@ def documents_show_command(obj: Context, url: str, all_documents: bool, without_
 @common_options
 @pass_ctx
 def extract_command(obj: Context, reextract: bool, limit: int | None, cluster: str | None,
-                    summary_format: str) -> None:
+                    fmt: str) -> None:
     """Turn stored pages into documents: title, text, date, author, language, declared canonical.
 
     Pages that yield no usable text (paywall stub, consent wall, video page, too short) are stored with
@@ -159,16 +180,17 @@ def extract_command(obj: Context, reextract: bool, limit: int | None, cluster: s
     \b
     Example:
       linkfold extract
-      linkfold extract --reextract --summary json
+      linkfold extract --reextract --format json
     """
     settings = obj.settings.replace(executor=cluster) if cluster else obj.settings
     summary = extract_pages(obj.engine(), settings=settings, reextract=reextract, limit=limit,
                             progress=obj.progress())
-    _report(obj, summary, summary_format)
+    _report(obj, summary, fmt)
 
 
 def register(cli: click.Group) -> None:
     cli.add_command(fetch_command)
-    cli.add_command(import_pages_command)
+    cli.add_command(pages_group)
+    cli.add_command(deprecated_command(pages_load_command, "import-pages", "linkfold pages load"))
     cli.add_command(documents_group)
     cli.add_command(extract_command)

@@ -6,7 +6,7 @@ import click
 
 from .. import store
 from ..settings import describe_settings
-from ._common import Context, common_options, format_option, pass_ctx, write_jsonl, write_table
+from ._common import Context, common_options, format_option, pass_ctx, write_rows
 
 
 @click.group("db")
@@ -109,10 +109,7 @@ def settings_command(obj: Context, fmt: str) -> None:
         if row["name"] == "database_url":
             value = store.normalise_database_url(value)
         rows.append({**row, "value": value})
-    if fmt == "jsonl":
-        write_jsonl(rows)
-    else:
-        write_table(rows, ["name", "env", "value", "help"])
+    write_rows(fmt, rows, ["name", "env", "value", "help"])
 
 
 def register(cli: click.Group) -> None:

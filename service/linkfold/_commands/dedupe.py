@@ -26,7 +26,7 @@ from ._common import (
     report_summary,
     summary_option,
     to_json,
-    write_jsonl,
+    write_rows,
     write_table,
 )
 
@@ -42,7 +42,7 @@ def _table(rows: list[dict[str, Any]]) -> list[Mapping[str, Any]]:
 @summary_option
 @common_options
 @pass_ctx
-def dedupe_command(obj: Context, full: bool, summary_format: str) -> None:
+def dedupe_command(obj: Context, full: bool, fmt: str) -> None:
     """Sign, match, verify and cluster what is pending; hand out article and story IDs.
 
     New documents get MinHash signatures and LSH band keys; their candidate pairs come from the band-key
@@ -53,10 +53,10 @@ def dedupe_command(obj: Context, full: bool, summary_format: str) -> None:
     \b
     Example:
       linkfold dedupe
-      linkfold dedupe --full --summary json
+      linkfold dedupe --full --format json
     """
     summary = run_dedupe(obj.engine(), settings=obj.settings, full=full, progress=obj.progress())
-    report_summary(obj, summary, summary_format)
+    report_summary(obj, summary, fmt)
 
 
 @click.group("decide")
@@ -151,10 +151,11 @@ def decide_list(obj: Context, limit: int, fmt: str) -> None:
     """
     rows = list_decisions(obj.engine(), limit=limit)
     keep = ["id", "verdict", "level", "a_ref", "b_ref", "in_force", "decided_by", "decided_at", "note"]
-    if fmt == "jsonl":
-        write_jsonl({k: r[k] for k in [*keep, "a_url", "b_url", "a_cluster", "b_cluster"]} for r in rows)
-    else:
+    if fmt == "table":
         write_table(_table(rows), keep)
+    else:
+        full = [*keep, "a_url", "b_url", "a_cluster", "b_cluster"]
+        write_rows(fmt, ({k: r[k] for k in full} for r in rows), full)
 
 
 @click.group("clusters", invoke_without_command=True)
@@ -188,8 +189,9 @@ def clusters_group(ctx: click.Context, level: str, min_size: int, outlet: str | 
     obj: Context = ctx.ensure_object(Context)
     rows = [r.as_dict() for r in list_clusters(obj.engine(), level=level, min_size=min_size, outlet=outlet,
                                                limit=limit, settings=obj.settings)]
-    if fmt == "jsonl":
-        write_jsonl(rows)
+    if fmt != "table":
+        write_rows(fmt, rows, ["id", "level", "size", "outlets", "founder_url", "min_score", "max_score",
+                               "evidence", "sinks"])
         return
     for r in rows:
         r["scores"] = ("" if r["min_score"] is None else f"{r['min_score']:.3f}–{r['max_score']:.3f}")
@@ -208,7 +210,7 @@ def _two_columns(left: str, right: str, width: int) -> list[str]:
 
 @clusters_group.command("show")
 @click.argument("cluster_id")
-@format_option(("text", "json"), default="text")
+@format_option(("table", "json"), help="table: the cluster laid out for people; json: one JSON object.")
 @common_options
 @pass_ctx
 def clusters_show(obj: Context, cluster_id: str, fmt: str) -> None:

@@ -11,7 +11,7 @@ from ..errors import ConfigError
 from ..exposure import EXPOSURE_FORMATS, LEVELS, PERIODS, write_exposure
 from ..pseudonyms import Pseudonymiser, require_key, unit_text
 from ..store.pseudonym_keys import stored_fingerprint
-from ._common import Context, common_options, pass_ctx, to_json
+from ._common import Context, common_options, format_option, pass_ctx, to_json
 
 
 @click.command("exposure")
@@ -24,8 +24,7 @@ from ._common import Context, common_options, pass_ctx, to_json
               help="One row per period too (UTC; weeks start on Monday; named by their first day).")
 @click.option("--all-urls", is_flag=True,
               help="Count every sighting, not only those whose final URL is an article by the site rules.")
-@click.option("--format", "fmt", type=click.Choice(EXPOSURE_FORMATS), default="csv", show_default=True,
-              help="csv (with a header), jsonl, or parquet (needs --out).")
+@format_option(EXPOSURE_FORMATS, default="csv", help="csv (with a header), jsonl, or parquet (needs --out).")
 @click.option("--out", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE",
               help="File to write (default: stdout, for csv and jsonl).")
 @common_options

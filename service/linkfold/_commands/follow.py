@@ -1,4 +1,4 @@
-"""``linkfold follow`` and ``linkfold follow-report``."""
+"""``linkfold follow``, ``linkfold redirects load`` (old spelling ``follow --import``), ``follow-report``."""
 
 from __future__ import annotations
 
@@ -12,13 +12,15 @@ from ..dedupe.stage import list_sinks
 from ..follow import follow_links, follow_report, import_redirects
 from ..follow.imports import FORMATS
 from ._common import (
+    OUTPUT_FORMATS,
     Context,
     common_options,
     format_option,
     pass_ctx,
     report_summary,
     summary_option,
-    write_jsonl,
+    warn_deprecated,
+    write_rows,
     write_table,
 )
 
@@ -33,6 +35,20 @@ def _hosts(value: str | None) -> list[str] | None:
     if not hosts:
         raise click.BadParameter("give at least one host", param_hint="--hosts")
     return hosts
+
+
+def _given(name: str) -> bool:
+    ctx = click.get_current_context()
+    return ctx.get_parameter_source(name) not in (None, click.core.ParameterSource.DEFAULT)
+
+
+def _pair_options(*, hidden: bool = False) -> Any:
+    def decorate(func: Any) -> Any:
+        func = click.option("--expanded-column", default="expanded", show_default=True, metavar="NAME",
+                            hidden=hidden, help="Column (or JSON key) of the expanded URL.")(func)
+        return click.option("--short-column", default="short", show_default=True, metavar="NAME",
+                            hidden=hidden, help="Column (or JSON key) of the short URL.")(func)
+    return decorate
 
 
 @click.command("follow")
@@ -50,21 +66,14 @@ def _hosts(value: str | None) -> list[str] | None:
               help="Follow again the URLs that were refused (after changing allow_networks, or when a "
                    "site's robots.txt changed).")
 @click.option("--import", "import_file", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE",
-              help="Do not fetch: store the (short, expanded) pairs of FILE (CSV/TSV with a header, or "
-                   "JSON lines; .gz allowed) as redirect links.")
-@click.option("--format", "import_format", type=click.Choice(FORMATS), default=None,
-              help="Format of the --import file (default: from its name).")
-@click.option("--short-column", default="short", show_default=True, metavar="NAME",
-              help="Column (or JSON key) of the short URL in the --import file.")
-@click.option("--expanded-column", default="expanded", show_default=True, metavar="NAME",
-              help="Column (or JSON key) of the expanded URL in the --import file.")
-@summary_option
+              hidden=True, help="Deprecated: use linkfold redirects load FILE.")
+@_pair_options(hidden=True)
+@summary_option(also_accept=FORMATS)
 @common_options
 @pass_ctx
 def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_urls: bool, limit: int | None,
                    retry_failed: bool, retry_failed_now: bool, retry_refused: bool, import_file: Path | None,
-                   import_format: str | None, short_column: str, expanded_column: str,
-                   summary_format: str) -> None:
+                   short_column: str, expanded_column: str, fmt: str) -> None:
     """Resolve short links and redirect chains; store each hop as a redirect link.
 
     Takes the canonical URLs not yet followed whose host is a shortener (the ruleset's shortener_hosts,
@@ -82,24 +91,22 @@ def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_url
       linkfold follow --retry-failed
       LINKFOLD_CA_BUNDLE=/etc/lab/ca.pem linkfold follow --retry-failed-now
       LINKFOLD_ALLOW_NETWORKS=10.20.0.0/16 linkfold follow --retry-refused
-      linkfold follow --import expanded-links.csv --short-column link --expanded-column target
     """
     if import_file is not None:
         if dataset or hosts or all_urls or limit or retry_failed or retry_failed_now or retry_refused:
             raise click.UsageError("--import reads pairs from a file; it takes none of --dataset, --hosts, "
                                    "--all, --limit, --retry-failed, --retry-failed-now, --retry-refused")
-        summary = import_redirects(obj.engine(), import_file, fmt=import_format, short_column=short_column,
-                                   expanded_column=expanded_column, batch_size=obj.settings.batch_size,
-                                   progress=obj.progress())
-        for problem in summary.problems[:SHOWN_PROBLEMS]:
-            obj.problem(str(problem))
-        hidden = sum(summary.problem_counts.values()) - min(len(summary.problems), SHOWN_PROBLEMS)
-        if hidden > 0:
-            obj.problem(f"… and {hidden:,} more skipped lines (counted in the summary; run without -q to see it)")
-        report_summary(obj, summary, summary_format)
+        # The old spelling keeps its old meaning: beside --import, --format csv|tsv|jsonl was the file's.
+        import_format = fmt if fmt in FORMATS and _given("fmt") else None
+        warn_deprecated("linkfold redirects load --input-format" if import_format else "linkfold redirects load")
+        out = click.get_current_context().meta.get("linkfold.old_summary", "table") if import_format else fmt
+        _load_pairs(obj, import_file, import_format, short_column, expanded_column, out)
         return
-    if import_format is not None:
-        raise click.UsageError("--format applies to --import only")
+    if fmt not in OUTPUT_FORMATS:
+        raise click.UsageError(f"--format {fmt}: the format of a file of pairs goes to "
+                               "linkfold redirects load --input-format")
+    if _given("short_column") or _given("expanded_column"):
+        raise click.UsageError("--short-column and --expanded-column belong to linkfold redirects load")
     if all_urls and hosts:
         raise click.UsageError("give --all or --hosts, not both")
     if sum([retry_failed, retry_failed_now, retry_refused]) > 1:
@@ -107,7 +114,54 @@ def follow_command(obj: Context, dataset: str | None, hosts: str | None, all_url
     result = follow_links(obj.engine(), settings=obj.settings, dataset=dataset, hosts=_hosts(hosts),
                           all_urls=all_urls, limit=limit, retry_failed=retry_failed or retry_failed_now,
                           due_only=not retry_failed_now, retry_refused=retry_refused, progress=obj.progress())
-    report_summary(obj, result, summary_format)
+    report_summary(obj, result, fmt)
+
+
+def _load_pairs(obj: Context, file: Path, input_format: str | None, short_column: str, expanded_column: str,
+                fmt: str) -> None:
+    summary = import_redirects(obj.engine(), file, fmt=input_format, short_column=short_column,
+                               expanded_column=expanded_column, batch_size=obj.settings.batch_size,
+                               progress=obj.progress())
+    for problem in summary.problems[:SHOWN_PROBLEMS]:
+        obj.problem(str(problem))
+    hidden = sum(summary.problem_counts.values()) - min(len(summary.problems), SHOWN_PROBLEMS)
+    if hidden > 0:
+        obj.problem(f"… and {hidden:,} more skipped lines (counted in the summary; run without -q to see it)")
+    report_summary(obj, summary, fmt)
+
+
+@click.group("redirects")
+def redirects_group() -> None:
+    """Redirects: store (short, expanded) pairs resolved elsewhere as redirect links.
+
+    \b
+    Example:
+      linkfold redirects load expanded-links.csv --short-column link --expanded-column target
+    """
+
+
+@redirects_group.command("load")
+@click.argument("file", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--input-format", "input_format", type=click.Choice(FORMATS), default=None,
+              help="Format of FILE (default: from its name: .csv .tsv .jsonl, each optionally .gz).")
+@_pair_options()
+@summary_option
+@common_options
+@pass_ctx
+def redirects_load_command(obj: Context, file: Path, input_format: str | None, short_column: str,
+                           expanded_column: str, fmt: str) -> None:
+    """Store the (short, expanded) pairs of FILE as redirect links, without fetching anything.
+
+    FILE is CSV or TSV with a header, or JSON lines (.gz allowed). A bad line is reported as
+    FILE:LINE: reason: detail and skipped; loading the same file again adds nothing new. The stage these
+    runs are recorded under is ``follow_import`` (docs/following.md).
+
+    \b
+    Example:
+      linkfold redirects load expanded-links.csv --short-column link --expanded-column target
+      linkfold redirects load pairs.jsonl.gz --format json
+    """
+    _load_pairs(obj, file, input_format, short_column, expanded_column, fmt)
 
 
 #: Sinks shown under the outcome table; --sinks lists them all.
@@ -147,22 +201,16 @@ def follow_report_command(obj: Context, dataset: str | None, sinks_only: bool, f
     """
     sinks = list_sinks(obj.engine(), settings=obj.settings, dataset=dataset)
     if sinks_only:
-        if fmt == "jsonl":
-            write_jsonl(_sink_rows(sinks))
-        else:
-            write_table(_sink_rows(sinks), ["url", "sink", "fan_in", "sources", "top_source_host",
+        write_rows(fmt, _sink_rows(sinks), ["url", "sink", "fan_in", "sources", "top_source_host",
                                             "top_host_sources"])
         obj.message(f"{len(sinks):,} sink(s): their links are kept as evidence, never used to join")
         return
     report = follow_report(obj.engine(), dataset=dataset)
-    if fmt == "jsonl":
-        write_jsonl(report.rows())
-    else:
-        write_table(report.rows(), ["state", "failure", "reason", "urls"])
-        if sinks:
-            click.echo(f"\nsinks, largest fan-in first ({min(len(sinks), SHOWN_SINKS)} of {len(sinks):,}; "
-                       "--sinks lists all):")
-            write_table(_sink_rows(sinks[:SHOWN_SINKS]), ["url", "sink", "fan_in", "sources", "top_source_host"])
+    write_rows(fmt, report.rows(), ["state", "failure", "reason", "urls"])
+    if fmt == "table" and sinks:
+        click.echo(f"\nsinks, largest fan-in first ({min(len(sinks), SHOWN_SINKS)} of {len(sinks):,}; "
+                   "--sinks lists all):")
+        write_table(_sink_rows(sinks[:SHOWN_SINKS]), ["url", "sink", "fan_in", "sources", "top_source_host"])
     for line in report.lines():
         obj.message(line)
     if sinks:
@@ -173,3 +221,4 @@ def follow_report_command(obj: Context, dataset: str | None, sinks_only: bool, f
 def register(cli: click.Group) -> None:
     cli.add_command(follow_command)
     cli.add_command(follow_report_command)
+    cli.add_command(redirects_group)

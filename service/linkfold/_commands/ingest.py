@@ -1,9 +1,9 @@
-"""``linkfold ingest``, ``rejects``, ``lookup``, ``export`` and ``datasets``."""
+"""``linkfold datasets`` and ``datasets load`` (old spelling ``ingest``), ``rejects``, ``lookup``, ``export``."""
 
 from __future__ import annotations
 
 import sys
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from pathlib import Path
 
 import click
@@ -16,57 +16,49 @@ from ._common import (
     common_options,
     format_option,
     pass_ctx,
-    report_summary,
     summary_option,
+    warn_deprecated,
     write_jsonl,
-    write_table,
+    write_rows,
+    write_summary,
 )
 
 TABLE_LIMIT = 1000
+REJECT_FIELDS = ["file", "line_no", "position", "reason", "detail", "excerpt"]
 
 
-@click.command("ingest")
-@click.argument("files", nargs=-1, required=True, type=click.Path(dir_okay=False, path_type=Path))
-@click.option("--dataset", required=True, metavar="NAME", help="The dataset the files belong to.")
-@click.option("--format", "dump_format", type=click.Choice([f.value for f in DumpFormat]), default=None,
-              help="Dump format (default: from the file name: .csv .tsv .jsonl .ndjson .txt, each "
-                   "optionally .gz).")
-@click.option("--url-column", "url_columns", multiple=True, metavar="COLUMN",
-              help="Column holding the URLs (CSV/TSV: a header name; JSON lines: a dotted path such as "
-                   "links.*.url). Repeat for several. Default: a column named 'url'.")
-@click.option("--key-column", metavar="COLUMN", help="Column holding the row's own ID (default: the line "
-                                                     "number is the key).")
-@click.option("--time-column", metavar="COLUMN", help="Column holding the row's time: ISO 8601 or Unix "
-                                                      "epoch seconds/milliseconds; no zone means UTC.")
-@click.option("--unit-column", metavar="COLUMN",
-              help="Column (or JSON path) naming the person or account of the row; stored only as its "
-                   "keyed pseudonym (needs the setting pseudonym_key or pseudonym_key_file).")
-@click.option("--ruleset", "version", type=click.IntRange(min=1), metavar="VERSION",
-              help="Canonicalise under this stored ruleset version (default: the newest).")
-@click.option("--rules", "rules_file", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE",
-              help="Canonicalise under this rules file (stored as a new ruleset version if new).")
-@click.option("--description", metavar="TEXT", help="What the dataset is (stored with it).")
-@summary_option
-@common_options
-@pass_ctx
-def ingest_command(obj: Context, files: tuple[Path, ...], dataset: str, dump_format: str | None,
-                   url_columns: tuple[str, ...], key_column: str | None, time_column: str | None,
-                   unit_column: str | None, version: int | None, rules_file: Path | None, description: str | None,
-                   summary_format: str) -> None:
-    """Load URL dumps into a dataset: raw URLs, canonical URLs and one sighting per URL of each row.
+def _load_options(func: Callable) -> Callable:
+    """The options of loading a dump, shared by ``datasets load`` and its old spelling ``ingest``."""
+    for option in reversed((
+        click.argument("files", nargs=-1, required=True, type=click.Path(dir_okay=False, path_type=Path)),
+        click.option("--dataset", required=True, metavar="NAME", help="The dataset the files belong to."),
+        click.option("--url-column", "url_columns", multiple=True, metavar="COLUMN",
+                     help="Column holding the URLs (CSV/TSV: a header name; JSON lines: a dotted path such as "
+                          "links.*.url). Repeat for several. Default: a column named 'url'."),
+        click.option("--key-column", metavar="COLUMN", help="Column holding the row's own ID (default: the "
+                                                            "line number is the key)."),
+        click.option("--time-column", metavar="COLUMN", help="Column holding the row's time: ISO 8601 or "
+                                                             "Unix epoch seconds/milliseconds; no zone means UTC."),
+        click.option("--unit-column", metavar="COLUMN",
+                     help="Column (or JSON path) naming the person or account of the row; stored only as its "
+                          "keyed pseudonym (needs the setting pseudonym_key or pseudonym_key_file)."),
+        click.option("--ruleset", "version", type=click.IntRange(min=1), metavar="VERSION",
+                     help="Canonicalise under this stored ruleset version (default: the newest)."),
+        click.option("--rules", "rules_file", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE",
+                     help="Canonicalise under this rules file (stored as a new ruleset version if new)."),
+        click.option("--description", metavar="TEXT", help="What the dataset is (stored with it)."),
+    )):
+        func = option(func)
+    return func
 
-    Bad rows never stop a load: each becomes a reject with file, line and reason (see linkfold
-    rejects). Loading the same file into the same dataset again adds nothing; an interrupted load is
-    resumed by running the same command again. Only the URLs, the row key and the time are stored, and
-    with --unit-column the unit's keyed pseudonym (HMAC-SHA256 under the lab's pseudonym_key), never
-    the unit's own ID.
 
-    \b
-    Example:
-      linkfold ingest panel-week1.csv.gz --dataset panel-2031 --key-column visit_id --time-column visited
-      linkfold ingest posts.jsonl --dataset posts --url-column 'entities.links.*.url' --key-column id
-      LINKFOLD_PSEUDONYM_KEY_FILE=~/lab.key linkfold ingest panel.csv --dataset panel --unit-column person
-    """
+_INPUT_HELP = "Dump format (default: from the file name: .csv .tsv .jsonl .ndjson .txt, each optionally .gz)."
+
+
+def _load(obj: Context, files: tuple[Path, ...], dataset: str, dump_format: str | None,
+          url_columns: tuple[str, ...], key_column: str | None, time_column: str | None,
+          unit_column: str | None, version: int | None, rules_file: Path | None, description: str | None,
+          fmt: str) -> None:
     if version is not None and rules_file is not None:
         raise click.UsageError("give --ruleset VERSION or --rules FILE, not both")
     settings = obj.settings
@@ -78,7 +70,56 @@ def ingest_command(obj: Context, files: tuple[Path, ...], dataset: str, dump_for
         ruleset=version if version is not None else rules_file, description=description,
         batch_size=settings.ingest_batch_size, max_line_bytes=settings.max_line_bytes,
         cache_size=settings.canon_cache_size, progress=obj.progress())
-    report_summary(obj, summary, summary_format)
+    write_summary(obj, fmt, summary.as_dict(), summary.lines())
+
+
+@click.command("load")
+@_load_options
+@click.option("--input-format", "dump_format", type=click.Choice([f.value for f in DumpFormat]), default=None,
+              help=_INPUT_HELP)
+@summary_option
+@common_options
+@pass_ctx
+def datasets_load_command(obj: Context, files: tuple[Path, ...], dataset: str, dump_format: str | None,
+                          url_columns: tuple[str, ...], key_column: str | None, time_column: str | None,
+                          unit_column: str | None, version: int | None, rules_file: Path | None,
+                          description: str | None, fmt: str) -> None:
+    """Load URL dumps into a dataset: raw URLs, canonical URLs and one sighting per URL of each row.
+
+    Bad rows never stop a load: each becomes a reject with file, line and reason (see linkfold
+    rejects). Loading the same file into the same dataset again adds nothing; an interrupted load is
+    resumed by running the same command again. Only the URLs, the row key and the time are stored, and
+    with --unit-column the unit's keyed pseudonym (HMAC-SHA256 under the lab's pseudonym_key), never
+    the unit's own ID. The stage these runs are recorded under is ``ingest``.
+
+    \b
+    Example:
+      linkfold datasets load panel-week1.csv.gz --dataset panel-2031 --key-column visit_id --time-column visited
+      linkfold datasets load posts.jsonl --dataset posts --url-column 'entities.links.*.url' --key-column id
+      LINKFOLD_PSEUDONYM_KEY_FILE=~/lab.key linkfold datasets load panel.csv --dataset panel --unit-column person
+    """
+    _load(obj, files, dataset, dump_format, url_columns, key_column, time_column, unit_column, version,
+          rules_file, description, fmt)
+
+
+@click.command("ingest", hidden=True)
+@_load_options
+@click.option("--format", "dump_format", type=click.Choice([f.value for f in DumpFormat]), default=None,
+              help=_INPUT_HELP)
+@click.option("--summary", "summary_format", type=click.Choice(["text", "json"]), default="text",
+              show_default=True, help="text: the summary on stderr; json: one JSON object on stdout.")
+@common_options
+@pass_ctx
+def ingest_command(obj: Context, files: tuple[Path, ...], dataset: str, dump_format: str | None,
+                   url_columns: tuple[str, ...], key_column: str | None, time_column: str | None,
+                   unit_column: str | None, version: int | None, rules_file: Path | None, description: str | None,
+                   summary_format: str) -> None:
+    """Deprecated: use `linkfold datasets load` (input format: --input-format; the summary: --format)."""
+    # The old spelling keeps its old meanings: --format was the INPUT format here.
+    warn_deprecated("linkfold datasets load --input-format" if dump_format is not None
+                    else "linkfold datasets load")
+    _load(obj, files, dataset, dump_format, url_columns, key_column, time_column, unit_column, version,
+          rules_file, description, "json" if summary_format == "json" else "table")
 
 
 @click.command("rejects")
@@ -96,21 +137,16 @@ def rejects_command(obj: Context, dataset: str, reason: str | None, limit: int |
     Example:
       linkfold rejects --dataset panel-2031 --reason bad_time --limit 20
     """
-    if fmt == "table" and limit is None:
+    if fmt in ("table", "json") and limit is None:
         limit = TABLE_LIMIT  # a table is built in memory to align it; JSON lines stream any number
     with obj.engine().connect() as conn:
         ds = get_dataset(conn, dataset)
         rows = iter_rejects(conn, ds["id"], reason=reason, limit=limit)
-        if fmt == "jsonl":
-            n = write_jsonl(rows)
-        else:
-            listed = list(rows)
-            write_table(listed, ["file", "line", "position", "reason", "detail", "excerpt"])
-            n = len(listed)
+        n = write_rows(fmt, rows, REJECT_FIELDS)
         totals = reject_totals(conn, ds["id"])
     by_reason = ", ".join(f"{k} {v:,}" for k, v in totals.items()) or "none"
     obj.message(f"{n:,} rejects listed; dataset {dataset!r} holds {sum(totals.values()):,} ({by_reason})")
-    if fmt == "table" and n == limit:
+    if fmt in ("table", "json") and n == limit:
         obj.message(f"(at most {limit:,} shown: give --limit N, or --format jsonl for all of them)")
 
 
@@ -146,8 +182,7 @@ def lookup_command(obj: Context, items: tuple[str, ...]) -> None:
 
 @click.command("export")
 @click.option("--dataset", required=True, metavar="NAME", help="The dataset to export.")
-@click.option("--format", "fmt", type=click.Choice(EXPORT_FORMATS), default="csv", show_default=True,
-              help="csv (with a header), jsonl, or parquet (needs --out).")
+@format_option(EXPORT_FORMATS, default="csv", help="csv (with a header), jsonl, or parquet (needs --out).")
 @click.option("--out", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE",
               help="File to write (default: stdout, for csv and jsonl).")
 @common_options
@@ -169,29 +204,33 @@ def export_command(obj: Context, dataset: str, fmt: str, out: Path | None) -> No
         obj.message(line)
 
 
-@click.command("datasets")
+@click.group("datasets", invoke_without_command=True)
 @format_option()
 @common_options
 @pass_ctx
-def datasets_command(obj: Context, fmt: str) -> None:
-    """List the datasets with their files, rows, sightings and rejects.
+@click.pass_context
+def datasets_group(ctx: click.Context, obj: Context, fmt: str) -> None:
+    """List the datasets with their files, rows, sightings and rejects; `datasets load` brings one in.
 
     \b
     Example:
       linkfold datasets --format jsonl
+      linkfold datasets load panel-week1.csv.gz --dataset panel-2031
     """
+    if ctx.invoked_subcommand is not None:
+        return
     with obj.engine().connect() as conn:
         rows = list_datasets(conn)
-    if fmt == "jsonl":
-        write_jsonl(rows)
+    if not rows and fmt == "table":
+        obj.message("no datasets yet: load one with linkfold datasets load FILE --dataset NAME")
         return
-    if not rows:
-        obj.message("no datasets yet: load one with linkfold ingest FILE --dataset NAME")
-        return
-    write_table(rows, ["dataset", "files", "rows", "sightings", "rejects", "files_loading", "ruleset",
-                       "last_loaded_at", "description"])
+    write_rows(fmt, rows, ["dataset", "files", "rows", "sightings", "rejects", "files_loading", "ruleset",
+                           "last_loaded_at", "description"])
+
+
+datasets_group.add_command(datasets_load_command)
 
 
 def register(cli: click.Group) -> None:
-    for command in (ingest_command, rejects_command, lookup_command, export_command, datasets_command):
+    for command in (ingest_command, rejects_command, lookup_command, export_command, datasets_group):
         cli.add_command(command)

@@ -7,7 +7,7 @@ from pathlib import Path
 import click
 
 from ..network import DEFAULT_MIN_UNITS, NETWORK_FORMATS, write_network
-from ._common import Context, common_options, pass_ctx
+from ._common import Context, common_options, format_option, pass_ctx
 
 
 @click.command("network")
@@ -18,8 +18,8 @@ from ._common import Context, common_options, pass_ctx
                    "small groups (docs/network.md).")
 @click.option("--all-urls", is_flag=True,
               help="Count every sighting, not only those whose final URL is an article by the site rules.")
-@click.option("--format", "fmt", type=click.Choice(NETWORK_FORMATS), default="csv", show_default=True,
-              help="csv (edges, with a header), jsonl (edges), or graphml (nodes and edges).")
+@format_option(NETWORK_FORMATS, default="csv",
+               help="csv (edges, with a header), jsonl (edges), or graphml (nodes and edges).")
 @click.option("--out", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE",
               help="File to write (default: stdout).")
 @click.option("--nodes", "nodes_out", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE",

@@ -23,14 +23,9 @@ from ..outlets import (
 )
 from ..outlets.listfile import MAX_PROBLEMS
 from ..outlets.report import DEFAULT_SHAPES, REPORT_COLUMNS
-from ._common import Context, common_options, pass_ctx, write_jsonl, write_table
+from ._common import Context, common_options, format_option, pass_ctx, write_rows, write_table
 
-FORMATS = ("table", "jsonl", "csv")
-
-
-def _format_option(func: Any) -> Any:
-    return click.option("--format", "fmt", type=click.Choice(FORMATS), default="table", show_default=True,
-                        help="A table for people, JSON lines or CSV (RFC 4180, with a header) for scripts.")(func)
+_format_option = format_option()
 
 
 def _dataset_option(func: Any) -> Any:
@@ -79,8 +74,8 @@ def outlets_group(ctx: click.Context, obj: Context, datasets: tuple[str, ...], l
     with obj.engine().connect() as conn:
         table = outlet_table(conn, datasets=list(datasets) or None, listed_only=listed_only,
                              progress=obj.progress())
-    if fmt == "jsonl":
-        write_jsonl(table.rows)
+    if fmt in ("json", "jsonl"):
+        write_rows(fmt, table.rows, table.columns)
     elif fmt == "csv":
         _write_csv(table.rows, table.columns)
     elif table.rows:
@@ -172,8 +167,8 @@ def outlets_report(obj: Context, datasets: tuple[str, ...], outlets: tuple[str, 
         report = outlet_report(conn, datasets=list(datasets) or None, outlets=list(outlets) or None, shapes=shapes,
                                progress=obj.progress())
     rows = report.rows
-    if fmt == "jsonl":
-        write_jsonl(rows)
+    if fmt in ("json", "jsonl"):
+        write_rows(fmt, rows, REPORT_COLUMNS)
     elif fmt == "csv":
         _write_csv(rows, [*REPORT_COLUMNS, "shapes"])
     elif rows:
@@ -196,8 +191,7 @@ def outlets_report(obj: Context, datasets: tuple[str, ...], outlets: tuple[str, 
 
 
 @outlets_group.command("versions")
-@click.option("--format", "fmt", type=click.Choice(("table", "jsonl")), default="table", show_default=True,
-              help="A table for people, JSON lines for scripts.")
+@format_option()
 @common_options
 @pass_ctx
 def outlets_versions(obj: Context, fmt: str) -> None:
@@ -209,8 +203,8 @@ def outlets_versions(obj: Context, fmt: str) -> None:
     """
     with obj.engine().connect() as conn:
         rows = list_outlet_lists(conn)
-    if fmt == "jsonl":
-        write_jsonl(rows)
+    if fmt != "table":
+        write_rows(fmt, rows, ["version", "name", "entries", "outlets", "columns", "in_force", "created_at"])
     elif rows:
         write_table([{**r, "columns": ",".join(r["columns"])} for r in rows],
                     ["version", "name", "entries", "outlets", "columns", "in_force", "created_at"])

@@ -31,18 +31,20 @@ class LookupCluster(_Open):
     id: str
     level: str
     size: int = Field(description="Members in all (the list holds at most 1,000)")
-    founder: str | None = Field(default=None, description="The URL the ID was minted from")
+    founder_url: str | None = Field(default=None, description="The URL the ID was minted from")
     title: str | None = Field(default=None, description="The founder's title, else the first member's")
     outlets: list[str] = Field(description="The members' final outlets (where each leads), sorted")
     members: list[LookupClusterMember]
     members_truncated: bool
+    founder: str | None = Field(default=None, description="Deprecated: the old name of founder_url (goes in "
+                                                           "the next release)")
 
 
 class LookupAnswer(_Open):
     """What the registry knows about one URL, url key or ID (the fields of ``linkfold lookup``)."""
 
     input: str
-    canonical: str | None = None
+    canonical_url: str | None = None
     url_key: str | None = None
     domain: str | None = None
     outlet: str | None = None
@@ -52,7 +54,12 @@ class LookupAnswer(_Open):
     matched_by: str | None = None
     article_id: str | None = None
     story_id: str | None = None
-    error: str | None = None
+    reason: str | None = Field(default=None, description="Why the input has no canonical URL: the "
+                                                         "canonicaliser's reason code, or unknown_id")
+    canonical: str | None = Field(default=None, description="Deprecated: the old name of canonical_url "
+                                                            "(goes in the next release)")
+    error: str | None = Field(default=None, description="Deprecated: the old name of reason (goes in the next "
+                                                        "release)")
     id_history: list[dict[str, Any]] | None = Field(
         default=None, description="For an ID given as input: the events from it to the live ID")
     final_url: str | None = Field(
@@ -101,7 +108,8 @@ class DatasetSummary(_Open):
 class DatasetFile(_Open):
     file_name: str
     format: str
-    status: str
+    state: str = Field(description="loading | complete")
+    status: str = Field(description="Deprecated: the old name of state (goes in the next release)")
     size_bytes: int
     rows: int
     sightings: int
@@ -122,12 +130,15 @@ class DatasetList(BaseModel):
 class Run(_Open):
     id: int
     stage: str
-    status: str
+    state: str = Field(description="running | ok | failed | interrupted")
+    status: str = Field(description="Deprecated: the old name of state (goes in the next release)")
     parent_id: int | None = None
     started_at: datetime
     finished_at: datetime | None = None
     counts: dict[str, Any] | None = None
-    error: str | None = None
+    detail: str | None = Field(default=None, description="Why the run failed, for people")
+    error: str | None = Field(default=None, description="Deprecated: the old name of detail (goes in the next "
+                                                        "release)")
     host: str | None = None
     pid: int | None = None
     seconds: float | None = None

@@ -152,7 +152,7 @@ def datasets(request: Request, _access: ReadAccess) -> dict[str, Any]:
         return {"datasets": list_datasets(conn)}
 
 
-_FILE_FIELDS = ("file_name", "format", "status", "size_bytes", "rows", "sightings", "rejects", "started_at",
+_FILE_FIELDS = ("file_name", "format", "state", "size_bytes", "rows", "sightings", "rejects", "started_at",
                 "loaded_at")
 
 
@@ -164,7 +164,8 @@ def dataset(request: Request, _access: ReadAccess,
     with api_state(request).engine.connect() as conn:
         ds = get_dataset(conn, name)
         summary = next(row for row in list_datasets(conn) if row["dataset"] == ds["name"])
-        files = [{k: utc(f[k]) if k.endswith("_at") else f[k] for k in _FILE_FIELDS}
+        # status: the old name of state, still given for one release (docs/vocabulary.md).
+        files = [{k: utc(f[k]) if k.endswith("_at") else f[k] for k in _FILE_FIELDS} | {"status": f["state"]}
                  for f in dataset_files(conn, ds["id"])]
         return {**summary, "files_detail": files, "rejects_by_reason": reject_totals(conn, ds["id"])}
 

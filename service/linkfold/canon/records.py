@@ -13,25 +13,28 @@ from typing import Any
 from ..errors import InvalidURL
 from .core import Canonical
 
-FIELDS = ("input", "canonical", "url_key", "host", "domain", "outlet", "is_article", "ruleset", "error",
-          "detail")
+# ``canonical`` and ``error`` are the old names of ``canonical_url`` and ``reason`` (the names lookup, export
+# and the view use), still given, last, for one release (docs/vocabulary.md).
+FIELDS = ("input", "canonical_url", "url_key", "host", "domain", "outlet", "is_article", "ruleset", "reason",
+          "detail", "canonical", "error")
 
 
 def record(raw: str, canon: Callable[[str], Canonical], *, explain: bool = False) -> dict[str, Any]:
-    """The record of one raw URL: its canonical form, or ``error`` (a reason code) and ``detail``."""
+    """The record of one raw URL: its canonical form, or ``reason`` (a reason code) and ``detail``."""
     try:
         c = canon(raw)
     except InvalidURL as exc:
         out: dict[str, Any] = dict.fromkeys(FIELDS)
         # Broken Unicode (lone surrogates) cannot be written out as UTF-8: show it escaped instead.
         out["input"] = raw.encode("utf-8", "backslashreplace").decode("utf-8") if isinstance(raw, str) else raw
-        out["error"] = exc.reason
+        out["reason"] = out["error"] = exc.reason
         out["detail"] = exc.detail
         if explain:
             out["steps"] = []
         return out
-    out = {"input": raw, "canonical": c.url, "url_key": c.url_key, "host": c.host, "domain": c.domain,
-           "outlet": c.outlet, "is_article": c.is_article, "ruleset": c.ruleset, "error": None, "detail": None}
+    out = {"input": raw, "canonical_url": c.url, "url_key": c.url_key, "host": c.host, "domain": c.domain,
+           "outlet": c.outlet, "is_article": c.is_article, "ruleset": c.ruleset, "reason": None, "detail": None,
+           "canonical": c.url, "error": None}
     if explain:
         out["steps"] = list(c.steps)
     return out
@@ -48,11 +51,11 @@ class Tally:
 
     def add(self, rec: dict[str, Any]) -> None:
         self.lines += 1
-        if rec["error"] is None:
+        if rec["reason"] is None:
             self.canonical += 1
             self.distinct.add(rec["url_key"])
         else:
-            self.refused[rec["error"]] += 1
+            self.refused[rec["reason"]] += 1
 
     def summary(self) -> str:
         refused = sum(self.refused.values())

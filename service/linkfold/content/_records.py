@@ -73,8 +73,8 @@ def document_row(doc: Document, *, canonical_id: int, page_id: int | None, sourc
             "text_hash": digest, "word_count": doc.word_count, "author": author,
             "published": doc.published, "published_source": doc.published_source, "language": doc.language,
             "declared_canonical": doc.declared_canonical, "og_url": doc.og_url, "amp_url": doc.amp_url,
-            "status": doc.status.value,
-            "unusable_reason": doc.unusable_reason.value if doc.unusable_reason else None,
+            "state": doc.status.value,
+            "reason": doc.unusable_reason.value if doc.unusable_reason else None,
             "extractor_version": doc.extractor_version, "source": source, "record_sha256": record_sha256,
             "created_at": at, "run_id": run_id}
 

@@ -134,7 +134,7 @@ def import_pages(engine: Engine, paths: Iterable[str | Path], *, settings: Setti
     with engine.begin() as conn:
         ruleset_id, rules = latest_ruleset(conn)
     canon = Canonicaliser(rules, cache_size=settings.canon_cache_size if settings is not None else 65536)
-    progress.start("import-pages")
+    progress.start("pages load")
     with recording_run(engine, STAGE, parent_id=parent_run) as run:
         summary.run_id = run.id
         writer = _PageWriter(engine, canon, ruleset_id=ruleset_id, run_id=run.id, summary=summary)

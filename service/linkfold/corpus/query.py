@@ -97,7 +97,7 @@ def corpus_select(dialect: str, *, dataset_ids: Sequence[int], level: str = "sto
     m, c, d = t.cluster_members.alias("m"), t.canonical_urls.alias("mc"), t.documents
     # The current document of a URL: its newest usable one (docs/content.md).
     current = (sa.select(d.c.canonical_id, sa.func.max(d.c.id).label("document_id"))
-               .where(d.c.status == "usable").group_by(d.c.canonical_id).subquery("cur"))
+               .where(d.c.state == "usable").group_by(d.c.canonical_id).subquery("cur"))
     cd = t.documents.alias("cd")
     filters: list[sa.ColumnElement[bool]] = [m.c.level == level]
     if language:
@@ -151,7 +151,7 @@ def representatives(conn: Any, level: str, cluster_ids: Sequence[str]) -> dict[s
         return {}
     m, c, d = t.cluster_members, t.canonical_urls, t.documents
     current = (sa.select(d.c.canonical_id, sa.func.max(d.c.id).label("document_id"))
-               .where(d.c.status == "usable").group_by(d.c.canonical_id).subquery("cur"))
+               .where(d.c.state == "usable").group_by(d.c.canonical_id).subquery("cur"))
     best: dict[str, tuple[Any, ...]] = {}
     out: dict[str, dict[str, Any]] = {}
     for i in range(0, len(wanted), 500):

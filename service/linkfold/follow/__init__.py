@@ -2,7 +2,7 @@
 
 * :func:`follow_links` — the ``linkfold follow`` stage: follow pending canonical URLs, store each
   redirect hop as a ``redirect`` link and each URL's outcome (resolved / failed / refused).
-* :func:`import_redirects` — ``linkfold follow --import``: (short, expanded) pairs from a file.
+* :func:`import_redirects` — ``linkfold redirects load``: (short, expanded) pairs from a file.
 * :func:`follow_report` — ``linkfold follow-report``: outcomes of the links a dataset holds, dead share.
 
 The requests themselves — request-forgery guard, caps, per-host politeness, robots.txt, retries and the

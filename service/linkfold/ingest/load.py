@@ -217,7 +217,7 @@ def ingest_dump(engine: Engine, paths: Sequence[str | Path], *, dataset: str,
             for plan in plans:
                 with conn.begin():
                     stored = find_file(conn, dataset_id, plan.facts.sha256)
-                    if stored is not None and stored["status"] == "complete":
+                    if stored is not None and stored["state"] == "complete":
                         log.info("%s is already loaded into %s; skipping it", plan.name, name)
                         summary.files.append(FileSummary(
                             plan.name, plan.facts.sha256, FileOutcome.ALREADY_LOADED,

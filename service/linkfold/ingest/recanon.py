@@ -1,6 +1,6 @@
 """The re-canonicalisation stage: bring every raw URL under the newest stored ruleset.
 
-When a lab stores a new ruleset (``linkfold rules add``), raw URLs canonicalised under older versions are
+When a lab stores a new ruleset (``linkfold rules load``), raw URLs canonicalised under older versions are
 pending here. Each is canonicalised again; a new canonical URL gets a row of its own (canonical rows are
 never changed or deleted), the raw URL's pointer moves to it, and the move is written to ``canon_changes``
 (old → new, ruleset, run) so any earlier canonical URL can be traced forward.

@@ -1,7 +1,7 @@
 """Reading input files: one opener, one set of readers, one time parser, one style of problem.
 
 Every command that brings data in reads its files through this package: ``ingest`` (dumps),
-``follow --import`` (redirect pairs), ``import-pages`` (the page manifest and page JSON lines) and
+``redirects load`` (redirect pairs), ``pages load`` (the page manifest and page JSON lines) and
 ``documents load``. What that buys a lab is one set of rules, documented once in docs/ingest.md:
 
 * :func:`open_input` / :func:`inspect_file` — gzip recognised by its magic number (RFC 1952) and

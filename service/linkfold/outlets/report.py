@@ -79,7 +79,7 @@ def outlet_report(conn: Connection, *, datasets: Sequence[str] | None = None, sh
     pu = by_url.subquery("pu")
     pg, doc = t.pages, t.documents
     has_page = sa.exists().where(sa.or_(pg.c.canonical_id == pu.c.uid, pg.c.final_canonical_id == pu.c.uid))
-    has_text = sa.exists().where(doc.c.canonical_id == pu.c.uid, doc.c.status == "usable")
+    has_text = sa.exists().where(doc.c.canonical_id == pu.c.uid, doc.c.state == "usable")
     one = sa.literal(1)
     q = (sa.select(pu.c.outlet, sa.func.sum(pu.c.n).label("sightings"),
                    sa.func.sum(sa.case((pu.c.is_article.is_(True), pu.c.n), else_=0)).label("articles"),

@@ -65,7 +65,7 @@ def current_documents(conn: Connection, canonical_ids: Sequence[int]) -> dict[in
     out: dict[int, Any] = {}
     for part in chunks(sorted(set(canonical_ids))):
         q = (sa.select(d.c.id, d.c.canonical_id, d.c.title, d.c.text, d.c.word_count, d.c.published)
-             .where(d.c.canonical_id.in_(part), d.c.status == "usable").order_by(d.c.id))
+             .where(d.c.canonical_id.in_(part), d.c.state == "usable").order_by(d.c.id))
         for r in conn.execute(q):
             out[int(r.canonical_id)] = r   # ascending ids: the newest usable document wins
     return out

@@ -283,7 +283,7 @@ def cluster_summaries(conn: Connection, ids: Iterable[str], *,
             sa.select(c.c.id, c.c.url, c.c.url_key, c.c.outlet).where(c.c.id.in_(part))))
         # Ascending ids: the newest usable document of a URL wins, as everywhere else.
         for cid, title in conn.execute(sa.select(d.c.canonical_id, d.c.title).where(
-                d.c.canonical_id.in_(part), d.c.status == "usable", d.c.title.is_not(None)).order_by(d.c.id)):
+                d.c.canonical_id.in_(part), d.c.state == "usable", d.c.title.is_not(None)).order_by(d.c.id)):
             titles[int(cid)] = title
     final = finals_of(conn, [m for m, _ in pairs])
     by_id: dict[str, list[int]] = {i: [] for i in wanted}
@@ -301,11 +301,13 @@ def cluster_summaries(conn: Connection, ids: Iterable[str], *,
         if founder_url is None:  # a founder moved out by a decision: its URL still names the cluster's origin
             founder_url = conn.execute(sa.select(c.c.url).where(c.c.id == founder)).scalar()
         out[cid] = {
-            "id": cid, "level": row["level"], "size": len(ordered), "founder": founder_url, "title": title,
+            # founder: the old name of founder_url (as the cluster listing says), kept for one release.
+            "id": cid, "level": row["level"], "size": len(ordered), "founder_url": founder_url, "title": title,
             "outlets": sorted({final[m]["final_outlet"] for m in ordered if final[m]["final_outlet"]}),
             "members": [{"url": urls[m].url, "url_key": urls[m].url_key, "outlet": urls[m].outlet,
                          "final_url": final[m]["final_url"], "final_outlet": final[m]["final_outlet"],
                          "founder": m == founder} for m in ordered[:max_members]],
             "members_truncated": len(ordered) > max_members,
+            "founder": founder_url,
         }
     return out

@@ -63,7 +63,7 @@ def create_file(conn: Connection, *, dataset_id: int, file_name: str, sha256: st
         with conn.begin_nested():
             conn.execute(sa.insert(t.dataset_files).values(
                 dataset_id=dataset_id, file_name=file_name, sha256=sha256, size_bytes=size_bytes,
-                format=fmt, options=options, status="loading", ruleset_id=ruleset_id, run_id=run_id,
+                format=fmt, options=options, state="loading", ruleset_id=ruleset_id, run_id=run_id,
                 rows=0, sightings=0, rejects=0, lines_done=0, started_at=now()))
     except sa.exc.IntegrityError:
         pass
@@ -79,13 +79,13 @@ def claim_file(conn: Connection, file_id: int, run_id: int | None) -> None:
 
 def complete_file(conn: Connection, file_id: int, *, lines_done: int) -> None:
     conn.execute(sa.update(t.dataset_files).where(t.dataset_files.c.id == file_id).values(
-        status="complete", loaded_at=now(), lines_done=lines_done))
+        state="complete", loaded_at=now(), lines_done=lines_done))
 
 
 def count_unfinished_files(conn: Connection) -> int:
     """Dataset files whose load has not completed (interrupted, or running now): a new load resumes them."""
     f = t.dataset_files
-    return int(conn.execute(sa.select(sa.func.count()).select_from(f).where(f.c.status != "complete")).scalar_one())
+    return int(conn.execute(sa.select(sa.func.count()).select_from(f).where(f.c.state != "complete")).scalar_one())
 
 
 def file_reject_counts(conn: Connection, file_id: int) -> dict[str, int]:
@@ -100,7 +100,7 @@ def list_datasets(conn: Connection) -> list[dict[str, Any]]:
     f = t.dataset_files
     files = (sa.select(f.c.dataset_id,
                        sa.func.count().label("files"),
-                       sa.func.sum(sa.case((f.c.status == "complete", 0), else_=1)).label("files_loading"),
+                       sa.func.sum(sa.case((f.c.state == "complete", 0), else_=1)).label("files_loading"),
                        sa.func.sum(f.c.rows).label("rows"),
                        sa.func.sum(f.c.sightings).label("sightings"),
                        sa.func.sum(f.c.rejects).label("rejects"),
@@ -148,9 +148,11 @@ def iter_rejects(conn: Connection, dataset_id: int, *, reason: str | None = None
     if limit is not None:
         q = q.limit(limit)
     for row in conn.execute(q.execution_options(yield_per=2000)).mappings():
-        yield {"file": row["file_name"], "line": int(row["line_no"]), "position": int(row["position"]),
+        # ``line`` is the old name of ``line_no`` (as export and the view call it), kept for one release.
+        yield {"file": row["file_name"], "line_no": int(row["line_no"]), "position": int(row["position"]),
                "reason": row["reason"], "detail": row["detail"],
-               "excerpt": row["excerpt"] if row["excerpt"] is not None else row["raw_url"]}
+               "excerpt": row["excerpt"] if row["excerpt"] is not None else row["raw_url"],
+               "line": int(row["line_no"])}
 
 
 def reject_totals(conn: Connection, dataset_id: int) -> dict[str, int]:

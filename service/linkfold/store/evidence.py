@@ -61,7 +61,7 @@ def register_urls(conn: Connection, urls: Iterable[tuple[str, Canonical]], *, ru
         ids.update({k: int(i) for i, k in conn.execute(sa.select(c.c.id, c.c.url_key).where(c.c.url_key.in_(part)))})
     hashes = {raw: raw_hash(raw) for raw in pairs}
     raw_rows = [{"raw_hash": hashes[raw], "raw": raw, "canonical_id": ids[canon.url_key], "ruleset_id": ruleset_id,
-                 "error": None, "created_at": stamp} for raw, canon in pairs.items()]
+                 "reason": None, "created_at": stamp} for raw, canon in pairs.items()]
     insert_new_rows(conn, t.raw_urls, raw_rows, ["raw_hash"])
     raw_ids = ids_by_hash(conn, hashes.values())
     return {raw: UrlIds(ids[canon.url_key], raw_ids[hashes[raw]]) for raw, canon in pairs.items()}

@@ -241,7 +241,7 @@ def _register_statements(conn: Connection, ruleset_id: int | None, stamp: Any) -
     # The new raw URLs say their ids as they are inserted; only those already stored (by an earlier
     # load, or a concurrent one) need the join afterwards.
     raw_insert = _insert(conn, r).from_select(
-        ["raw_hash", "raw", "canonical_id", "ruleset_id", "error", "created_at"],
+        ["raw_hash", "raw", "canonical_id", "ruleset_id", "reason", "created_at"],
         sa.select(w.c.raw_hash, w.c.raw, c.c.id, rs, w.c.raw_error, stamp)
         .select_from(w.outerjoin(c, c.c.url_key == w.c.url_key))
         .where(w.c.raw_hash.is_not(None)).order_by(w.c.raw_hash),

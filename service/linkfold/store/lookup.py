@@ -4,7 +4,7 @@ Other projects script against this answer; its fields and their meaning are a pr
 
 =============  ======================================================================================
 input          the input as given
-canonical      the canonical URL (null when the input is neither a known key nor a URL we can parse)
+canonical_url  the canonical URL (null when the input is neither a known key nor a URL we can parse)
 url_key        its url key
 domain         registered domain of the canonical URL
 outlet         outlet (a lab-defined group of domains, or the domain)
@@ -23,17 +23,20 @@ final_is_article  whether the final URL is an article by the site rules (null wh
 article_id     the article ID, once the dedupe stage assigns them (null until then); for an ID given as
                input, the live ID it stands for today
 story_id       the story ID, likewise
-error          null, or the canonicaliser's reason code when the input cannot be canonicalised
+reason         null, or the canonicaliser's reason code when the input cannot be canonicalised
                (``unknown_id`` for an input shaped like an article or story ID that was never issued)
 id_history     for an ID given as input (``matched_by`` ``article_id`` / ``story_id``): the events from
                that ID to the live one (minted, merged_into, split_from, founder_moved, with run and reason); else null
 cluster        for an ID given as input: the live cluster it stands for — ``id``, ``level``, ``size``,
-               ``founder`` (URL), ``title``, ``outlets`` (final outlets), ``members`` (``url``, ``url_key``,
+               ``founder_url``, ``title``, ``outlets`` (final outlets), ``members`` (``url``, ``url_key``,
                ``outlet``, ``final_url``, ``final_outlet``, ``founder``; at most 1,000, founder first) and
                ``members_truncated``; else null
 =============  ======================================================================================
 
-For an ID given as input, ``canonical``, ``url_key``, ``domain`` and ``outlet`` stay null (an ID is not
+``canonical`` and ``error``, the old names of ``canonical_url`` and ``reason``, are still given (last)
+for one release: :data:`OLD_FIELDS` (docs/vocabulary.md).
+
+For an ID given as input, ``canonical_url``, ``url_key``, ``domain`` and ``outlet`` stay null (an ID is not
 one URL): what the ID stands for is in ``cluster``.
 
 :func:`locate` finds one reference the same way for the commands that act on what it names (a decision,
@@ -62,8 +65,10 @@ from .text import raw_hash, storable
 # RFC 4648 §6 base32 alphabet in lower case, 24 characters: the shape of every url key (canon.keys).
 URL_KEY_RE = re.compile(r"[a-z2-7]{24}")
 _CHUNK = 500  # inputs per round, and ids per IN (…) list: under SQLite's default of 999 parameters
-LOOKUP_FIELDS = ("input", "canonical", "url_key", "domain", "outlet", "seen", "sightings", "datasets",
-                 "matched_by", "article_id", "story_id", "error", "id_history", *FINAL_COLUMNS, "cluster")
+LOOKUP_FIELDS = ("input", "canonical_url", "url_key", "domain", "outlet", "seen", "sightings", "datasets",
+                 "matched_by", "article_id", "story_id", "reason", "id_history", *FINAL_COLUMNS, "cluster")
+#: Old field name -> its new name; each answer still carries the old one too, for one release.
+OLD_FIELDS = {"canonical": "canonical_url", "error": "reason"}
 
 
 def is_url_key(text: str) -> bool:
@@ -92,11 +97,18 @@ def lookup(engine: Engine, items: Iterable[str], *, rules: Ruleset | None = None
         for item in items:
             chunk.append(item)
             if len(chunk) >= _CHUNK:
-                yield from _lookup_chunk(conn, canon, chunk)
+                yield from _with_old_names(_lookup_chunk(conn, canon, chunk))
                 conn.rollback()  # no long-lived snapshot while the caller reads slowly
                 chunk = []
         if chunk:
-            yield from _lookup_chunk(conn, canon, chunk)
+            yield from _with_old_names(_lookup_chunk(conn, canon, chunk))
+
+
+def _with_old_names(answers: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    for answer in answers:
+        for old, new in OLD_FIELDS.items():
+            answer[old] = answer[new]
+    return answers
 
 
 def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> list[dict[str, Any]]:
@@ -124,14 +136,14 @@ def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> l
         try:
             c = canon(items[i])
         except InvalidURL as exc:
-            answers[i]["error"] = exc.reason
+            answers[i]["reason"] = exc.reason
             if stored is not None:
                 # Loaded before, kept as an unparsable raw URL: seen, with its sightings.
                 answers[i].update(seen=True, matched_by="raw_url")
                 raw_only[i] = hashes[i]
             continue
         wanted_keys[i] = c.url_key
-        answers[i].update(canonical=c.url, url_key=c.url_key, domain=c.domain, outlet=c.outlet,
+        answers[i].update(canonical_url=c.url, url_key=c.url_key, domain=c.domain, outlet=c.outlet,
                           matched_by="canonical_url")
         # Not in the registry (the answers of those that are come below): a URL nobody followed stands for
         # itself, unless it is a short link.
@@ -156,7 +168,7 @@ def _lookup_chunk(conn: Connection, canon: Canonicaliser, items: list[str]) -> l
             continue
         n, nd = counts.get(row["id"], (0, 0))
         article_id, story_id = assigned.get(row["id"], (None, None))
-        answers[i].update(canonical=row["url"], url_key=key, domain=row["domain"], outlet=row["outlet"],
+        answers[i].update(canonical_url=row["url"], url_key=key, domain=row["domain"], outlet=row["outlet"],
                           seen=True, sightings=n, datasets=nd, article_id=article_id, story_id=story_id,
                           **final[row["id"]])
     live: dict[int, str] = {}
@@ -179,7 +191,7 @@ def _answer_id(conn: Connection, answer: dict[str, Any], text: str) -> str | Non
     """An article or story ID as input: the live ID it resolves to (returned) and the events on the way."""
     found = clusters.resolve(conn, text)
     if found is None:
-        answer["error"] = "unknown_id"
+        answer["reason"] = "unknown_id"
         return None
     answer.update(seen=True, matched_by=f"{found.level}_id", id_history=[
         {"id": e["cluster_id"], "event": e["event"], "other_id": e["other_id"], "reason": e["reason"],
@@ -220,10 +232,10 @@ def locate(engine: Engine, conn: Connection, ref: str) -> Located:
         founder = conn.execute(sa.select(c.c.url, c.c.outlet).where(c.c.id == founder_id)).one()
         return Located(text, founder_id, founder.url, founder.outlet, f"{res.level}_id", res.current, res.level)
     answer = next(iter(lookup(engine, [text])))
-    if answer["error"] and not answer["url_key"]:
-        raise InputError(f"{text}: not a URL, url key or ID the registry can read ({answer['error']})")
+    if answer["reason"] and not answer["url_key"]:
+        raise InputError(f"{text}: not a URL, url key or ID the registry can read ({answer['reason']})")
     if not answer["seen"] or not answer["url_key"]:
-        raise NotFound(f"{text}: not in the registry (canonical form {answer['canonical']!r}); load it first")
+        raise NotFound(f"{text}: not in the registry (canonical form {answer['canonical_url']!r}); load it first")
     found = conn.execute(sa.select(c.c.id, c.c.url, c.c.outlet).where(c.c.url_key == answer["url_key"])).first()
     if found is None:
         raise NotFound(f"{text}: not in the registry")
@@ -261,7 +273,7 @@ def raws_by_hash(conn: Connection, hashes: Sequence[str]) -> dict[str, dict[str,
     r, c = t.raw_urls, t.canonical_urls
     out: dict[str, dict[str, Any]] = {}
     for part in _chunks(list(dict.fromkeys(hashes))):
-        q = (sa.select(r.c.raw_hash, r.c.error, c.c.id, c.c.url_key, c.c.url, c.c.host, c.c.domain,
+        q = (sa.select(r.c.raw_hash, r.c.reason, c.c.id, c.c.url_key, c.c.url, c.c.host, c.c.domain,
                        c.c.outlet)
              .select_from(r.outerjoin(c, c.c.id == r.c.canonical_id)).where(r.c.raw_hash.in_(part)))
         for row in conn.execute(q).mappings():
@@ -297,5 +309,5 @@ def raw_sighting_counts(conn: Connection, hashes: Sequence[str]) -> dict[str, tu
     return out
 
 
-__all__ = ["LOOKUP_FIELDS", "URL_KEY_RE", "Located", "canonicals_by_key", "ids_by_hash", "is_url_key",
+__all__ = ["LOOKUP_FIELDS", "OLD_FIELDS", "URL_KEY_RE", "Located", "canonicals_by_key", "ids_by_hash", "is_url_key",
            "locate", "lookup", "raw_sighting_counts", "raws_by_hash", "sighting_counts"]

@@ -344,15 +344,22 @@ def documents_of(conn: Connection, canonical_id: int) -> list[dict[str, Any]]:
     """Every document of a canonical URL, oldest first."""
     d = t.documents
     rows = conn.execute(sa.select(d).where(d.c.canonical_id == canonical_id).order_by(d.c.id)).mappings()
-    return [_times(dict(r)) for r in rows]
+    return [_old_names(_times(dict(r))) for r in rows]
+
+
+def _old_names(doc: dict[str, Any]) -> dict[str, Any]:
+    # status and unusable_reason: the old names of state and reason (migration 0022), still given for one
+    # release to what reads a document's fields (documents show; docs/vocabulary.md).
+    doc["status"], doc["unusable_reason"] = doc.get("state"), doc.get("reason")
+    return doc
 
 
 def current_document(conn: Connection, canonical_id: int) -> dict[str, Any] | None:
     """The current document of a canonical URL: its newest usable one (highest id), or None."""
     d = t.documents
-    row = conn.execute(sa.select(d).where(d.c.canonical_id == canonical_id, d.c.status == "usable")
+    row = conn.execute(sa.select(d).where(d.c.canonical_id == canonical_id, d.c.state == "usable")
                        .order_by(d.c.id.desc()).limit(1)).mappings().first()
-    return None if row is None else _times(dict(row))
+    return None if row is None else _old_names(_times(dict(row)))
 
 
 @dataclass(frozen=True)
@@ -389,16 +396,16 @@ def documents_for(engine: Engine, ref: str, *, all_documents: bool = False) -> F
 
 
 def content_totals(conn: Connection) -> dict[str, Any]:
-    """Counts for reports: pages, fetch outcomes by state and class, documents by status and reason."""
+    """Counts for reports: pages, fetch outcomes by state and class, documents by state and reason."""
     p, fr, d = t.pages, t.fetch_results, t.documents
     out: dict[str, Any] = {"pages": int(conn.execute(sa.select(sa.func.count()).select_from(p)).scalar_one()),
                            "fetch": {}, "documents": {}}
     for state, failure, n in conn.execute(sa.select(fr.c.state, fr.c.failure, sa.func.count())
                                           .group_by(fr.c.state, fr.c.failure)):
         out["fetch"].setdefault(state, {})[failure or "-"] = int(n)
-    for status, reason, n in conn.execute(sa.select(d.c.status, d.c.unusable_reason, sa.func.count())
-                                          .group_by(d.c.status, d.c.unusable_reason)):
-        out["documents"].setdefault(status, {})[reason or "-"] = int(n)
+    for state, reason, n in conn.execute(sa.select(d.c.state, d.c.reason, sa.func.count())
+                                         .group_by(d.c.state, d.c.reason)):
+        out["documents"].setdefault(state, {})[reason or "-"] = int(n)
     return out
 
 

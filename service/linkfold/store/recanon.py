@@ -116,7 +116,7 @@ def apply_recanon(conn: Connection, outcomes: Sequence[Recanonicalised], *, vers
     if updates:
         conn.execute(
             t.raw_urls.update().where(t.raw_urls.c.id == sa.bindparam("b_id"))
-            .values(canonical_id=sa.bindparam("b_canonical_id"), error=sa.bindparam("b_error"),
+            .values(canonical_id=sa.bindparam("b_canonical_id"), reason=sa.bindparam("b_error"),
                     ruleset_id=version),
             updates)
     if changes:

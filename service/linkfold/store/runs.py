@@ -73,7 +73,7 @@ def start_run(bind: Bind, stage: str, *, parent_id: int | None = None) -> int:
     schema (:func:`~linkfold.store.migrate.require_schema`) is refused with a clear error."""
     if isinstance(bind, Engine):
         require_schema(bind)
-    stmt = sa.insert(t.runs).values(stage=stage[:40], status=RunStatus.RUNNING.value, parent_id=parent_id,
+    stmt = sa.insert(t.runs).values(stage=stage[:40], state=RunStatus.RUNNING.value, parent_id=parent_id,
                                     started_at=datetime.now(UTC), host=socket.gethostname()[:255],
                                     pid=os.getpid()).returning(t.runs.c.id)
     if isinstance(bind, Engine):
@@ -91,8 +91,8 @@ def finish_run(bind: Bind, run_id: int, *, status: RunStatus | str,
     if error is not None and len(error) > _MAX_ERROR_CHARS:
         error = error[:_MAX_ERROR_CHARS - 1] + "…"
     _execute(bind, sa.update(t.runs).where(t.runs.c.id == run_id).values(
-        status=status.value, finished_at=datetime.now(UTC),
-        counts=dict(counts) if counts is not None else None, error=error))
+        state=status.value, finished_at=datetime.now(UTC),
+        counts=dict(counts) if counts is not None else None, detail=error))
 
 
 def _process_started(pid: int) -> datetime | None:
@@ -114,7 +114,8 @@ def process_gone(row: Mapping[str, Any]) -> bool:
     from .locks import pid_alive
 
     pid, host = row.get("pid"), row.get("host")
-    if row.get("status") != RunStatus.RUNNING.value or pid is None or host != socket.gethostname():
+    # A row read before migration 0022 (or built by a caller) may still say status.
+    if row.get("state", row.get("status")) != RunStatus.RUNNING.value or pid is None or host != socket.gethostname():
         return False
     if pid == os.getpid():
         return False
@@ -130,11 +131,15 @@ def process_gone(row: Mapping[str, Any]) -> bool:
 
 
 def observed(row: dict[str, Any]) -> dict[str, Any]:
-    """``row`` as the run log shows it: a ``running`` run whose process is gone is ``interrupted``."""
+    """``row`` as the run log shows it: a ``running`` run whose process is gone is ``interrupted``.
+
+    The row also carries ``status`` and ``error``, the old names of ``state`` and ``detail`` (migration
+    0022), for one release: the run log's JSON (CLI and API) still gives them (docs/vocabulary.md)."""
     if process_gone(row):
-        row["status"] = RunStatus.INTERRUPTED.value
-        row["error"] = row.get("error") or (f"interrupted: process {row['pid']} on {row['host']} ended without "
-                                            "recording an end")
+        row["state"] = RunStatus.INTERRUPTED.value
+        row["detail"] = row.get("detail") or (f"interrupted: process {row['pid']} on {row['host']} ended "
+                                              "without recording an end")
+    row["status"], row["error"] = row.get("state"), row.get("detail")
     return row
 
 
@@ -239,8 +244,8 @@ def running_runs(engine: Engine, *, other_than: int | None = None) -> list[dict[
     """The runs recorded as ``running`` (id, stage, parent, host, pid, start), as stored: no
     :func:`observed` applied, so a caller can tell a dead process's run from a live one itself."""
     r = t.runs
-    q = (sa.select(r.c.id, r.c.stage, r.c.status, r.c.parent_id, r.c.host, r.c.pid, r.c.started_at)
-         .where(r.c.status == RunStatus.RUNNING.value))
+    q = (sa.select(r.c.id, r.c.stage, r.c.state, r.c.parent_id, r.c.host, r.c.pid, r.c.started_at)
+         .where(r.c.state == RunStatus.RUNNING.value))
     if other_than is not None:
         q = q.where(r.c.id != other_than)
     with engine.connect() as conn:

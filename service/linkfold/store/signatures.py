@@ -25,7 +25,7 @@ SHORT_REASONS = ("too_short", "empty")
 def takes_part() -> sa.ColumnElement[bool]:
     """Documents that take part in finding copies: the usable ones, and the short or empty ones."""
     d = t.documents
-    return sa.or_(d.c.status == "usable", sa.and_(d.c.status == "no_text", d.c.unusable_reason.in_(SHORT_REASONS)))
+    return sa.or_(d.c.state == "usable", sa.and_(d.c.state == "no_text", d.c.reason.in_(SHORT_REASONS)))
 
 
 def count_taking_part(conn: Connection, claim: pq.Claim) -> int:
@@ -43,14 +43,14 @@ def with_usable(conn: Connection, canonical_ids: Sequence[int]) -> set[int]:
     out: set[int] = set()
     for part in chunks(canonical_ids):
         out.update(int(c) for c in conn.execute(sa.select(d.c.canonical_id).distinct()
-                                                .where(d.c.canonical_id.in_(part), d.c.status == "usable")).scalars())
+                                                .where(d.c.canonical_id.in_(part), d.c.state == "usable")).scalars())
     return out
 
 
 def signing_batch(conn: Connection, claim: pq.Claim, after: int, limit: int) -> Sequence[Any]:
     """The next ``limit`` documents of ``claim`` that take part, with ids above ``after``, in id order."""
     d = t.documents
-    return conn.execute(sa.select(d.c.id, d.c.canonical_id, d.c.text, d.c.title, d.c.published, d.c.status)
+    return conn.execute(sa.select(d.c.id, d.c.canonical_id, d.c.text, d.c.title, d.c.published, d.c.state)
                         .where(takes_part(), d.c.id > after, claim.where(d.c.id))
                         .order_by(d.c.id).limit(limit)).all()
 
@@ -59,9 +59,9 @@ def newest_taking_part(conn: Connection, canonical_ids: Sequence[int]) -> Iterab
     """(canonical id, status, newest document id) per canonical URL and status, over the whole table."""
     d = t.documents
     for part in chunks(canonical_ids):
-        for cid, status, top in conn.execute(sa.select(d.c.canonical_id, d.c.status, sa.func.max(d.c.id))
+        for cid, status, top in conn.execute(sa.select(d.c.canonical_id, d.c.state, sa.func.max(d.c.id))
                                              .where(d.c.canonical_id.in_(part), takes_part())
-                                             .group_by(d.c.canonical_id, d.c.status)):
+                                             .group_by(d.c.canonical_id, d.c.state)):
             yield int(cid), status, int(top)
 
 

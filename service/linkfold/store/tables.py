@@ -35,12 +35,12 @@ runs = sa.Table(
     "runs", metadata,
     sa.Column("id", sa.Integer, primary_key=True),
     sa.Column("stage", sa.String(40), nullable=False),
-    sa.Column("status", sa.String(20), nullable=False),  # running | ok | failed | interrupted
+    sa.Column("state", sa.String(20), nullable=False),  # running | ok | failed | interrupted
     sa.Column("parent_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
     sa.Column("started_at", UTC, nullable=False),
     sa.Column("finished_at", UTC, nullable=True),
     sa.Column("counts", sa.JSON, nullable=True),
-    sa.Column("error", sa.Text, nullable=True),
+    sa.Column("detail", sa.Text, nullable=True),  # why it failed, for people (migration 0022: was error)
     sa.Column("host", sa.String(255), nullable=True),
     sa.Column("pid", sa.Integer, nullable=True),
     sa.Index("ix_runs_stage_started", "stage", "started_at"),
@@ -87,7 +87,7 @@ dataset_files = sa.Table(
     sa.Column("size_bytes", sa.BigInteger, nullable=False),
     sa.Column("format", sa.String(20), nullable=False),
     sa.Column("options", sa.JSON, nullable=True),  # url/key/time columns as given
-    sa.Column("status", sa.String(20), nullable=False),  # loading | complete
+    sa.Column("state", sa.String(20), nullable=False),  # loading | complete
     sa.Column("ruleset_id", sa.Integer, sa.ForeignKey("rulesets.id"), nullable=True),
     sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=True),
     sa.Column("rows", sa.BigInteger, nullable=False, server_default="0"),
@@ -136,10 +136,10 @@ raw_urls = sa.Table(
     sa.Column("id", ID, primary_key=True),
     sa.Column("raw_hash", sa.String(64), nullable=False, unique=True),  # SHA-256 hex of the UTF-8 text
     sa.Column("raw", sa.Text, nullable=False),
-    # The canonical URL in force and the ruleset that produced it; NULL with ``error`` for unparsable.
+    # The canonical URL in force and the ruleset that produced it; NULL with ``reason`` for unparsable.
     sa.Column("canonical_id", ID, sa.ForeignKey("canonical_urls.id"), nullable=True),
     sa.Column("ruleset_id", sa.Integer, sa.ForeignKey("rulesets.id"), nullable=True),
-    sa.Column("error", sa.String(40), nullable=True),
+    sa.Column("reason", sa.String(40), nullable=True),  # the canonicaliser's key (0022: was error)
     sa.Column("created_at", UTC, nullable=False),
     sa.Index("ix_raw_urls_canonical_id", "canonical_id"),
 )
@@ -315,8 +315,8 @@ fetch_results = sa.Table(
 )
 
 # One document per page and extractor version, or per loaded record (``page_id`` NULL,
-# ``record_sha256`` set so a reloaded file adds nothing). ``status`` is usable | no_text; a no_text row
-# keeps its ``unusable_reason`` and no text. The current document of a canonical URL is its newest usable
+# ``record_sha256`` set so a reloaded file adds nothing). ``state`` is usable | no_text; a no_text row
+# keeps its ``reason`` and no text. The current document of a canonical URL is its newest usable
 # row (docs/content.md).
 documents = sa.Table(
     "documents", metadata,
@@ -334,8 +334,8 @@ documents = sa.Table(
     sa.Column("declared_canonical", sa.Text, nullable=True),
     sa.Column("og_url", sa.Text, nullable=True),
     sa.Column("amp_url", sa.Text, nullable=True),
-    sa.Column("status", sa.String(20), nullable=False),
-    sa.Column("unusable_reason", sa.String(30), nullable=True),
+    sa.Column("state", sa.String(20), nullable=False),  # usable | no_text (migration 0022: was status)
+    sa.Column("reason", sa.String(30), nullable=True),  # why no_text (0022: was unusable_reason)
     sa.Column("extractor_version", sa.String(80), nullable=False),
     sa.Column("source", sa.Text, nullable=False),
     sa.Column("record_sha256", sa.String(64), nullable=True),

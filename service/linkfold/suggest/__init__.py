@@ -3,7 +3,7 @@
 :func:`suggest_rules_file` is what ``linkfold rules suggest`` runs: it reads the stored URLs, pages, texts
 and redirects (learn.py, evidence.py), writes a rules file that keeps the ruleset in force and adds each
 proposal with its evidence beside it (write.py), and with ``diff`` measures what the file would change
-(diff.py). Nothing in the registry is written; applying is ``linkfold rules add FILE`` and the
+(diff.py). Nothing in the registry is written; applying is ``linkfold rules load FILE`` and the
 re-canonicalisation stage (``linkfold recanonicalize``, which the nightly job runs first). The method and its limits: docs/rule-suggestions.md.
 """
 
@@ -40,7 +40,7 @@ class SuggestResult:
     def lines(self) -> list[str]:
         out = self.suggestions.lines()
         if self.path is not None:
-            out.append(f"  written to {self.path}; review it, then: linkfold rules add {self.path} && "
+            out.append(f"  written to {self.path}; review it, then: linkfold rules load {self.path} && "
                        "linkfold recanonicalize")
         return out
 

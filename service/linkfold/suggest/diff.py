@@ -104,7 +104,7 @@ def diff_rules(conn: Connection, old: Ruleset, new: Ruleset, *, cache_size: int 
     touched: set[str] = set()
     total = conn.execute(sa.select(sa.func.count()).select_from(t.raw_urls)).scalar_one()
     progress.start("comparing stored URLs under both rulesets", int(total))
-    q = sa.select(t.raw_urls.c.raw).where(t.raw_urls.c.error.is_(None)).order_by(t.raw_urls.c.id)
+    q = sa.select(t.raw_urls.c.raw).where(t.raw_urls.c.reason.is_(None)).order_by(t.raw_urls.c.id)
     for (raw,) in conn.execution_options(yield_per=10_000).execute(q):
         progress.advance()
         try:

@@ -62,7 +62,7 @@ def stream_urls(conn: Connection, *, domains: list[str] | None = None) -> Iterat
     here: a grouped subquery over all documents would be materialised whole (SQLite builds it, with an
     index, before the first row), which made memory grow with the registry."""
     c, d = t.canonical_urls, t.documents
-    q = (sa.select(c.c.id, c.c.url, c.c.host, c.c.domain, d.c.status, d.c.unusable_reason, d.c.text_hash)
+    q = (sa.select(c.c.id, c.c.url, c.c.host, c.c.domain, d.c.state, d.c.reason, d.c.text_hash)
          .select_from(c.outerjoin(d, d.c.canonical_id == c.c.id))
          .where(c.c.domain.is_not(None), c.c.id.not_in(_retired()))
          .order_by(c.c.domain, c.c.host, c.c.id))
@@ -81,9 +81,9 @@ def stream_urls(conn: Connection, *, domains: list[str] | None = None) -> Iterat
 def _folded(rows: list) -> UrlRow:
     """One URL's rows (one per stored document, or one without any) as a labelled URL."""
     first = rows[0]
-    hashes = {r.text_hash for r in rows if r.status == "usable"}
-    usable = bool(hashes) or any(r.status == "usable" for r in rows)
-    negative = any(r.status is not None and r.status != "usable" and r.unusable_reason in NOT_ARTICLE_REASONS
+    hashes = {r.text_hash for r in rows if r.state == "usable"}
+    usable = bool(hashes) or any(r.state == "usable" for r in rows)
+    negative = any(r.state is not None and r.state != "usable" and r.reason in NOT_ARTICLE_REASONS
                    for r in rows)
     label = label_of(first.url, usable, negative)
     text_hash = next(iter(hashes)) if len(hashes) == 1 and label is Label.POSITIVE else None
@@ -129,8 +129,8 @@ def host_counts(conn: Connection, *, domains: list[str] | None = None) -> dict[s
     for host, n, n_off in conn.execute(q):
         if host in out:
             out[host].followed, out[host].off_domain = int(n), int(n_off or 0)
-    usable = sa.case((d.c.status == "usable", d.c.canonical_id))
-    hidden = sa.case((d.c.unusable_reason.in_(HIDING_REASONS), d.c.canonical_id))
+    usable = sa.case((d.c.state == "usable", d.c.canonical_id))
+    hidden = sa.case((d.c.reason.in_(HIDING_REASONS), d.c.canonical_id))
     q = (sa.select(c.c.host, sa.func.count(sa.distinct(d.c.canonical_id)), sa.func.count(sa.distinct(usable)),
                    sa.func.count(sa.distinct(hidden)))
          .select_from(d.join(c, c.c.id == d.c.canonical_id)).where(*where).group_by(c.c.host))
@@ -167,11 +167,11 @@ def shared_texts(conn: Connection, *, domains: list[str] | None = None) -> Itera
     text, streamed: the evidence for host aliases (same text at the same path) and syndication (not)."""
     c, d = t.canonical_urls, t.documents
     base = (sa.select(d.c.text_hash, c.c.host, c.c.url).select_from(d.join(c, c.c.id == d.c.canonical_id))
-            .where(d.c.status == "usable", d.c.text_hash.is_not(None), c.c.id.not_in(_retired())))
+            .where(d.c.state == "usable", d.c.text_hash.is_not(None), c.c.id.not_in(_retired())))
     if domains is not None:
         base = base.where(c.c.domain.in_(domains))
     shared = (sa.select(d.c.text_hash).select_from(d.join(c, c.c.id == d.c.canonical_id))
-              .where(d.c.status == "usable", d.c.text_hash.is_not(None))
+              .where(d.c.state == "usable", d.c.text_hash.is_not(None))
               .group_by(d.c.text_hash).having(sa.func.count(sa.distinct(c.c.host)) > 1))
     q = base.where(d.c.text_hash.in_(shared)).order_by(d.c.text_hash, c.c.host)
     group: list[tuple[str, str]] = []
@@ -206,7 +206,7 @@ def same_path_texts(conn: Connection, host_a: str, host_b: str) -> tuple[int, in
     c, d = t.canonical_urls, t.documents
     texts: dict[str, dict[str, set[str]]] = {host_a: {}, host_b: {}}
     q = (sa.select(c.c.host, c.c.url, d.c.text_hash).select_from(d.join(c, c.c.id == d.c.canonical_id))
-         .where(d.c.status == "usable", d.c.text_hash.is_not(None), c.c.host.in_((host_a, host_b))))
+         .where(d.c.state == "usable", d.c.text_hash.is_not(None), c.c.host.in_((host_a, host_b))))
     for host, url, text_hash in conn.execution_options(yield_per=_BATCH).execute(q):
         texts[host].setdefault(path_of(url), set()).add(text_hash)
     same = differ = 0

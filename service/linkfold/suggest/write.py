@@ -93,7 +93,7 @@ def render(s: Suggestions) -> str:
              f"# it was (version {s.base_version if s.base_version is not None else '— none stored, the defaults'}"
              f", digest {base.digest[:12]}); each proposal is marked \"proposed\" with its evidence.",
              "# Review, delete what you do not want, then:",
-             "#   linkfold rules check FILE && linkfold rules add FILE && linkfold recanonicalize",
+             "#   linkfold rules check FILE && linkfold rules load FILE && linkfold recanonicalize",
              f"# Minimum support: {s.min_support}. Counts are stored canonical URLs; \"usable text\" is an extracted",
              "# article text; \"pages without\" are stored pages that held none (empty, too short, not HTML, video).",
              f"# Scope: {'outlet ' + s.outlet if s.outlet else 'every outlet'}; {s.urls:,} URLs read."]

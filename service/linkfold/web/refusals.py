@@ -34,10 +34,10 @@ def explain_refusal(reason: str | None) -> str:
         return f"{_GUARD_KINDS[reason]}: {ALLOW_HINT}"
     if reason == NEVER_FOLLOW_REASON:
         return ("the rules file lists the host in never_follow_hosts, so nothing was sent: take it off the "
-                "list (linkfold rules add), then linkfold follow --retry-refused")
+                "list (linkfold rules load), then linkfold follow --retry-refused")
     if reason == "robots_file":
         return ("robots.txt disallows linkfold there: no setting overrides a site's robots.txt; ask the "
-                "site, or import expanded links (linkfold follow --import)")
+                "site, or import expanded links (linkfold redirects load)")
     if reason == "robots_unavailable":
         return ("robots.txt could not be read (a server error or no answer), which RFC 9309 §2.3.1.4 makes "
                 "a complete disallow: linkfold follow --retry-refused when the site answers again")

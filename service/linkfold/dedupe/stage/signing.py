@@ -150,7 +150,7 @@ def sign_pending(engine: Engine, params: SignatureParams, *, run_id: int | None,
             full = sg.with_usable(conn, sorted({int(r.canonical_id) for r in batch}))
             newest: dict[int, int] = {}
             for r in batch:
-                if r.status == "usable" or int(r.canonical_id) not in full:
+                if r.state == "usable" or int(r.canonical_id) not in full:
                     newest[int(r.canonical_id)] = max(newest.get(int(r.canonical_id), 0), int(r.id))
             for cid, status, top in sg.newest_taking_part(conn, sorted(newest)):
                 if status == "usable" or cid not in full:
