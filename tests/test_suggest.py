@@ -63,7 +63,7 @@ def test_no_proposed_drop_ever_joins_two_different_texts(world, tmp_path):
     c, d = t.canonical_urls, t.documents
     with world.connect() as conn:
         rows = conn.execute(sa.select(c.c.url, d.c.text_hash).select_from(d.join(c, c.c.id == d.c.canonical_id))
-                            .where(d.c.status == "usable")).all()
+                            .where(d.c.state == "usable")).all()
     for url, text_hash in rows:
         texts[canon(url).url].add(text_hash)
     joined = {u: h for u, h in texts.items() if len(h) > 1}

@@ -29,7 +29,7 @@ DEMO_RULES = Path(__file__).resolve().parents[1] / "fixtures" / "rules" / "demo.
 LISTINGS = ["datasets", "rejects", "runs", "clusters", "decide list", "follow-report", "outlets",
             "outlets report", "outlets versions", "rules list", "settings", "tokens list"]
 STAGES = ["datasets load", "redirects load", "pages load", "documents load", "follow", "fetch", "extract",
-          "dedupe", "nightly"]
+          "dedupe", "recanonicalize", "nightly"]
 
 
 def _command(path: str) -> click.Command:

@@ -6,10 +6,10 @@ from pathlib import Path
 
 import click
 
-from ..compare import COMPARE_FORMATS, DEFAULT_TOP, compare_datasets
+from ..compare import DEFAULT_TOP, compare_datasets
 from ..corpus import CORPUS_FORMATS, LEVELS, MAX_NGRAM, Preparation, write_corpus
 from ..exposure import DEFAULT_MIN_UNITS
-from ._common import Context, common_options, pass_ctx, to_json
+from ._common import Context, common_options, format_option, pass_ctx, write_rows
 
 _MIN_UNITS_HELP = (f"Unit counts of fewer units are given as null (default {DEFAULT_MIN_UNITS}, the floor of "
                    "exposure's aggregate; see docs/exposure.md).")
@@ -24,8 +24,7 @@ _MIN_UNITS_HELP = (f"Unit counts of fewer units are given as null (default {DEFA
               help="Only texts in this language (BCP 47: 'de' takes 'de-AT' too; 'de-AT' only itself).")
 @click.option("--min-words", type=click.IntRange(min=0), default=0, show_default=True, metavar="N",
               help="Only texts of at least N words.")
-@click.option("--format", "fmt", type=click.Choice(CORPUS_FORMATS), default="jsonl", show_default=True,
-              help="jsonl, or parquet (needs --out).")
+@format_option(CORPUS_FORMATS, default="jsonl", help="jsonl, or parquet (needs --out).")
 @click.option("--out", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE",
               help="File to write, replaced when complete (default: stdout, for jsonl).")
 @click.option("--all-urls", is_flag=True,
@@ -75,8 +74,8 @@ def corpus_command(obj: Context, level: str, datasets: tuple[str, ...], language
               help="Count every sighting, not only those whose final URL is an article by the site rules.")
 @click.option("--min-units", type=click.IntRange(min=1), default=DEFAULT_MIN_UNITS, show_default=True,
               metavar="N", help=_MIN_UNITS_HELP)
-@click.option("--format", "fmt", type=click.Choice(COMPARE_FORMATS), default="table", show_default=True,
-              help="table (for people) or jsonl (one object a line, with a 'section' field).")
+@format_option(("table", "json", "jsonl"), help="table (for people); json (one array) or jsonl (one object a "
+                                                  "line), each object with a 'section' field.")
 @common_options
 @pass_ctx
 def compare_command(obj: Context, datasets: tuple[str, ...], level: str, top: int, all_urls: bool,
@@ -96,9 +95,8 @@ def compare_command(obj: Context, datasets: tuple[str, ...], level: str, top: in
     """
     result = compare_datasets(obj.engine(), datasets=list(datasets), level=level, top=top, all_urls=all_urls,
                               min_units=min_units)
-    if fmt == "jsonl":
-        for row in result.lines_json():
-            click.echo(to_json(row))
+    if fmt in ("json", "jsonl"):
+        write_rows(fmt, result.lines_json(), [])
     else:
         click.echo(result.table())
     for line in result.lines():
