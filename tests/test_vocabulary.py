@@ -16,6 +16,7 @@ import sqlalchemy as sa
 
 from linkfold._commands._common import DEPRECATIONS, OUTPUT_FORMATS
 from linkfold.cli import cli, main
+from linkfold.demo import demo_data_dir
 from linkfold.store import make_engine
 from linkfold.store import tables as t
 from linkfold.store.lookup import LOOKUP_FIELDS, OLD_FIELDS
@@ -24,7 +25,7 @@ from linkfold.store.registry import LINK_COLUMNS
 cli.load_all()
 DOCS = Path(__file__).resolve().parents[1] / "docs" / "vocabulary.md"
 WARNING = re.compile(r"^deprecated: use (.+) instead \(the old spelling goes in the next release\)$", re.M)
-DEMO_RULES = Path(__file__).resolve().parents[1] / "fixtures" / "rules" / "demo.toml"
+DEMO_RULES = demo_data_dir() / "rules" / "demo.toml"
 
 LISTINGS = ["datasets", "rejects", "runs", "clusters", "decide list", "follow-report", "outlets",
             "outlets report", "outlets versions", "rules list", "settings", "tokens list"]
