@@ -269,8 +269,13 @@ DEPRECATIONS: dict[str, str] = {
 
 
 def warn_deprecated(new: str) -> None:
-    """The one deprecation line, on stderr. It is printed under -q too: -q keeps a cron job's mail empty
-    unless something needs a person, and a spelling that stops working in the next release does."""
+    """The one deprecation line, on stderr, unless -q: -q promises an empty stderr when nothing went
+    wrong, and scripts written against the old spelling (it is still a working spelling this release)
+    rely on that promise. Every run without -q shows the line."""
+    ctx = click.get_current_context(silent=True)
+    obj = ctx.find_object(Context) if ctx is not None else None
+    if obj is not None and obj.quiet:
+        return
     click.echo(f"deprecated: use {new} instead (the old spelling goes in the next release)", err=True)
 
 
