@@ -19,8 +19,8 @@ from linkfold.cli import cli, main
 from linkfold.demo import demo_data_dir
 from linkfold.store import make_engine
 from linkfold.store import tables as t
-from linkfold.store.lookup import LOOKUP_FIELDS, OLD_FIELDS
 from linkfold.store.linkage import LINK_COLUMNS
+from linkfold.store.lookup import LOOKUP_FIELDS, OLD_FIELDS
 
 cli.load_all()
 DOCS = Path(__file__).resolve().parents[1] / "docs" / "vocabulary.md"
