@@ -288,3 +288,29 @@ def test_the_extraction_stage_stores_the_same_on_every_form(tmp_path: Path, dask
         engine.dispose()
     assert results["processes"] == results["inprocess"]
     assert results["dask"] == results["inprocess"]
+
+
+def test_dedupe_gives_the_same_registry_on_every_form(tmp_path: Path, dask_cluster: str, monkeypatch) -> None:
+    """Signing through the executor, in chunks over the workers, leaves exactly the registry (signatures,
+    band keys, clusters, IDs) that signing in process leaves (tests/dedupe_world.py: near-duplicate
+    families on invented outlets)."""
+    from dedupe_world import bulk_world, registry_snapshot, settings
+    from linkfold.dedupe.stage import run_dedupe, signing
+
+    monkeypatch.setattr(signing, "SIGN_CHUNK", 20)  # several tasks per batch of 50
+    snapshots = {}
+    for name, make in [("inprocess", InProcess), ("processes", lambda: ProcessPool(2)),
+                       ("dask", lambda: make_executor(dask_cluster))]:
+        engine = make_engine(f"sqlite:///{tmp_path / (name + '.db')}")
+        upgrade(engine)
+        (tmp_path / name).mkdir()
+        bulk_world(engine, tmp_path / name, 40)
+        with make() as executor:
+            summary = run_dedupe(engine, settings=settings(), executor=executor)
+        assert summary.signing.signed > 50
+        with engine.connect() as conn:
+            sigs = conn.execute(sa.text("SELECT document_id, signature FROM signatures ORDER BY 1")).all()
+        snapshots[name] = (registry_snapshot(engine), sigs)
+        engine.dispose()
+    assert snapshots["processes"] == snapshots["inprocess"]
+    assert snapshots["dask"] == snapshots["inprocess"]

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
+import numpy as np
+
 from .minhash import SignatureParams, signature_to_bytes, signatures_from_texts
 
 
@@ -17,3 +19,9 @@ def signature_batch(job: tuple[SignatureParams, Sequence[str]]) -> list[bytes]:
     params, texts = job
     signatures = signatures_from_texts(texts, params)
     return [signature_to_bytes(row, params) for row in signatures]
+
+
+def signature_rows(job: tuple[SignatureParams, Sequence[str]]) -> np.ndarray:
+    """``(parameters, texts)`` → one signature per text as rows of an array (what the stage bands)."""
+    params, texts = job
+    return signatures_from_texts(texts, params)

@@ -20,6 +20,7 @@ from typing import Any
 
 from sqlalchemy.engine import Engine
 
+from ...executor import Executor
 from ...progress import SILENT, Progress
 from ...settings import Settings
 from ...store import pending as pq
@@ -105,20 +106,22 @@ def count_pending(engine: Engine, *, settings: Settings | None = None) -> int:
 
 
 def run_dedupe(engine: Engine, *, settings: Settings, full: bool = False, parent_run: int | None = None,
-               progress: Progress = SILENT) -> DedupeSummary:
+               progress: Progress = SILENT, executor: Executor | None = None) -> DedupeSummary:
     """Sign, match, verify and cluster everything pending; with ``full``, match every current document
     again and recluster the whole registry (after lowering a threshold; also the benchmark baseline).
 
     Holds the registry lock for the run: raises :class:`~linkfold.errors.LockHeld`, naming the holder,
     while another process holds it. ``parent_run`` is the run this one is a step of (a job's).
+    Signing goes through ``executor`` (default: the one the settings choose for the work pending).
     """
     require_schema(engine)
     with hold_lock(engine, reentrant=True):
-        return _run_dedupe(engine, settings=settings, full=full, parent_run=parent_run, progress=progress)
+        return _run_dedupe(engine, settings=settings, full=full, parent_run=parent_run, progress=progress,
+                           executor=executor)
 
 
 def _run_dedupe(engine: Engine, *, settings: Settings, full: bool, parent_run: int | None,
-                progress: Progress) -> DedupeSummary:
+                progress: Progress, executor: Executor | None) -> DedupeSummary:
     params = SignatureParams.from_settings(settings)
     thresholds = Thresholds.from_settings(settings)
     summary = DedupeSummary(full=full)
@@ -134,7 +137,8 @@ def _run_dedupe(engine: Engine, *, settings: Settings, full: bool, parent_run: i
         elif full:
             with engine.begin() as conn:
                 pq.reset(conn, MATCHED, run_id=run.id)
-        signed = sign_pending(engine, params, run_id=run.id, batch_size=settings.batch_size, progress=progress)
+        signed = sign_pending(engine, params, run_id=run.id, batch_size=settings.batch_size, progress=progress,
+                              settings=settings, executor=executor)
         summary.signing.signed += signed.signed
         summary.signing.empty += signed.empty
         summary.signing.superseded += signed.superseded

@@ -27,10 +27,12 @@ import logging
 import time
 import zlib
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from sqlalchemy.engine import Connection, Engine
 
+from ...executor import Executor, executor_for
 from ...progress import SILENT, Progress
 from ...store import pending as pq
 from ...store import signatures as sg
@@ -128,13 +130,45 @@ def backfill_title_keys(engine: Engine, *, run_id: int | None, batch_size: int) 
     return written
 
 
+#: Below this many documents to sign, ``auto`` signs in process: signing is fast (docs/dedupe.md §9) and
+#: starting workers costs more than a few thousand signatures take.
+SIGN_MIN_WORK = 5000
+#: Texts per task handed to a worker.
+SIGN_CHUNK = 500
+
+
+def _signatures(texts: list[str], params: SignatureParams, runner: Executor) -> np.ndarray:
+    """Signatures of ``texts`` in order, in chunks over the executor's workers (in process: one call)."""
+    if runner.workers <= 1 or len(texts) <= SIGN_CHUNK:
+        return signatures_from_texts(texts, params)
+    from ..batch import signature_rows
+
+    jobs = ((params, texts[lo:lo + SIGN_CHUNK]) for lo in range(0, len(texts), SIGN_CHUNK))
+    return np.vstack(list(runner.map(signature_rows, jobs)))
+
+
 def sign_pending(engine: Engine, params: SignatureParams, *, run_id: int | None, batch_size: int,
-                 progress: Progress = SILENT) -> SignCounts:
+                 progress: Progress = SILENT, settings: Any = None,
+                 executor: Executor | None = None) -> SignCounts:
+    """Sign the documents pending; the shingling and MinHash go through ``executor`` (default: the one
+    the settings choose for this much work), the writes stay here."""
     counts = SignCounts()
     counts.titled = backfill_title_keys(engine, run_id=run_id, batch_size=batch_size)
     with engine.connect() as conn:
         todo = pq.claim(conn, SIGNED)
         total = sg.count_taking_part(conn, todo)
+    owned = executor is None
+    runner = executor or executor_for(settings, work=total, min_work=SIGN_MIN_WORK)
+    try:
+        return _sign(engine, params, counts, todo, total, run_id=run_id, batch_size=batch_size,
+                     progress=progress, runner=runner)
+    finally:
+        if owned:
+            runner.close()
+
+
+def _sign(engine: Engine, params: SignatureParams, counts: SignCounts, todo: Any, total: int, *,
+          run_id: int | None, batch_size: int, progress: Progress, runner: Executor) -> SignCounts:
     progress.start("signing documents", total)
     started = time.monotonic()
     after = 0
@@ -160,7 +194,7 @@ def sign_pending(engine: Engine, params: SignatureParams, *, run_id: int | None,
             chosen = [(i, txt) for i, txt in chosen if i not in already]
             ids = [i for i, _ in chosen]
             if chosen:
-                sigs = signatures_from_texts([txt for _, txt in chosen], params)
+                sigs = _signatures([txt for _, txt in chosen], params, runner)
                 stamp = now()
                 sg.add_signatures(conn, [{"document_id": i, "params": params.band_token,
                                           "signature": signature_to_bytes(sigs[r], params),
