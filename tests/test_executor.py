@@ -18,7 +18,7 @@ from pathlib import Path
 import pytest
 import sqlalchemy as sa
 
-from linkfold.canon import Canonical, load_rules, parse_rules
+from linkfold.canon import Canonical, load_rules
 from linkfold.canon.batch import canonicalize_batch
 from linkfold.content.batch import ExtractJob, extract_batch
 from linkfold.content.pages import Page
@@ -28,27 +28,14 @@ from linkfold.errors import ConfigError
 from linkfold.executor import InProcess, ProcessPool, _ordered, choose, make_executor
 from linkfold.store import make_engine, upgrade
 
+# every common-practice fold off: the RFC's own examples in the case file are checked as written there
+from test_canon_cases import SYNTAX_ONLY
+
 ROOT = Path(__file__).resolve().parent.parent
 CASES = ROOT / "tests" / "cases" / "canon.tsv"
 PAGES = ROOT / "service" / "linkfold" / "demo_data" / "pages"
 
 
-# Every common-practice fold off, as tests/test_canon_cases.py does: what is left is RFC 3986 §6.2.2/§6.2.3
-# and the WHATWG serialisation, so the RFC's own examples in the case file are checked as written.
-SYNTAX_ONLY = parse_rules("""
-[steps]
-redirect_wrappers = false
-amp_cache = false
-host_prefixes = false
-https = false
-session_ids = false
-tracking_params = false
-amp = false
-print_view = false
-index_documents = false
-trailing_slash = false
-sort_params = false
-""", source="syntax-only")
 
 
 def _syntax_cases() -> list[tuple[str, str]]:
