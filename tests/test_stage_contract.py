@@ -81,7 +81,7 @@ def _check(engine, mod, summary, parent: int, before: int, *, drains: bool) -> N
     assert lines and all(isinstance(line, str) and line for line in lines)
     with engine.connect() as conn:
         run = conn.execute(sa.select(t.runs).where(t.runs.c.id == summary.run_id)).mappings().one()
-    assert run["parent_id"] == parent and run["stage"] == mod.STAGE and run["status"] == "ok"
+    assert run["parent_id"] == parent and run["stage"] == mod.STAGE and run["state"] == "ok"
     assert run["counts"] == json.loads(text)  # the run log holds what as_dict() says
     after = mod.count_pending(engine)
     assert isinstance(after, int) and after >= 0

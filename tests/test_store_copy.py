@@ -66,7 +66,7 @@ def test_encoded_rows_read_back_as_the_rows_and_are_what_the_server_writes(pg_ur
         with engine.begin() as conn:
             conn.exec_driver_sql("INSERT INTO datasets (id, name, created_at) VALUES (1, 'd', now())")
             conn.exec_driver_sql("INSERT INTO dataset_files (id, dataset_id, file_name, sha256, size_bytes, format, "
-                                 "status, started_at) VALUES (2, 1, 'f', 'x', 0, 'csv', 'loading', now())")
+                                 "state, started_at) VALUES (2, 1, 'f', 'x', 0, 'csv', 'loading', now())")
             ready = bulk.BinaryRows(t.sightings, SIGHTING_COLUMNS).encode(ROWS[:2])
             # Two rows encoded ahead, one given as a tuple: both kinds in one COPY.
             assert bulk.insert_tuples(conn, t.sightings, SIGHTING_COLUMNS, ROWS[2:], binary=True,
@@ -128,7 +128,7 @@ def test_a_load_leaves_the_same_registry_with_and_without_encoding_ahead(pg_serv
                                   unit_column="person", pseudonym_key=b"k" * 32, batch_size=64, cache_size=16)
             with engine.connect() as conn:
                 rows = conn.execute(sa.text(
-                    "SELECT s.line_no, s.position, s.row_key, s.seen_at, r.raw, r.error, c.url, s.unit FROM sightings s "
+                    "SELECT s.line_no, s.position, s.row_key, s.seen_at, r.raw, r.reason, c.url, s.unit FROM sightings s "
                     "JOIN raw_urls r ON r.id = s.raw_url_id LEFT JOIN canonical_urls c ON c.id = r.canonical_id "
                     "ORDER BY s.line_no, s.position")).all()
                 tallies = [conn.execute(sa.text(f"SELECT count(*) FROM {name}")).scalar_one()
@@ -159,7 +159,7 @@ def test_sqlite_bulk_rows_are_stored_as_an_orm_insert_stores_them(tmp_path):
     with engine.begin() as conn:
         conn.exec_driver_sql("INSERT INTO datasets (id, name, created_at) VALUES (1, 'd', '2031-05-04 00:00:00')")
         conn.exec_driver_sql("INSERT INTO dataset_files (id, dataset_id, file_name, sha256, size_bytes, format, "
-                             "status, started_at) VALUES (2, 1, 'f', 'x', 0, 'csv', 'loading', '2031-05-04 00:00:00')")
+                             "state, started_at) VALUES (2, 1, 'f', 'x', 0, 'csv', 'loading', '2031-05-04 00:00:00')")
         conn.exec_driver_sql("INSERT INTO raw_urls (id, raw_hash, raw, created_at) VALUES "
                              "(7, 'a', 'u', '2031-05-04 00:00:00'), (1, 'b', 'v', '2031-05-04 00:00:00'), "
                              "(2000000000, 'c', 'w', '2031-05-04 00:00:00')")
