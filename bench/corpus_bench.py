@@ -49,7 +49,7 @@ def build(url: str, *, stories: int) -> float:
             "VALUES (1, 'bench', 'bench', '', 'bench', 'bench', now())")
         for d in (1, 2):
             run(f"INSERT INTO datasets (id, name, created_at, ruleset_id) VALUES ({d}, 'bench-{d}', now(), 1)")
-            run(f"INSERT INTO dataset_files (id, dataset_id, file_name, sha256, size_bytes, format, status, "
+            run(f"INSERT INTO dataset_files (id, dataset_id, file_name, sha256, size_bytes, format, state, "
                 f"started_at, loaded_at) VALUES ({d}, {d}, 'generated', 'x{d}', 0, 'csv', 'complete', now(), now())")
         # Story k has copies j = 0 .. mod(k, 3); URL id = 3k + j + 1, on outlet mod(k + j, 50).
         run("CREATE TEMP TABLE copies AS SELECT k, j, 3 * k + j + 1 AS id, mod(k + j, 50) AS o "
@@ -70,7 +70,7 @@ def build(url: str, *, stories: int) -> float:
             "SELECT 'story', id, 's' || lpad(k::text, 8, '0') FROM copies")
         # About 2 KB of text a story, the same for its copies; the first copy is the earliest published.
         run("INSERT INTO documents (canonical_id, title, text, text_hash, word_count, published, language, "
-            "status, extractor_version, source, created_at) "
+            "state, extractor_version, source, created_at) "
             "SELECT id, 'Story ' || k, repeat(md5(k::text) || ' ', 62), md5(k::text), 62, "
             "timestamptz '2031-01-01' + (k || ' minutes')::interval + (j || ' hours')::interval, 'en', "
             "'usable', 'bench', 'bench', now() FROM copies")

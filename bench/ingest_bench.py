@@ -131,7 +131,7 @@ def schema_floor(url: str, urls_path: Path, rows: int) -> float:
         with engine.begin() as conn:
             conn.exec_driver_sql("INSERT INTO datasets (name, created_at) VALUES ('floor', now())")
             conn.exec_driver_sql("INSERT INTO dataset_files (dataset_id, file_name, sha256, size_bytes, format, "
-                                 "status, started_at) VALUES (1, 'floor', 'floor', 0, 'csv', 'loading', now())")
+                                 "state, started_at) VALUES (1, 'floor', 'floor', 0, 'csv', 'loading', now())")
             ids: dict[str, int] = {}
             with urls_path.open(encoding="utf-8") as fh:
                 order = [ids.setdefault(line.rstrip("\n"), len(ids) + 1) for line in fh]

@@ -53,7 +53,7 @@ def build(url: str, *, rows: int, units: int, outlets: int, urls: int) -> float:
         run("INSERT INTO rulesets (id, name, digest, source, canon_version, psl_version, created_at) "
             "VALUES (1, 'bench', 'bench', '', 'bench', 'bench', now())")
         run("INSERT INTO datasets (id, name, created_at, ruleset_id) VALUES (1, 'bench', now(), 1)")
-        run("INSERT INTO dataset_files (id, dataset_id, file_name, sha256, size_bytes, format, status, "
+        run("INSERT INTO dataset_files (id, dataset_id, file_name, sha256, size_bytes, format, state, "
             "started_at, loaded_at) VALUES (1, 1, 'generated', 'x', 0, 'csv', 'complete', now(), now())")
         # URL i belongs to outlet (i - 1) / per; every tenth is a page that is not an article.
         run(f"INSERT INTO canonical_urls (id, url_key, url, host, domain, outlet, is_article, ruleset_id, created_at) "
