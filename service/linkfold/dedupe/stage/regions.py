@@ -328,7 +328,7 @@ def cluster_seeds(engine: Engine, level: str, seeds: Iterable[int], thresholds: 
     done: set[int] = set()
     with engine.connect() as conn:
         judge = SinkJudge.load(conn, settings)
-    progress.start(f"clustering {level}s", len(ordered))
+    progress.start(f"clustering {'stories' if level == 'story' else level + 's'}", len(ordered))
     for i in range(0, len(ordered), per_transaction):
         group = [s for s in ordered[i:i + per_transaction] if s not in done]
         if group:
