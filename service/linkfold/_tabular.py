@@ -8,12 +8,13 @@ from __future__ import annotations
 
 import json
 import os
+import sys
 import tempfile
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from datetime import datetime
 from pathlib import Path
-from typing import Any
+from typing import IO, Any
 
 from .errors import InputError
 
@@ -49,3 +50,27 @@ def atomic_path(out: Path) -> Iterator[Path]:
     except BaseException:
         tmp_path.unlink(missing_ok=True)
         raise
+
+
+def write_out(out: str | Path | IO[str] | None, *, text: Callable[[IO[str]], int],
+              binary: Callable[[Path], int] | None = None, newline: str = "") -> tuple[int, str | None]:
+    """Write a table to ``out`` and return (rows written, the path written or None).
+
+    A path is written beside itself and renamed when complete (:func:`atomic_path`): by ``binary`` when
+    given (a Parquet writer opens the file itself), else by ``text`` on the file opened as UTF-8. An open
+    text stream, or ``None`` for stdout, gets ``text`` and is flushed. One place for the rule every table
+    writer follows: a reader never sees half a file.
+    """
+    if isinstance(out, str | Path):
+        path = Path(out)
+        with atomic_path(path) as tmp:
+            if binary is not None:
+                n = binary(tmp)
+            else:
+                with tmp.open("w", encoding="utf-8", newline=newline) as fh:
+                    n = text(fh)
+        return n, str(path)
+    stream = out if out is not None else sys.stdout
+    n = text(stream)
+    stream.flush()
+    return n, None

@@ -9,7 +9,6 @@ lists of text, ``datasets`` a list of structs.
 from __future__ import annotations
 
 import json
-import sys
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from datetime import datetime
@@ -18,7 +17,7 @@ from typing import IO, Any
 
 from sqlalchemy.engine import Engine
 
-from .._tabular import atomic_path
+from .._tabular import write_out
 from ..errors import ConfigError, InputError
 from ..exposure import DEFAULT_MIN_UNITS
 from ..progress import SILENT, Progress
@@ -141,20 +140,8 @@ def write_corpus(engine: Engine, *, datasets: Sequence[str] | None = None, level
                             all_urls=all_urls, min_units=min_units, preparation=preparation)
     progress.start(f"corpus by {level} (records)")
     try:
-        if isinstance(out, str | Path):
-            path = Path(out)
-            with atomic_path(path) as tmp:
-                if fmt == "parquet":
-                    n = _write_parquet(corpus, tmp, progress)
-                else:
-                    with tmp.open("w", encoding="utf-8", newline="\n") as fh:
-                        n = _write_jsonl(corpus, fh, progress)
-            where: str | None = str(path)
-        else:
-            stream = out if out is not None else sys.stdout
-            n = _write_jsonl(corpus, stream, progress)
-            stream.flush()
-            where = None
+        n, where = write_out(out, text=lambda fh: _write_jsonl(corpus, fh, progress), newline="\n",
+                             binary=(lambda tmp: _write_parquet(corpus, tmp, progress)) if fmt == "parquet" else None)
     finally:
         corpus.records.close()  # type: ignore[attr-defined]
         progress.finish()

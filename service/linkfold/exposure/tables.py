@@ -6,7 +6,6 @@ from __future__ import annotations
 
 import csv
 import json
-import sys
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime
@@ -16,7 +15,7 @@ from typing import IO, Any
 import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 
-from .._tabular import atomic_path, csv_cell
+from .._tabular import csv_cell, write_out
 from ..errors import ConfigError
 from ..outlets import outlet_attributes as attributes_in_force
 from ..outlets import outlet_columns
@@ -232,20 +231,8 @@ def write_exposure(engine: Engine, *, datasets: Sequence[str], level: str = "out
     table = exposure_rows(engine, datasets=datasets, level=level, by=by, all_urls=all_urls)
     progress.start(f"exposure by {level} (rows)")
     try:
-        if isinstance(out, str | Path):
-            path = Path(out)
-            with atomic_path(path) as tmp:
-                if fmt == "parquet":
-                    n = _write_parquet(table, tmp, progress)
-                else:
-                    with tmp.open("w", encoding="utf-8", newline="") as fh:
-                        n = _write_text(table, fmt, fh, progress)
-            where: str | None = str(path)
-        else:
-            stream = out if out is not None else sys.stdout
-            n = _write_text(table, fmt, stream, progress)
-            stream.flush()
-            where = None
+        n, where = write_out(out, text=lambda fh: _write_text(table, fmt, fh, progress),
+                             binary=(lambda tmp: _write_parquet(table, tmp, progress)) if fmt == "parquet" else None)
     finally:
         table.rows.close()  # type: ignore[attr-defined]
         progress.finish()

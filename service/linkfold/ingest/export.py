@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import csv
 import json
-import sys
 from collections.abc import Iterator
 from dataclasses import dataclass
 from datetime import datetime
@@ -19,7 +18,7 @@ from typing import IO, Any
 
 from sqlalchemy.engine import Engine
 
-from .._tabular import atomic_path, csv_cell
+from .._tabular import csv_cell, write_out
 from ..errors import ConfigError
 from ..progress import SILENT, Progress
 from ..store.datasets import dataset_files, get_dataset
@@ -132,20 +131,9 @@ def export_dataset(engine: Engine, dataset: str, *, fmt: str = "csv", out: str |
         progress.start(f"export {dataset}", total=total)
         rows = iter_links(conn, ds)
         try:
-            if isinstance(out, str | Path):
-                path = Path(out)
-                with atomic_path(path) as tmp:
-                    if fmt == "parquet":
-                        n = _write_parquet(rows, tmp, progress, row_group)
-                    else:
-                        with tmp.open("w", encoding="utf-8", newline="") as fh:
-                            n = _write_text(rows, fmt, fh, progress)
-                where: str | None = str(path)
-            else:
-                stream = out if out is not None else sys.stdout
-                n = _write_text(rows, fmt, stream, progress)
-                stream.flush()
-                where = None
+            n, where = write_out(
+                out, text=lambda fh: _write_text(rows, fmt, fh, progress),
+                binary=(lambda tmp: _write_parquet(rows, tmp, progress, row_group)) if fmt == "parquet" else None)
         finally:
             progress.finish()
     return ExportSummary(dataset=dataset, format=fmt, rows=n, out=where)
